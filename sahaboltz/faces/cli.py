@@ -1,0 +1,48 @@
+"""The ``sahaboltz`` command: a thin face over the Python API.
+
+Each subcommand group lives in its own module under ``sahaboltz.faces`` and exposes
+``register(subparsers)``; add a new group by listing its module in ``COMMAND_MODULES``.
+Every command can print a readable table or machine-readable CSV / JSON (``--format``).
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from sahaboltz import __version__
+from sahaboltz.errors import SahaboltzError
+
+#: modules that add subcommands, in the order they appear in ``--help``
+COMMAND_MODULES = [
+    "sahaboltz.faces.cmd_species",
+]
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="sahaboltz",
+        description="LTE ionization and excitation equilibrium (Saha-Boltzmann) of gas mixtures.")
+    parser.add_argument("--version", action="version", version=f"sahaboltz {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+    for name in COMMAND_MODULES:
+        importlib.import_module(name).register(sub)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.func(args) or 0)
+    except SahaboltzError as exc:
+        print(f"sahaboltz: error: {exc}", file=sys.stderr)
+        return 2
+    except BrokenPipeError:  # e.g. piped into head
+        return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
