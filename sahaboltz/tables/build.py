@@ -1,0 +1,197 @@
+"""Chunked table builds on all cores, with bounded memory and an atomic final write.
+
+The grid is cut into rectangular blocks of at most ``chunk_states`` states.  Each block is handed
+to a *compute function* ``compute(spec, T, P) -> {name: array}`` (flat 1-D arrays of the block's
+states in, same-length arrays out) in a worker process; the parent writes finished blocks into a
+temporary HDF5 file as they arrive.  At most two blocks per worker are in flight, so memory is
+bounded by the chunk size, not the grid size.  Only a finished, flushed file is renamed into
+place (``os.replace``), so a build that fails or is killed never leaves a half table at ``path``.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+import os
+import sys
+import time
+import uuid
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from pathlib import Path
+from typing import Any, Callable, Iterator, Mapping
+
+import numpy as np
+
+from sahaboltz.errors import InputError, TableError
+from sahaboltz.tables.hdf5 import TableWriter
+from sahaboltz.tables.spec import TableSpec
+
+ComputeFn = Callable[[TableSpec, np.ndarray, np.ndarray], Mapping[str, np.ndarray]]
+
+#: default states per block: ~tens of MB per block for a solar mixture with all stage fractions
+DEFAULT_CHUNK_STATES = 16384
+
+Block = tuple[int, int, int, int]
+
+
+def blocks(shape: tuple[int, int], chunk_states: int) -> list[Block]:
+    """Cut a ``(nT, nP)`` grid into blocks ``(i0, i1, j0, j1)`` of at most ``chunk_states`` states."""
+    if chunk_states < 1:
+        raise InputError(f"chunk_states must be >= 1, got {chunk_states}")
+    nt, np_ = shape
+    cols = min(np_, chunk_states)
+    rows = max(1, min(nt, chunk_states // cols))
+    return [(i, min(i + rows, nt), j, min(j + cols, np_))
+            for i in range(0, nt, rows) for j in range(0, np_, cols)]
+
+
+def block_states(spec: TableSpec, block: Block) -> tuple[np.ndarray, np.ndarray]:
+    """Flat (T, P) arrays of the states in ``block``, row-major (T slowest)."""
+    i0, i1, j0, j1 = block
+    t, p = np.meshgrid(spec.temperature.array[i0:i1], spec.pressure.array[j0:j1], indexing="ij")
+    return t.ravel(), p.ravel()
+
+
+def _run_block(compute: ComputeFn, spec: TableSpec, block: Block):
+    t, p = block_states(spec, block)
+    out = dict(compute(spec, t, p))
+    n = t.size
+    for name, arr in out.items():
+        if name == "_attrs":
+            continue
+        arr = np.asarray(arr)
+        if arr.shape != (n,):
+            raise TableError(f"compute function returned {name} with shape {arr.shape}; "
+                             f"expected ({n},) for a block of {n} states")
+        if not np.all(np.isfinite(arr)):
+            raise TableError(f"compute function returned non-finite {name} in block {block}")
+        out[name] = arr
+    return block, out
+
+
+def default_compute() -> ComputeFn:
+    """The compute function backed by the equilibrium solver."""
+    from sahaboltz.tables.compute import solver_compute
+    return solver_compute
+
+
+class Progress:
+    """A one-line progress bar on stderr (shown when stderr is a terminal, or when forced)."""
+
+    def __init__(self, total: int, enabled: bool | None = None, stream=None, label: str = "states"):
+        self.stream = stream or sys.stderr
+        self.enabled = self.stream.isatty() if enabled is None else enabled
+        self.total, self.done, self.label = total, 0, label
+        self.start = time.perf_counter()
+        self._last = 0.0
+
+    def update(self, n: int) -> None:
+        self.done += n
+        now = time.perf_counter()
+        if self.enabled and (now - self._last > 0.2 or self.done >= self.total):
+            self._last = now
+            frac = self.done / self.total if self.total else 1.0
+            el = now - self.start
+            eta = el / frac - el if frac > 0 else float("nan")
+            bar = "#" * int(30 * frac)
+            self.stream.write(f"\r[{bar:<30}] {100 * frac:5.1f}% {self.done}/{self.total} "
+                              f"{self.label}  {el:6.1f} s, eta {eta:5.1f} s")
+            self.stream.flush()
+
+    def close(self) -> None:
+        if self.enabled:
+            self.stream.write("\n")
+            self.stream.flush()
+
+
+def _pool(workers: int) -> ProcessPoolExecutor:
+    # fork shares the already-loaded level data with the workers; fall back where it is absent
+    methods = multiprocessing.get_all_start_methods()
+    ctx = multiprocessing.get_context("fork" if "fork" in methods else None)
+    return ProcessPoolExecutor(max_workers=workers, mp_context=ctx)
+
+
+def _results(compute: ComputeFn, spec: TableSpec, todo: list[Block],
+             workers: int) -> Iterator[tuple[Block, dict]]:
+    if workers <= 1 or len(todo) <= 1:
+        for b in todo:
+            yield _run_block(compute, spec, b)
+        return
+    with _pool(workers) as pool:
+        pending: set = set()
+        queue = iter(todo)
+        try:
+            while True:
+                while len(pending) < 2 * workers:  # bounded: memory ~ chunk size x 2 x workers
+                    b = next(queue, None)
+                    if b is None:
+                        break
+                    pending.add(pool.submit(_run_block, compute, spec, b))
+                if not pending:
+                    return
+                finished, pending = wait(pending, return_when=FIRST_COMPLETED)
+                for fut in finished:
+                    yield fut.result()
+        finally:
+            for fut in pending:
+                fut.cancel()
+
+
+def temp_path_for(path: Path) -> Path:
+    """A unique temporary name next to ``path`` (same file system, so ``os.replace`` is atomic)."""
+    return path.with_name(f".{path.name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp")
+
+
+def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None = None,
+                workers: int | None = None, chunk_states: int = DEFAULT_CHUNK_STATES,
+                progress: bool | None = None, provenance: Mapping[str, Any] | None = None) -> Path:
+    """Compute ``spec`` and write it as an HDF5 table at ``path`` (atomically).
+
+    Parameters
+    ----------
+    spec : TableSpec
+        The grid and outputs.
+    path : str or Path
+        Where the finished table goes; an existing file there is replaced only on success.
+    compute : callable, optional
+        ``compute(spec, T, P) -> {name: array}``; default: the equilibrium solver.  It must be a
+        module-level function (it is sent to worker processes).
+    workers : int, optional
+        Worker processes; default: all cores.  1 computes in this process.
+    chunk_states : int
+        Largest number of states per block.
+    progress : bool, optional
+        Show a progress bar on stderr; default: when stderr is a terminal.
+    provenance : mapping, optional
+        Extra root attributes (cache key, level-data digest, solver version ...).
+
+    Returns
+    -------
+    Path
+        ``path``.
+    """
+    path = Path(path)
+    compute = compute or default_compute()
+    workers = workers or os.cpu_count() or 1
+    todo = blocks(spec.shape, chunk_states)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = temp_path_for(path)
+    first = todo[0]
+    writer = None
+    bar = Progress(spec.size, progress)
+    t0 = time.perf_counter()
+    try:
+        writer = TableWriter(tmp, spec, dict(provenance or {}),
+                             (first[1] - first[0], first[3] - first[2]))
+        for block, values in _results(compute, spec, todo, workers):
+            writer.write_block(block, values)
+            bar.update((block[1] - block[0]) * (block[3] - block[2]))
+        writer.finish({"build_seconds": round(time.perf_counter() - t0, 3)})
+        os.replace(tmp, path)
+    except BaseException:
+        if writer is not None:
+            writer.abort()
+        tmp.unlink(missing_ok=True)
+        raise
+    finally:
+        bar.close()
+    return path

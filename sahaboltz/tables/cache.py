@@ -1,0 +1,207 @@
+"""A per-user cache of built tables, keyed by a digest of everything that determines them.
+
+The key is the SHA-256 of: the canonical spec (grid values, composition, physics options,
+outputs), the level-data digest, the solver version, the package version and the table format
+version (or, for an injected compute function, its name and ``provenance``).  A table lives at
+``<cache dir>/<key>.h5``.
+
+- Directory: ``$SAHABOLTZ_CACHE_DIR`` if set, else ``$XDG_CACHE_HOME/sahaboltz/tables``, else
+  ``~/.cache/sahaboltz/tables``.
+- Builds hold an exclusive ``fcntl.flock`` on ``<key>.lock``, so concurrent builders of one spec
+  compute it once; the others wait and then read the finished file.
+- Files appear only complete (temporary file + ``os.replace``); stale temporaries of killed
+  builds are removed by the next builder of that key and by :func:`clear`.
+- A cached file that fails :func:`~sahaboltz.tables.hdf5.check_table` is reported with a
+  :class:`TableCacheWarning`, deleted and rebuilt.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import fcntl
+import hashlib
+import json
+import os
+import warnings
+from pathlib import Path
+from typing import Any, Iterator
+
+from sahaboltz import __version__
+from sahaboltz.errors import InputError, TableError
+from sahaboltz.tables.build import ComputeFn, build_table, default_compute
+from sahaboltz.tables.hdf5 import FORMAT_VERSION, check_table, read_metadata
+from sahaboltz.tables.spec import TableSpec
+
+CACHE_ENV = "SAHABOLTZ_CACHE_DIR"
+
+
+class TableCacheWarning(UserWarning):
+    """A cached table was damaged or incomplete and is being rebuilt."""
+
+
+def cache_dir(create: bool = True) -> Path:
+    """The table cache directory (see the module docstring for how it is chosen)."""
+    env = os.environ.get(CACHE_ENV)
+    if env:
+        d = Path(env).expanduser()
+    else:
+        base = os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache"
+        d = Path(base) / "sahaboltz" / "tables"
+    if create:
+        d.mkdir(parents=True, exist_ok=True)
+    return d
+
+
+def solver_provenance() -> dict[str, Any]:
+    """Level-data digest and solver version of the real compute function."""
+    from sahaboltz.data.database import default_database
+    import sahaboltz.equilibrium as eq
+    return {"level_data_digest": default_database().digest,
+            "solver_version": str(getattr(eq, "SOLVER_VERSION", __version__)),
+            "compute": "sahaboltz.tables.compute.solver_compute"}
+
+
+def compute_provenance(compute: ComputeFn | None) -> dict[str, Any]:
+    """What identifies the compute function in the cache key and in the file's attributes."""
+    if compute is None or compute is default_compute():
+        return solver_provenance()
+    prov = {"compute": f"{compute.__module__}.{compute.__qualname__}"}
+    prov.update(getattr(compute, "provenance", {}) or {})
+    return prov
+
+
+def table_key(spec: TableSpec, compute: ComputeFn | None = None) -> str:
+    """The cache key (hex SHA-256) of ``spec`` computed by ``compute``."""
+    doc = {"spec": json.loads(spec.canonical()), "provenance": compute_provenance(compute),
+           "package_version": __version__, "format_version": FORMAT_VERSION}
+    text = json.dumps(doc, sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+@contextlib.contextmanager
+def key_lock(directory: Path, key: str, blocking: bool = True) -> Iterator[bool]:
+    """Hold the exclusive lock of ``key``; yields False if ``blocking=False`` and it is taken."""
+    lock = directory / f"{key}.lock"
+    with open(lock, "a+") as fh:
+        try:
+            fcntl.flock(fh, fcntl.LOCK_EX | (0 if blocking else fcntl.LOCK_NB))
+        except BlockingIOError:
+            yield False
+            return
+        try:
+            yield True
+        finally:
+            fcntl.flock(fh, fcntl.LOCK_UN)
+
+
+def _stale_temps(directory: Path, key: str) -> list[Path]:
+    return list(directory.glob(f".{key}.h5.*.tmp"))
+
+
+def get_table(spec: TableSpec, *, compute: ComputeFn | None = None,
+              directory: str | Path | None = None, rebuild: bool = False,
+              **build_options) -> Path:
+    """Path of the cached table for ``spec``, building it first if needed.
+
+    Parameters
+    ----------
+    spec : TableSpec
+    compute : callable, optional
+        As for :func:`~sahaboltz.tables.build.build_table`; default: the equilibrium solver.
+    directory : path, optional
+        Cache directory; default :func:`cache_dir`.
+    rebuild : bool
+        Build again even if a valid table exists.
+    **build_options
+        ``workers``, ``chunk_states``, ``progress`` for the build.
+
+    Warns
+    -----
+    TableCacheWarning
+        When a cached file is damaged; it is rebuilt.
+    """
+    d = Path(directory) if directory is not None else cache_dir()
+    d.mkdir(parents=True, exist_ok=True)
+    key = table_key(spec, compute)
+    final = d / f"{key}.h5"
+    if not rebuild and final.exists():
+        with contextlib.suppress(TableError):
+            check_table(final, key=key)
+            return final  # fast path: no lock for a hit
+    with key_lock(d, key):
+        if final.exists():
+            if not rebuild:
+                try:
+                    check_table(final, key=key)
+                    return final  # another process built it while we waited
+                except TableError as exc:
+                    warnings.warn(f"cached table {final.name} is damaged and will be rebuilt: "
+                                  f"{exc}", TableCacheWarning, stacklevel=2)
+        for tmp in _stale_temps(d, key):  # left by a killed builder; we hold the lock
+            tmp.unlink(missing_ok=True)
+        prov = {**compute_provenance(compute), "cache_key": key}
+        build_table(spec, final, compute=compute, provenance=prov, **build_options)
+        _fsync_dir(d)
+    return final
+
+
+def _fsync_dir(d: Path) -> None:
+    with contextlib.suppress(OSError):
+        fd = os.open(d, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+
+
+def entries(directory: str | Path | None = None) -> list[dict[str, Any]]:
+    """One dict per cached table: key, path, size, created, grid, status ('ok' or the problem)."""
+    d = Path(directory) if directory is not None else cache_dir()
+    out = []
+    for path in sorted(d.glob("*.h5")):
+        key = path.stem
+        row: dict[str, Any] = {"key": key, "path": str(path), "size_bytes": path.stat().st_size}
+        try:
+            check_table(path, key=key)
+            meta = read_metadata(path)
+            row.update(created=meta.get("created"), title=meta.get("title"),
+                       shape=meta.get("shape"), status="ok")
+        except TableError as exc:
+            row.update(created=None, title=None, shape=None, status=f"damaged: {exc}")
+        out.append(row)
+    return out
+
+
+def find(key_prefix: str, directory: str | Path | None = None) -> Path:
+    """The cached table whose key starts with ``key_prefix``."""
+    d = Path(directory) if directory is not None else cache_dir()
+    hits = sorted(d.glob(f"{key_prefix}*.h5")) if key_prefix else []
+    if not hits:
+        raise InputError(f"no cached table with key starting {key_prefix!r}; "
+                         f"see 'sahaboltz table cache list'")
+    if len(hits) > 1:
+        raise InputError(f"key prefix {key_prefix!r} matches {len(hits)} tables; give more of it")
+    return hits[0]
+
+
+def clear(key_prefix: str | None = None, directory: str | Path | None = None) -> list[str]:
+    """Delete cached tables (all, or those whose key starts with ``key_prefix``).
+
+    Tables being built right now (lock held) are skipped.  Lock files are left in place (empty;
+    deleting one could let two builders hold "the" lock at once).  Returns the removed keys.
+    """
+    d = Path(directory) if directory is not None else cache_dir()
+    removed = []
+    keys = {p.name.split(".")[0] for p in d.glob("*.h5")}
+    keys |= {p.name.split(".")[1] for p in d.glob(".*.h5.*.tmp")}
+    for key in sorted(keys):
+        if key_prefix and not key.startswith(key_prefix):
+            continue
+        with key_lock(d, key, blocking=False) as got:
+            if not got:
+                continue
+            (d / f"{key}.h5").unlink(missing_ok=True)
+            for tmp in _stale_temps(d, key):
+                tmp.unlink(missing_ok=True)
+        removed.append(key)
+    return removed

@@ -1,0 +1,244 @@
+"""The interpolating reader: any stored quantity at arbitrary (T, P) inside the grid.
+
+Interpolation runs in ln T and ln P (the Saha and Boltzmann factors are smooth there), and on
+ln q for quantities that are never negative (densities, pressures, fractions, partition
+functions); other quantities are interpolated as they are.  The default ``method="cubic"`` is a
+tensor product of 4-point Lagrange polynomials (error ~ h^4); where the 4 x 4 stencil spans more
+than ``e^50`` in a logged quantity (a value that underflowed to zero next to finite ones) it
+falls back to bilinear interpolation of the log, which cannot overshoot.  ``method="linear"`` is
+bilinear everywhere.  Zeros are logged as the smallest normal float; results below it come back as
+exactly 0.
+
+Points outside the grid raise :class:`~sahaboltz.errors.InputError` by default; ``outside="clip"``
+clamps them onto the grid edge and ``outside="nan"`` returns NaN there (asked-for, documented NaN).
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any, Iterable, Sequence
+
+import h5py
+import numpy as np
+
+from sahaboltz.errors import InputError, TableError
+from sahaboltz.quantities import as_positive_array
+from sahaboltz.tables.hdf5 import _decode, _open, check_table
+from sahaboltz.tables.spec import PRESSURE_QUANTITIES
+
+_LOG_FLOOR = float(np.log(np.finfo(float).tiny))
+_SPAN_LIMIT = 50.0  # ln units; a wider stencil means an underflow edge -> bilinear there
+_BATCH = 65536  # points per vectorized pass; bounds temporary memory
+METHODS = ("cubic", "linear")
+OUTSIDE = ("raise", "clip", "nan")
+
+
+class PopulationTable:
+    """A population table opened for reading and interpolation.
+
+    Parameters
+    ----------
+    path : str or Path
+        A table written by :func:`~sahaboltz.tables.build.build_table`.
+    check : bool
+        Run the quick integrity check on open (default True).
+
+    Attributes
+    ----------
+    temperature : ndarray
+        Temperature axis [K].
+    pressure : ndarray
+        Pressure-like axis in the cgs unit of :attr:`pressure_quantity`.
+    pressure_quantity : str
+        ``gas_pressure``, ``electron_pressure``, ``mass_density`` or ``hydrogen_density``.
+    quantities : list of str
+        Names of the stored datasets.
+    attrs : dict
+        Root attributes (provenance), JSON ones decoded.
+    """
+
+    def __init__(self, path: str | Path, *, check: bool = True):
+        self.path = Path(path)
+        if check:
+            check_table(self.path)
+        with _open(self.path) as f:
+            self.attrs = {k: _decode(v) for k, v in f.attrs.items()}
+            self.pressure_quantity = str(self.attrs["pressure_quantity"])
+            self.temperature = f["temperature"][()]
+            self.pressure = f[self.pressure_quantity][()]
+            self.quantities = list(self.attrs["quantities"])
+            self._qattrs = {n: {k: _decode(v) for k, v in f[n].attrs.items()
+                                if k not in ("DIMENSION_LIST",)} for n in self.quantities}
+        self.pressure_unit = PRESSURE_QUANTITIES[self.pressure_quantity]
+        self._data: dict[str, np.ndarray] = {}
+        self._prepared: dict[str, tuple[np.ndarray, bool]] = {}
+        self._lt = np.log(self.temperature)
+        self._lp = np.log(self.pressure)
+
+    def __repr__(self) -> str:
+        return (f"PopulationTable({str(self.path)!r}: {len(self.temperature)} x "
+                f"{len(self.pressure)}, {len(self.quantities)} quantities)")
+
+    def __contains__(self, name: str) -> bool:
+        return name in self.quantities
+
+    def units(self, name: str) -> str:
+        self._known(name)
+        return str(self._qattrs[name].get("units", ""))
+
+    def quantity_attrs(self, name: str) -> dict[str, Any]:
+        self._known(name)
+        return dict(self._qattrs[name])
+
+    def _known(self, name: str) -> None:
+        if name not in self.quantities:
+            close = [q for q in self.quantities if name.lower() in q.lower()][:8]
+            hint = f" (did you mean {', '.join(close)}?)" if close else ""
+            raise InputError(f"table has no quantity {name!r}{hint}; it holds "
+                             f"{len(self.quantities)}: {', '.join(self.quantities[:12])}"
+                             f"{' ...' if len(self.quantities) > 12 else ''}")
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        """The stored grid of ``name``, shape (nT, nP)."""
+        self._known(name)
+        if name not in self._data:
+            with _open(self.path) as f:
+                try:
+                    self._data[name] = f[name][()]
+                except OSError as exc:
+                    raise TableError(f"{self.path}: dataset {name} is damaged ({exc}); delete "
+                                     f"the file and build the table again") from None
+        return self._data[name]
+
+    def _prepare(self, name: str) -> tuple[np.ndarray, bool]:
+        if name not in self._prepared:
+            v = self[name]
+            logged = bool(np.all(v >= 0))
+            g = np.log(np.maximum(v, np.finfo(float).tiny)) if logged else v.astype(float)
+            self._prepared[name] = (np.ascontiguousarray(g).ravel(), logged)
+        return self._prepared[name]
+
+    def interpolate(self, names: str | Sequence[str], temperature, pressure, *,
+                    method: str = "cubic", outside: str = "raise"):
+        """Interpolate stored quantities at the points ``(temperature, pressure)``.
+
+        Parameters
+        ----------
+        names : str or sequence of str
+            Quantity name(s), e.g. ``"electron_density"``, ``"fraction_Fe_II"``.
+        temperature : float, array_like or Quantity
+            Temperatures [K].
+        pressure : float, array_like or Quantity
+            Values of the table's pressure-like quantity, in its cgs unit (:attr:`pressure_unit`).
+        method : {"cubic", "linear"}
+        outside : {"raise", "clip", "nan"}
+            What to do with points outside the grid.
+
+        Returns
+        -------
+        ndarray or dict of ndarray
+            Broadcast shape of the inputs; a dict when ``names`` is a sequence.
+        """
+        if method not in METHODS:
+            raise InputError(f"method must be one of {METHODS}, got {method!r}")
+        if outside not in OUTSIDE:
+            raise InputError(f"outside must be one of {OUTSIDE}, got {outside!r}")
+        single = isinstance(names, str)
+        names = [names] if single else list(names)
+        for n in names:
+            self._known(n)
+        t = as_positive_array(temperature, "K", "temperature")
+        p = as_positive_array(pressure, self.pressure_unit, self.pressure_quantity)
+        t, p = np.broadcast_arrays(t, p)
+        shape = t.shape
+        lt, lp = np.log(t).ravel(), np.log(p).ravel()
+        bad = self._outside(lt, lp, outside)
+        lt = np.clip(lt, self._lt[0], self._lt[-1])
+        lp = np.clip(lp, self._lp[0], self._lp[-1])
+        out = {n: np.empty(lt.size) for n in names}
+        prepared = [self._prepare(n) for n in names]
+        for s in range(0, lt.size, _BATCH):
+            sl = slice(s, s + _BATCH)
+            st = _Stencil(self._lt, lt[sl], method)
+            sp = _Stencil(self._lp, lp[sl], method)
+            for n, (g, logged) in zip(names, prepared):
+                out[n][sl] = _evaluate(g, len(self._lp), st, sp, logged)
+        for n in names:
+            if bad is not None:
+                out[n][bad] = np.nan
+            out[n] = out[n].reshape(shape)
+        return out[names[0]] if single else out
+
+    def _outside(self, lt, lp, outside):
+        tol = 1e-12
+        bad = ((lt < self._lt[0] - tol) | (lt > self._lt[-1] + tol) |
+               (lp < self._lp[0] - tol) | (lp > self._lp[-1] + tol))
+        if not bad.any():
+            return None
+        if outside == "raise":
+            i = int(np.argmax(bad))
+            raise InputError(
+                f"{int(bad.sum())} point(s) outside the table, e.g. T = {np.exp(lt[i]):.6g} K, "
+                f"{self.pressure_quantity} = {np.exp(lp[i]):.6g} {self.pressure_unit}; the grid "
+                f"covers T {self.temperature[0]:g}..{self.temperature[-1]:g} K and "
+                f"{self.pressure[0]:g}..{self.pressure[-1]:g} {self.pressure_unit}. "
+                f"Pass outside='clip' to clamp onto the edge or outside='nan' for NaN there.")
+        return bad if outside == "nan" else None
+
+
+class _Stencil:
+    """Interpolation nodes and weights along one axis for a batch of points."""
+
+    def __init__(self, x: np.ndarray, q: np.ndarray, method: str):
+        n = x.size
+        cell = np.clip(np.searchsorted(x, q, side="right") - 1, 0, n - 2)
+        self.cell = cell
+        self.frac = (q - x[cell]) / (x[cell + 1] - x[cell])
+        if method == "cubic" and n >= 4:
+            start = np.clip(cell - 1, 0, n - 4)
+            nodes = x[start[:, None] + np.arange(4)]
+            d = q[:, None] - nodes
+            w = np.ones((q.size, 4))
+            for k in range(4):
+                for m in range(4):
+                    if m != k:
+                        w[:, k] *= d[:, m] / (nodes[:, k] - nodes[:, m])
+            self.start, self.weights, self.width = start, w, 4
+        else:
+            self.start = cell
+            self.weights = np.stack([1 - self.frac, self.frac], axis=1)
+            self.width = 2
+        self.offset = cell - self.start  # position of the cell inside the stencil
+
+
+def _evaluate(g: np.ndarray, ncol: int, st: _Stencil, sp: _Stencil, logged: bool) -> np.ndarray:
+    a = np.arange(st.width)
+    b = np.arange(sp.width)
+    idx = (st.start[:, None, None] + a[None, :, None]) * ncol + (sp.start[:, None, None] +
+                                                                b[None, None, :])
+    vals = g.take(idx)  # (N, wt, wp)
+    res = np.einsum("na,nab,nb->n", st.weights, vals, sp.weights)
+    if logged and st.width * sp.width > 4:
+        span = vals.max(axis=(1, 2)) - vals.min(axis=(1, 2))
+        wide = span > _SPAN_LIMIT
+        if wide.any():
+            res[wide] = _bilinear(vals[wide], st, sp, wide)
+    if logged:
+        out = np.exp(res)
+        out[res <= _LOG_FLOOR * (1 - 1e-12)] = 0.0
+        return out
+    return res
+
+
+def _bilinear(vals, st: _Stencil, sp: _Stencil, mask) -> np.ndarray:
+    n = np.arange(vals.shape[0])
+    i, j = st.offset[mask], sp.offset[mask]
+    u, v = st.frac[mask], sp.frac[mask]
+    return ((1 - u) * (1 - v) * vals[n, i, j] + u * (1 - v) * vals[n, i + 1, j] +
+            (1 - u) * v * vals[n, i, j + 1] + u * v * vals[n, i + 1, j + 1])
+
+
+def open_table(path: str | Path, *, check: bool = True) -> PopulationTable:
+    """Open a population table for reading and interpolation (see :class:`PopulationTable`)."""
+    return PopulationTable(path, check=check)
