@@ -17,6 +17,7 @@ from sahaboltz.errors import SahaboltzError
 #: modules that add subcommands, in the order they appear in ``--help``
 COMMAND_MODULES = [
     "sahaboltz.faces.cmd_species",
+    "sahaboltz.faces.cmd_table",
 ]
 
 

@@ -52,19 +52,22 @@ def cache_dir(create: bool = True) -> Path:
     return d
 
 
-def solver_provenance() -> dict[str, Any]:
-    """Level-data digest and solver version of the real compute function."""
-    from sahaboltz.data.database import default_database
+def solver_provenance(spec: TableSpec) -> dict[str, Any]:
+    """Level-data digest, solver version and resolved composition for the real compute."""
     import sahaboltz.equilibrium as eq
+    from sahaboltz.data.database import default_database
+    from sahaboltz.tables.compute import composition_digest_doc
+
     return {"level_data_digest": default_database().digest,
             "solver_version": str(getattr(eq, "SOLVER_VERSION", __version__)),
+            "resolved_composition": composition_digest_doc(spec),
             "compute": "sahaboltz.tables.compute.solver_compute"}
 
 
-def compute_provenance(compute: ComputeFn | None) -> dict[str, Any]:
+def compute_provenance(compute: ComputeFn | None, spec: TableSpec) -> dict[str, Any]:
     """What identifies the compute function in the cache key and in the file's attributes."""
     if compute is None or compute is default_compute():
-        return solver_provenance()
+        return solver_provenance(spec)
     prov = {"compute": f"{compute.__module__}.{compute.__qualname__}"}
     prov.update(getattr(compute, "provenance", {}) or {})
     return prov
@@ -72,7 +75,7 @@ def compute_provenance(compute: ComputeFn | None) -> dict[str, Any]:
 
 def table_key(spec: TableSpec, compute: ComputeFn | None = None) -> str:
     """The cache key (hex SHA-256) of ``spec`` computed by ``compute``."""
-    doc = {"spec": json.loads(spec.canonical()), "provenance": compute_provenance(compute),
+    doc = {"spec": json.loads(spec.canonical()), "provenance": compute_provenance(compute, spec),
            "package_version": __version__, "format_version": FORMAT_VERSION}
     text = json.dumps(doc, sort_keys=True, separators=(",", ":"))
     return hashlib.sha256(text.encode()).hexdigest()
@@ -139,7 +142,7 @@ def get_table(spec: TableSpec, *, compute: ComputeFn | None = None,
                                   f"{exc}", TableCacheWarning, stacklevel=2)
         for tmp in _stale_temps(d, key):  # left by a killed builder; we hold the lock
             tmp.unlink(missing_ok=True)
-        prov = {**compute_provenance(compute), "cache_key": key}
+        prov = {**compute_provenance(compute, spec), "cache_key": key}
         build_table(spec, final, compute=compute, provenance=prov, **build_options)
         _fsync_dir(d)
     return final

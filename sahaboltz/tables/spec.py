@@ -69,7 +69,8 @@ max = 1e8
 per_decade = 10
 
 [composition]
-name = "solar"              # or a table of number abundances relative to hydrogen:
+name = "solar"              # Asplund et al. (2009); optional metallicity = -0.5 (dex),
+                            # alpha_enhancement = 0.4 (dex); or a table of number abundances:
 # [composition.abundances]
 # H = 1.0
 # He = 0.085
@@ -346,9 +347,11 @@ def _composition(c: Any) -> dict:
         out = {"abundances": dict(sorted(ab.items(), key=lambda kv: atomic_number(kv[0])))}
         extra = set(c) - {"abundances"}
     else:
-        name = str(c.get("name", "solar"))
-        out = {"name": name}
-        extra = set(c) - {"name"}
+        out = {"name": str(c.get("name", "solar"))}
+        for k in ("metallicity", "alpha_enhancement"):  # [M/H], [alpha/Fe] in dex
+            if float(c.get(k, 0.0)) != 0.0:
+                out[k] = float(c[k])
+        extra = set(c) - {"name", "metallicity", "alpha_enhancement"}
     if extra:
         raise InputError(f"composition: unknown key(s) {sorted(extra)}; give 'name' or 'abundances'")
     return out

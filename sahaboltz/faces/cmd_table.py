@@ -1,0 +1,282 @@
+"""``sahaboltz table``: build, inspect and query population tables; manage the table cache.
+
+    sahaboltz table template > grid.toml          # an annotated spec file to edit
+    sahaboltz table build grid.toml               # build (or find) it in the cache
+    sahaboltz table build --temperature 3000:30000:100 --pressure 1e2:1e6:41 -o t.h5
+    sahaboltz table inspect t.h5                  # provenance and stored quantities
+    sahaboltz table query t.h5 --at 5800,1e5 -q electron_density,fraction_Fe_II
+    sahaboltz table cache list | inspect KEY | clear [KEY | --all] | dir
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import importlib
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+from sahaboltz.errors import InputError
+from sahaboltz.faces.output import add_format_option, emit
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser("table", help="population tables: build, inspect, query, cache",
+                              description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    sub = p.add_subparsers(dest="table_command", metavar="ACTION")
+    sub.required = True
+
+    t = sub.add_parser("template", help="print an annotated table spec (TOML) to start from")
+    t.set_defaults(func=_template)
+
+    b = sub.add_parser("build", help="build a table from a spec file or options")
+    b.add_argument("spec", nargs="?", help="spec file (.toml or .json); or give the options below")
+    g = b.add_argument_group("grid (when no spec file is given)")
+    g.add_argument("--temperature", metavar="MIN:MAX:NUM|V1,V2,..",
+                   help="temperature axis [K] (default 2000:50000, 100 per decade)")
+    g.add_argument("--temperature-scale", choices=("log", "linear"), default="log")
+    g.add_argument("--pressure", metavar="MIN:MAX:NUM|V1,V2,..",
+                   help="pressure-like axis in cgs (default gas pressure 1e-2:1e8 dyn cm-2, "
+                        "10 per decade)")
+    g.add_argument("--pressure-quantity", default="gas_pressure",
+                   choices=("gas_pressure", "electron_pressure", "mass_density", "hydrogen_density"))
+    g.add_argument("--pressure-scale", choices=("log", "linear"), default="log")
+    g.add_argument("--composition", metavar="solar|SYM=N,..",
+                   help="'solar' (default) or number abundances relative to H, e.g. H=1,He=0.1")
+    g.add_argument("--truncation", choices=("plain", "lowered", "occupation"), default="plain")
+    g.add_argument("--lowering", action="store_true", help="Debye-Hueckel lowering")
+    g.add_argument("--molecules", action="store_true", help="include molecules")
+    g.add_argument("--fractions", default="all", metavar="all|EL,..",
+                   help="stage fractions to store (default all elements)")
+    g.add_argument("--levels", action="append", default=[], metavar="SPECIES:IDX",
+                   help="level populations to store, e.g. 'Fe II:0-9' (repeatable)")
+    g.add_argument("--partition", action="append", default=[], metavar="SPECIES",
+                   help="partition functions to store, e.g. 'Fe II' (repeatable)")
+    b.add_argument("-o", "--output", help="write the table here instead of the cache")
+    b.add_argument("--rebuild", action="store_true", help="rebuild even if cached")
+    b.add_argument("--workers", type=int, help="worker processes (default: all cores)")
+    b.add_argument("--chunk-states", type=int, default=None, help="states per block")
+    b.add_argument("--no-progress", action="store_true", help="no progress bar")
+    b.add_argument("--compute", metavar="MODULE:FUNCTION",
+                   help="advanced: your own compute(spec, T, P) -> dict of arrays instead of "
+                        "the equilibrium solver")
+    add_format_option(b)
+    b.set_defaults(func=_build)
+
+    i = sub.add_parser("inspect", help="provenance and quantities of a table")
+    i.add_argument("table", help="table file, or a cache key (prefix)")
+    i.add_argument("--verify", action="store_true", help="read every chunk (checksums)")
+    add_format_option(i)
+    i.set_defaults(func=_inspect)
+
+    q = sub.add_parser("query", help="interpolate a table at given points")
+    q.add_argument("table", help="table file, or a cache key (prefix)")
+    q.add_argument("--at", action="append", default=[], metavar="T,P",
+                   help="a point: temperature [K] and the table's pressure-like quantity in cgs "
+                        "(repeatable)")
+    q.add_argument("--points", metavar="CSV", help="CSV file with two columns T,P (header optional)")
+    q.add_argument("-q", "--quantities", action="append", default=[], metavar="NAME,..",
+                   help="quantities to interpolate (default: the scalar ones)")
+    q.add_argument("--method", choices=("cubic", "linear"), default="cubic")
+    q.add_argument("--outside", choices=("raise", "clip", "nan"), default="raise",
+                   help="points outside the grid: error (default), clamp, or NaN")
+    add_format_option(q)
+    q.set_defaults(func=_query)
+
+    c = sub.add_parser("cache", help="list, inspect or clear cached tables")
+    csub = c.add_subparsers(dest="cache_command", metavar="ACTION")
+    csub.required = True
+    cl = csub.add_parser("list", help="cached tables")
+    add_format_option(cl)
+    cl.set_defaults(func=_cache_list)
+    ci = csub.add_parser("inspect", help="provenance and quantities of one cached table")
+    ci.add_argument("table", metavar="KEY", help="cache key (prefix)")
+    ci.add_argument("--verify", action="store_true", help="read every chunk (checksums)")
+    add_format_option(ci)
+    ci.set_defaults(func=_inspect)
+    cc = csub.add_parser("clear", help="delete cached tables")
+    cc.add_argument("key", nargs="?", help="key (prefix) of the table to delete")
+    cc.add_argument("--all", action="store_true", help="delete every cached table")
+    add_format_option(cc)
+    cc.set_defaults(func=_cache_clear)
+    cd = csub.add_parser("dir", help="print the cache directory")
+    add_format_option(cd)
+    cd.set_defaults(func=_cache_dir)
+
+
+def _template(args) -> int:
+    from sahaboltz.tables.spec import EXAMPLE_TOML
+    sys.stdout.write(EXAMPLE_TOML)
+    return 0
+
+
+def _load_compute(text: str | None):
+    if not text:
+        return None
+    if ":" not in text:
+        raise InputError(f"--compute: write MODULE:FUNCTION, got {text!r}")
+    mod, func = text.split(":", 1)
+    try:
+        return getattr(importlib.import_module(mod), func)
+    except (ImportError, AttributeError) as exc:
+        raise InputError(f"--compute: cannot load {text!r}: {exc}") from None
+
+
+def _spec_from_args(args):
+    from sahaboltz.tables.spec import TableSpec, spec_from_options
+
+    grid_opts = (args.temperature, args.pressure, args.composition, args.levels, args.partition)
+    if args.spec:
+        if any(grid_opts) or args.fractions != "all" or args.lowering or args.molecules:
+            raise InputError("give either a spec file or grid options, not both")
+        return TableSpec.from_file(args.spec)
+    return spec_from_options(args.temperature, args.pressure,
+                             pressure_quantity=args.pressure_quantity,
+                             temperature_scale=args.temperature_scale,
+                             pressure_scale=args.pressure_scale, composition=args.composition,
+                             truncation=args.truncation, lowering=args.lowering,
+                             molecules=args.molecules, fractions=args.fractions,
+                             levels=args.levels, partition_functions=args.partition)
+
+
+def _build(args) -> int:
+    from sahaboltz.tables import build as tb
+    from sahaboltz.tables import cache
+
+    spec = _spec_from_args(args)
+    compute = _load_compute(args.compute)
+    opts = {"workers": args.workers, "progress": False if args.no_progress else None}
+    if args.chunk_states:
+        opts["chunk_states"] = args.chunk_states
+    t0 = time.perf_counter()
+    key = cache.table_key(spec, compute)
+    if args.output:
+        path = tb.build_table(spec, args.output, compute=compute,
+                              provenance={**cache.compute_provenance(compute, spec),
+                                          "cache_key": key}, **opts)
+        status = "built"
+    else:
+        existed = (cache.cache_dir() / f"{key}.h5").exists()
+        path = cache.get_table(spec, compute=compute, rebuild=args.rebuild, **opts)
+        status = "cached" if existed and not args.rebuild else "built"
+    emit([{"key": key[:16], "status": status, "grid": f"{spec.shape[0]}x{spec.shape[1]}",
+           "seconds": round(time.perf_counter() - t0, 3), "path": str(path)}], args.format)
+    return 0
+
+
+def _resolve(text: str) -> Path:
+    from sahaboltz.tables import cache
+    p = Path(text)
+    if p.exists():
+        return p
+    return cache.find(text)
+
+
+def _inspect(args) -> int:
+    from sahaboltz.tables.hdf5 import check_table, read_metadata
+    from sahaboltz.tables.interpolate import open_table
+
+    path = _resolve(args.table)
+    check_table(path, full=args.verify)
+    meta = read_metadata(path)
+    tab = open_table(path, check=False)
+    keep = ("title", "created", "package_version", "solver_version", "level_data_digest",
+            "cache_key", "composition", "physics", "pressure_quantity", "build_seconds",
+            "size_bytes")
+    info = {k: (meta[k] if isinstance(meta[k], (str, int, float)) else str(meta[k]))
+            for k in keep if k in meta}
+    info["temperature"] = f"{tab.temperature[0]:g}..{tab.temperature[-1]:g} K ({tab.temperature.size})"
+    info[tab.pressure_quantity] = (f"{tab.pressure[0]:g}..{tab.pressure[-1]:g} "
+                                   f"{tab.pressure_unit} ({tab.pressure.size})")
+    if args.verify:
+        info["verified"] = "all chunks read, checksums ok"
+    rows = [{"quantity": n, "units": tab.units(n),
+             "long_name": tab.quantity_attrs(n).get("long_name", "")} for n in tab.quantities]
+    emit(rows, args.format, title=str(path), meta=info)
+    return 0
+
+
+def _points(args) -> tuple[np.ndarray, np.ndarray]:
+    pts: list[tuple[float, float]] = []
+    for item in args.at:
+        parts = item.replace(" ", "").split(",")
+        try:
+            if len(parts) != 2:
+                raise ValueError
+            pts.append((float(parts[0]), float(parts[1])))
+        except ValueError:
+            raise InputError(f"--at: write T,P (two numbers), got {item!r}") from None
+    if args.points:
+        try:
+            with open(args.points, newline="") as fh:
+                for n, row in enumerate(csv.reader(fh), 1):
+                    if not row or row[0].strip().startswith("#"):
+                        continue
+                    try:
+                        pts.append((float(row[0]), float(row[1])))
+                    except (ValueError, IndexError):
+                        if n == 1:  # header
+                            continue
+                        raise InputError(f"{args.points}, line {n}: need two numbers T,P") from None
+        except OSError as exc:
+            raise InputError(f"cannot read {args.points}: {exc.strerror}") from None
+    if not pts:
+        raise InputError("give points with --at T,P or --points FILE.csv")
+    a = np.array(pts, dtype=float)
+    return a[:, 0], a[:, 1]
+
+
+def _query(args) -> int:
+    from sahaboltz.tables.interpolate import open_table
+    from sahaboltz.tables.spec import SCALAR_OUTPUTS
+
+    tab = open_table(_resolve(args.table))
+    names = [n.strip() for item in args.quantities for n in item.split(",") if n.strip()]
+    if not names:
+        names = [n for n in tab.quantities if n in SCALAR_OUTPUTS]
+    t, p = _points(args)
+    vals = tab.interpolate(names, t, p, method=args.method, outside=args.outside)
+    rows = []
+    for k in range(t.size):
+        row = {"temperature": float(t[k]), tab.pressure_quantity: float(p[k])}
+        row.update({n: float(vals[n][k]) for n in names})
+        rows.append(row)
+    emit(rows, args.format, meta={"table": str(tab.path), "method": args.method})
+    return 0
+
+
+def _cache_list(args) -> int:
+    from sahaboltz.tables import cache
+    rows = [{"key": e["key"][:16], "created": e["created"],
+             "grid": f"{e['shape'][0]}x{e['shape'][1]}" if e["shape"] else "",
+             "MB": round(e["size_bytes"] / 1e6, 3), "status": e["status"][:60],
+             "title": e["title"] or ""} for e in cache.entries()]
+    emit(rows, args.format, columns=["key", "created", "grid", "MB", "status", "title"],
+         title=f"table cache: {cache.cache_dir()}")
+    return 0
+
+
+def _cache_clear(args) -> int:
+    from sahaboltz.tables import cache
+    if not args.key and not args.all:
+        raise InputError("say which table to delete (KEY prefix) or --all")
+    if args.key and args.all:
+        raise InputError("give a KEY or --all, not both")
+    removed = cache.clear(None if args.all else args.key)
+    if args.key and not removed:
+        raise InputError(f"no cached table with key starting {args.key!r} (or it is being built)")
+    emit([{"removed": k[:16]} for k in removed], args.format,
+         title=f"removed {len(removed)} table(s) from {cache.cache_dir()}")
+    return 0
+
+
+def _cache_dir(args) -> int:
+    from sahaboltz.tables import cache
+    emit([{"cache_dir": str(cache.cache_dir())}], args.format)
+    return 0
+
+
+__all__ = ["register"]

@@ -1,0 +1,116 @@
+"""The real per-block compute function: the equilibrium solver on a block of (T, P) states.
+
+:func:`solver_compute` has the signature every compute function has,
+``compute(spec, T, P) -> {dataset name: 1-D array}``; :mod:`sahaboltz.tables.build` runs it in
+worker processes.  Names follow :func:`sahaboltz.tables.spec.dataset_name`.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from sahaboltz.constants import K_B_EV
+from sahaboltz.data.elements import atomic_number, spectroscopic_name
+from sahaboltz.errors import InputError
+from sahaboltz.tables.spec import TableSpec, dataset_name
+
+_SOLAR_NAMES = {"solar": "asplund2009", "asplund2009": "asplund2009"}
+
+
+def composition_of(spec: TableSpec):
+    """The :class:`~sahaboltz.data.composition.Composition` a spec asks for."""
+    from sahaboltz.data.composition import Composition, solar
+
+    c = spec.composition
+    if "abundances" in c:
+        return Composition.from_number(c["abundances"], name="custom")
+    name = c.get("name", "solar")
+    if name not in _SOLAR_NAMES:
+        raise InputError(f"unknown composition {name!r}; use 'solar' or give abundances "
+                         f"(SYMBOL=NUMBER relative to hydrogen)")
+    return solar(_SOLAR_NAMES[name], metallicity=float(c.get("metallicity", 0.0)),
+                 alpha_enhancement=float(c.get("alpha_enhancement", 0.0)))
+
+
+def composition_digest_doc(spec: TableSpec) -> dict[str, Any]:
+    """The resolved composition (element -> number fraction) for the cache key."""
+    comp = composition_of(spec)
+    return {"name": comp.name, "number_fraction": dict(zip(comp.symbols,
+                                                           (float(x) for x in comp.number_fraction)))}
+
+
+def solve_block(spec: TableSpec, T: np.ndarray, P: np.ndarray):
+    """Solve the equilibrium of the states ``(T, P)`` with the spec's physics options."""
+    from sahaboltz.equilibrium import solve_equilibrium
+
+    phys = spec.physics
+    kwargs = {spec.pressure.name: P, "truncation": phys["truncation"],
+              "lowering": bool(phys["lowering"])}
+    if phys["molecules"]:
+        kwargs["molecules"] = True
+    return solve_equilibrium(composition_of(spec), T, **kwargs)
+
+
+def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, np.ndarray]:
+    """Compute function backed by :func:`sahaboltz.equilibrium.solve_equilibrium`."""
+    state = solve_block(spec, T, P)
+    out: dict[str, Any] = {}
+    scalars = {"electron_density": "n_e", "electron_pressure": "electron_pressure",
+               "gas_pressure": "gas_pressure", "mass_density": "mass_density",
+               "mean_molecular_weight": "mean_molecular_weight", "mean_charge": "mean_charge"}
+    for name in spec.outputs.quantities:
+        out[name] = np.asarray(getattr(state, scalars[name]), dtype=float).reshape(T.shape)
+    comp = composition_of(spec)
+    sf = spec.outputs.stage_fractions
+    elements = comp.symbols if sf == "all" else list(sf)
+    for el in elements:
+        if el not in comp:
+            raise InputError(f"stage fractions of {el} asked for, but {el} is not in the "
+                             f"composition ({', '.join(comp.symbols)})")
+        fr = np.asarray(state.stage_fractions(el), dtype=float)
+        z = atomic_number(el)
+        for charge in range(fr.shape[0]):
+            out[dataset_name("fraction", spectroscopic_name(z, charge))] = fr[charge].reshape(T.shape)
+    attrs: dict[str, dict] = {}
+    if spec.outputs.partition_functions or spec.outputs.levels:
+        _species_outputs(spec, state, T, out, attrs)
+    if attrs:
+        out["_attrs"] = attrs
+    return out
+
+
+def _partition(species, spec: TableSpec, T, n_e):
+    from sahaboltz.kernels.partition import PartitionModel
+
+    pm = PartitionModel([species], truncation=spec.physics["truncation"])
+    return np.asarray(pm.evaluate(T, n_e=n_e), dtype=float)[0]
+
+
+def _species_outputs(spec, state, T, out, attrs) -> None:
+    from sahaboltz.data.database import default_database
+
+    db = default_database()
+    n_e = np.asarray(state.n_e, dtype=float).reshape(T.shape)
+    for name in spec.outputs.partition_functions:
+        sp = db.species(name)
+        out[dataset_name("partition", sp.name)] = _partition(sp, spec, T, n_e)
+    for name, indices in spec.outputs.levels:
+        sp = db.species(name)
+        if spec.physics["truncation"] != "plain":
+            raise InputError("level populations are stored for truncation 'plain' only so far "
+                             "(the occupation weights of single levels are not exposed yet)")
+        e, g = sp.bound_energy_ev, sp.bound_g
+        if max(indices) >= e.size:
+            raise InputError(f"{sp.name} has {e.size} bound levels (indices 0..{e.size - 1}); "
+                             f"asked for level {max(indices)}")
+        u = _partition(sp, spec, T, n_e)
+        n_sp = np.asarray(state.number_density(sp.name), dtype=float).reshape(T.shape)
+        for i in indices:
+            dn = dataset_name("population", sp.name, i)
+            out[dn] = n_sp * g[i] * np.exp(-e[i] / (K_B_EV * T)) / u
+            attrs[dn] = {"energy_ev": float(e[i]), "g": float(g[i])}
+
+
+__all__ = ["solver_compute", "composition_of", "composition_digest_doc"]
