@@ -1,0 +1,515 @@
+"""Internal partition functions U(T) of atoms and ions, for many species at once.
+
+U_r = sum_i g_i w_i exp(-E_i / kT) over the bound levels of stage r, with one of three
+truncations of the (divergent) level sum:
+
+``"plain"``
+    every tabulated bound level (below the ionization energy, not autoionizing), w = 1;
+``"lowered"``
+    only levels with E_i < chi - dchi, where dchi is given (``lowering_ev``) or computed as the
+    Debye-Hueckel lowering from n_e and T;
+``"occupation"``
+    every level weighted by its occupation probability w_i (Hummer & Mihalas 1988; charged
+    perturbers after Hubeny, Hummer & Lanz 1994), see :mod:`sahaboltz.kernels.occupation`.
+
+``completion=True`` adds hydrogenic Rydberg levels of the parent ion above the highest
+tabulated level (energies chi - R Z^2 / n^2, weights 2 n^2 g_parent; see
+docs/partition_functions.md); it needs a truncation that bounds the sum, so it is refused with
+``"plain"``.
+
+:class:`PartitionModel` packs the levels of all its species into flat arrays once; each call
+evaluates exp(-E/kT) for (levels x unique states) in cache-sized blocks and sums the levels of
+each species with ``np.add.reduceat``.  Terms smaller than e^-50 of the ground term are skipped
+(the result is unchanged at double precision), which saves most of the work at low T.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+from typing import Any, Iterable, Sequence
+
+import numpy as np
+
+from sahaboltz.constants import K_B_EV
+from sahaboltz.data.species import Species
+from sahaboltz.errors import InputError, NoDataError
+from sahaboltz.kernels.lowering import debye_hueckel_lowering, debye_length
+from sahaboltz.kernels.occupation import (_BETA_COEFF, RYDBERG_EV, hydrogenic_radius,
+                                          log_w_charged, log_w_neutral, stark_k)
+from sahaboltz.quantities import as_array, as_positive_array
+
+__all__ = ["TRUNCATIONS", "PartitionModel", "partition_function", "log_derivative"]
+
+#: the truncation choices, see the module docstring
+TRUNCATIONS = ("plain", "lowered", "occupation")
+
+# a term with E/kT - ln(g_max) > _CUT is below e^-50 = 2e-22 of a ground term g0 >= 1 at E = 0
+_CUT = 50.0
+# elements of the (states x levels) work block; sized to stay in the CPU cache
+_BLOCK = 1 << 17
+# states x levels per group sharing one pruned level set (the pruning test costs a pass)
+_GROUP_ELEMENTS = 1 << 22
+# completion levels with Stark parameter beta below this have f < 1.4e-16 (w ~ 0): skipped
+_BETA_MIN = 1e-5
+
+
+class PartitionModel:
+    """Partition functions of a fixed list of species, evaluated together.
+
+    Parameters
+    ----------
+    species : iterable of Species
+        The species (any mix of elements and stages; a bare nucleus gives U = 1).
+    truncation : {"plain", "lowered", "occupation"}
+        How the level sum is truncated (see module docstring).  Default "plain".
+    completion : bool
+        Add hydrogenic Rydberg levels of the parent above the highest tabulated level.
+        Needs ``truncation`` "lowered" or "occupation".
+    max_completion_n : int
+        Highest principal quantum number of the completion levels (default 1000).  Below
+        about n_e = 1e9 cm^-3 the bounding truncation would admit more; the sum then stops here.
+    parent_ground_g : dict, optional
+        Statistical weight of the parent's ground level, keyed by (Z, charge) of the species
+        being completed; looked up in ``species`` and then in the default database otherwise.
+    perturber_radius_cm : float, optional
+        Hard-sphere radius of neutral perturbers for "occupation" (default: ground-state H).
+
+    Raises
+    ------
+    InputError
+        Unknown truncation, completion with "plain", or an empty species list.
+    NoDataError
+        A species (other than a bare nucleus) with no bound level, or a missing parent for
+        completion.
+    """
+
+    def __init__(self, species: Iterable[Species] | Species, truncation: str = "plain",
+                 completion: bool = False, *, max_completion_n: int = 1000,
+                 parent_ground_g: dict | None = None,
+                 perturber_radius_cm: float | None = None):
+        if isinstance(species, Species):
+            species = [species]
+        self.species: list[Species] = list(species)
+        if not self.species:
+            raise InputError("species: give at least one Species")
+        for sp in self.species:
+            if not isinstance(sp, Species):
+                raise InputError(f"species: expected Species objects, got {sp!r}; look names up "
+                                 "with sahaboltz.data.database.default_database().species()")
+        if truncation not in TRUNCATIONS:
+            raise InputError(f"truncation must be one of {', '.join(TRUNCATIONS)}; "
+                             f"got {truncation!r}")
+        if completion and truncation == "plain":
+            raise InputError("completion=True needs truncation='lowered' or 'occupation': "
+                             "with the plain sum the Rydberg series diverges")
+        if int(max_completion_n) < 2:
+            raise InputError(f"max_completion_n must be >= 2, got {max_completion_n}")
+        self.truncation = truncation
+        self.completion = bool(completion)
+        self.max_completion_n = int(max_completion_n)
+        self.perturber_radius_cm = (hydrogenic_radius(1.0) if perturber_radius_cm is None
+                                    else float(perturber_radius_cm))
+        self.names = [sp.name for sp in self.species]
+        self._pack(parent_ground_g or {})
+
+    # -- construction -----------------------------------------------------------------------
+    def _parent_g(self, sp: Species, given: dict) -> float:
+        key = (sp.Z, sp.charge)
+        if key in given:
+            return float(given[key])
+        if sp.charge + 1 == sp.Z:
+            return 1.0  # parent is the bare nucleus
+        for other in self.species:
+            if other.Z == sp.Z and other.charge == sp.charge + 1:
+                return _ground_g(other)
+        try:
+            from sahaboltz.data.database import default_database
+            parent = default_database().species((sp.Z, sp.charge + 1))
+        except Exception as exc:  # no database, or the parent has no levels
+            raise NoDataError(f"completion of {sp.name} needs the ground-level weight of its "
+                              f"parent ion; pass parent_ground_g={{({sp.Z}, {sp.charge}): g}} "
+                              f"({exc})") from None
+        return _ground_g(parent)
+
+    def _pack(self, given_parent_g: dict) -> None:
+        e_all, g_all, neff_all, z_all, n_all, wapply_all, counts = [], [], [], [], [], [], []
+        chi, charge, emin, ntop = [], [], [], []
+        for sp in self.species:
+            z = sp.charge + 1.0
+            if sp.is_bare_nucleus:
+                e, g = np.zeros(1), np.ones(1)
+                neff, wap = np.ones(1), np.zeros(1, bool)
+                nlev = np.zeros(1)
+                chi.append(math.inf)
+            else:
+                if not np.isfinite(sp.ionization_energy_ev):
+                    raise NoDataError(f"{sp.name} has no ionization energy: cannot tell bound "
+                                      "levels from autoionizing ones")
+                mask = sp.bound
+                if not mask.any():
+                    raise NoDataError(f"{sp.name} has no bound levels in the level data "
+                                      f"({sp.provenance.get('levels_source', 'no source')}); "
+                                      "leave it out of the species list or import a level list")
+                order = np.argsort(sp.levels.energy_ev[mask], kind="stable")
+                e = sp.levels.energy_ev[mask][order]
+                g = sp.levels.g[mask][order].astype(float)
+                if (g <= 0).any() or not np.isfinite(e).all():
+                    raise NoDataError(f"{sp.name}: level data with g <= 0 or non-finite energy")
+                neff = z * np.sqrt(RYDBERG_EV / (sp.ionization_energy_ev - e))
+                wap = np.ones(len(e), bool)
+                nlev = np.zeros(len(e))  # 0 = tabulated level
+                if self.completion and sp.charge >= 0:
+                    n_top = float(neff.max())
+                    n0 = int(math.floor(n_top + 0.5)) + 1
+                    if n0 <= self.max_completion_n:
+                        n = np.arange(n0, self.max_completion_n + 1, dtype=float)
+                        gp = self._parent_g(sp, given_parent_g)
+                        e = np.concatenate([e, sp.ionization_energy_ev - RYDBERG_EV * z * z / n**2])
+                        g = np.concatenate([g, 2.0 * n * n * gp])
+                        neff = np.concatenate([neff, n])
+                        wap = np.concatenate([wap, np.ones(len(n), bool)])
+                        nlev = np.concatenate([nlev, n])
+                chi.append(sp.ionization_energy_ev)
+            ntop.append(float(neff[nlev == 0].max()) if not sp.is_bare_nucleus else 0.0)
+            e_all.append(e); g_all.append(g); neff_all.append(neff); n_all.append(nlev)
+            z_all.append(np.full(len(e), z)); wapply_all.append(wap); counts.append(len(e))
+            charge.append(sp.charge)
+            emin.append(float(e[0]))
+        self._e = np.concatenate(e_all)
+        self._lng = np.log(np.concatenate(g_all))
+        self._neff = np.concatenate(neff_all)
+        self._zrad = np.concatenate(z_all)
+        self._ncomp = np.concatenate(n_all)       # n of completion levels, 0 for tabulated
+        self._wapply = np.concatenate(wapply_all)
+        self._counts = np.asarray(counts)
+        self._starts = np.concatenate([[0], np.cumsum(self._counts)[:-1]]).astype(np.intp)
+        self._sp = np.repeat(np.arange(len(self.species)), self._counts)
+        self.ionization_energy_ev = np.asarray(chi, dtype=float)
+        self.charge = np.asarray(charge, dtype=float)
+        self._emin = np.asarray(emin)
+        self._lng_max = np.maximum.reduceat(self._lng, self._starts)
+        self._lng_max_lv = self._lng_max[self._sp]
+        self._is_comp = self._ncomp > 0
+        self._bare = np.array([sp.is_bare_nucleus for sp in self.species])
+
+    @property
+    def n_species(self) -> int:
+        return len(self.species)
+
+    @property
+    def n_levels(self) -> int:
+        """Number of packed levels (tabulated bound levels plus completion levels)."""
+        return len(self._e)
+
+    def index(self, name_or_species) -> int:
+        """Position of a species (by name "Fe II" or Species) in this model."""
+        if isinstance(name_or_species, Species):
+            name_or_species = name_or_species.name
+        try:
+            return self.names.index(name_or_species)
+        except ValueError:
+            raise InputError(f"species: {name_or_species!r} is not in this PartitionModel "
+                             f"(it holds {len(self.names)} species)") from None
+
+    # -- public evaluation ------------------------------------------------------------------
+    def evaluate(self, temperature: Any, n_e: Any = None, lowering_ev: Any = None,
+                 n_neutral: Any = None) -> np.ndarray:
+        """Partition functions U of every species.
+
+        Parameters
+        ----------
+        temperature : float, array_like or Quantity
+            Temperature [K], any shape.
+        n_e : float, array_like or Quantity, optional
+            Electron density [cm^-3]; needed for "occupation", and for "lowered" when
+            ``lowering_ev`` is not given (Debye-Hueckel lowering from n_e and T).
+        lowering_ev : float, array_like or Quantity, optional
+            Ionization-potential lowering of each species [eV] ("lowered" only; ignored by
+            the other truncations).  Broadcast against (n_species,) + state shape; a 1-D
+            array of length n_species is taken as one value per species.
+        n_neutral : float, array_like or Quantity, optional
+            Density of neutral perturbers [cm^-3] for "occupation" (hard spheres).
+
+        Returns
+        -------
+        ndarray
+            Shape (n_species,) + broadcast shape of the state arguments.
+        """
+        return self._run(temperature, n_e, lowering_ev, n_neutral, want_energy=False)[0]
+
+    def log_derivative(self, temperature: Any, n_e: Any = None, lowering_ev: Any = None,
+                       n_neutral: Any = None) -> np.ndarray:
+        """d ln U / d ln T = <E> / kT, same arguments and shape as :meth:`evaluate`.
+
+        The derivative is taken at a fixed set of levels and fixed occupation probabilities
+        (the weak temperature dependence of w and of the Debye-Hueckel limit is left out).
+        """
+        u, u1 = self._run(temperature, n_e, lowering_ev, n_neutral, want_energy=True)
+        return u1 / u
+
+    def evaluate_with_derivative(self, temperature: Any, n_e: Any = None,
+                                 lowering_ev: Any = None, n_neutral: Any = None
+                                 ) -> tuple[np.ndarray, np.ndarray]:
+        """(U, d ln U / d ln T) in one pass."""
+        u, u1 = self._run(temperature, n_e, lowering_ev, n_neutral, want_energy=True)
+        return u, u1 / u
+
+    def level_terms(self, species, temperature: Any, n_e: Any = None, lowering_ev: Any = None,
+                    n_neutral: Any = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Boltzmann terms g_i w_i exp(-E_i/kT) of one species' packed levels.
+
+        Returns
+        -------
+        terms : ndarray, shape (n_levels_of_species,) + state shape
+            Zero for levels removed by the truncation.
+        energy_ev : ndarray
+            Energies of those levels [eV] (tabulated bound levels first, then completion).
+        n_completion : ndarray
+            Principal quantum number of completion levels, 0 for tabulated ones.
+        """
+        s = self.index(species)
+        st = self._states(temperature, n_e, lowering_ev, n_neutral)
+        lv = np.arange(self._starts[s], self._starts[s] + self._counts[s])
+        out = np.empty((st["n"], len(lv)))
+        for lo in range(0, st["n"], max(1, _BLOCK // len(lv))):
+            hi = min(st["n"], lo + max(1, _BLOCK // len(lv)))
+            out[lo:hi] = np.exp(self._arg(lv, st, slice(lo, hi)))
+        terms = out.T[:, st["inverse"]].reshape((len(lv),) + st["shape"])
+        return terms, self._e[lv].copy(), self._ncomp[lv].copy()
+
+    # -- internals --------------------------------------------------------------------------
+    def _states(self, temperature, n_e, lowering_ev, n_neutral) -> dict:
+        """Check the inputs and reduce them to unique states (flat columns)."""
+        t = as_positive_array(temperature, "K", "temperature")
+        ne = None if n_e is None else as_positive_array(n_e, "cm-3", "n_e")
+        nn = None if n_neutral is None else as_array(n_neutral, "cm-3", "n_neutral",
+                                                      allow_negative=False)
+        mode = self.truncation
+        shapes = [t.shape] + [a.shape for a in (ne, nn) if a is not None]
+        try:
+            shape = np.broadcast_shapes(*shapes)
+        except ValueError:
+            raise InputError(f"temperature, n_e and n_neutral do not broadcast together "
+                             f"(shapes {', '.join(map(str, shapes))})") from None
+        if mode == "occupation" and ne is None:
+            raise InputError("n_e: the 'occupation' truncation needs the electron density")
+        cols = [np.broadcast_to(t, shape).ravel()]
+        names = ["T"]
+        low_const = None
+        if mode == "lowered":
+            if lowering_ev is not None:
+                low = as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False)
+                if low.ndim == 1 and len(low) == self.n_species:
+                    low = low.reshape((self.n_species,) + (1,) * len(shape))
+                try:
+                    full_shape = np.broadcast_shapes(low.shape, (self.n_species,) + shape)
+                except ValueError:
+                    raise InputError(f"lowering_ev of shape {low.shape} does not broadcast "
+                                     f"against (n_species,) + state shape "
+                                     f"{(self.n_species,) + shape}") from None
+                if full_shape != (self.n_species,) + shape:
+                    raise InputError(f"lowering_ev of shape {low.shape} would enlarge the "
+                                     f"state shape {shape}")
+                lw = np.broadcast_to(low, full_shape).reshape(self.n_species, -1)
+                if lw.shape[1] == 0 or (lw == lw[:, :1]).all():
+                    low_const = lw[:, 0].copy() if lw.shape[1] else np.zeros(self.n_species)
+                else:
+                    cols.extend(lw)
+                    names.extend(["L"] * self.n_species)
+            elif ne is not None:
+                cols.append(np.broadcast_to(ne, shape).ravel())
+                names.append("ne")
+            else:
+                raise InputError("lowering_ev / n_e: the 'lowered' truncation needs either "
+                                 "the lowering itself or the electron density")
+        elif mode == "occupation":
+            cols.append(np.broadcast_to(ne, shape).ravel())
+            names.append("ne")
+            if nn is not None:
+                cols.append(np.broadcast_to(nn, shape).ravel())
+                names.append("nn")
+        if len(cols) == 1:
+            uniq, inverse = np.unique(cols[0], return_inverse=True)
+            table = uniq[:, None]
+        else:
+            table, inverse = np.unique(np.stack(cols, axis=1), axis=0, return_inverse=True)
+        inverse = inverse.ravel()
+        st = {"shape": shape, "inverse": inverse, "n": len(table), "T": table[:, 0].copy()}
+        st["beta"] = 1.0 / (K_B_EV * st["T"])
+        if "ne" in names:
+            st["ne"] = table[:, names.index("ne")].copy()
+        if "nn" in names:
+            st["nn"] = table[:, names.index("nn")].copy()
+        if mode == "lowered":
+            if low_const is not None:
+                low_s = np.repeat(low_const[:, None], st["n"], axis=1)
+            elif "L" in names:
+                low_s = table[:, 1:1 + self.n_species].T.copy()
+            else:
+                lam = debye_length(st["T"], st["ne"])
+                low_s = debye_hueckel_lowering(self.charge[:, None], lam[None, :])
+            low_s = np.where(self._bare[:, None], 0.0, low_s)
+            cut = self.ionization_energy_ev[:, None] - low_s   # (n_species, n_states)
+            bad = cut <= self._emin[:, None]
+            if bad.any():
+                s = int(np.argwhere(bad)[0][0])
+                raise InputError(f"lowering_ev: the lowering of {self.names[s]} reaches its "
+                                 f"ionization energy ({self.ionization_energy_ev[s]:.6g} eV), so "
+                                 "no bound level is left; the plasma is too dense for this model")
+            st["cut"] = cut
+        return st
+
+    def _arg(self, lv: np.ndarray, st: dict, sl: slice) -> np.ndarray:
+        """ln of the Boltzmann terms, shape (states in ``sl``, levels ``lv``)."""
+        beta = st["beta"][sl]
+        e = self._e[lv]
+        arg = np.multiply.outer(beta, -e)
+        arg += self._lng[lv]
+        if self.truncation == "lowered":
+            cut = st["cut"][:, sl].T[:, self._sp[lv]]
+            np.copyto(arg, -np.inf, where=~(e < cut))
+        elif self.truncation == "occupation":
+            wap = self._wapply[lv]
+            if wap.any():
+                n = self._neff[lv][wap]
+                z = self._zrad[lv][wap]
+                lw = log_w_charged(n, z, st["T"][sl][:, None], st["ne"][sl][:, None])
+                if "nn" in st:
+                    lw = lw + log_w_neutral(n, z, st["nn"][sl][:, None], self.perturber_radius_cm)
+                arg[:, wap] += lw
+        return arg
+
+    def _keep(self, st: dict, sl: slice) -> np.ndarray:
+        """Levels that can matter for the states in ``sl`` (a prefix of every species)."""
+        keep = self._e * st["beta"][sl].min() - self._lng_max_lv < _CUT
+        if self.truncation == "lowered":
+            keep &= self._e < st["cut"][:, sl].max(axis=1)[self._sp]
+        elif self.truncation == "occupation" and self.completion:
+            ne_min = st["ne"][sl].min()
+            n = np.where(self._is_comp, self._ncomp, 1.0)
+            beta_stark = _BETA_COEFF * ne_min ** (-2.0 / 3.0) * stark_k(n) * self._zrad**3 / n**4
+            keep &= ~self._is_comp | (beta_stark > _BETA_MIN)
+        keep[self._starts] = True  # never leave a species without a level
+        return keep
+
+    def _run(self, temperature, n_e, lowering_ev, n_neutral, want_energy: bool):
+        st = self._states(temperature, n_e, lowering_ev, n_neutral)
+        nst = st["n"]
+        u = np.empty((self.n_species, nst))
+        u1 = np.empty((self.n_species, nst)) if want_energy else None
+        all_lv = np.arange(self.n_levels)
+        # states are sorted by temperature: a group of neighbours shares one pruned level set,
+        # decided once per group, then the group is evaluated in cache-sized blocks
+        group = max(1, _GROUP_ELEMENTS // self.n_levels)
+        for g0 in range(0, nst, group):
+            g1 = min(nst, g0 + group)
+            keep = self._keep(st, slice(g0, g1))
+            if keep.all():
+                lv, starts = all_lv, self._starts
+            else:
+                lv = np.flatnonzero(keep)
+                counts = np.add.reduceat(keep.astype(np.intp), self._starts)
+                starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+            step = max(1, _BLOCK // len(lv))
+            if self.truncation == "plain":
+                neg_e, lng = -self._e[lv], self._lng[lv]
+                e = -neg_e
+                buf = np.empty((min(step, g1 - g0), len(lv)))
+            for lo in range(g0, g1, step):
+                hi = min(g1, lo + step)
+                sl = slice(lo, hi)
+                if self.truncation == "plain":
+                    terms = buf[:hi - lo]
+                    np.multiply.outer(st["beta"][sl], neg_e, out=terms)
+                    terms += lng
+                else:
+                    terms = self._arg(lv, st, sl)
+                    e = self._e[lv]
+                np.exp(terms, out=terms)
+                u[:, sl] = np.add.reduceat(terms, starts, axis=1).T
+                if want_energy:
+                    terms *= np.multiply.outer(st["beta"][sl], e)
+                    u1[:, sl] = np.add.reduceat(terms, starts, axis=1).T
+        out_shape = (self.n_species,) + st["shape"]
+        u = u[:, st["inverse"]].reshape(out_shape)
+        if want_energy:
+            u1 = u1[:, st["inverse"]].reshape(out_shape)
+        return u, u1
+
+
+def _ground_g(sp: Species) -> float:
+    """Statistical weight of the lowest bound level (1 for a bare nucleus)."""
+    if sp.is_bare_nucleus:
+        return 1.0
+    mask = sp.bound
+    if not mask.any():
+        raise NoDataError(f"{sp.name} has no bound levels, so its ground-level weight is unknown")
+    e = sp.levels.energy_ev[mask]
+    return float(sp.levels.g[mask][np.argmin(e)])
+
+
+def _resolve(species) -> Species:
+    if isinstance(species, Species):
+        return species
+    from sahaboltz.data.database import default_database
+    return default_database().species(species)
+
+
+@functools.lru_cache(maxsize=256)
+def _cached_model(key, truncation: str, completion: bool) -> PartitionModel:
+    return PartitionModel([_resolve(key)], truncation, completion)
+
+
+def _model_for(species, truncation: str, completion: bool) -> PartitionModel:
+    if isinstance(species, Species):
+        return PartitionModel([species], truncation, completion)
+    if not isinstance(species, (str, tuple)):
+        raise InputError(f"species must be a name ('Fe II', 'Fe+'), (Z, charge) or a Species; "
+                         f"got {species!r}")
+    return _cached_model(species, truncation, completion)
+
+
+def partition_function(species, temperature: Any, *, truncation: str = "plain",
+                       completion: bool = False, n_e: Any = None, lowering_ev: Any = None,
+                       n_neutral: Any = None) -> np.ndarray:
+    """Partition function U of one species.
+
+    Parameters
+    ----------
+    species : str, (Z, charge) or Species
+        E.g. ``"Fe II"``, ``"Fe+"``, ``(26, 1)``; names are looked up in the default database.
+    temperature : float, array_like or Quantity
+        Temperature [K].
+    truncation, completion, n_e, lowering_ev, n_neutral
+        As for :class:`PartitionModel` and :meth:`PartitionModel.evaluate` (``lowering_ev``
+        is a scalar or an array of the state shape here).
+
+    Returns
+    -------
+    ndarray
+        U, broadcast shape of the state arguments.
+
+    Raises
+    ------
+    UnknownSpeciesError, NoDataError
+        Unknown species, or one without level data.
+    InputError
+        Bad temperature / density / options.
+    """
+    model = _model_for(species, truncation, completion)
+    if lowering_ev is not None and truncation == "lowered":
+        low = as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False)
+        lowering_ev = low[None, ...] if low.ndim else low
+    return model.evaluate(temperature, n_e, lowering_ev, n_neutral)[0]
+
+
+def log_derivative(species, temperature: Any, *, truncation: str = "plain",
+                   completion: bool = False, n_e: Any = None, lowering_ev: Any = None,
+                   n_neutral: Any = None) -> np.ndarray:
+    """d ln U / d ln T of one species (arguments as :func:`partition_function`)."""
+    model = _model_for(species, truncation, completion)
+    if lowering_ev is not None and truncation == "lowered":
+        low = as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False)
+        lowering_ev = low[None, ...] if low.ndim else low
+    return model.log_derivative(temperature, n_e, lowering_ev, n_neutral)[0]
