@@ -85,6 +85,8 @@ def parse_species(text: str) -> tuple[int, int]:
             z = atomic_number(sym)
             charge = from_roman(m.group(2)) - 1
             return _checked(z, charge, text)
+    if m and " " in s:
+        atomic_number(m.group(1))  # "Xx II": report the unknown element
     m = re.fullmatch(r"([A-Za-z]{1,2})\s*(\+{2,}|-{2,})", s)
     if m:  # "Fe++"
         sign = 1 if m.group(2)[0] == "+" else -1
