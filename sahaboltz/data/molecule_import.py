@@ -54,7 +54,7 @@ N_TEMPERATURES = 42
 #: at 1e-5 K log10 pK ~ -1e9 is printed to 6 digits, so agreement to ~1e-5 is all one can ask
 D0_CONSISTENCY_RTOL = 1e-4
 
-_NAME = re.compile(r"^((?:[A-Z][a-z]?\d*)+)([+-]?)$")
+_NAME = re.compile(r"^((?:[A-Z][a-z]?(?:[1-9]\d*)?)+)([+-]?)$")
 _PART = re.compile(r"([A-Z][a-z]?)(\d*)")
 _FLOAT = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
 

@@ -260,9 +260,15 @@ def _parse(text: str, path: str) -> tuple[list[str], dict[str, Molecule]]:
                         raise DataFormatError(f"{path}:{i + 1}: expected 'T log10_Kp_Pa U_AB', "
                                               f"got {s[:50]!r}")
                     try:
-                        rows.append([float(v) for v in vals])
+                        row = [float(v) for v in vals]
                     except ValueError:
                         raise DataFormatError(f"{path}:{i + 1}: not numbers: {s[:50]!r}") from None
+                    if not all(np.isfinite(row)) or row[0] <= 0 or row[2] <= 0:
+                        raise DataFormatError(f"{path}:{i + 1}: T and U_AB must be positive "
+                                              f"and all values finite: {s[:50]!r}")
+                    if rows and row[0] <= rows[-1][0]:
+                        raise DataFormatError(f"{path}:{i + 1}: temperatures must increase")
+                    rows.append(row)
                 i += 1
             if i >= n:
                 raise DataFormatError(f"{where}: block of {name} has no 'end' line")
@@ -273,11 +279,8 @@ def _parse(text: str, path: str) -> tuple[list[str], dict[str, Molecule]]:
             raise DataFormatError(f"{where}: malformed molecule block ({exc or 'bad line'})") from None
         arr = np.array(rows, dtype=np.float64).reshape(-1, 3)
         t, logk, q = arr.T
-        if len(t) < 4 or np.any(np.diff(t) <= 0) or t[0] <= 0:
-            raise DataFormatError(f"{where}: temperatures of {name} must be positive, "
-                                  "increasing and at least 4")
-        if not (np.all(np.isfinite(arr)) and np.all(q > 0)):
-            raise DataFormatError(f"{where}: non-finite value or U_AB <= 0 for {name}")
+        if len(t) < 4:
+            raise DataFormatError(f"{where}: {name} has {len(t)} temperatures, at least 4 needed")
         if q1 + q2 != charge:
             raise DataFormatError(f"{where}: charges of {comps} do not add up to {charge}")
         if name in molecules:

@@ -15,18 +15,24 @@ factor exp(-D0/kT).  We interpolate the smooth *reduced* function
 
 which, by the Saha-like dissociation formula K_p = kT (2 pi mu kT/h^2)^{3/2} (U_A U_B/U_AB)
 exp(-D0/kT), is ln(U_A U_B / U_AB) plus a constant: nearly flat, slowly varying.  The
-interpolant is PCHIP (piecewise cubic Hermite, Fritsch-Carlson) in ln T.  Why PCHIP:
+interpolant is a cubic spline (not-a-knot) of r in ln T through all tabulated nodes.  Why:
 
-* no overshoot between nodes (no wiggles), and it is local: the source's constants below ~10 K
-  carry only their 6 printed digits of a number of size ~10^4-10^9, so r is noisy there, and a
-  global spline would carry that noise to higher temperatures; PCHIP keeps it in place;
-* accuracy: dropping every other node above 100 K and predicting it back, the error in ln K_p
-  has a median over the 291 molecules of 0.006 (worst 0.16, Cs2 at 5000 K, on the doubled
-  spacing); on the real grid PCHIP and a cubic spline differ by a median 0.001 in ln K_p between
-  1000 and 10000 K (worst 0.02, Cs2), below the uncertainty that D0 itself brings for most
-  molecules (e.g. CO: sigma(D0) = 0.007 eV -> 0.027 in ln K_p at 3000 K).
-  Interpolating log K_p directly instead is ~200 times worse (median 1.4 in ln K_p on the same
-  test), which is why the reduced function is used.
+* accuracy: dropping every other node above 1000 K and predicting the dropped published values
+  back, the error in log10 K_p has a median over the 291 molecules of 0.0009 dex (90 % below
+  0.004, worst 0.013, BaO); PCHIP on the same test gives 0.0027 / 0.012 / 0.071 (Cs2: it
+  flattens the minimum of r that the weakly bound alkali dimers have near 5000-7000 K);
+  a spline of log K_p itself instead of r gives 0.012 / 0.020 / 0.033 dex (CO) - 13 times
+  worse at the median - and PCHIP of log K_p 0.060 / 0.10 / 0.16;
+* smoothness: the spline is C2, so d ln K / d ln T (needed for internal energies) and its
+  derivative (heat capacities) are continuous; PCHIP's second derivative jumps at every node;
+* no wiggles: ln K_p from the spline rises monotonically with T for all 291 molecules on a
+  20,000-point grid over the whole table (1e-5 K to 10,000 K); tests/test_molecule_kernel.py
+  checks it from 300 K up.  The source prints ~6 significant digits, so below ~10 K, where
+  ln K_p ~ -10^4...-10^9, r is rounding noise; a spline is not local, but that noise changes
+  ln K_p above 100 K by less than 3e-6 (measured against a spline through the >= 10 K nodes).
+
+The molecular partition function is interpolated with PCHIP in ln T on ln U (it has flat-to-
+rising steps at low T where a spline could undershoot; it is not needed to second order).
 
 Outside the table
 -----------------
@@ -46,7 +52,7 @@ from __future__ import annotations
 from typing import Any, Sequence
 
 import numpy as np
-from scipy.interpolate import PchipInterpolator
+from scipy.interpolate import CubicSpline, PchipInterpolator
 
 from sahaboltz.constants import K_B, K_B_EV
 from sahaboltz.data.molecules import Molecule, MoleculeDatabase, default_molecule_database
@@ -100,7 +106,7 @@ class EquilibriumConstants:
         else:
             self.t_min, self.t_max = 0.0, np.inf
         # one interpolator per distinct temperature grid (the shipped data share one grid)
-        self._groups: list[tuple[np.ndarray, PchipInterpolator, PchipInterpolator]] = []
+        self._groups: list[tuple[np.ndarray, CubicSpline, PchipInterpolator]] = []
         grids: dict[bytes, list[int]] = {}
         for i, m in enumerate(recs):
             grids.setdefault(m.temperature.tobytes(), []).append(i)
@@ -110,7 +116,7 @@ class EquilibriumConstants:
             r = np.stack([_reduced(recs[i].log10_kp * _LN10, recs[i].dissociation_energy_ev, t)
                           for i in idx], axis=-1)
             lnu = np.stack([np.log(recs[i].partition_function) for i in idx], axis=-1)
-            self._groups.append((np.array(idx), PchipInterpolator(x, r, axis=0, extrapolate=False),
+            self._groups.append((np.array(idx), CubicSpline(x, r, axis=0, extrapolate=False),
                                  PchipInterpolator(x, lnu, axis=0, extrapolate=False)))
 
     @property
