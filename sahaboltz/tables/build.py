@@ -27,8 +27,12 @@ from sahaboltz.tables.spec import TableSpec
 
 ComputeFn = Callable[[TableSpec, np.ndarray, np.ndarray], Mapping[str, np.ndarray]]
 
-#: default states per block: ~tens of MB per block for a solar mixture with all stage fractions
+#: default largest number of states per block
 DEFAULT_CHUNK_STATES = 16384
+#: default bound on the results of all blocks in flight [MB]; shrinks blocks for many outputs
+DEFAULT_MEMORY_MB = 256.0
+#: states in the probe block that finds the output names and their size per state
+PROBE_STATES = 16
 
 Block = tuple[int, int, int, int]
 
@@ -143,7 +147,8 @@ def temp_path_for(path: Path) -> Path:
 
 def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None = None,
                 workers: int | None = None, chunk_states: int = DEFAULT_CHUNK_STATES,
-                progress: bool | None = None, provenance: Mapping[str, Any] | None = None) -> Path:
+                progress: bool | None = None, provenance: Mapping[str, Any] | None = None,
+                memory_mb: float = DEFAULT_MEMORY_MB) -> Path:
     """Compute ``spec`` and write it as an HDF5 table at ``path`` (atomically).
 
     Parameters
@@ -159,6 +164,9 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
         Worker processes; default: all cores.  1 computes in this process.
     chunk_states : int
         Largest number of states per block.
+    memory_mb : float
+        Bound on the output arrays of all blocks in flight (two per worker).  A probe of
+        a few states measures the output size per state; blocks are made small enough.
     progress : bool, optional
         Show a progress bar on stderr; default: when stderr is a terminal.
     provenance : mapping, optional
@@ -172,7 +180,13 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
     path = Path(path)
     compute = compute or default_compute()
     workers = workers or os.cpu_count() or 1
-    todo = blocks(spec.shape, chunk_states)
+    # probe: output bytes per state (a solar mixture with all stage fractions has thousands)
+    _, sample = _run_block(compute, spec, (0, 1, 0, min(spec.shape[1], PROBE_STATES)))
+    per_state = sum(np.asarray(a).nbytes for k, a in sample.items() if k != "_attrs") / \
+        min(spec.shape[1], PROBE_STATES)
+    in_flight = 2 * workers if workers > 1 else 1
+    fit = int(memory_mb * 1e6 / (in_flight * max(per_state, 1.0)))
+    todo = blocks(spec.shape, max(1, min(chunk_states, fit)))
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = temp_path_for(path)
     first = todo[0]

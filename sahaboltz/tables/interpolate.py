@@ -29,7 +29,7 @@ from sahaboltz.tables.spec import PRESSURE_QUANTITIES
 
 _LOG_FLOOR = float(np.log(np.finfo(float).tiny))
 _SPAN_LIMIT = 50.0  # ln units; a wider stencil means an underflow edge -> bilinear there
-_BATCH = 65536  # points per vectorized pass; bounds temporary memory
+_BATCH = 16384  # points per vectorized pass; bounds temporary memory
 METHODS = ("cubic", "linear")
 OUTSIDE = ("raise", "clip", "nan")
 
@@ -72,9 +72,10 @@ class PopulationTable:
                                 if k not in ("DIMENSION_LIST",)} for n in self.quantities}
         self.pressure_unit = PRESSURE_QUANTITIES[self.pressure_quantity]
         self._data: dict[str, np.ndarray] = {}
-        self._prepared: dict[str, tuple[np.ndarray, bool]] = {}
+        self._prepared: dict[str, tuple[np.ndarray, bool, np.ndarray | None]] = {}
         self._lt = np.log(self.temperature)
         self._lp = np.log(self.pressure)
+        self._axes = (_Axis(self._lt), _Axis(self._lp))
 
     def __repr__(self) -> str:
         return (f"PopulationTable({str(self.path)!r}: {len(self.temperature)} x "
@@ -111,12 +112,13 @@ class PopulationTable:
                                      f"the file and build the table again") from None
         return self._data[name]
 
-    def _prepare(self, name: str) -> tuple[np.ndarray, bool]:
+    def _prepare(self, name: str) -> tuple[np.ndarray, bool, np.ndarray | None]:
         if name not in self._prepared:
             v = self[name]
             logged = bool(np.all(v >= 0))
             g = np.log(np.maximum(v, np.finfo(float).tiny)) if logged else v.astype(float)
-            self._prepared[name] = (np.ascontiguousarray(g).ravel(), logged)
+            wide = _wide_windows(g) if logged else None
+            self._prepared[name] = (np.ascontiguousarray(g).ravel(), logged, wide)
         return self._prepared[name]
 
     def interpolate(self, names: str | Sequence[str], temperature, pressure, *,
@@ -160,10 +162,10 @@ class PopulationTable:
         prepared = [self._prepare(n) for n in names]
         for s in range(0, lt.size, _BATCH):
             sl = slice(s, s + _BATCH)
-            st = _Stencil(self._lt, lt[sl], method)
-            sp = _Stencil(self._lp, lp[sl], method)
-            for n, (g, logged) in zip(names, prepared):
-                out[n][sl] = _evaluate(g, len(self._lp), st, sp, logged)
+            st = _Stencil(self._axes[0], lt[sl], method)
+            sp = _Stencil(self._axes[1], lp[sl], method)
+            for n, (g, logged, wide) in zip(names, prepared):
+                out[n][sl] = _evaluate(g, len(self._lp), st, sp, logged, wide)
         for n in names:
             if bad is not None:
                 out[n][bad] = np.nan
@@ -187,23 +189,57 @@ class PopulationTable:
         return bad if outside == "nan" else None
 
 
+class _Axis:
+    """One axis in log variables, with what every batch of points reuses."""
+
+    def __init__(self, x: np.ndarray):
+        self.x = x
+        n = x.size
+        step = np.diff(x)
+        # uniform (log-spaced) axes find cells by arithmetic instead of a binary search
+        self.uniform = bool(np.all(np.abs(step - step.mean()) <= 1e-9 * np.abs(step.mean())))
+        self.step = float(step.mean())
+        if n >= 4:
+            # inverse Lagrange denominators 1 / prod_{m != k} (x_k - x_m), per stencil start
+            win = np.lib.stride_tricks.sliding_window_view(x, 4)
+            inv = np.ones_like(win)
+            for k in range(4):
+                for m in range(4):
+                    if m != k:
+                        inv[:, k] /= win[:, k] - win[:, m]
+            self.inv_denominator = inv
+
+    def cells(self, q: np.ndarray) -> np.ndarray:
+        n = self.x.size
+        if self.uniform:
+            c = np.floor((q - self.x[0]) / self.step).astype(np.intp)
+            np.clip(c, 0, n - 2, out=c)
+            # rounding near a node: step one cell back or forward where needed
+            c -= (q < self.x[c]) & (c > 0)
+            c += (q >= self.x[np.minimum(c + 1, n - 1)]) & (c < n - 2)
+            return c
+        return np.clip(np.searchsorted(self.x, q, side="right") - 1, 0, n - 2)
+
+
 class _Stencil:
     """Interpolation nodes and weights along one axis for a batch of points."""
 
-    def __init__(self, x: np.ndarray, q: np.ndarray, method: str):
+    def __init__(self, axis: _Axis, q: np.ndarray, method: str):
+        x = axis.x
         n = x.size
-        cell = np.clip(np.searchsorted(x, q, side="right") - 1, 0, n - 2)
+        cell = axis.cells(q)
         self.cell = cell
         self.frac = (q - x[cell]) / (x[cell + 1] - x[cell])
         if method == "cubic" and n >= 4:
             start = np.clip(cell - 1, 0, n - 4)
-            nodes = x[start[:, None] + np.arange(4)]
-            d = q[:, None] - nodes
-            w = np.ones((q.size, 4))
-            for k in range(4):
-                for m in range(4):
-                    if m != k:
-                        w[:, k] *= d[:, m] / (nodes[:, k] - nodes[:, m])
+            d0, d1, d2, d3 = (q - x[start + k] for k in range(4))
+            inv = axis.inv_denominator[start]
+            p01, p23 = d0 * d1, d2 * d3
+            w = np.empty((q.size, 4))
+            w[:, 0] = d1 * p23 * inv[:, 0]
+            w[:, 1] = d0 * p23 * inv[:, 1]
+            w[:, 2] = p01 * d3 * inv[:, 2]
+            w[:, 3] = p01 * d2 * inv[:, 3]
             self.start, self.weights, self.width = start, w, 4
         else:
             self.start = cell
@@ -212,16 +248,27 @@ class _Stencil:
         self.offset = cell - self.start  # position of the cell inside the stencil
 
 
-def _evaluate(g: np.ndarray, ncol: int, st: _Stencil, sp: _Stencil, logged: bool) -> np.ndarray:
-    a = np.arange(st.width)
-    b = np.arange(sp.width)
-    idx = (st.start[:, None, None] + a[None, :, None]) * ncol + (sp.start[:, None, None] +
-                                                                b[None, None, :])
-    vals = g.take(idx)  # (N, wt, wp)
+def _wide_windows(g2d: np.ndarray) -> np.ndarray | None:
+    """Per 4 x 4 stencil start: does the logged quantity span more than the limit there?"""
+    if g2d.shape[0] < 4 or g2d.shape[1] < 4 or np.ptp(g2d) <= _SPAN_LIMIT:
+        return None
+    # separable sliding max/min: along P, then along T
+    wp = np.lib.stride_tricks.sliding_window_view(g2d, 4, axis=1)
+    hi, lo = wp.max(axis=-1), wp.min(axis=-1)
+    hi = np.lib.stride_tricks.sliding_window_view(hi, 4, axis=0).max(axis=-1)
+    lo = np.lib.stride_tricks.sliding_window_view(lo, 4, axis=0).min(axis=-1)
+    wide = (hi - lo) > _SPAN_LIMIT
+    return wide if wide.any() else None
+
+
+def _evaluate(g: np.ndarray, ncol: int, st: _Stencil, sp: _Stencil, logged: bool,
+              wide_map: np.ndarray | None) -> np.ndarray:
+    offsets = (np.arange(st.width)[:, None] * ncol + np.arange(sp.width)[None, :]).ravel()
+    base = st.start * ncol + sp.start
+    vals = g.take(base[:, None] + offsets).reshape(-1, st.width, sp.width)  # (N, wt, wp)
     res = np.einsum("na,nab,nb->n", st.weights, vals, sp.weights)
-    if logged and st.width * sp.width > 4:
-        span = vals.max(axis=(1, 2)) - vals.min(axis=(1, 2))
-        wide = span > _SPAN_LIMIT
+    if logged and wide_map is not None and st.width * sp.width > 4:
+        wide = wide_map[st.start, sp.start]
         if wide.any():
             res[wide] = _bilinear(vals[wide], st, sp, wide)
     if logged:
