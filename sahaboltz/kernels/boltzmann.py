@@ -43,8 +43,9 @@ def select_levels(species, *, index: Any = None, energy_range_ev: Sequence[float
     energy_range_ev : (float, float), optional
         Keep levels with lo <= E <= hi [eV].
     configuration, term, j : str, optional
-        Labels as in the level table; shell-style wildcards allowed ("*4s2*", "?D").
-        Matching ignores surrounding blanks.
+        Labels as in the level table.  A label equal to the text is matched exactly;
+        otherwise the text is a shell-style pattern ("*4s2*", "?5D").  Blanks around the
+        labels are ignored.
     bound_only : bool
         Drop levels that are not bound (default True).
     argument : str
@@ -91,7 +92,12 @@ def select_levels(species, *, index: Any = None, energy_range_ev: Sequence[float
         given.append(label)
         values = getattr(sp.levels, label)
         pat = str(pattern).strip()
-        keep &= np.array([fnmatch.fnmatchcase(str(v).strip(), pat) for v in values], dtype=bool)
+        labels = [str(v).strip() for v in values]
+        exact = np.array([v == pat for v in labels], dtype=bool)
+        # labels hold '*' (odd parity) themselves: an exact match wins over wildcards, so
+        # "2P*" does not also pick the even "2P"
+        keep &= exact if exact.any() else np.array(
+            [fnmatch.fnmatchcase(v, pat) for v in labels], dtype=bool)
     if not given:
         raise InputError(f"{argument}: give at least one of index, energy_range_ev, "
                          "configuration, term or j")
