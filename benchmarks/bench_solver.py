@@ -1,0 +1,135 @@
+"""Benchmark: the vectorized mixture solver against a per-state reference.
+
+A grid of N_T x N_P (T, P_gas) states (default 200 x 200, T = 1,000 K - 1e6 K and
+P_gas = 1e-4 - 1e10 dyn cm^-2, log spaced), solar composition (Asplund et al. 2009), every
+element with data, every ionization stage, H- included, plain partition functions.
+
+The reference solves one state at a time with scipy.optimize.brentq on ln n_e, with the same
+physics: the same Saha chains (the same ln-population tables C_q(T), handed to it precomputed
+for free, which favours the reference), padded into an (elements x stages) array so that each
+residual evaluation is one numpy expression over all species.  It is timed on a subset of the
+states spread over the grid and scaled to the full grid.
+
+Prints: times, speedup, the solver's average passes, the largest n_e difference against the
+reference, the charge-neutrality and element-conservation residuals of the solved grid.
+
+    python benchmarks/bench_solver.py [--nt 200] [--np 200] [--subset 400]
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+
+import numpy as np
+from scipy.optimize import brentq
+
+from sahaboltz.constants import K_B
+from sahaboltz.data.composition import solar
+from sahaboltz.equilibrium import AtomicNetwork, solve_equilibrium
+
+
+def reference_solver(network: AtomicNetwork):
+    """A straightforward per-state solver: brentq on ln n_e with the network's Saha chains."""
+    chains = network.chains
+    nmax = max(c.n for c in chains)
+    q = np.zeros((len(chains), nmax))
+    for k, c in enumerate(chains):
+        q[k, :c.n] = c.charges
+    alpha = np.array([c.fraction for c in chains])
+    zmax = network.max_mean_charge
+
+    def tables(t: float) -> np.ndarray:
+        out = np.full((len(chains), nmax), -np.inf)
+        for k, c in enumerate(chains):
+            out[k, :c.n] = network.log_c(c, np.array([t]))[:, 0]
+        return out
+
+    def solve(t: float, p: float, ctab: np.ndarray) -> tuple[float, int]:
+        ntot = p / (K_B * t)
+
+        def g(x):
+            a = ctab - q * x
+            a = a - a.max(axis=1, keepdims=True)
+            e = np.exp(a)
+            zbar = alpha @ ((e * q).sum(axis=1) / e.sum(axis=1))
+            nuc = ntot - np.exp(x)
+            if zbar <= 0:
+                return -1e3  # n_e far too high: negative ions outweigh the positive
+            return np.log(nuc * zbar) - x
+
+        hi = np.log(ntot * zmax / (1.0 + zmax))
+        lo = hi - 50.0
+        while g(lo) <= 0:
+            lo -= 50.0
+        root, info = brentq(g, lo, hi, xtol=1e-13, rtol=8.9e-16, full_output=True)
+        return float(np.exp(root)), info.function_calls
+
+    return tables, solve
+
+
+def main(argv=None) -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--nt", type=int, default=200)
+    ap.add_argument("--np", dest="npr", type=int, default=200)
+    ap.add_argument("--subset", type=int, default=400, help="states solved by the reference")
+    ap.add_argument("--tmax", type=float, default=1e6)
+    args = ap.parse_args(argv)
+
+    temps = np.geomspace(1e3, args.tmax, args.nt)
+    press = np.geomspace(1e-4, 1e10, args.npr)
+    tt, pp = np.meshgrid(temps, press, indexing="ij")
+    comp = solar()
+
+    t0 = time.perf_counter()
+    network = AtomicNetwork(comp)
+    t_net = time.perf_counter() - t0
+    print(f"grid: {args.nt} x {args.npr} states; {len(comp)} elements, {network.n_species} "
+          f"species (all stages, H-); {len(network.unit_partition)} stages without levels "
+          "taken with U = 1")
+    print(f"network set-up (database, partition-function models): {t_net:.2f} s "
+          "(shared, not counted below)")
+
+    t0 = time.perf_counter()
+    state = solve_equilibrium(comp, tt, gas_pressure=pp, network=network)
+    t_vec = time.perf_counter() - t0
+    print(f"vectorized solver: {t_vec:.2f} s for {tt.size} states "
+          f"({t_vec / tt.size * 1e6:.1f} us per state)")
+    print(f"  passes over the data: mean {state.report.mean_passes:.2f}, "
+          f"max {int(state.report.passes.max())}")
+
+    rng = np.random.default_rng(1)
+    pick = rng.choice(tt.size, size=min(args.subset, tt.size), replace=False)
+    tables, solve = reference_solver(network)
+    ut = np.unique(tt.ravel()[pick])
+    t0 = time.perf_counter()
+    ctabs = {t: tables(t) for t in ut}
+    t_tab = time.perf_counter() - t0
+    ne_ref = np.empty(pick.size)
+    evals = 0
+    t0 = time.perf_counter()
+    for j, i in enumerate(pick):
+        ne_ref[j], nev = solve(tt.ravel()[i], pp.ravel()[i], ctabs[tt.ravel()[i]])
+        evals += nev
+    t_ref = time.perf_counter() - t0
+    per_state = t_ref / pick.size
+    t_ref_full = per_state * tt.size
+    print(f"reference (brentq per state): {per_state * 1e3:.2f} ms per state, "
+          f"{evals / pick.size:.1f} residual evaluations per state; scaled to the grid "
+          f"{t_ref_full:.1f} s")
+    print(f"  (its Saha tables, given for free: {t_tab / ut.size * 1e3:.1f} ms per temperature)")
+    print(f"speedup: {t_ref_full / t_vec:.0f}x")
+
+    ne_vec = state.n_e.ravel()[pick]
+    rel = np.abs(ne_vec / ne_ref - 1.0)
+    print(f"n_e agreement on the subset: max relative difference {rel.max():.2e}")
+    t0 = time.perf_counter()
+    charge = state.charge_residual()
+    cons = state.conservation_residual()
+    print(f"charge-neutrality residual (all states): max {charge.max():.2e}; "
+          f"element conservation: max {cons.max():.2e} "
+          f"(check took {time.perf_counter() - t0:.1f} s)")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,229 @@
+"""The species of an atomic mixture, arranged as one Saha chain per element.
+
+For element k the chain runs over its charge states q = q_min .. Z (q_min = -1 for hydrogen
+when H- is included, else 0).  With ln Phi_i the Saha factors of its steps, the populations
+relative to the first stage are
+
+    ln(n_q / n_first) = C_q - (q - q_min) ln n_e,       C_q = sum_{i < q} ln Phi_i,
+
+so at fixed T (and fixed non-ideal corrections) a whole element depends on n_e through the one
+linear term.  :class:`AtomicNetwork` computes the C tables; the solver combines them.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from sahaboltz.constants import E_CHARGE, EV, K_B_EV
+from sahaboltz.data.composition import Composition
+from sahaboltz.data.elements import SYMBOLS
+from sahaboltz.errors import InputError, NoDataError
+from sahaboltz.kernels.partition import TRUNCATIONS, PartitionModel
+from sahaboltz.kernels.saha import H_MINUS_AFFINITY_EV, log_saha_constant
+
+#: name of the negative hydrogen ion in results
+H_MINUS = "H-"
+#: what to do with stages that have no level list: "unit" -> U = 1 (recorded), "error"
+MISSING_LEVEL_CHOICES = ("unit", "error")
+
+_LN2 = float(np.log(2.0))
+# e^2 [eV cm]: Debye-Hueckel lowering (z + 1) e^2 / lambda_D in eV
+_E2_EV_CM = E_CHARGE**2 / EV
+
+
+@dataclass
+class Chain:
+    """One element's stages, in charge order."""
+
+    k: int                       # position in the composition
+    Z: int
+    symbol: str
+    fraction: float              # number fraction of all nuclei
+    names: list
+    charges: np.ndarray          # float, ascending
+    chi_ev: np.ndarray           # ionization energy of each step's lower stage, len n-1
+    model: PartitionModel | None  # partition functions of the stages with levels
+    model_rows: np.ndarray       # for each stage its row in ``model``, -1 for U = 1
+    species: list = field(default_factory=list)  # Species objects (None for H-)
+    offset: int = 0              # position of the first stage in the flat species list
+
+    @property
+    def n(self) -> int:
+        return len(self.names)
+
+    @property
+    def q_min(self) -> float:
+        return float(self.charges[0])
+
+
+class AtomicNetwork:
+    """Element chains of a composition, with their partition-function models.
+
+    Parameters
+    ----------
+    composition : Composition
+    database : SpeciesDatabase, optional
+    truncation : {"plain", "lowered", "occupation"}
+        Partition-function truncation.
+    completion : bool
+        Hydrogenic completion of the level lists (see the partition-function docs).
+    h_minus : bool
+        Include H- (electron affinity :data:`sahaboltz.kernels.saha.H_MINUS_AFFINITY_EV`,
+        U(H-) = 1) when hydrogen is present.
+    missing_levels : {"unit", "error"}
+        Stages without a level list in the database: take U = 1 (listed in
+        :attr:`unit_partition`) or raise NoDataError.
+    """
+
+    def __init__(self, composition: Composition, database=None, truncation: str = "plain",
+                 completion: bool = False, h_minus: bool = True, missing_levels: str = "unit"):
+        from sahaboltz.data.database import default_database
+
+        if not isinstance(composition, Composition):
+            raise InputError("composition must be a sahaboltz.data.composition.Composition, "
+                             f"e.g. solar() or Composition.from_number(...); got {composition!r}")
+        if truncation not in TRUNCATIONS:
+            raise InputError(f"truncation must be one of {', '.join(TRUNCATIONS)}, got {truncation!r}")
+        if missing_levels not in MISSING_LEVEL_CHOICES:
+            raise InputError(f"missing_levels must be one of {MISSING_LEVEL_CHOICES}")
+        self.composition = composition
+        self.database = database or default_database()
+        self.truncation = truncation
+        self.completion = bool(completion)
+        self.h_minus = bool(h_minus) and 1 in set(composition.Z.tolist())
+        self.unit_partition: list[str] = []
+        self.chains: list[Chain] = []
+        offset = 0
+        for k, (z, frac) in enumerate(zip(composition.Z.tolist(), composition.number_fraction)):
+            chain = self._chain(k, z, float(frac), missing_levels)
+            chain.offset = offset
+            offset += chain.n
+            self.chains.append(chain)
+        self.species_names = [n for c in self.chains for n in c.names]
+        self.charges = np.concatenate([c.charges for c in self.chains])
+        self.element_index = np.concatenate([np.full(c.n, c.k) for c in self.chains])
+        self._by_name = {n: i for i, n in enumerate(self.species_names)}
+        self.max_mean_charge = float(sum(c.fraction * c.charges[-1] for c in self.chains))
+
+    def _chain(self, k: int, z: int, frac: float, missing: str) -> Chain:
+        try:
+            stages = self.database.element(z)
+        except NoDataError:
+            raise NoDataError(f"the composition contains {SYMBOLS[z]}, which has no data in "
+                              f"{self.database.path}: drop it with composition.subset(...)") from None
+        if len(stages) != z + 1 or [s.charge for s in stages] != list(range(z + 1)):
+            raise NoDataError(f"{SYMBOLS[z]}: the database lacks some ionization stages "
+                              f"(has charges {[s.charge for s in stages]}); all 0..{z} are needed")
+        with_levels, rows = [], []
+        for s in stages:
+            if s.is_bare_nucleus or s.bound.any():
+                rows.append(len(with_levels))
+                with_levels.append(s)
+            else:
+                if missing == "error":
+                    raise NoDataError(f"{s.name} has no level list; pass missing_levels='unit' "
+                                      "to take U = 1 for it")
+                rows.append(-1)
+                self.unit_partition.append(s.name)
+        model = PartitionModel(with_levels, truncation=self.truncation,
+                               completion=self.completion) if with_levels else None
+        names = [s.name for s in stages]
+        charges = [float(s.charge) for s in stages]
+        chi = [s.ionization_energy_ev for s in stages[:-1]]
+        species = list(stages)
+        if z == 1 and self.h_minus:
+            names.insert(0, H_MINUS)
+            charges.insert(0, -1.0)
+            chi.insert(0, H_MINUS_AFFINITY_EV)
+            rows.insert(0, -1)  # U(H-) = 1: a single bound state
+            species.insert(0, None)
+        if not np.all(np.isfinite(chi)):
+            raise NoDataError(f"{SYMBOLS[z]}: an ionization energy is missing in the database")
+        return Chain(k, z, SYMBOLS[z], frac, names, np.array(charges), np.array(chi), model,
+                     np.array(rows), species)
+
+    # -- look-ups ---------------------------------------------------------------------------
+    @property
+    def n_species(self) -> int:
+        return len(self.species_names)
+
+    def species_index(self, name: str) -> int:
+        """Flat position of a species given as "Fe II", "Fe+", (Z, charge) or "H-"."""
+        from sahaboltz.data.elements import parse_species, spectroscopic_name
+        from sahaboltz.errors import UnknownSpeciesError
+
+        if name in self._by_name:
+            return self._by_name[name]
+        if isinstance(name, tuple):
+            z, q = int(name[0]), int(name[1])
+        else:
+            z, q = parse_species(name)
+        key = H_MINUS if (z == 1 and q == -1) else spectroscopic_name(z, q) if q >= 0 else None
+        if key not in self._by_name:
+            raise UnknownSpeciesError(f"{name!r} is not among the species of this mixture "
+                                      f"({', '.join(self.composition.symbols)})")
+        return self._by_name[key]
+
+    def chain_of(self, element) -> Chain:
+        from sahaboltz.data.elements import atomic_number
+        from sahaboltz.errors import UnknownSpeciesError
+
+        z = atomic_number(element)
+        for c in self.chains:
+            if c.Z == z:
+                return c
+        raise UnknownSpeciesError(f"{SYMBOLS[z]} is not in the composition "
+                                  f"({', '.join(self.composition.symbols)})")
+
+    # -- physics ----------------------------------------------------------------------------
+    @property
+    def ideal(self) -> bool:
+        """True when the chains depend on temperature only (no n_e-dependent corrections)."""
+        return self.truncation == "plain"
+
+    def log_c(self, chain: Chain, t: np.ndarray, n_e: np.ndarray | None = None,
+              debye_length: np.ndarray | None = None) -> np.ndarray:
+        """C_q (see module docstring) for the states given as flat arrays.
+
+        Parameters
+        ----------
+        t : ndarray, shape (n,)
+            Temperatures [K].
+        n_e : ndarray, shape (n,), optional
+            Electron densities, for the "occupation" truncation.
+        debye_length : ndarray, shape (n,), optional
+            Debye length [cm]: apply Debye-Hueckel lowering (z + 1) e^2 / lambda_D to the
+            ionization energies and, for "lowered", to the partition-function cut-offs.
+
+        Returns
+        -------
+        ndarray, shape (chain.n, n)
+        """
+        n = t.shape[0]
+        ln_u = np.zeros((chain.n, n))
+        lowering = None
+        if debye_length is not None:
+            # charge of the species being ionized; H- (q = -1) is not lowered
+            lowering = np.maximum(chain.charges + 1.0, 0.0)[:, None] * (_E2_EV_CM / debye_length)
+        if chain.model is not None:
+            has = chain.model_rows >= 0
+            kw = {}
+            if self.truncation == "lowered":
+                low = np.zeros((chain.model.n_species, n)) if lowering is None else lowering[has]
+                # keep the ground level in the partition sum while a trial n_e is far too high;
+                # the converged state is checked against chi separately
+                chi_m = chain.model.ionization_energy_ev[:, None]
+                kw["lowering_ev"] = np.minimum(low, np.where(np.isfinite(chi_m), 0.999 * chi_m, 0.0))
+            elif self.truncation == "occupation":
+                kw["n_e"] = n_e
+            ln_u[has] = np.log(chain.model.evaluate(t, **kw))
+        beta = 1.0 / (K_B_EV * t)
+        steps = (_LN2 + ln_u[1:] - ln_u[:-1] + log_saha_constant(t)[None, :]
+                 - chain.chi_ev[:, None] * beta[None, :])
+        if lowering is not None:
+            steps += lowering[:-1] * beta[None, :]
+        out = np.zeros((chain.n, n))
+        np.cumsum(steps, axis=0, out=out[1:])
+        return out

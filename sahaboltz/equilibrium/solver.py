@@ -1,0 +1,535 @@
+"""The mixture solver: electron density and every stage population of an atomic mixture.
+
+Formulation (see docs/equilibrium.md).  With N the density of nuclei and alpha_k the number
+fraction of element k, the Saha chains fix each element's stage fractions f_kq from T and n_e
+alone (plus n_e-dependent corrections when non-ideal options are on).  Element conservation,
+n_kq = N alpha_k f_kq, then holds by construction, and the remaining unknowns are n_e and N.
+With Zbar(n_e) = sum_k alpha_k <q>_k the mean charge per nucleus, charge neutrality reads
+
+    N Zbar(n_e) = n_e,
+
+and the closure gives N: fixed for a hydrogen-nucleus or mass density; N = P/kT - n_e for a gas
+pressure (each nucleus is one particle while there are no molecules); N = n_e / Zbar for a
+given electron pressure.  We solve g(x) = ln(N Zbar) - x = 0 in x = ln n_e for all states at
+once with a safeguarded Newton method: dZbar/dx = -sum_k alpha_k Var_k(q) exactly (the stage
+populations are an exponential family in x), g' <= -1, and every state keeps a bracket
+[lo, hi] with g(lo) > 0 > g(hi) so that a bad Newton step becomes a bisection.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from sahaboltz.constants import AMU, E_CHARGE, K_B
+from sahaboltz.data.composition import Composition
+from sahaboltz.equilibrium.network import AtomicNetwork
+from sahaboltz.errors import ConvergenceError, InputError
+from sahaboltz.quantities import as_positive_array
+
+CLOSURES = {"gas_pressure": "dyn cm-2", "mass_density": "g cm-3",
+            "hydrogen_density": "cm-3", "electron_pressure": "dyn cm-2"}
+
+#: default relative tolerance on charge neutrality |sum q n - n_e| / (sum |q| n + n_e)
+DEFAULT_TOLERANCE = 1e-12
+# elements of (species x states) handled at once; bounds memory and keeps work in cache
+_CHUNK_ELEMENTS = 1 << 23
+# a Newton step may move ln n_e by at most this much while no lower bracket is known
+_MAX_STEP = 20.0
+
+
+@dataclass
+class SolveReport:
+    """Bookkeeping of one solve, for diagnostics and benchmarks."""
+
+    passes: np.ndarray          # evaluations of the charge balance per state
+    residual: np.ndarray        # final relative charge-neutrality residual per state
+
+    @property
+    def mean_passes(self) -> float:
+        return float(self.passes.mean())
+
+
+def _closure(kw: dict) -> tuple[str, Any]:
+    given = [k for k, v in kw.items() if v is not None]
+    if len(given) != 1:
+        names = ", ".join(CLOSURES)
+        raise InputError(f"give exactly one of {names}; got "
+                         f"{', '.join(given) if given else 'none'}")
+    return given[0], kw[given[0]]
+
+
+def _check_options(truncation, lowering) -> str:
+    if truncation is None:
+        return "lowered" if lowering else "plain"
+    if truncation == "lowered" and not lowering:
+        raise InputError("truncation='lowered' cuts the partition functions at the lowered "
+                         "ionization limit: it needs lowering=True (Debye-Hueckel)")
+    if truncation == "plain" and lowering:
+        raise InputError("lowering=True with truncation='plain' would lower the ionization "
+                         "energies but not the partition-function cut-off: use "
+                         "truncation='lowered' (the default with lowering) or 'occupation'")
+    return truncation
+
+
+def solve_equilibrium(composition: Composition, temperature: Any, *, gas_pressure: Any = None,
+                      mass_density: Any = None, hydrogen_density: Any = None,
+                      electron_pressure: Any = None, truncation: str | None = None,
+                      lowering: bool = False, completion: bool = False, h_minus: bool = True,
+                      molecules=None, database=None, missing_levels: str = "unit",
+                      tolerance: float = DEFAULT_TOLERANCE, max_passes: int = 200,
+                      network: AtomicNetwork | None = None):
+    """Solve the LTE ionization balance of a mixture at one or many states.
+
+    Parameters
+    ----------
+    composition : Composition
+        The mixture, e.g. :func:`sahaboltz.data.composition.solar`.
+    temperature : float, array_like or Quantity
+        T [K].
+    gas_pressure, mass_density, hydrogen_density, electron_pressure : array_like or Quantity
+        Exactly one closure: P_gas [dyn cm^-2], rho [g cm^-3], n_H (hydrogen nuclei) [cm^-3]
+        or P_e [dyn cm^-2].  Broadcast against ``temperature``.
+    truncation : {"plain", "lowered", "occupation"}, optional
+        Partition-function truncation; default "lowered" when ``lowering`` else "plain".
+    lowering : bool
+        Debye-Hueckel lowering of the ionization energies, self-consistent with n_e and the
+        ion densities, used also as the partition-function cut-off ("lowered").
+    completion : bool
+        Hydrogenic completion of the level lists (needs a bounding truncation).
+    h_minus : bool
+        Include H- (default True when hydrogen is present).
+    molecules : None
+        Reserved for the molecular equilibrium (:mod:`sahaboltz.equilibrium.molecular`).
+    database : SpeciesDatabase, optional
+    missing_levels : {"unit", "error"}
+        Stages without level lists: U = 1 (listed in ``state.unit_partition``) or an error.
+    tolerance : float
+        Relative charge-neutrality tolerance (default 1e-12).
+    max_passes : int
+        Most evaluations of the charge balance per state before giving up.
+    network : AtomicNetwork, optional
+        A prepared network (reuse it across calls with the same composition and options).
+
+    Returns
+    -------
+    EquilibriumState
+
+    Raises
+    ------
+    InputError
+        Bad or inconsistent arguments (named in the message).
+    ConvergenceError
+        Some states did not converge; the message lists them by index with their values.
+    """
+    from sahaboltz.equilibrium.state import EquilibriumState
+
+    if molecules is not None:
+        try:
+            from sahaboltz.equilibrium import molecular
+        except ImportError:
+            raise InputError("molecules: the molecular equilibrium is not available in this "
+                             "version; call without molecules") from None
+        return molecular.solve_with_molecules(
+            composition, temperature, gas_pressure=gas_pressure, mass_density=mass_density,
+            hydrogen_density=hydrogen_density, electron_pressure=electron_pressure,
+            truncation=truncation, lowering=lowering, completion=completion, h_minus=h_minus,
+            molecules=molecules, database=database, missing_levels=missing_levels,
+            tolerance=tolerance, max_passes=max_passes)
+    if not isinstance(composition, Composition):
+        raise InputError("composition must be a Composition (e.g. solar() or "
+                         f"Composition.from_number({{'Ar': 1}})), got {composition!r}")
+    name, value = _closure({"gas_pressure": gas_pressure, "mass_density": mass_density,
+                            "hydrogen_density": hydrogen_density,
+                            "electron_pressure": electron_pressure})
+    truncation = _check_options(truncation, lowering)
+    if not (isinstance(tolerance, (int, float)) and 1e-15 <= tolerance < 1e-2):
+        raise InputError(f"tolerance must be a number in [1e-15, 1e-2), got {tolerance!r}")
+    t = as_positive_array(temperature, "K", "temperature")
+    v = as_positive_array(value, CLOSURES[name], name)
+    try:
+        t, v = np.broadcast_arrays(t, v)
+    except ValueError:
+        raise InputError(f"temperature {t.shape} and {name} {v.shape} do not broadcast") from None
+    shape = t.shape
+    if network is None:
+        network = AtomicNetwork(composition, database, truncation, completion, h_minus,
+                                missing_levels)
+    elif (network.composition is not composition or network.truncation != truncation):
+        raise InputError("network was built for another composition or truncation")
+    if name == "hydrogen_density" and 1 not in set(composition.Z.tolist()):
+        raise InputError("hydrogen_density: the composition has no hydrogen; use "
+                         "mass_density or gas_pressure")
+    tf, vf = t.ravel().copy(), v.ravel().copy()
+    x, nuc, lam, report = _solve_flat(network, tf, vf, name, lowering, tolerance,
+                                      int(max_passes), shape)
+    return EquilibriumState(network=network, temperature=t.copy(), log_ne=x.reshape(shape),
+                            nuclei_density=nuc.reshape(shape), closure=name,
+                            closure_value=v.copy(), lowering=lowering,
+                            debye_length=None if lam is None else lam.reshape(shape),
+                            report=report)
+
+
+def _nuclei_fixed(network: AtomicNetwork, name: str, v: np.ndarray) -> np.ndarray | None:
+    comp = network.composition
+    if name == "hydrogen_density":
+        return v / comp.number_fraction_of("H")
+    if name == "mass_density":
+        return v / (comp.mean_mass_amu * AMU)
+    return None
+
+
+def _solve_flat(network, t, v, name, lowering, tol, max_passes, shape):
+    n = t.size
+    fixed_n = _nuclei_fixed(network, name, v)
+    ntot = v / (K_B * t) if name == "gas_pressure" else None
+    x_out = np.empty(n)
+    nuc_out = np.empty(n)
+    lam_out = np.empty(n) if lowering else None
+    passes = np.zeros(n, dtype=int)
+    resid = np.empty(n)
+    failed = np.zeros(n, dtype=bool)
+    chunk = max(1, _CHUNK_ELEMENTS // max(1, network.n_species))
+    order = np.argsort(t, kind="stable")  # neighbours in T share partition-function work
+    if network.ideal and not lowering:
+        ut, tinv = np.unique(t, return_inverse=True)
+        c_unique = [network.log_c(c, ut) for c in network.chains]
+    else:
+        ut = tinv = c_unique = None
+    for c0 in range(0, n, chunk):
+        idx = order[c0:c0 + chunk]
+        sub = _ChunkSolver(network, t[idx], v[idx], name,
+                           None if fixed_n is None else fixed_n[idx],
+                           None if ntot is None else ntot[idx], lowering,
+                           None if c_unique is None else [c[:, tinv[idx]] for c in c_unique])
+        sub.run(tol, max_passes)
+        x_out[idx], nuc_out[idx], passes[idx], resid[idx] = sub.x, sub.nuc, sub.passes, sub.resid
+        failed[idx] = ~sub.done
+        if lowering:
+            lam_out[idx] = sub.lam
+    bad = failed | ~np.isfinite(x_out) | ~np.isfinite(nuc_out) | ~(nuc_out > 0)
+    if bad.any():
+        raise _failure(bad, t, v, name, resid, shape)
+    if lowering:
+        _check_lowering(network, lam_out, t, v, name, shape)
+    return x_out, nuc_out, lam_out, SolveReport(passes.reshape(shape), resid.reshape(shape))
+
+
+def _failure(bad, t, v, name, resid, shape) -> ConvergenceError:
+    where = np.flatnonzero(bad)
+    lines = []
+    for i in where[:10]:
+        idx = np.unravel_index(i, shape) if shape else ()
+        lines.append(f"  state {tuple(int(j) for j in idx)}: T = {t[i]:.6g} K, "
+                     f"{name} = {v[i]:.6g} {CLOSURES[name]} (residual {resid[i]:.3g})")
+    more = f"\n  ... and {where.size - 10} more" if where.size > 10 else ""
+    hint = ("a given electron pressure may be unreachable at these temperatures (too few "
+            "electron donors)" if name == "electron_pressure" else
+            "check that the states are physical; try a looser tolerance")
+    err = ConvergenceError(f"the ionization balance did not converge at {where.size} of "
+                           f"{bad.size} states:\n" + "\n".join(lines) + more + f"\n({hint})")
+    err.indices = [tuple(int(j) for j in np.unravel_index(i, shape)) for i in where]
+    return err
+
+
+def _check_lowering(network, lam, t, v, name, shape):
+    # the lowering of each species must stay below its ionization energy
+    low1 = E_CHARGE**2 / lam  # erg per unit (z + 1)
+    from sahaboltz.constants import EV
+    for c in network.chains:
+        zq = np.maximum(c.charges[:-1] + 1.0, 0.0)
+        ratio = (zq[:, None] * low1[None, :] / EV) / c.chi_ev[:, None]
+        over = (ratio >= 1.0).any(axis=0)
+        if over.any():
+            i = int(np.flatnonzero(over)[0])
+            idx = tuple(int(j) for j in np.unravel_index(i, shape))
+            raise ConvergenceError(
+                f"state {idx} (T = {t[i]:.6g} K, {name} = {v[i]:.6g}): the Debye-Hueckel "
+                f"lowering reaches the ionization energy of {c.symbol}; the plasma is too "
+                "strongly coupled for this model")
+
+
+class _ChunkSolver:
+    """Safeguarded Newton in ln n_e over one block of states."""
+
+    def __init__(self, network, t, v, name, fixed_n, ntot, lowering, c_gathered):
+        self.net = network
+        self.t, self.v, self.name = t, v, name
+        self.fixed_n, self.ntot = fixed_n, ntot
+        self.lowering = lowering
+        self.cg = c_gathered          # list of (n_k, m) tables, or None (recomputed per pass)
+        self.ideal = c_gathered is not None
+        m = t.size
+        self.passes = np.zeros(m, dtype=int)
+        self.done = np.zeros(m, dtype=bool)
+        self.x = np.empty(m)
+        self.nuc = np.full(m, np.nan)
+        self.resid = np.full(m, np.inf)
+        self.lam = np.full(m, np.nan) if lowering else None
+        zmax = network.max_mean_charge
+        if name == "gas_pressure":
+            self.x_hi = np.log(ntot * zmax / (1.0 + zmax))
+        elif fixed_n is not None:
+            self.x_hi = np.log(fixed_n * zmax)
+        else:
+            self.x_hi = np.log(v / (K_B * t))  # electron pressure: n_e is given
+        self.mom = [np.stack([np.ones(c.n), c.charges, c.charges**2, np.abs(c.charges)])
+                    for c in network.chains]
+
+    # -- the charge balance --------------------------------------------------------------
+    def _tables(self, sel, x, s_z2):
+        """C tables (recomputed: non-ideal) of the states ``sel`` and their Debye lengths."""
+        t = self.t[sel]
+        ne = np.exp(x)
+        lam = None
+        if self.lowering:
+            lam = np.sqrt(K_B * t / (4.0 * np.pi * E_CHARGE**2 * (ne + s_z2)))
+        return [self.net.log_c(c, t, ne, lam) for c in self.net.chains], lam
+
+    def _moments(self, tables, x):
+        m = x.size
+        zbar, var, zabs, z2 = (np.zeros(m) for _ in range(4))
+        for c, tab, mom in zip(self.net.chains, tables, self.mom):
+            a = tab - np.multiply.outer(c.charges, x)
+            a -= a.max(axis=0)
+            np.exp(a, out=a)
+            s = mom @ a
+            inv = 1.0 / s[0]
+            mq = s[1] * inv
+            mq2 = s[2] * inv
+            zbar += c.fraction * mq
+            var += c.fraction * np.maximum(mq2 - mq * mq, 0.0)
+            zabs += c.fraction * s[3] * inv
+            z2 += c.fraction * mq2
+        return zbar, var, zabs, z2
+
+    def _initial(self):
+        """Weak-ionization estimate n_e ~ sqrt(N sum_k alpha_k Phi_k), capped by x_hi."""
+        if self.fixed_n is None and self.ntot is None:
+            return self.x_hi.copy()
+        if self.ideal:
+            tables = self.cg
+        else:  # any n_e-dependent correction will do for a first guess
+            ne = np.exp(self.x_hi - 3.0)
+            tables, _ = self._tables(np.arange(self.t.size), np.log(ne), ne)
+        terms = []
+        for c, tab in zip(self.net.chains, tables):
+            i0 = int(np.flatnonzero(c.charges == 0)[0])
+            terms.append(np.log(c.fraction) + tab[i0 + 1] - tab[i0])
+        terms = np.array(terms)
+        mx = terms.max(axis=0)
+        ln_sum = mx + np.log(np.exp(terms - mx).sum(axis=0))
+        nref = self.fixed_n if self.fixed_n is not None else self.ntot
+        return np.minimum(0.5 * (np.log(nref) + ln_sum), self.x_hi - 1e-9)
+
+    def run(self, tol, max_passes):
+        m = self.t.size
+        x = self._initial()
+        lo = np.full(m, -np.inf)
+        hi = self.x_hi.copy()
+        s_z2 = np.exp(x)  # sum z^2 n_z, lagged by one pass (used only with lowering)
+        active = np.arange(m)
+        windows = _Windows(self.net.chains, self.cg) if self.ideal else None
+        step = np.full(m, 2.0)  # size of the last Newton step (sets the window margins)
+        fixed_pe = self.fixed_n is None and self.ntot is None
+        for _ in range(max_passes):
+            xa = x[active]
+            if self.ideal:
+                zbar, var, zabs, z2 = windows.moments(active, xa, step[active])
+                lam = None
+            else:
+                tables, lam = self._tables(active, xa, s_z2[active])
+                zbar, var, zabs, z2 = self._moments(tables, xa)
+            self.passes[active] += 1
+            ne = np.exp(xa)
+            if fixed_pe:
+                nn = np.where(zbar > 0, ne / np.where(zbar > 0, zbar, 1.0), np.nan)
+            elif self.fixed_n is not None:
+                nn = self.fixed_n[active]
+            else:
+                nn = self.ntot[active] - ne
+            f = nn * zbar - ne
+            scale = nn * zabs + ne
+            rel = np.abs(f) / scale
+            ok = rel <= tol
+            if fixed_pe:
+                ok = np.isfinite(nn) & (nn > 0)
+                rel = np.where(ok, 0.0, np.inf)
+            if self.lowering:
+                s_new = np.maximum(nn * z2, 0.0)
+                ok &= np.abs(s_new - s_z2[active]) <= tol * (ne + s_z2[active])
+                s_z2[active] = np.where(np.isfinite(s_new), s_new, s_z2[active])
+            # stalled at machine precision inside a collapsed bracket: accept if still good
+            tight = (hi[active] - lo[active]) <= 8e-16 * np.maximum(1.0, np.abs(xa))
+            ok |= tight & (rel <= 1e-10)
+            done_now = active[ok]
+            self.done[done_now] = True
+            self.x[done_now] = xa[ok]
+            self.nuc[done_now] = nn[ok]
+            self.resid[done_now] = rel[ok]
+            if self.lowering:
+                self.lam[done_now] = lam[ok]
+            if fixed_pe and not self.lowering:
+                self.x[active] = xa
+                self.resid[active] = rel
+                break
+            keep = ~ok
+            if not keep.any():
+                break
+            self.resid[active[keep]] = rel[keep]
+            self.x[active[keep]] = xa[keep]
+            if fixed_pe:
+                active = active[keep]
+                continue  # fixed point on the screening density only
+            # Newton step with bracket safeguard
+            a = active[keep]
+            xa, zb, vr, nnk, nek = xa[keep], zbar[keep], var[keep], nn[keep], ne[keep]
+            valid = (nnk > 0) & (zb > 0)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                g = np.where(valid, np.log(np.where(valid, nnk * zb, 1.0)) - xa, -np.inf)
+                dg = -vr / zb - 1.0
+                if self.ntot is not None:
+                    dg = dg - nek / nnk
+                xn = xa - g / dg
+            lo[a] = np.where(g > 0, np.maximum(lo[a], xa), lo[a])
+            hi[a] = np.where(g < 0, np.minimum(hi[a], xa), hi[a])
+            la, ha = lo[a], hi[a]
+            outside = ~valid | ~np.isfinite(xn) | ~(xn > la) | ~(xn < ha)
+            bisect = np.where(np.isfinite(la), 0.5 * (la + ha), ha - _MAX_STEP)
+            xn = np.where(outside, bisect, xn)
+            xn = np.where(np.isfinite(la), xn, np.maximum(xn, xa - _MAX_STEP))
+            step[a] = np.abs(xn - xa)
+            x[a] = xn
+            active = a
+
+
+class _Windows:
+    """Charge moments of every element from a window of its significant stages.
+
+    At a reference point x_ref (= ln n_e) the full chain is scanned once: stages whose
+    population is below e^-THR of the element's largest, with a margin for any x within
+    ``delta`` of x_ref, are dropped, and the rest (a contiguous window of W_k stages) is kept as
+    E0_j = exp(a_j(x_ref) - max).  For |x - x_ref| <= delta the populations are then exactly
+    E0_j y^j with y = exp(-(x - x_ref)), so a pass costs two small array operations per
+    window stage and no exponentials.  A stage outside the window satisfies
+    a_r(x) - max(x) <= -THR there (its bound grows by |q_r - q_max| |x - x_ref|, which the
+    margin covers), so the neglected populations are below 1e-17 of each element.
+    """
+
+    THR = 40.0
+    #: chains this short are always taken whole (and H with H- needs its true charges)
+    WHOLE = 4
+
+    def __init__(self, chains, tables):
+        self.chains = chains
+        self.tables = tables
+        m = tables[0].shape[1] if tables else 0
+        self.m = m
+        self.xref = np.full(m, np.nan)
+        self.delta = np.zeros(m)
+        self.width = [None] * len(chains)
+        self.start = [np.zeros(m, dtype=np.intp) for _ in chains]
+        self.e0 = [None] * len(chains)
+        self.whole = [c.n <= self.WHOLE for c in chains]
+        self.mom_q = [np.stack([np.ones(c.n), c.charges, c.charges**2, np.abs(c.charges)])
+                      for c in chains]
+        self._mom_j = {}
+
+    def _mom(self, w):
+        if w not in self._mom_j:
+            j = np.arange(w, dtype=float)
+            self._mom_j[w] = np.stack([np.ones(w), j, j * j])
+        return self._mom_j[w]
+
+    def _refresh(self, sel, x, delta) -> bool:
+        """New windows for the states ``sel`` (chunk positions) at x; False if one is too narrow."""
+        cols = np.arange(sel.size)
+        plans = []
+        for k, (c, tab) in enumerate(zip(self.chains, self.tables)):
+            a = tab[:, sel] - np.multiply.outer(c.charges, x)
+            imax = a.argmax(axis=0)
+            amax = a[imax, cols]
+            if self.whole[k]:
+                plans.append((k, None, np.exp(a - amax)))
+                continue
+            dist = np.abs(np.subtract.outer(c.charges, c.charges[imax]))
+            keep = (a - amax) + dist * delta > -self.THR
+            lo = keep.argmax(axis=0)
+            hi = c.n - 1 - keep[::-1].argmax(axis=0)
+            need = int((hi - lo).max()) + 1
+            w = self.width[k]
+            if w is None:
+                w = min(c.n, need + 1)
+            elif need > w:
+                return False
+            s0 = np.minimum(lo, c.n - w)
+            rows = s0[None, :] + np.arange(w)[:, None]
+            aw = np.take_along_axis(a, rows, axis=0)
+            plans.append((k, (w, s0), np.exp(aw - amax)))
+        for k, win, e0 in plans:
+            if win is not None:
+                w, s0 = win
+                if self.width[k] is None:
+                    self.width[k] = w
+                    self.e0[k] = np.zeros((w, self.m))
+                self.start[k][sel] = s0
+            elif self.e0[k] is None:
+                self.e0[k] = np.zeros((self.chains[k].n, self.m))
+            self.e0[k][:, sel] = e0
+        self.xref[sel] = x
+        self.delta[sel] = delta
+        return True
+
+    def moments(self, sel, x, last_step):
+        """(Zbar, Var sum, |q| sum, q^2 sum) per nucleus at the states ``sel``."""
+        stale = ~(np.abs(x - self.xref[sel]) <= self.delta[sel])
+        if stale.any():
+            delta = np.clip(3.0 * last_step[stale], 0.05, 3.0)
+            if not self._refresh(sel[stale], x[stale], delta):
+                # a window got too narrow: rebuild every window of the block at once
+                self.width = [None] * len(self.chains)
+                self.e0 = [None] * len(self.chains)
+                full = np.arange(self.m)
+                xr = np.where(np.isfinite(self.xref), self.xref, 0.0)
+                xr[sel] = x
+                dl = self.delta.copy()
+                dl[sel[stale]] = delta
+                self._refresh(full, xr, np.maximum(dl, 0.05))
+                self.xref[np.setdiff1d(full, sel)] = np.nan  # others refresh when next used
+        allsel = sel.size == self.m
+        dx = x - self.xref[sel]
+        wmax = max([c.n if self.whole[k] else self.width[k] for k, c in enumerate(self.chains)])
+        powers = np.empty((wmax, sel.size))
+        powers[0] = 1.0
+        if wmax > 1:
+            powers[1:] = np.exp(-dx)
+            np.cumprod(powers, axis=0, out=powers)
+        zbar, var, zabs, z2 = (np.zeros(sel.size) for _ in range(4))
+        for k, c in enumerate(self.chains):
+            e0 = self.e0[k] if allsel else self.e0[k][:, sel]
+            w = e0.shape[0]
+            e = e0 * powers[:w]
+            if self.whole[k]:
+                s = self.mom_q[k] @ e
+                inv = 1.0 / s[0]
+                mq, mq2 = s[1] * inv, s[2] * inv
+                zabs += c.fraction * s[3] * inv
+            else:
+                s = self._mom(w) @ e
+                inv = 1.0 / s[0]
+                mj, mj2 = s[1] * inv, s[2] * inv
+                base = c.q_min + (self.start[k] if allsel else self.start[k][sel])
+                mq = base + mj
+                mq2 = base * (base + 2.0 * mj) + mj2
+                zabs += c.fraction * mq
+                mq2, mq = mq2, mq
+                var += c.fraction * np.maximum(mj2 - mj * mj, 0.0)
+                zbar += c.fraction * mq
+                z2 += c.fraction * mq2
+                continue
+            zbar += c.fraction * mq
+            var += c.fraction * np.maximum(mq2 - mq * mq, 0.0)
+            z2 += c.fraction * mq2
+        return zbar, var, zabs, z2

@@ -1,0 +1,313 @@
+"""The result of an equilibrium solve: n_e, bulk quantities and every species population.
+
+Populations are formed on request, element by element, from the solved n_e (they are cheap
+Saha chains); a 200 x 200 grid of a solar mixture would need ~1 GB to hold all of them.
+
+Units: densities cm^-3, pressures dyn cm^-2, mass density g cm^-3, lengths cm, T in K.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from sahaboltz.constants import AMU, E_CHARGE, K_B
+from sahaboltz.equilibrium.network import H_MINUS, AtomicNetwork, Chain
+from sahaboltz.errors import InputError, NoDataError
+
+#: McWhirter (1965) criterion coefficient [cm^-3 K^-1/2 eV^-3]: n_e >= 1.6e12 T^1/2 dE^3
+MCWHIRTER_COEFFICIENT = 1.6e12
+
+
+class EquilibriumState:
+    """Solved LTE ionization balance on an array of states (any shape).
+
+    Attributes
+    ----------
+    temperature : ndarray
+        T [K].
+    n_e : ndarray
+        Electron density [cm^-3].
+    nuclei_density : ndarray
+        Density of nuclei of all elements, N [cm^-3] (atoms + ions of every stage).
+    closure : str
+        The pressure-like quantity given ("gas_pressure", "mass_density", ...).
+    lowering : bool
+        Whether Debye-Hueckel lowering was applied.
+    report : SolveReport
+        Passes per state and final residuals.
+    """
+
+    def __init__(self, *, network: AtomicNetwork, temperature, log_ne, nuclei_density, closure,
+                 closure_value, lowering, debye_length, report):
+        self.network = network
+        self.temperature = temperature
+        self.log_ne = log_ne
+        self.n_e = np.exp(log_ne)
+        self.nuclei_density = nuclei_density
+        self.closure = closure
+        self.closure_value = closure_value
+        self.lowering = lowering
+        self._debye = debye_length
+        self.report = report
+        self._cache: dict[int, np.ndarray] = {}
+
+    # -- bulk quantities ---------------------------------------------------------------------
+    @property
+    def shape(self) -> tuple:
+        return self.temperature.shape
+
+    @property
+    def composition(self):
+        return self.network.composition
+
+    @property
+    def species_names(self) -> list[str]:
+        """Every species of the mixture, element by element in charge order ("H-" first)."""
+        return list(self.network.species_names)
+
+    @property
+    def unit_partition(self) -> list[str]:
+        """Species without a level list, taken with U = 1."""
+        return list(self.network.unit_partition)
+
+    @property
+    def electron_pressure(self) -> np.ndarray:
+        """P_e = n_e k T [dyn cm^-2]."""
+        return self.n_e * K_B * self.temperature
+
+    @property
+    def particle_density(self) -> np.ndarray:
+        """All free particles: nuclei (each atom or ion counts once) plus electrons [cm^-3]."""
+        return self.nuclei_density + self.n_e
+
+    @property
+    def gas_pressure(self) -> np.ndarray:
+        """P_gas = (N + n_e) k T [dyn cm^-2] (ideal gas)."""
+        return self.particle_density * K_B * self.temperature
+
+    @property
+    def mass_density(self) -> np.ndarray:
+        """rho [g cm^-3] (neutral-atom masses; the free electrons carry the difference)."""
+        return self.nuclei_density * self.composition.mean_mass_amu * AMU
+
+    @property
+    def mean_molecular_weight(self) -> np.ndarray:
+        """mu = rho / (m_u (N + n_e)): mean mass per free particle [u]."""
+        return self.mass_density / (AMU * self.particle_density)
+
+    @property
+    def mean_charge(self) -> np.ndarray:
+        """Mean charge per nucleus, n_e / N (H- counted negative)."""
+        return self.n_e / self.nuclei_density
+
+    def element_density(self, element) -> np.ndarray:
+        """Nuclei of one element [cm^-3]."""
+        return self.nuclei_density * self.network.chain_of(element).fraction
+
+    # -- populations -----------------------------------------------------------------------
+    def _chain_fractions(self, chain: Chain) -> np.ndarray:
+        if chain.k not in self._cache:
+            t = self.temperature.ravel()
+            x = self.log_ne.ravel()
+            if self.network.ideal and not self.lowering:
+                ut, inv = np.unique(t, return_inverse=True)
+                tab = self.network.log_c(chain, ut)[:, inv]
+            else:
+                lam = None if self._debye is None else self._debye.ravel()
+                tab = self.network.log_c(chain, t, np.exp(x), lam)
+            a = tab - np.multiply.outer(chain.charges, x)
+            a -= a.max(axis=0)
+            np.exp(a, out=a)
+            a /= a.sum(axis=0)
+            self._cache[chain.k] = a.reshape((chain.n,) + self.shape)
+        return self._cache[chain.k]
+
+    def stage_fractions(self, element, negative: bool = False) -> np.ndarray:
+        """Fractions n_q / N_element of the stages q = 0 .. Z of one element.
+
+        Parameters
+        ----------
+        element : str or int
+        negative : bool
+            Prepend the negative ion (H- for hydrogen) when the mixture has one.
+
+        Returns
+        -------
+        ndarray, shape (n_stages,) + state shape
+        """
+        chain = self.network.chain_of(element)
+        f = self._chain_fractions(chain)
+        return f if negative else f[chain.charges >= 0]
+
+    def stage_charges(self, element, negative: bool = False) -> np.ndarray:
+        """Charges of the rows of :meth:`stage_fractions`."""
+        chain = self.network.chain_of(element)
+        q = chain.charges.astype(int)
+        return q if negative else q[q >= 0]
+
+    def fraction(self, species) -> np.ndarray:
+        """n_species / N_element for one species ("Fe II", "Fe+", (26, 1), "H-")."""
+        i = self.network.species_index(species)
+        chain = self.network.chains[self.network.element_index[i]]
+        return self._chain_fractions(chain)[i - chain.offset]
+
+    def number_density(self, species) -> np.ndarray:
+        """Number density of one species [cm^-3]."""
+        i = self.network.species_index(species)
+        chain = self.network.chains[self.network.element_index[i]]
+        return self._chain_fractions(chain)[i - chain.offset] * self.nuclei_density * chain.fraction
+
+    def number_densities(self) -> np.ndarray:
+        """All species, shape (n_species,) + state shape, in :attr:`species_names` order."""
+        return np.concatenate([self._chain_fractions(c) * (self.nuclei_density * c.fraction)
+                               for c in self.network.chains])
+
+    def dominant_stage(self, element, negative: bool = True) -> np.ndarray:
+        """Charge of the most populated stage of an element at every state (int array)."""
+        chain = self.network.chain_of(element)
+        f = self._chain_fractions(chain)
+        q = chain.charges.astype(int)
+        if not negative:
+            f, q = f[q >= 0], q[q >= 0]
+        return q[np.argmax(f, axis=0)]
+
+    def level_populations(self, species) -> tuple[np.ndarray, np.ndarray]:
+        """Boltzmann populations of the levels of one species.
+
+        Returns
+        -------
+        populations : ndarray, shape (n_levels,) + state shape
+            n_i = n_species g_i w_i exp(-E_i/kT) / U [cm^-3] over the levels counted in U.
+        energy_ev : ndarray
+            Their excitation energies [eV].
+        """
+        i = self.network.species_index(species)
+        chain = self.network.chains[self.network.element_index[i]]
+        row = chain.model_rows[i - chain.offset]
+        if row < 0:
+            raise NoDataError(f"{self.network.species_names[i]} has no level list "
+                              "(taken with U = 1), so no level populations")
+        sp = chain.model.species[row]
+        kw = {}
+        if self.network.truncation == "lowered":
+            q = chain.charges[i - chain.offset]
+            kw["lowering_ev"] = (q + 1.0) * E_CHARGE**2 / self.debye_length / _EV()
+        elif self.network.truncation == "occupation":
+            kw["n_e"] = self.n_e
+        terms, energy, _ = chain.model.level_terms(sp, self.temperature, **kw)
+        return terms / terms.sum(axis=0) * self.number_density(species), energy
+
+    # -- checks ------------------------------------------------------------------------------
+    def charge_residual(self) -> np.ndarray:
+        """|sum q n_q - n_e| / (sum |q| n_q + n_e) at every state."""
+        pos = np.zeros(self.shape)
+        tot = np.zeros(self.shape)
+        for c in self.network.chains:
+            nk = self._chain_fractions(c) * (self.nuclei_density * c.fraction)
+            pos += np.tensordot(c.charges, nk, axes=1)
+            tot += np.tensordot(np.abs(c.charges), nk, axes=1)
+        return np.abs(pos - self.n_e) / (tot + self.n_e)
+
+    def conservation_residual(self) -> np.ndarray:
+        """Largest |sum_q n_kq - N alpha_k| / (N alpha_k) over the elements, per state."""
+        worst = np.zeros(self.shape)
+        for c in self.network.chains:
+            nk = self._chain_fractions(c) * (self.nuclei_density * c.fraction)
+            want = self.nuclei_density * c.fraction
+            worst = np.maximum(worst, np.abs(nk.sum(axis=0) - want) / want)
+        return worst
+
+    # -- plasma parameters -----------------------------------------------------------------
+    def sum_z2_n(self) -> np.ndarray:
+        """sum over ions of z^2 n_z [cm^-3] (H- included)."""
+        out = np.zeros(self.shape)
+        for c in self.network.chains:
+            out += np.tensordot(c.charges**2, self._chain_fractions(c), axes=1) * (
+                self.nuclei_density * c.fraction)
+        return out
+
+    @property
+    def debye_length(self) -> np.ndarray:
+        """lambda_D = sqrt(kT / (4 pi e^2 (n_e + sum z^2 n_z))) [cm]."""
+        if self._debye is not None:
+            return self._debye
+        return np.sqrt(K_B * self.temperature /
+                       (4.0 * np.pi * E_CHARGE**2 * (self.n_e + self.sum_z2_n())))
+
+    @property
+    def coupling_parameter(self) -> np.ndarray:
+        """Electron coupling Gamma_e = e^2 / (a_e k T), a_e = (3 / (4 pi n_e))^(1/3)."""
+        a = (3.0 / (4.0 * np.pi * self.n_e)) ** (1.0 / 3.0)
+        return E_CHARGE**2 / (a * K_B * self.temperature)
+
+    @property
+    def debye_number(self) -> np.ndarray:
+        """Electrons in a Debye sphere, (4 pi / 3) n_e lambda_D^3 (>> 1 for an ideal plasma)."""
+        return 4.0 * np.pi / 3.0 * self.n_e * self.debye_length**3
+
+    def mcwhirter_density(self, delta_e_ev: Any = None) -> np.ndarray:
+        """McWhirter's lower bound on n_e for LTE, 1.6e12 T^1/2 dE^3 [cm^-3].
+
+        Parameters
+        ----------
+        delta_e_ev : float or array_like, optional
+            The largest energy gap between adjacent levels [eV].  Default: the largest
+            adjacent-level gap among the species holding at least 1 % of the nuclei of their
+            element and of the mixture (usually the resonance gap of the dominant stage).
+        """
+        if delta_e_ev is None:
+            delta_e_ev = self.largest_gap_ev()
+        else:
+            from sahaboltz.quantities import as_positive_array
+            delta_e_ev = as_positive_array(delta_e_ev, "eV", "delta_e_ev")
+        return MCWHIRTER_COEFFICIENT * np.sqrt(self.temperature) * delta_e_ev**3
+
+    def lte_valid(self, delta_e_ev: Any = None) -> np.ndarray:
+        """McWhirter criterion n_e >= 1.6e12 T^1/2 dE^3 (necessary, not sufficient)."""
+        return self.n_e >= self.mcwhirter_density(delta_e_ev)
+
+    def largest_gap_ev(self, threshold: float = 0.01) -> np.ndarray:
+        """Largest adjacent-level gap [eV] among the abundant species (see mcwhirter_density)."""
+        gaps = np.zeros(self.shape)
+        for c in self.network.chains:
+            if c.fraction < threshold:
+                continue
+            f = self._chain_fractions(c)
+            for j, sp in enumerate(c.species):
+                if sp is None or sp.is_bare_nucleus or c.model_rows[j] < 0:
+                    continue
+                e = np.unique(sp.bound_energy_ev)
+                if e.size < 2:
+                    continue
+                gap = float(np.diff(e).max())
+                gaps = np.where(f[j] * c.fraction >= threshold * c.fraction, np.maximum(gaps, gap),
+                                gaps) if c.fraction >= threshold else gaps
+        if not np.all(gaps > 0):
+            raise NoDataError("no abundant species with two or more levels: pass delta_e_ev")
+        return gaps
+
+    # -- presentation ------------------------------------------------------------------------
+    def summary(self, index=None) -> dict:
+        """Bulk quantities of one state (``index`` into the state shape; scalar states: None)."""
+        idx = () if index is None else index
+        if self.shape and index is None:
+            raise InputError("summary: give the index of one state of the array")
+        return {"temperature_K": float(self.temperature[idx]),
+                "n_e_cm-3": float(self.n_e[idx]),
+                "electron_pressure_dyn_cm-2": float(self.electron_pressure[idx]),
+                "gas_pressure_dyn_cm-2": float(self.gas_pressure[idx]),
+                "mass_density_g_cm-3": float(self.mass_density[idx]),
+                "nuclei_density_cm-3": float(self.nuclei_density[idx]),
+                "mean_molecular_weight": float(self.mean_molecular_weight[idx]),
+                "mean_charge": float(self.mean_charge[idx])}
+
+    def __repr__(self) -> str:
+        return (f"EquilibriumState({self.composition.name!r}, shape={self.shape}, "
+                f"closure={self.closure}, {self.network.n_species} species)")
+
+
+def _EV() -> float:
+    from sahaboltz.constants import EV
+    return EV

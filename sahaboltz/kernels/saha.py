@@ -1,0 +1,174 @@
+"""Saha factors and the single-element Saha chain.
+
+The Saha equation for the ionization r -> r+1 of one element,
+
+    n_{r+1} n_e / n_r = Phi_r(T) = 2 (U_{r+1} / U_r) (2 pi m_e k T / h^2)^{3/2}
+                                   exp(-(chi_r - dchi_r) / k T)            [cm^-3],
+
+links neighbouring stages.  For a whole element the stage populations follow from the
+cumulative products ``n_r / n_0 = prod_{i<r} Phi_i / n_e``; we form them as cumulative *sums of
+logarithms* so that nothing overflows (chi / kT reaches 10^6 for uranium's inner shells at
+1,000 K), and normalize with a log-sum-exp.
+
+Everything here broadcasts over the state shape: stage axis first, then the states.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Sequence
+
+import numpy as np
+
+from sahaboltz.constants import H, K_B, K_B_EV, M_E
+from sahaboltz.errors import InputError
+from sahaboltz.quantities import as_array, as_positive_array
+
+__all__ = ["H_MINUS_AFFINITY_EV", "saha_constant", "log_saha_constant", "log_saha_factor",
+           "chain_log_populations", "chain_fractions", "saha_chain"]
+
+#: electron affinity of hydrogen [eV] (Lykke, Murray & Lineberger 1991, Phys. Rev. A 43, 6104)
+H_MINUS_AFFINITY_EV = 0.754195
+
+_LN2 = float(np.log(2.0))
+
+
+def log_saha_constant(temperature: Any) -> np.ndarray:
+    """ln of (2 pi m_e k T / h^2)^{3/2} with the constant in cm^-3."""
+    t = as_positive_array(temperature, "K", "temperature")
+    return 1.5 * np.log(2.0 * np.pi * M_E * K_B * t / H**2)
+
+
+def saha_constant(temperature: Any) -> np.ndarray:
+    """(2 pi m_e k T / h^2)^{3/2} [cm^-3]: the electron's thermal quantum concentration."""
+    return np.exp(log_saha_constant(temperature))
+
+
+def log_saha_factor(temperature: Any, ionization_energy_ev: Any, u_lower: Any, u_upper: Any,
+                    lowering_ev: Any = 0.0) -> np.ndarray:
+    """ln Phi, with Phi = n_{r+1} n_e / n_r [cm^-3] from the Saha equation.
+
+    Parameters
+    ----------
+    temperature : float, array_like or Quantity
+        T [K].
+    ionization_energy_ev : float or array_like
+        chi_r of the lower stage [eV].
+    u_lower, u_upper : float or array_like
+        Partition functions of the lower and upper stage.
+    lowering_ev : float or array_like
+        Lowering dchi_r of the ionization energy [eV] (0: ideal gas).
+
+    Returns
+    -------
+    ndarray
+        ln Phi (broadcast shape of the inputs).
+    """
+    t = as_positive_array(temperature, "K", "temperature")
+    chi = as_array(ionization_energy_ev, "eV", "ionization_energy_ev")
+    ul = as_positive_array(u_lower, "", "u_lower")
+    uu = as_positive_array(u_upper, "", "u_upper")
+    dchi = as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False)
+    return (_LN2 + np.log(uu / ul) + log_saha_constant(t)
+            - (chi - dchi) / (K_B_EV * t))
+
+
+def chain_log_populations(log_phi: np.ndarray, log_ne: np.ndarray) -> np.ndarray:
+    """ln(n_r / n_0) for a chain of stages 0..R from the Saha factors of its R steps.
+
+    Parameters
+    ----------
+    log_phi : ndarray, shape (R, ...)
+        ln Phi_r for r = 0..R-1 (ln of n_{r+1} n_e / n_r [cm^-3]).
+    log_ne : ndarray
+        ln n_e [cm^-3], broadcastable to ``log_phi.shape[1:]``.
+
+    Returns
+    -------
+    ndarray, shape (R+1, ...)
+        ln(n_r / n_0) (the first row is 0).
+    """
+    log_phi = np.asarray(log_phi, dtype=float)
+    steps = log_phi - np.asarray(log_ne, dtype=float)
+    out = np.zeros((steps.shape[0] + 1,) + steps.shape[1:])
+    np.cumsum(steps, axis=0, out=out[1:])
+    return out
+
+
+def chain_fractions(log_rel: np.ndarray) -> np.ndarray:
+    """Stage fractions from ln(n_r / n_0) (any reference stage): a log-sum-exp normalization."""
+    m = np.max(log_rel, axis=0, keepdims=True)
+    e = np.exp(log_rel - m)
+    return e / e.sum(axis=0, keepdims=True)
+
+
+def saha_chain(element: Any, temperature: Any, electron_density: Any = None,
+               electron_pressure: Any = None, *, truncation: str = "plain",
+               lowering_ev: Any = None, completion: bool = False,
+               database=None) -> np.ndarray:
+    """Stage fractions of one element at given (T, n_e) or (T, P_e): the Saha chain.
+
+    Parameters
+    ----------
+    element : str or int
+        Element symbol or atomic number; every stage in the database is used (neutral to
+        bare nucleus).
+    temperature : float, array_like or Quantity
+        T [K].
+    electron_density : float, array_like or Quantity, optional
+        n_e [cm^-3].  Give exactly one of ``electron_density`` and ``electron_pressure``.
+    electron_pressure : float, array_like or Quantity, optional
+        P_e = n_e k T [dyn cm^-2].
+    truncation : str
+        Partition-function truncation, see :class:`sahaboltz.kernels.partition.PartitionModel`.
+    lowering_ev : float or array_like, optional
+        Lowering of every ionization energy of this element [eV], broadcastable to
+        (n_stages,) + state shape (e.g. from Debye-Hueckel).  Default: none.
+    completion : bool
+        Hydrogenic completion of the partition functions.
+    database : SpeciesDatabase, optional
+        Default: :func:`sahaboltz.data.database.default_database`.
+
+    Returns
+    -------
+    ndarray, shape (Z+1,) + broadcast(T, n_e).shape
+        n_r / N_element for r = 0 (neutral) .. Z (bare nucleus).
+
+    Raises
+    ------
+    InputError
+        Neither or both of ``electron_density`` and ``electron_pressure``; bad values.
+    """
+    from sahaboltz.data.database import default_database
+    from sahaboltz.kernels.partition import PartitionModel
+
+    if (electron_density is None) == (electron_pressure is None):
+        raise InputError("give exactly one of electron_density [cm^-3] and "
+                         "electron_pressure [dyn cm^-2]")
+    t = as_positive_array(temperature, "K", "temperature")
+    if electron_density is not None:
+        ne = as_positive_array(electron_density, "cm-3", "electron_density")
+    else:
+        pe = as_positive_array(electron_pressure, "dyn cm-2", "electron_pressure")
+        ne = pe / (K_B * t)
+    t, ne = np.broadcast_arrays(t, ne)
+    db = database or default_database()
+    stages = db.element(element)
+    model = PartitionModel(stages, truncation=truncation, completion=completion)
+    if lowering_ev is None:
+        low = np.zeros((len(stages),) + t.shape)
+    else:
+        low = np.broadcast_to(as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False),
+                              (len(stages),) + t.shape)
+    kw = {}
+    if truncation != "plain":
+        kw = {"n_e": ne, "lowering_ev": low if lowering_ev is not None else None}
+    u = np.broadcast_to(model.evaluate(t, **kw), (len(stages),) + t.shape)
+    chi = np.array([s.ionization_energy_ev for s in stages[:-1]]).reshape((-1,) + (1,) * t.ndim)
+    log_phi = (_LN2 + np.log(u[1:] / u[:-1]) + log_saha_constant(t)
+               - (chi - low[:-1]) / (K_B_EV * t))
+    return chain_fractions(chain_log_populations(log_phi, np.log(ne)))
+
+
+def stage_charges(stages: Sequence) -> np.ndarray:
+    """Charges of a list of species (helper for chains)."""
+    return np.array([s.charge for s in stages], dtype=float)
