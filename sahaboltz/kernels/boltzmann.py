@@ -110,7 +110,7 @@ def select_levels(species, *, index: Any = None, energy_range_ev: Sequence[float
                              "the ionization energy)")
     if not keep.any():
         raise InputError(f"{argument}: the selection ({', '.join(given)}) matches no level of "
-                         f"{sp.name}; list its levels with 'sahaboltz partition levels'")
+                         f"{sp.name}; list its levels with 'sahaboltz levels'")
     return np.flatnonzero(keep)
 
 

@@ -39,6 +39,7 @@ from sahaboltz.errors import InputError
 from sahaboltz.quantities import as_array, as_positive_array
 
 __all__ = ["RYDBERG_EV", "BOHR_RADIUS_CM", "effective_n", "stark_k", "hydrogenic_radius",
+           "stark_level_factor", "stark_state_factors",
            "w_charged", "w_neutral", "occupation_probability", "log_w_charged", "log_w_neutral"]
 
 #: Rydberg energy for infinite nuclear mass [eV]
@@ -97,6 +98,26 @@ def log_w_charged(n: np.ndarray, z: np.ndarray, temperature: np.ndarray,
     f = _F_C1 * (x + 4.0 * a**3) * b32 * b32 / (1.0 + _F_C2 * x * b32)
     # ln(f / (1 + f)) without cancellation when f is large (low density: w -> 1)
     return -np.log1p(1.0 / f)
+
+
+def stark_level_factor(n: np.ndarray, z: np.ndarray) -> np.ndarray:
+    """Level part Q of s = beta^(-3/2) = P(n_e) * Q(n, Z), with Q = (K_n Z^3 / n^4)^(-3/2)."""
+    return (stark_k(n) * z**3 / n**4) ** -1.5
+
+
+def stark_state_factors(temperature: np.ndarray, electron_density: np.ndarray
+                        ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """State parts (P, A, B) of the charged-perturber fit written as ln w = -ln(1 + s (A s + B)).
+
+    With s = beta^(-3/2) = P Q: 1/f = s^2 / (c1 (x + 4a^3)) + c2 x s / (c1 (x + 4a^3)), the
+    same fit as :func:`log_w_charged`, arranged so that a (states x levels) block needs only an
+    outer product and three element-wise passes.
+    """
+    a = _A_COEFF * electron_density ** (1.0 / 6.0) / np.sqrt(temperature)
+    x = (1.0 + a) ** _X_EXP
+    denom = _F_C1 * (x + 4.0 * a**3)
+    p = (_BETA_COEFF * electron_density ** (-2.0 / 3.0)) ** -1.5
+    return p, 1.0 / denom, _F_C2 * x / denom
 
 
 def log_w_neutral(n: np.ndarray, z: np.ndarray, neutral_density: np.ndarray,

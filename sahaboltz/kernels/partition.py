@@ -36,7 +36,7 @@ from sahaboltz.data.species import Species
 from sahaboltz.errors import InputError, NoDataError
 from sahaboltz.kernels.lowering import debye_hueckel_lowering, debye_length
 from sahaboltz.kernels.occupation import (_BETA_COEFF, RYDBERG_EV, hydrogenic_radius,
-                                          log_w_charged, log_w_neutral, stark_k)
+                                          stark_k, stark_level_factor, stark_state_factors)
 from sahaboltz.quantities import as_array, as_positive_array
 
 __all__ = ["TRUNCATIONS", "PartitionModel", "partition_function", "log_derivative"]
@@ -192,6 +192,9 @@ class PartitionModel:
         self._lng_max_lv = self._lng_max[self._sp]
         self._is_comp = self._ncomp > 0
         self._bare = np.array([sp.is_bare_nucleus for sp in self.species])
+        # level parts of the occupation probabilities (see occupation.stark_state_factors)
+        self._q_stark = stark_level_factor(self._neff, self._zrad)
+        self._r3 = (hydrogenic_radius(self._neff, self._zrad) + self.perturber_radius_cm) ** 3
 
     @property
     def n_species(self) -> int:
@@ -274,7 +277,7 @@ class PartitionModel:
         out = np.empty((st["n"], len(lv)))
         for lo in range(0, st["n"], max(1, _BLOCK // len(lv))):
             hi = min(st["n"], lo + max(1, _BLOCK // len(lv)))
-            out[lo:hi] = np.exp(self._arg(lv, st, slice(lo, hi)))
+            out[lo:hi] = np.exp(self._arg(lv, st, slice(lo, hi), np.array([len(lv)])))
         terms = out.T[:, st["inverse"]].reshape((len(lv),) + st["shape"])
         return terms, self._e[lv].copy(), self._ncomp[lv].copy()
 
@@ -329,23 +332,32 @@ class PartitionModel:
             if nn is not None:
                 cols.append(np.broadcast_to(nn, shape).ravel())
                 names.append("nn")
+        if mode == "occupation":
+            # sort states by density first: a group of neighbours then shares n_e, so the
+            # dissolved completion levels can be skipped for the whole group
+            order = [names.index("ne")] + [i for i in range(len(names)) if names[i] != "ne"]
+            cols, names = [cols[i] for i in order], [names[i] for i in order]
         if len(cols) == 1:
             uniq, inverse = np.unique(cols[0], return_inverse=True)
             table = uniq[:, None]
         else:
             table, inverse = np.unique(np.stack(cols, axis=1), axis=0, return_inverse=True)
         inverse = inverse.ravel()
-        st = {"shape": shape, "inverse": inverse, "n": len(table), "T": table[:, 0].copy()}
+        st = {"shape": shape, "inverse": inverse, "n": len(table),
+              "T": table[:, names.index("T")].copy()}
         st["beta"] = 1.0 / (K_B_EV * st["T"])
         if "ne" in names:
             st["ne"] = table[:, names.index("ne")].copy()
         if "nn" in names:
             st["nn"] = table[:, names.index("nn")].copy()
+        if mode == "occupation":
+            st["stark_p"], st["stark_a"], st["stark_b"] = stark_state_factors(st["T"], st["ne"])
         if mode == "lowered":
             if low_const is not None:
                 low_s = np.repeat(low_const[:, None], st["n"], axis=1)
             elif "L" in names:
-                low_s = table[:, 1:1 + self.n_species].T.copy()
+                first = names.index("L")
+                low_s = table[:, first:first + self.n_species].T.copy()
             else:
                 lam = debye_length(st["T"], st["ne"])
                 low_s = debye_hueckel_lowering(self.charge[:, None], lam[None, :])
@@ -360,24 +372,33 @@ class PartitionModel:
             st["cut"] = cut
         return st
 
-    def _arg(self, lv: np.ndarray, st: dict, sl: slice) -> np.ndarray:
-        """ln of the Boltzmann terms, shape (states in ``sl``, levels ``lv``)."""
+    def _arg(self, lv: np.ndarray, st: dict, sl: slice, counts: np.ndarray) -> np.ndarray:
+        """ln of the Boltzmann terms, shape (states in ``sl``, levels ``lv``).
+
+        ``counts`` is the number of levels of each species in ``lv`` (species are contiguous).
+        """
         beta = st["beta"][sl]
         e = self._e[lv]
         arg = np.multiply.outer(beta, -e)
         arg += self._lng[lv]
         if self.truncation == "lowered":
-            cut = st["cut"][:, sl].T[:, self._sp[lv]]
+            cut = np.repeat(st["cut"][:, sl].T, counts, axis=1)
             np.copyto(arg, -np.inf, where=~(e < cut))
         elif self.truncation == "occupation":
             wap = self._wapply[lv]
             if wap.any():
-                n = self._neff[lv][wap]
-                z = self._zrad[lv][wap]
-                lw = log_w_charged(n, z, st["T"][sl][:, None], st["ne"][sl][:, None])
+                q = self._q_stark[lv][wap]
+                sv = np.multiply.outer(st["stark_p"][sl], q)          # s = beta^(-3/2)
+                lw = sv * st["stark_a"][sl][:, None]
+                lw += st["stark_b"][sl][:, None]
+                lw *= sv
+                np.log1p(lw, out=lw)
                 if "nn" in st:
-                    lw = lw + log_w_neutral(n, z, st["nn"][sl][:, None], self.perturber_radius_cm)
-                arg[:, wap] += lw
+                    lw += np.multiply.outer((4.0 * np.pi / 3.0) * st["nn"][sl], self._r3[lv][wap])
+                if wap.all():
+                    arg -= lw
+                else:
+                    arg[:, wap] -= lw
         return arg
 
     def _keep(self, st: dict, sl: slice) -> np.ndarray:
@@ -406,7 +427,7 @@ class PartitionModel:
             g1 = min(nst, g0 + group)
             keep = self._keep(st, slice(g0, g1))
             if keep.all():
-                lv, starts = all_lv, self._starts
+                lv, starts, counts = all_lv, self._starts, self._counts
             else:
                 lv = np.flatnonzero(keep)
                 counts = np.add.reduceat(keep.astype(np.intp), self._starts)
@@ -424,7 +445,7 @@ class PartitionModel:
                     np.multiply.outer(st["beta"][sl], neg_e, out=terms)
                     terms += lng
                 else:
-                    terms = self._arg(lv, st, sl)
+                    terms = self._arg(lv, st, sl, counts)
                     e = self._e[lv]
                 np.exp(terms, out=terms)
                 u[:, sl] = np.add.reduceat(terms, starts, axis=1).T

@@ -1,0 +1,137 @@
+"""``sahaboltz partition`` and ``sahaboltz populations``: U(T) and Boltzmann level populations."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from sahaboltz.data.database import default_database
+from sahaboltz.errors import InputError
+from sahaboltz.faces.output import add_format_option, emit
+from sahaboltz.kernels.boltzmann import level_populations, select_levels
+from sahaboltz.kernels.partition import TRUNCATIONS, PartitionModel
+
+
+def _add_truncation_options(p) -> None:
+    p.add_argument("--truncation", choices=TRUNCATIONS, default="plain",
+                   help="plain sum of tabulated levels (default), lowered ionization limit, or "
+                        "occupation probabilities")
+    p.add_argument("--completion", action="store_true",
+                   help="add hydrogenic Rydberg levels of the parent above the highest "
+                        "tabulated level (needs --truncation lowered or occupation)")
+    p.add_argument("--n-e", type=float, default=None, metavar="CM-3", dest="n_e",
+                   help="electron density [cm^-3] for the density-dependent truncations")
+    p.add_argument("--lowering", type=float, default=None, metavar="EV",
+                   help="ionization-potential lowering [eV] for --truncation lowered "
+                        "(default: Debye-Hueckel from --n-e)")
+    p.add_argument("--n-neutral", type=float, default=None, metavar="CM-3", dest="n_neutral",
+                   help="density of neutral perturbers [cm^-3] for --truncation occupation")
+
+
+def register(sub) -> None:
+    p = sub.add_parser("partition", help="partition functions U(T) of one or more species",
+                       description="Internal partition functions over a list or a range of "
+                                   "temperatures, one column per species.")
+    p.add_argument("species", nargs="+", help="e.g. 'Fe II' Fe+ 'H I'")
+    p.add_argument("-T", "--temperature", type=float, nargs="+", metavar="K",
+                   help="temperatures [K]")
+    p.add_argument("--range", type=float, nargs=3, metavar=("START", "STOP", "N"),
+                   help="N temperatures from START to STOP [K]")
+    p.add_argument("--log", action="store_true", help="space --range geometrically")
+    p.add_argument("--derivative", action="store_true",
+                   help="also print d ln U / d ln T for each species")
+    _add_truncation_options(p)
+    add_format_option(p)
+    p.set_defaults(func=run_partition)
+
+    p = sub.add_parser("populations", help="Boltzmann level populations of a species",
+                       description="Fraction of a stage in each level at one temperature "
+                                   "(and density), with the partition function.")
+    p.add_argument("species", help="e.g. 'Fe II'")
+    p.add_argument("-T", "--temperature", type=float, required=True, metavar="K",
+                   help="temperature [K]")
+    p.add_argument("--index", type=int, nargs="+", default=None, metavar="I",
+                   help="only these level indices (0 = ground)")
+    p.add_argument("--energy-range", type=float, nargs=2, default=None, metavar=("LO", "HI"),
+                   help="only levels with LO <= E <= HI [eV]")
+    p.add_argument("--configuration", default=None, help="only this configuration (wildcards ok)")
+    p.add_argument("--term", default=None, help="only this term label (wildcards ok)")
+    p.add_argument("--limit", type=int, default=None, metavar="N", help="at most N rows")
+    _add_truncation_options(p)
+    add_format_option(p)
+    p.set_defaults(func=run_populations)
+
+
+def _temperatures(args) -> np.ndarray:
+    if args.temperature and args.range:
+        raise InputError("give either -T/--temperature or --range, not both")
+    if args.range:
+        start, stop, n = args.range
+        if n < 1 or n != int(n):
+            raise InputError(f"--range: N must be a positive integer, got {n:g}")
+        if args.log:
+            if start <= 0 or stop <= 0:
+                raise InputError("--range with --log needs positive START and STOP")
+            return np.geomspace(start, stop, int(n))
+        return np.linspace(start, stop, int(n))
+    if args.temperature:
+        return np.asarray(args.temperature, dtype=float)
+    raise InputError("give temperatures with -T/--temperature or --range START STOP N")
+
+
+def _lowering(args, n_species: int):
+    if args.lowering is None:
+        return None
+    return np.full(n_species, args.lowering)
+
+
+def run_partition(args) -> int:
+    db = default_database()
+    species = [db.species(name) for name in args.species]
+    t = _temperatures(args)
+    model = PartitionModel(species, args.truncation, args.completion)
+    u, dlnu = model.evaluate_with_derivative(t, args.n_e, _lowering(args, len(species)),
+                                             args.n_neutral)
+    rows = []
+    for k, temp in enumerate(t):
+        row = {"T_K": float(temp)}
+        for i, sp in enumerate(species):
+            row[f"U({sp.name})"] = float(u[i, k])
+            if args.derivative:
+                row[f"dlnU/dlnT({sp.name})"] = float(dlnu[i, k])
+        rows.append(row)
+    meta = {"truncation": args.truncation, "completion": args.completion}
+    if args.n_e is not None:
+        meta["n_e_cm-3"] = args.n_e
+    if args.lowering is not None:
+        meta["lowering_eV"] = args.lowering
+    emit(rows, args.format, title="Partition functions", meta=meta)
+    return 0
+
+
+def run_populations(args) -> int:
+    db = default_database()
+    sp = db.species(args.species)
+    criteria = {k: v for k, v in (("index", args.index), ("energy_range_ev", args.energy_range),
+                                  ("configuration", args.configuration), ("term", args.term))
+                if v is not None}
+    sel = select_levels(sp, **criteria) if criteria else np.flatnonzero(sp.bound)
+    low = None if args.lowering is None else args.lowering
+    pops = level_populations(sp, args.temperature, truncation=args.truncation,
+                             completion=args.completion, n_e=args.n_e, lowering_ev=low,
+                             n_neutral=args.n_neutral)
+    model = PartitionModel([sp], args.truncation, args.completion)
+    u = float(model.evaluate(args.temperature, args.n_e, _lowering(args, 1), args.n_neutral)[0])
+    lv = sp.levels
+    ground = pops[0] if pops[0] > 0 else np.nan
+    rows = []
+    for i in sel[:args.limit] if args.limit else sel:
+        rows.append({"index": int(i), "configuration": str(lv.configuration[i]),
+                     "term": str(lv.term[i]), "J": str(lv.j[i]), "g": float(lv.g[i]),
+                     "energy_eV": float(lv.energy_ev[i]), "fraction": float(pops[i]),
+                     "n/n_ground": float(pops[i] / ground)})
+    meta = {"T_K": args.temperature, "U": u, "truncation": args.truncation,
+            "selected_fraction": float(pops[sel].sum())}
+    if args.n_e is not None:
+        meta["n_e_cm-3"] = args.n_e
+    emit(rows, args.format, title=f"Level populations of {sp.name}", meta=meta)
+    return 0
