@@ -1,0 +1,184 @@
+"""``sahaboltz plot``: pictures of LTE equilibria, written as PNG or PDF (by file suffix).
+
+    sahaboltz plot stages Fe --temperature 3000:12000:200 --pressure 1e5 -o fe.png
+    sahaboltz plot dominant Fe --temperature 3000:30000:80 --pressure 1e-2:1e6:33 -o fe_map.pdf
+    sahaboltz plot partition "Fe I" "Fe II" --truncations plain,occupation --electron-density 1e15
+    sahaboltz plot electron-pressure --temperature 3000:12000:100 --pressure 1e2,1e4,1e6
+    sahaboltz plot levels "Fe I" --temperature 4600,6000 --pressure 1e5
+
+Temperatures and pressures are MIN:MAX:NUM (evenly spaced; logarithmically for pressures and
+for the temperature axis of maps) or comma-separated values, in K and cgs units.  The state
+options (--composition, --metallicity, --pressure-quantity, --truncation, --lowering) are those
+of the other computing commands.
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+from pathlib import Path
+
+from sahaboltz.errors import InputError
+from sahaboltz.faces.output import add_format_option, emit
+from sahaboltz.faces.state_options import (add_closure_options, add_composition_options,
+                                           add_physics_options, composition_from_args,
+                                           parse_values, solver_options)
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser("plot", help="draw stage fractions, dominant-stage maps, partition "
+                                           "functions, electron pressures, level populations",
+                              description=__doc__,
+                              formatter_class=argparse.RawDescriptionHelpFormatter)
+    sub = p.add_subparsers(dest="plot_command", metavar="PLOT")
+    sub.required = True
+
+    s = sub.add_parser("stages", help="stage fractions of an element against temperature")
+    s.add_argument("element", help="element symbol, e.g. Fe")
+    _temperature(s, "3000:30000:300", "linear")
+    s.add_argument("--pressure", default="1e5", metavar="VALUE",
+                   help="the fixed pressure-like quantity in cgs (default 1e5)")
+    s.add_argument("--log", action="store_true", help="logarithmic fraction axis")
+    s.add_argument("--min-fraction", type=float, default=1e-3, metavar="F",
+                   help="leave out stages that never reach F (default 1e-3)")
+    _state(s)
+    _finish(s, _stages)
+
+    d = sub.add_parser("dominant", help="map of the dominant stage of an element over T and P")
+    d.add_argument("element", help="element symbol, e.g. Fe")
+    _temperature(d, "2000:50000:90", "log")
+    d.add_argument("--pressure", default="1e-2:1e8:41", metavar="MIN:MAX:NUM|V1,V2,..",
+                   help="pressure-like axis in cgs, log-spaced (default 1e-2:1e8:41)")
+    _state(d)
+    _finish(d, _dominant)
+
+    u = sub.add_parser("partition", help="partition functions against temperature")
+    u.add_argument("species", nargs="+", help="species, e.g. 'Fe I' 'Fe II' or Fe Fe+")
+    _temperature(u, "2000:20000:200", "linear")
+    u.add_argument("--truncations", default="plain", metavar="T1,T2,..",
+                   help="plain, lowered, occupation (comma-separated; default plain)")
+    u.add_argument("--electron-density", type=float, default=None, metavar="CM-3",
+                   help="n_e [cm^-3] held fixed, for the lowered and occupation truncations")
+    u.add_argument("--completion", action="store_true",
+                   help="hydrogenic completion of the level lists (not for plain)")
+    _finish(u, _partition)
+
+    e = sub.add_parser("electron-pressure", help="electron pressure of a mixture against T")
+    _temperature(e, "2000:20000:200", "linear")
+    e.add_argument("--pressure", default="1e2,1e4,1e6", metavar="P1,P2,..|MIN:MAX:NUM",
+                   help="gas pressures [dyn cm^-2], one curve each (default 1e2,1e4,1e6)")
+    add_composition_options(e)
+    add_physics_options(e)
+    _finish(e, _electron_pressure)
+
+    v = sub.add_parser("levels", help="level-population (Boltzmann) diagram of one species")
+    v.add_argument("species", help="e.g. 'Fe I', 'Ar II'")
+    v.add_argument("--temperature", default="5000", metavar="T1,T2,..",
+                   help="one or a few temperatures [K], one series each (default 5000)")
+    v.add_argument("--pressure", default="1e5", metavar="VALUE",
+                   help="the fixed pressure-like quantity in cgs (default 1e5)")
+    v.add_argument("--max-energy", type=float, default=None, metavar="EV",
+                   help="only levels up to this excitation energy [eV]")
+    _state(v)
+    _finish(v, _levels)
+
+
+def _temperature(p, default: str, scale: str) -> None:
+    p.add_argument("--temperature", default=default, metavar="MIN:MAX:NUM|V1,V2,..",
+                   help=f"temperatures [K] ({scale}ly spaced; default {default})")
+
+
+def _state(p) -> None:
+    add_composition_options(p)
+    add_closure_options(p)
+    add_physics_options(p)
+
+
+def _finish(p, func) -> None:
+    p.add_argument("-o", "--output", metavar="FILE.png|FILE.pdf",
+                   help="image file to write (default: a name from the plot, .png, here)")
+    add_format_option(p)
+    p.set_defaults(func=func)
+
+
+def _write(args, fig, default_stem: str, what: str, t0: float) -> int:
+    from sahaboltz.faces.plots import save_figure
+
+    out = Path(args.output) if args.output else Path(f"{default_stem}.png")
+    path = save_figure(fig, out)
+    emit([{"plot": what, "file": str(path), "bytes": path.stat().st_size,
+           "seconds": round(time.perf_counter() - t0, 2)}], args.format)
+    return 0
+
+
+def _safe(text: str) -> str:
+    return "".join(c if c.isalnum() else "_" for c in text).strip("_")
+
+
+def _one_value(text: str, name: str) -> float:
+    vals = parse_values(text, name)
+    if vals.size != 1:
+        raise InputError(f"--pressure: give one value for this plot, got {text!r}")
+    return float(vals[0])
+
+
+def _stages(args) -> int:
+    from sahaboltz.faces.plots import stage_fractions_plot
+
+    t0 = time.perf_counter()
+    fig = stage_fractions_plot(args.element, parse_values(args.temperature, "--temperature",
+                                                          scale="linear"),
+                               _one_value(args.pressure, args.pressure_quantity),
+                               composition=composition_from_args(args),
+                               pressure_quantity=args.pressure_quantity, log=args.log,
+                               min_fraction=args.min_fraction, **solver_options(args))
+    return _write(args, fig, f"stages_{_safe(args.element)}", "stage fractions", t0)
+
+
+def _dominant(args) -> int:
+    from sahaboltz.faces.plots import dominant_stage_plot
+
+    t0 = time.perf_counter()
+    fig = dominant_stage_plot(args.element, parse_values(args.temperature, "--temperature"),
+                              parse_values(args.pressure, "--pressure"),
+                              composition=composition_from_args(args),
+                              pressure_quantity=args.pressure_quantity, **solver_options(args))
+    return _write(args, fig, f"dominant_{_safe(args.element)}", "dominant stage", t0)
+
+
+def _partition(args) -> int:
+    from sahaboltz.faces.plots import partition_function_plot
+
+    t0 = time.perf_counter()
+    truncs = [x.strip() for x in args.truncations.split(",") if x.strip()]
+    fig = partition_function_plot(args.species, parse_values(args.temperature, "--temperature",
+                                                             scale="linear"),
+                                  truncations=truncs, electron_density=args.electron_density,
+                                  completion=args.completion)
+    return _write(args, fig, f"partition_{_safe('_'.join(args.species))}",
+                  "partition functions", t0)
+
+
+def _electron_pressure(args) -> int:
+    from sahaboltz.faces.plots import electron_pressure_plot
+
+    t0 = time.perf_counter()
+    fig = electron_pressure_plot(parse_values(args.temperature, "--temperature", scale="linear"),
+                                 parse_values(args.pressure, "--pressure"),
+                                 composition=composition_from_args(args), **solver_options(args))
+    return _write(args, fig, "electron_pressure", "electron pressure", t0)
+
+
+def _levels(args) -> int:
+    from sahaboltz.faces.plots import level_population_plot
+
+    t0 = time.perf_counter()
+    fig = level_population_plot(args.species, parse_values(args.temperature, "--temperature"),
+                                _one_value(args.pressure, args.pressure_quantity),
+                                composition=composition_from_args(args),
+                                pressure_quantity=args.pressure_quantity,
+                                max_energy_ev=args.max_energy, **solver_options(args))
+    return _write(args, fig, f"levels_{_safe(args.species)}", "level populations", t0)
+
+
+__all__ = ["register"]

@@ -1,0 +1,621 @@
+"""Pictures of LTE equilibria: stage fractions, dominant-stage maps, partition functions,
+electron pressures and level-population (Boltzmann) diagrams.
+
+Everything draws on :class:`matplotlib.figure.Figure` objects without pyplot, so it works
+headless and never touches the user's interactive backend.  Each picture comes in two layers:
+
+- ``draw_*`` functions take arrays that are already computed (e.g. read from a table) and only
+  draw;
+- ``*_plot`` functions solve the equilibrium (or evaluate the partition functions) with the
+  package's public API and then call the matching ``draw_*``.
+
+Every figure names its axes with units and states its conditions (composition, pressure,
+physics options) in the title and a note under the axes.  :func:`save_figure` writes PNG or PDF
+(chosen by the file suffix) atomically.
+
+>>> fig = stage_fractions_plot("Fe", np.linspace(3000, 12000, 200), 1e5)   # doctest: +SKIP
+>>> save_figure(fig, "fe_stages.png")                                      # doctest: +SKIP
+"""
+
+from __future__ import annotations
+
+import os
+import textwrap
+import uuid
+from pathlib import Path
+from typing import Any, Sequence
+
+import numpy as np
+from matplotlib.colors import BoundaryNorm, ListedColormap
+from matplotlib.figure import Figure
+
+from sahaboltz.constants import K_B_EV
+from sahaboltz.data.elements import atomic_number, parse_species, spectroscopic_name
+from sahaboltz.errors import InputError
+from sahaboltz.faces.state_options import (CLOSURE_SYMBOLS, CLOSURE_UNITS, describe_state,
+                                           format_value, physics_label, unit_label)
+from sahaboltz.quantities import as_positive_array
+
+#: file suffixes :func:`save_figure` writes
+FORMATS = {".png": "png", ".pdf": "pdf"}
+_LN10 = float(np.log(10.0))
+_STYLES = {"plain": "-", "lowered": "--", "occupation": ":"}
+# a qualitative palette that stays readable in grey print
+_COLORS = ["#1b5e9e", "#d9661f", "#2a9d4b", "#b8332e", "#7b4fa6", "#8a5a44", "#d45fa8",
+           "#6e6e6e", "#a6a21c", "#1fa6b8"]
+
+
+# -- figures and files ---------------------------------------------------------------------
+def new_figure(width: float = 7.2, height: float = 5.0) -> tuple[Figure, Any]:
+    """A figure with one axes, laid out so that titles and notes fit."""
+    fig = Figure(figsize=(width, height), dpi=110, layout="constrained")
+    ax = fig.add_subplot()
+    return fig, ax
+
+
+def add_note(fig: Figure, text: str, width: int = 110) -> None:
+    """The conditions of a figure, in small type under the axes."""
+    wrapped = "\n".join(textwrap.wrap(text, width=width))
+    fig.supxlabel(wrapped, fontsize=7.5, color="0.25", ha="left", x=0.01)
+
+
+def save_figure(fig: Figure, path: str | os.PathLike) -> Path:
+    """Write ``fig`` to ``path`` as PNG or PDF (by suffix), never leaving a half-written file.
+
+    Raises
+    ------
+    InputError
+        An unsupported suffix, or a directory that cannot be written.
+    """
+    path = Path(path)
+    fmt = FORMATS.get(path.suffix.lower())
+    if fmt is None:
+        raise InputError(f"cannot tell the image format of {path.name!r}: end the file name "
+                         f"with {' or '.join(FORMATS)}")
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"cannot create the directory {path.parent}: {exc.strerror}") from None
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp")
+    try:
+        fig.savefig(tmp, format=fmt)
+        os.replace(tmp, path)
+    except OSError as exc:
+        raise InputError(f"cannot write {path}: {exc.strerror or exc}") from None
+    finally:
+        tmp.unlink(missing_ok=True)
+    return path
+
+
+def _pressure_axis_label(quantity: str) -> str:
+    names = {"gas_pressure": "gas pressure", "electron_pressure": "electron pressure",
+             "mass_density": "mass density", "hydrogen_density": "hydrogen-nucleus density"}
+    sym = {"gas_pressure": "$P_\\mathrm{gas}$", "electron_pressure": "$P_e$",
+           "mass_density": "$\\rho$", "hydrogen_density": "$n_\\mathrm{H}$"}[quantity]
+    return f"{names[quantity]} {sym} [{unit_label(CLOSURE_UNITS[quantity], tex=True)}]"
+
+
+def plain_log_ticks(axis, lo: float, hi: float) -> None:
+    """Label a logarithmic axis with plain numbers (3000, 5000, 10000) rather than powers."""
+    from matplotlib.ticker import FixedLocator, FuncFormatter, NullFormatter
+
+    for mantissas in ((1, 2, 3, 5), (1, 2, 5), (1, 3), (1,)):
+        ticks = [m * 10.0**k for k in range(int(np.floor(np.log10(lo))) - 1,
+                                            int(np.ceil(np.log10(hi))) + 1)
+                 for m in mantissas if lo * (1 - 1e-9) <= m * 10.0**k <= hi * (1 + 1e-9)]
+        if len(ticks) <= 9:
+            break
+    if len(ticks) < 2:
+        return  # the default labels are fine for so narrow a range
+    axis.set_major_locator(FixedLocator(ticks))
+    axis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:,.0f}" if v >= 1 else f"{v:g}"))
+    axis.set_minor_formatter(NullFormatter())
+
+
+def _stage_names(element, charges: Sequence[int]) -> list[str]:
+    z = atomic_number(element)
+    return [spectroscopic_name(z, int(q)) for q in charges]
+
+
+# -- drawing: stage fractions --------------------------------------------------------------
+def draw_stage_fractions(temperature, fractions, names: Sequence[str], *, title: str,
+                         note: str = "", log: bool = False, min_fraction: float = 1e-3,
+                         ax_title_size: float = 10.5) -> Figure:
+    """Fractions of an element's stages against temperature.
+
+    Parameters
+    ----------
+    temperature : array_like, shape (n,)
+        T [K], increasing.
+    fractions : array_like, shape (n_stages, n)
+        n_stage / N_element.
+    names : sequence of str
+        One label per stage ("Fe I", ...).
+    log : bool
+        Logarithmic fraction axis (down to ``min_fraction``).
+    min_fraction : float
+        Stages that never reach this fraction are left out.
+    """
+    t = np.asarray(temperature, dtype=float)
+    f = np.asarray(fractions, dtype=float)
+    if f.shape != (len(names), t.size):
+        raise InputError(f"fractions must have shape ({len(names)}, {t.size}), got {f.shape}")
+    fig, ax = new_figure()
+    shown = [i for i in range(len(names)) if f[i].max() >= min_fraction]
+    for k, i in enumerate(shown):
+        color = _COLORS[k % len(_COLORS)]
+        ax.plot(t, f[i], color=color, lw=1.8, label=names[i])
+        j = int(np.argmax(f[i]))
+        y = f[i, j]
+        # label each curve at its peak, nudged inside the axes at the ends of the range
+        ha = "left" if j < 0.06 * t.size else ("right" if j > 0.94 * t.size else "center")
+        ax.annotate(names[i], (t[j], y), xytext=(0, 4), textcoords="offset points",
+                    ha=ha, va="bottom", color=color, fontsize=9.5, fontweight="bold")
+    ax.set_xlabel("temperature $T$ [K]")
+    ax.set_ylabel("fraction of the element in the stage, $n_r/N$")
+    ax.set_xlim(t[0], t[-1])
+    if log:
+        ax.set_yscale("log")
+        ax.set_ylim(min_fraction, 2.5)
+    else:
+        ax.set_ylim(0.0, 1.08)
+    ax.grid(alpha=0.3)
+    ax.set_title(title, fontsize=ax_title_size)
+    if note:
+        add_note(fig, note)
+    return fig
+
+
+# -- drawing: dominant stage ---------------------------------------------------------------
+def draw_dominant_map(temperature, pressure, dominant, element, *, title: str, note: str = "",
+                      pressure_quantity: str = "gas_pressure", fractions=None,
+                      charges: Sequence[int] | None = None, track=None) -> Figure:
+    """Map of the most populated stage of an element over the (T, P) plane.
+
+    Parameters
+    ----------
+    temperature : array_like, shape (nT,)
+        T [K], increasing.
+    pressure : array_like, shape (nP,)
+        The pressure-like quantity, increasing, in its cgs unit.
+    dominant : array_like of int, shape (nT, nP)
+        Charge of the dominant stage at each grid point.
+    element : str
+    fractions : array_like, shape (n_stages, nT, nP), optional
+        Stage fractions; when given, the boundary between two neighbouring stages is drawn
+        where their fractions are equal (smoother than the boundary of the integer map).
+    charges : sequence of int, optional
+        Charge of each row of ``fractions``.
+    track : (T, P, label), optional
+        A curve to overplot, e.g. the T-P relation of a model atmosphere.
+    """
+    t = np.asarray(temperature, dtype=float)
+    p = np.asarray(pressure, dtype=float)
+    d = np.asarray(dominant).astype(int)
+    if d.shape != (t.size, p.size):
+        raise InputError(f"dominant must have shape ({t.size}, {p.size}), got {d.shape}")
+    present = sorted(set(d.ravel().tolist()))
+    lo, hi = present[0], present[-1]
+    qs = list(range(lo, hi + 1))
+    names = _stage_names(element, qs)
+    fig, ax = new_figure(7.2, 5.4)
+    palette = ["#dbe9f6", "#fde2c8", "#d7efd9", "#f6d5d3", "#e6dcf0", "#efe3c9", "#f7dcec",
+               "#e2e2e2"]
+    cmap = ListedColormap([palette[(q - lo) % len(palette)] for q in qs])
+    norm = BoundaryNorm(np.arange(lo - 0.5, hi + 1.0), cmap.N)
+    tt, pp = np.meshgrid(t, p, indexing="ij")
+    ax.pcolormesh(tt, pp, d, cmap=cmap, norm=norm, shading="nearest", rasterized=True)
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    # boundaries between neighbouring stages: where their fractions are equal
+    for q in qs[:-1]:
+        if fractions is not None and charges is not None:
+            ch = list(charges)
+            fr = np.asarray(fractions)
+            a, b = fr[ch.index(q)], fr[ch.index(q + 1)]
+            with np.errstate(divide="ignore"):
+                field = np.log(np.maximum(b, 1e-300)) - np.log(np.maximum(a, 1e-300))
+            # only where these two are the leading pair
+            top2 = np.isin(d, (q, q + 1))
+            field = np.where(top2, field, np.nan)
+        else:
+            field = np.where(d <= q, -1.0, 1.0)
+        if not (np.nanmin(field) < 0 < np.nanmax(field)):
+            continue
+        cs = ax.contour(tt, pp, field, levels=[0.0], colors="k", linewidths=1.3)
+        label = f"{names[q - lo]} | {names[q - lo + 1]}"
+        ax.clabel(cs, fmt={0.0: label}, inline=True, fontsize=7.5, inline_spacing=3)
+    # stage names in the middle of their regions
+    _label_regions(ax, t, p, d, qs, names)
+    if track is not None:
+        tt_, pp_, lab = track
+        ax.plot(tt_, pp_, color="#8b1a1a", lw=2.0, label=lab)
+        ax.legend(loc="lower right", fontsize=8.5, framealpha=0.9)
+    ax.set_xlim(t[0], t[-1])
+    ax.set_ylim(p[0], p[-1])
+    plain_log_ticks(ax.xaxis, t[0], t[-1])
+    ax.set_xlabel("temperature $T$ [K]")
+    ax.set_ylabel(_pressure_axis_label(pressure_quantity))
+    ax.set_title(title, fontsize=10.5)
+    if note:
+        add_note(fig, note)
+    return fig
+
+
+def _label_regions(ax, t, p, d, qs, names) -> None:
+    from scipy.ndimage import distance_transform_edt, label
+
+    for q, name in zip(qs, names):
+        regions, n = label(d == q)
+        for r in range(1, n + 1):
+            mask = regions == r
+            if mask.sum() < max(4, 0.01 * mask.size):
+                continue  # a sliver: its boundary label says enough
+            # the point deepest inside the region (pad so the frame counts as an edge)
+            dist = distance_transform_edt(np.pad(mask, 1))[1:-1, 1:-1]
+            i, j = np.unravel_index(int(np.argmax(dist)), mask.shape)
+            ax.text(t[i], p[j], name, ha="center", va="center", fontsize=12, fontweight="bold",
+                    color="0.15")
+
+
+# -- drawing: partition functions, electron pressure, level populations ---------------------
+def draw_partition_functions(temperature, curves: Sequence[tuple[str, str, Any]], *, title: str,
+                             note: str = "") -> Figure:
+    """Partition functions against temperature.
+
+    Parameters
+    ----------
+    temperature : array_like, shape (n,)
+    curves : sequence of (species name, truncation, U array of shape (n,))
+        One colour per species, one line style per truncation.  When a species has a
+        "plain" curve and others, a lower panel shows their ratio to the plain sum (the
+        curves themselves often lie on top of each other).
+    """
+    t = np.asarray(temperature, dtype=float)
+    species = list(dict.fromkeys(c[0] for c in curves))
+    plain = {c[0]: np.asarray(c[2], dtype=float) for c in curves if c[1] == "plain"}
+    ratios = [c for c in curves if c[1] != "plain" and c[0] in plain]
+    if ratios:
+        fig = Figure(figsize=(7.2, 6.2), dpi=110, layout="constrained")
+        ax, axr = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [2.3, 1]})
+    else:
+        fig, ax = new_figure()
+        axr = None
+    for name, trunc, u in curves:
+        color = _COLORS[species.index(name) % len(_COLORS)]
+        ax.plot(t, np.asarray(u, dtype=float), color=color, ls=_STYLES.get(trunc, "-"), lw=1.7,
+                label=f"{name}, {trunc}")
+    ax.set_yscale("log")
+    lo, hi = ax.get_ylim()
+    plain_log_ticks(ax.yaxis, lo, hi)
+    ax.set_xlim(t[0], t[-1])
+    ax.set_ylabel("partition function $U(T)$ (dimensionless)")
+    ax.grid(alpha=0.3, which="both")
+    ax.legend(fontsize=8.5, ncol=2 if len(curves) > 6 else 1, framealpha=0.85)
+    ax.set_title(title, fontsize=10.5)
+    if axr is not None:
+        for name, trunc, u in ratios:
+            color = _COLORS[species.index(name) % len(_COLORS)]
+            axr.plot(t, np.asarray(u, dtype=float) / plain[name], color=color,
+                     ls=_STYLES.get(trunc, "-"), lw=1.5)
+        axr.axhline(1.0, color="0.5", lw=0.8)
+        axr.set_ylabel("ratio to plain sum")
+        axr.grid(alpha=0.3)
+        axr.set_xlabel("temperature $T$ [K]")
+    else:
+        ax.set_xlabel("temperature $T$ [K]")
+    if note:
+        add_note(fig, note)
+    return fig
+
+
+def draw_electron_pressure(temperature, curves: Sequence[tuple[str, Any]], *, title: str,
+                           note: str = "") -> Figure:
+    """Electron pressure against temperature, one curve per gas pressure.
+
+    Parameters
+    ----------
+    temperature : array_like, shape (n,)
+    curves : sequence of (label, P_e array [dyn cm^-2] of shape (n,))
+    """
+    t = np.asarray(temperature, dtype=float)
+    fig, ax = new_figure()
+    for k, (lab, pe) in enumerate(curves):
+        ax.plot(t, np.asarray(pe, dtype=float), color=_COLORS[k % len(_COLORS)], lw=1.8, label=lab)
+    ax.set_yscale("log")
+    ax.set_xlim(t[0], t[-1])
+    ax.set_xlabel("temperature $T$ [K]")
+    ax.set_ylabel("electron pressure $P_e = n_e k T$ [dyn cm$^{-2}$]")
+    ax.grid(alpha=0.3, which="both")
+    ax.legend(fontsize=8.5, framealpha=0.85, loc="lower right")
+    ax.set_title(title, fontsize=10.5)
+    if note:
+        add_note(fig, note)
+    return fig
+
+
+def draw_level_populations(series: Sequence[tuple[str, Any, Any]], *, title: str,
+                           note: str = "", boltzmann_lines: Sequence[tuple[float, float]] = ()
+                           ) -> Figure:
+    """Level-population diagram: log10(n_i / g_i) against excitation energy.
+
+    Parameters
+    ----------
+    series : sequence of (label, energy_ev array, log10(n_i/g_i) array)
+    boltzmann_lines : sequence of (temperature [K], intercept)
+        Straight lines of slope -1 / (k T ln 10) per eV (the Boltzmann law), drawn through
+        the given intercepts, one per series.
+    """
+    fig, ax = new_figure()
+    emax = max(float(np.max(e)) for _, e, _ in series)
+    for k, (lab, e, y) in enumerate(series):
+        color = _COLORS[k % len(_COLORS)]
+        ax.plot(e, y, "o", ms=3.2, color=color, alpha=0.8, label=lab, mec="none")
+        if k < len(boltzmann_lines):
+            t, b = boltzmann_lines[k]
+            x = np.array([0.0, emax])
+            ax.plot(x, b - x / (K_B_EV * t * _LN10), color=color, lw=1.0, ls="--", alpha=0.8)
+    ax.set_xlabel("excitation energy $E_i$ [eV]")
+    ax.set_ylabel("$\\log_{10}(n_i/g_i)$  [$n_i$ in cm$^{-3}$]")
+    ax.grid(alpha=0.3)
+    handles, labels = ax.get_legend_handles_labels()
+    if boltzmann_lines:
+        from matplotlib.lines import Line2D
+        handles.append(Line2D([], [], color="0.3", ls="--", lw=1.0))
+        labels.append("Boltzmann law, slope $-1/(kT\\,\\ln 10)$")
+    ax.legend(handles, labels, fontsize=8.5, framealpha=0.85, loc="upper right")
+    ax.set_title(title, fontsize=10.5)
+    if note:
+        add_note(fig, note)
+    return fig
+
+
+# -- computing and drawing -----------------------------------------------------------------
+def _solve(composition, temperature, closure: str, value, truncation, lowering):
+    from sahaboltz.equilibrium import solve_equilibrium
+
+    if closure not in CLOSURE_UNITS:
+        raise InputError(f"pressure_quantity must be one of {', '.join(CLOSURE_UNITS)}, "
+                         f"got {closure!r}")
+    return solve_equilibrium(composition, temperature, **{closure: value},
+                             truncation=truncation, lowering=lowering)
+
+
+def _default_composition(composition):
+    if composition is not None:
+        return composition
+    from sahaboltz.data.composition import solar
+    return solar()
+
+
+def _sorted_temperature(temperature, minimum: int = 2) -> np.ndarray:
+    t = np.sort(np.atleast_1d(as_positive_array(temperature, "K", "temperature")).ravel())
+    if t.size < minimum:
+        raise InputError(f"temperature: give at least {minimum} values for a curve "
+                         f"(e.g. 3000:12000:200)")
+    return t
+
+
+def _scalar(value, name: str, unit: str) -> float:
+    v = as_positive_array(value, unit, name)
+    if v.size != 1:
+        raise InputError(f"{name}: give one value for this plot, got {v.size}")
+    return float(v.ravel()[0])
+
+
+def stage_fractions_plot(element: str, temperature: Any, pressure: Any, *, composition=None,
+                         pressure_quantity: str = "gas_pressure", truncation: str | None = None,
+                         lowering: bool = False, log: bool = False,
+                         min_fraction: float = 1e-3) -> Figure:
+    """Stage fractions of ``element`` against temperature at one fixed pressure.
+
+    Parameters
+    ----------
+    element : str
+        Element symbol, e.g. "Fe".
+    temperature : array_like or Quantity
+        Temperatures [K] (at least two).
+    pressure : float or Quantity
+        The fixed value of ``pressure_quantity`` in its cgs unit.
+    composition : Composition, optional
+        Default: solar (Asplund et al. 2009).
+    truncation, lowering
+        Physics options of :func:`sahaboltz.equilibrium.solve_equilibrium`.
+    """
+    comp = _default_composition(composition)
+    t = _sorted_temperature(temperature)
+    pv = _scalar(pressure, pressure_quantity, CLOSURE_UNITS.get(pressure_quantity, ""))
+    state = _solve(comp, t, pressure_quantity, pv, truncation, lowering)
+    fr = state.stage_fractions(element)
+    q = state.stage_charges(element)
+    sym = atomic_number(element)
+    title = (f"Ionization stages of {spectroscopic_name(sym, 0).split()[0]} at "
+             f"{CLOSURE_SYMBOLS[pressure_quantity]} = {format_value(pv, CLOSURE_UNITS[pressure_quantity])}")
+    note = describe_state(comp, closure=pressure_quantity, value=pv, truncation=truncation,
+                          lowering=lowering)
+    return draw_stage_fractions(t, fr, _stage_names(element, q), title=title, note=note,
+                                log=log, min_fraction=min_fraction)
+
+
+def dominant_stage_plot(element: str, temperature: Any, pressure: Any, *, composition=None,
+                        pressure_quantity: str = "gas_pressure", truncation: str | None = None,
+                        lowering: bool = False) -> Figure:
+    """Map of the dominant stage of ``element`` over a temperature x pressure grid.
+
+    Parameters
+    ----------
+    temperature, pressure : array_like
+        Grid axes (at least two values each), T [K] and ``pressure_quantity`` in cgs.
+    """
+    comp = _default_composition(composition)
+    t = _sorted_temperature(temperature)
+    unit = CLOSURE_UNITS.get(pressure_quantity, "")
+    p = np.sort(np.atleast_1d(as_positive_array(pressure, unit, pressure_quantity)).ravel())
+    if p.size < 2:
+        raise InputError(f"{pressure_quantity}: give at least 2 values for a map "
+                         "(e.g. 1e2:1e6:41)")
+    state = _solve(comp, t[:, None], pressure_quantity, p[None, :], truncation, lowering)
+    d = state.dominant_stage(element, negative=False)
+    el = spectroscopic_name(atomic_number(element), 0).split()[0]
+    title = f"Dominant ionization stage of {el}"
+    note = describe_state(comp, closure=pressure_quantity, value=p, truncation=truncation,
+                          lowering=lowering) + "; lines: neighbouring stages equally populated"
+    return draw_dominant_map(t, p, d, element, title=title, note=note,
+                             pressure_quantity=pressure_quantity,
+                             fractions=state.stage_fractions(element),
+                             charges=state.stage_charges(element))
+
+
+def partition_function_plot(species: Sequence[str], temperature: Any, *,
+                            truncations: Sequence[str] = ("plain",),
+                            electron_density: float | None = None,
+                            completion: bool = False) -> Figure:
+    """Partition functions of ``species`` against temperature for several truncations.
+
+    Parameters
+    ----------
+    species : sequence of str
+        E.g. ``["Fe I", "Fe II"]``.
+    truncations : sequence of {"plain", "lowered", "occupation"}
+        "lowered" cuts the sum at the Debye-Hueckel-lowered limit and "occupation" weights the
+        levels by occupation probabilities; both need ``electron_density``.
+    electron_density : float, optional
+        n_e [cm^-3] held fixed along the curves (needed for "lowered" and "occupation").
+    completion : bool
+        Hydrogenic completion of the level lists (for "lowered" and "occupation" only).
+    """
+    from sahaboltz.kernels.partition import partition_function
+
+    if isinstance(species, str):
+        species = [species]
+    if not species:
+        raise InputError("give at least one species, e.g. 'Fe I'")
+    t = _sorted_temperature(temperature)
+    truncations = list(dict.fromkeys(truncations))
+    bad = [x for x in truncations if x not in _STYLES]
+    if bad:
+        raise InputError(f"unknown truncation {bad[0]!r}; choose from {', '.join(_STYLES)}")
+    needs_ne = [x for x in truncations if x != "plain"]
+    if needs_ne and electron_density is None:
+        raise InputError(f"truncation {needs_ne[0]!r} depends on the density: give the "
+                         "electron density (e.g. 1e15 cm^-3)")
+    ne = None if electron_density is None else _scalar(electron_density, "electron_density",
+                                                       "cm-3")
+    curves = []
+    names = []
+    for text in species:
+        z, charge = parse_species(text)
+        name = spectroscopic_name(z, charge)
+        names.append(name)
+        for trunc in truncations:
+            kw: dict[str, Any] = {"truncation": trunc}
+            if trunc != "plain":
+                kw["n_e"] = ne
+                kw["completion"] = completion
+            curves.append((name, trunc, partition_function(name, t, **kw)))
+    title = f"Partition functions of {', '.join(names)}"
+    bits = [f"truncations: {', '.join(truncations)}"]
+    if needs_ne:
+        bits.append(f"n_e = {format_value(ne, 'cm-3')} held fixed"
+                    + ("; lowered: Debye-Hueckel limit from n_e, T" if "lowered" in truncations
+                       else ""))
+        bits.append("hydrogenic completion" if completion else "tabulated levels only")
+    bits.append("levels: NIST ASD via level_data")
+    return draw_partition_functions(t, curves, title=title, note="; ".join(bits))
+
+
+def electron_pressure_plot(temperature: Any, gas_pressures: Any, *, composition=None,
+                           truncation: str | None = None, lowering: bool = False) -> Figure:
+    """Electron pressure of a mixture against temperature, one curve per gas pressure."""
+    comp = _default_composition(composition)
+    t = _sorted_temperature(temperature)
+    p = np.atleast_1d(as_positive_array(gas_pressures, "dyn cm-2", "gas_pressure")).ravel()
+    state = _solve(comp, t[:, None], "gas_pressure", p[None, :], truncation, lowering)
+    pe = state.electron_pressure
+    curves = [(f"$P_\\mathrm{{gas}}$ = {format_value(pv, 'dyn cm-2').replace('cm^-2', 'cm$^{-2}$')}",
+               pe[:, k]) for k, pv in enumerate(p)]
+    from sahaboltz.faces.state_options import composition_label
+    title = f"Electron pressure of {composition_label(comp)}"
+    note = describe_state(comp, closure="gas_pressure", value=p, truncation=truncation,
+                          lowering=lowering)
+    return draw_electron_pressure(t, curves, title=title, note=note)
+
+
+def level_population_data(species: str, temperature: Any, pressure: Any, *, composition=None,
+                          pressure_quantity: str = "gas_pressure", truncation: str | None = None,
+                          lowering: bool = False):
+    """Energies [eV], g and level densities n_i [cm^-3] of the tabulated bound levels.
+
+    Returns
+    -------
+    energy_ev : ndarray, shape (n_levels,)
+    g : ndarray, shape (n_levels,)
+    populations : ndarray, shape (n_levels, n_temperatures)
+    state : EquilibriumState
+    """
+    from sahaboltz.data.database import default_database
+
+    comp = _default_composition(composition)
+    t = np.atleast_1d(as_positive_array(temperature, "K", "temperature")).ravel()
+    pv = _scalar(pressure, pressure_quantity, CLOSURE_UNITS.get(pressure_quantity, ""))
+    sp = default_database().species(species)
+    state = _solve(comp, t, pressure_quantity, pv, truncation, lowering)
+    pops, energy = state.level_populations(sp.name)
+    e_tab, g_tab = sp.bound_energy_ev, sp.bound_g.astype(float)
+    order = np.argsort(e_tab, kind="stable")
+    e_tab, g_tab = e_tab[order], g_tab[order]
+    n = e_tab.size
+    # the state lists the tabulated bound levels first, lowest first, then any completion
+    if energy.size < n or not np.allclose(energy[:n], e_tab):
+        raise InputError(f"level populations of {sp.name}: the solver's level list does not "
+                         "match the database's bound levels")
+    return e_tab, g_tab, np.asarray(pops)[:n], state
+
+
+def level_population_plot(species: str, temperature: Any, pressure: Any, *, composition=None,
+                          pressure_quantity: str = "gas_pressure", truncation: str | None = None,
+                          lowering: bool = False, max_energy_ev: float | None = None) -> Figure:
+    """Boltzmann diagram of one species: log10(n_i/g_i) against E_i, at one or more T.
+
+    Parameters
+    ----------
+    species : str
+        E.g. "Fe I".
+    temperature : float or array_like
+        One or a few temperatures [K]; one series of points each.
+    pressure : float
+        The fixed ``pressure_quantity`` [cgs].
+    max_energy_ev : float, optional
+        Leave out levels above this excitation energy.
+    """
+    comp = _default_composition(composition)
+    e, g, pops, state = level_population_data(species, temperature, pressure,
+                                              composition=comp,
+                                              pressure_quantity=pressure_quantity,
+                                              truncation=truncation, lowering=lowering)
+    keep = np.ones(e.size, bool) if max_energy_ev is None else e <= max_energy_ev
+    if not keep.any():
+        raise InputError(f"no level of {species} below {max_energy_ev} eV")
+    t = state.temperature
+    series, lines = [], []
+    for k in range(t.size):
+        nk = pops[:, k]
+        ok = keep & (nk > 0)
+        y = np.log10(nk[ok] / g[ok])
+        series.append((f"T = {t[k]:,.0f} K", e[ok], y))
+        lines.append((float(t[k]), float(np.log10(nk[0] / g[0]))))
+    _, charge = parse_species(species)
+    name = spectroscopic_name(*parse_species(species))
+    pv = float(np.ravel(state.closure_value)[0])
+    title = f"Level populations of {name} (Boltzmann diagram)"
+    note = (describe_state(comp, closure=pressure_quantity, value=pv, truncation=truncation,
+                           lowering=lowering)
+            + f"; {int(keep.sum())} tabulated bound levels; n_i = number density of level i")
+    return draw_level_populations(series, title=title, note=note, boltzmann_lines=lines)
+
+
+__all__ = ["save_figure", "new_figure", "add_note", "draw_stage_fractions", "draw_dominant_map",
+           "draw_partition_functions", "draw_electron_pressure", "draw_level_populations",
+           "stage_fractions_plot", "dominant_stage_plot", "partition_function_plot",
+           "electron_pressure_plot", "level_population_data", "level_population_plot",
+           "physics_label"]
