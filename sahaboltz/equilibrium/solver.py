@@ -196,6 +196,8 @@ def _solve_flat(network, t, v, name, lowering, tol, max_passes, shape):
     if network.ideal and not lowering:
         ut, tinv = np.unique(t, return_inverse=True)
         c_unique = [network.log_c(c, ut) for c in network.chains]
+        intervals = [_significance_intervals(c.charges, tab) for c, tab in
+                     zip(network.chains, c_unique)]
     else:
         ut = tinv = c_unique = None
     for c0 in range(0, n, chunk):
@@ -203,7 +205,7 @@ def _solve_flat(network, t, v, name, lowering, tol, max_passes, shape):
         sub = _ChunkSolver(network, t[idx], v[idx], name,
                            None if fixed_n is None else fixed_n[idx],
                            None if ntot is None else ntot[idx], lowering,
-                           None if c_unique is None else [c[:, tinv[idx]] for c in c_unique])
+                           None if c_unique is None else (c_unique, intervals, tinv[idx]))
         sub.run(tol, max_passes)
         x_out[idx], nuc_out[idx], passes[idx], resid[idx] = sub.x, sub.nuc, sub.passes, sub.resid
         failed[idx] = ~sub.done
@@ -254,13 +256,15 @@ def _check_lowering(network, lam, t, v, name, shape):
 class _ChunkSolver:
     """Safeguarded Newton in ln n_e over one block of states."""
 
-    def __init__(self, network, t, v, name, fixed_n, ntot, lowering, c_gathered):
+    def __init__(self, network, t, v, name, fixed_n, ntot, lowering, ideal_tables):
         self.net = network
         self.t, self.v, self.name = t, v, name
         self.fixed_n, self.ntot = fixed_n, ntot
         self.lowering = lowering
-        self.cg = c_gathered          # list of (n_k, m) tables, or None (recomputed per pass)
-        self.ideal = c_gathered is not None
+        # (C tables on the unique temperatures, significance intervals, each state's T index),
+        # or None when the tables depend on n_e and are recomputed every pass
+        self.ideal_tables = ideal_tables
+        self.ideal = ideal_tables is not None
         m = t.size
         self.passes = np.zeros(m, dtype=int)
         self.done = np.zeros(m, dtype=bool)
@@ -309,15 +313,18 @@ class _ChunkSolver:
         """Weak-ionization estimate n_e ~ sqrt(N sum_k alpha_k Phi_k), capped by x_hi."""
         if self.fixed_n is None and self.ntot is None:
             return self.x_hi.copy()
+        terms = []
         if self.ideal:
-            tables = self.cg
+            c_unique, _, tpos = self.ideal_tables
+            for c, tab in zip(self.net.chains, c_unique):
+                i0 = int(np.flatnonzero(c.charges == 0)[0])
+                terms.append(np.log(c.fraction) + (tab[i0 + 1] - tab[i0])[tpos])
         else:  # any n_e-dependent correction will do for a first guess
             ne = np.exp(self.x_hi - 3.0)
             tables, _ = self._tables(np.arange(self.t.size), np.log(ne), ne)
-        terms = []
-        for c, tab in zip(self.net.chains, tables):
-            i0 = int(np.flatnonzero(c.charges == 0)[0])
-            terms.append(np.log(c.fraction) + tab[i0 + 1] - tab[i0])
+            for c, tab in zip(self.net.chains, tables):
+                i0 = int(np.flatnonzero(c.charges == 0)[0])
+                terms.append(np.log(c.fraction) + tab[i0 + 1] - tab[i0])
         terms = np.array(terms)
         mx = terms.max(axis=0)
         ln_sum = mx + np.log(np.exp(terms - mx).sum(axis=0))
@@ -331,7 +338,7 @@ class _ChunkSolver:
         hi = self.x_hi.copy()
         s_z2 = np.exp(x)  # sum z^2 n_z, lagged by one pass (used only with lowering)
         active = np.arange(m)
-        windows = _Windows(self.net.chains, self.cg) if self.ideal else None
+        windows = _Windows(self.net.chains, *self.ideal_tables) if self.ideal else None
         step = np.full(m, 2.0)  # size of the last Newton step (sets the window margins)
         fixed_pe = self.fixed_n is None and self.ntot is None
         for _ in range(max_passes):
@@ -405,27 +412,67 @@ class _ChunkSolver:
             active = a
 
 
+def _significance_intervals(charges: np.ndarray, tab: np.ndarray, thr: float = 40.0,
+                            block: int = 1 << 22) -> tuple[np.ndarray, np.ndarray]:
+    """Where in x = ln n_e each stage of a chain can matter, at each tabulated temperature.
+
+    With a_r(x) = C_r - q_r x, stage r is within e^-thr of the largest stage exactly when
+    a_s(x) - a_r(x) <= thr for every other stage s, i.e. for x in [xl_r, xr_r] with
+
+        xl_r = max_{s > r} (C_s - C_r - thr) / (q_s - q_r),
+        xr_r = min_{s < r} (C_r - C_s + thr) / (q_r - q_s).
+
+    Returned as monotone envelopes (xl running minimum from the first stage, xr running
+    maximum from the last), which only widen the intervals and make the windows contiguous,
+    clipped to [-_X_CLIP, _X_CLIP]; shape (n_T, n_stages) each.
+    """
+    n, nt = tab.shape
+    xl = np.full((nt, n), -_X_CLIP)
+    xr = np.full((nt, n), _X_CLIP)
+    if n > 1:
+        dq = charges[None, :] - charges[:, None]          # q_s - q_r
+        upper = dq > 0
+        lower = dq < 0
+        step = max(1, block // (n * n))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            for t0 in range(0, nt, step):
+                c = tab[:, t0:t0 + step]
+                dc = c[None, :, :] - c[:, None, :]              # C_s - C_r, (r, s, t)
+                lo_b = np.where(upper[:, :, None], (dc - thr) / dq[:, :, None], -np.inf)
+                hi_b = np.where(lower[:, :, None], (dc - thr) / dq[:, :, None], np.inf)
+                xl[t0:t0 + step] = np.clip(lo_b.max(axis=1), -_X_CLIP, _X_CLIP).T
+                xr[t0:t0 + step] = np.clip(hi_b.min(axis=1), -_X_CLIP, _X_CLIP).T
+    xl = np.minimum.accumulate(xl, axis=1)
+    xr = np.maximum.accumulate(xr[:, ::-1], axis=1)[:, ::-1]
+    return xl, xr
+
+
+# ln n_e never leaves this range (|x| = 2000 is n_e = 10^(+-869) cm^-3)
+_X_CLIP = 2000.0
+
+
 class _Windows:
     """Charge moments of every element from a window of its significant stages.
 
-    At a reference point x_ref (= ln n_e) the full chain is scanned once: stages whose
-    population is below e^-THR of the element's largest, with a margin for any x within
-    ``delta`` of x_ref, are dropped, and the rest (a contiguous window of W_k stages) is kept as
-    E0_j = exp(a_j(x_ref) - max).  For |x - x_ref| <= delta the populations are then exactly
-    E0_j y^j with y = exp(-(x - x_ref)), so a pass costs two small array operations per
-    window stage and no exponentials.  A stage outside the window satisfies
-    a_r(x) - max(x) <= -THR there (its bound grows by |q_r - q_max| |x - x_ref|, which the
-    margin covers), so the neglected populations are below 1e-17 of each element.
+    For each temperature the significance intervals of :func:`_significance_intervals` say
+    which stages of a chain lie within e^-THR of its largest stage anywhere in
+    [x - delta, x + delta]; two binary searches per chain and state give that window of W_k
+    consecutive stages.  At the reference point x_ref the window populations are formed once,
+    E0_j = exp(a_j(x_ref) - max); for |x - x_ref| <= delta they are exactly E0_j y^j with
+    y = exp(-(x - x_ref)), so a Newton pass costs two small array operations per window stage
+    and no exponentials.  Stages left out stay below e^-40 (4e-18) of their element's
+    largest stage throughout.
     """
 
-    THR = 40.0
     #: chains this short are always taken whole (and H with H- needs its true charges)
     WHOLE = 4
+    _BIG = 4.0 * _X_CLIP + 8.0
 
-    def __init__(self, chains, tables):
+    def __init__(self, chains, c_unique, intervals, tpos):
         self.chains = chains
-        self.tables = tables
-        m = tables[0].shape[1] if tables else 0
+        self.c_unique = c_unique
+        self.tpos = tpos                      # each state's index into the unique temperatures
+        m = tpos.size
         self.m = m
         self.xref = np.full(m, np.nan)
         self.delta = np.zeros(m)
@@ -436,6 +483,19 @@ class _Windows:
         self.mom_q = [np.stack([np.ones(c.n), c.charges, c.charges**2, np.abs(c.charges)])
                       for c in chains]
         self._mom_j = {}
+        # search keys: the chunk's temperatures one after another, offset by _BIG each
+        used, local = np.unique(tpos, return_inverse=True)
+        self.local = local.ravel()
+        off = (np.arange(used.size) * self._BIG)[:, None]
+        self.keys_l, self.keys_r = [], []
+        for k, c in enumerate(chains):
+            if self.whole[k]:
+                self.keys_l.append(None)
+                self.keys_r.append(None)
+                continue
+            xl, xr = intervals[k]
+            self.keys_l.append((off - xl[used]).ravel())   # ascending within each T
+            self.keys_r.append((off - xr[used]).ravel())
 
     def _mom(self, w):
         if w not in self._mom_j:
@@ -444,63 +504,62 @@ class _Windows:
         return self._mom_j[w]
 
     def _refresh(self, sel, x, delta) -> bool:
-        """New windows for the states ``sel`` (chunk positions) at x; False if one is too narrow."""
-        cols = np.arange(sel.size)
+        """New windows for the states ``sel`` (chunk positions) at x; False if one is too wide."""
+        loc = self.local[sel]
+        tp = self.tpos[sel]
+        base = loc * self._BIG
         plans = []
-        for k, (c, tab) in enumerate(zip(self.chains, self.tables)):
-            a = tab[:, sel] - np.multiply.outer(c.charges, x)
-            imax = a.argmax(axis=0)
-            amax = a[imax, cols]
+        for k, c in enumerate(self.chains):
+            n = c.n
             if self.whole[k]:
-                plans.append((k, None, np.exp(a - amax)))
+                a = self.c_unique[k][:, tp] - np.multiply.outer(c.charges, x)
+                plans.append((k, None, None, a))
                 continue
-            dist = np.abs(np.subtract.outer(c.charges, c.charges[imax]))
-            keep = (a - amax) + dist * delta > -self.THR
-            lo = keep.argmax(axis=0)
-            hi = c.n - 1 - keep[::-1].argmax(axis=0)
+            # lowest significant stage: #{r: xl_r > x + delta}; highest: n-1-#{r: xr_r < x - delta}
+            lo = np.searchsorted(self.keys_l[k], base - (x + delta), side="left") - loc * n
+            hi = n - 1 - (loc + 1) * n + np.searchsorted(self.keys_r[k], base - (x - delta),
+                                                         side="right")
+            hi = np.maximum(hi, lo)
             need = int((hi - lo).max()) + 1
             w = self.width[k]
             if w is None:
-                w = min(c.n, need + 1)
+                w = min(n, need + 1)
             elif need > w:
                 return False
-            s0 = np.minimum(lo, c.n - w)
+            s0 = np.minimum(lo, n - w)
             rows = s0[None, :] + np.arange(w)[:, None]
-            aw = np.take_along_axis(a, rows, axis=0)
-            plans.append((k, (w, s0), np.exp(aw - amax)))
-        for k, win, e0 in plans:
-            if win is not None:
-                w, s0 = win
+            a = self.c_unique[k][rows, tp[None, :]] - (c.q_min + rows) * x[None, :]
+            plans.append((k, w, s0, a))
+        for k, w, s0, a in plans:
+            a -= a.max(axis=0)
+            np.exp(a, out=a)
+            if w is not None:
                 if self.width[k] is None:
                     self.width[k] = w
                     self.e0[k] = np.zeros((w, self.m))
                 self.start[k][sel] = s0
             elif self.e0[k] is None:
                 self.e0[k] = np.zeros((self.chains[k].n, self.m))
-            self.e0[k][:, sel] = e0
+            self.e0[k][:, sel] = a
         self.xref[sel] = x
         self.delta[sel] = delta
         return True
 
     def moments(self, sel, x, last_step):
-        """(Zbar, Var sum, |q| sum, q^2 sum) per nucleus at the states ``sel``."""
+        """(Zbar, sum Var, sum |q|, sum q^2) per nucleus at the states ``sel``."""
         stale = ~(np.abs(x - self.xref[sel]) <= self.delta[sel])
         if stale.any():
             delta = np.clip(3.0 * last_step[stale], 0.05, 3.0)
             if not self._refresh(sel[stale], x[stale], delta):
-                # a window got too narrow: rebuild every window of the block at once
+                # a window got too narrow: rebuild the windows of these states from scratch
                 self.width = [None] * len(self.chains)
                 self.e0 = [None] * len(self.chains)
-                full = np.arange(self.m)
-                xr = np.where(np.isfinite(self.xref), self.xref, 0.0)
-                xr[sel] = x
-                dl = self.delta.copy()
-                dl[sel[stale]] = delta
-                self._refresh(full, xr, np.maximum(dl, 0.05))
-                self.xref[np.setdiff1d(full, sel)] = np.nan  # others refresh when next used
+                self.xref[:] = np.nan
+                d = np.clip(3.0 * last_step, 0.05, 3.0)
+                self._refresh(sel, x, d)
         allsel = sel.size == self.m
         dx = x - self.xref[sel]
-        wmax = max([c.n if self.whole[k] else self.width[k] for k, c in enumerate(self.chains)])
+        wmax = max(c.n if self.whole[k] else self.width[k] for k, c in enumerate(self.chains))
         powers = np.empty((wmax, sel.size))
         powers[0] = 1.0
         if wmax > 1:
@@ -515,7 +574,8 @@ class _Windows:
                 s = self.mom_q[k] @ e
                 inv = 1.0 / s[0]
                 mq, mq2 = s[1] * inv, s[2] * inv
-                zabs += c.fraction * s[3] * inv
+                zabs += c.fraction * (s[3] * inv)
+                vq = mq2 - mq * mq
             else:
                 s = self._mom(w) @ e
                 inv = 1.0 / s[0]
@@ -523,13 +583,9 @@ class _Windows:
                 base = c.q_min + (self.start[k] if allsel else self.start[k][sel])
                 mq = base + mj
                 mq2 = base * (base + 2.0 * mj) + mj2
-                zabs += c.fraction * mq
-                mq2, mq = mq2, mq
-                var += c.fraction * np.maximum(mj2 - mj * mj, 0.0)
-                zbar += c.fraction * mq
-                z2 += c.fraction * mq2
-                continue
+                zabs += c.fraction * mq   # no negative charges in a windowed chain
+                vq = mj2 - mj * mj
             zbar += c.fraction * mq
-            var += c.fraction * np.maximum(mq2 - mq * mq, 0.0)
+            var += c.fraction * np.maximum(vq, 0.0)
             z2 += c.fraction * mq2
         return zbar, var, zabs, z2

@@ -1,0 +1,147 @@
+"""``sahaboltz state`` and ``sahaboltz half-ionization``: the ionization balance of one state."""
+
+from __future__ import annotations
+
+from sahaboltz.data.composition import Composition, solar
+from sahaboltz.errors import InputError
+from sahaboltz.faces.output import add_format_option, emit
+
+_CLOSURE_FLAGS = (("gas_pressure", "--gas-pressure", "P_gas [dyn cm^-2]"),
+                  ("mass_density", "--mass-density", "rho [g cm^-3]"),
+                  ("hydrogen_density", "--hydrogen-density", "n_H, hydrogen nuclei [cm^-3]"),
+                  ("electron_pressure", "--electron-pressure", "P_e [dyn cm^-2]"))
+
+
+def _add_mixture_options(p) -> None:
+    p.add_argument("--mix", default="solar", metavar="MIX",
+                   help="'solar' (Asplund et al. 2009) or amounts such as 'N:0.78,O:0.21,Ar:0.0093' "
+                        "(default solar)")
+    p.add_argument("--by", choices=("number", "mass"), default="number",
+                   help="whether --mix amounts are by number or mass fractions (default number)")
+    p.add_argument("--metallicity", type=float, default=0.0, metavar="DEX",
+                   help="[M/H] scaling of the metals (default 0)")
+    p.add_argument("--alpha", type=float, default=0.0, metavar="DEX",
+                   help="[alpha/Fe] enhancement of O Ne Mg Si S Ar Ca Ti (default 0)")
+    p.add_argument("--lowering", action="store_true",
+                   help="Debye-Hueckel lowering of the ionization energies (self-consistent)")
+    p.add_argument("--truncation", choices=("plain", "lowered", "occupation"), default=None,
+                   help="partition-function truncation (default: lowered with --lowering, "
+                        "else plain)")
+    p.add_argument("--no-h-minus", action="store_true", help="leave H- out")
+
+
+def register(sub) -> None:
+    p = sub.add_parser("state", help="stage fractions of a gas at one temperature and pressure",
+                       description="Solve the LTE ionization balance of a mixture at one state "
+                                   "and list the stage fractions of the chosen elements.")
+    p.add_argument("-T", "--temperature", type=float, required=True, metavar="K",
+                   help="temperature [K]")
+    grp = p.add_mutually_exclusive_group(required=True)
+    for dest, flag, text in _CLOSURE_FLAGS:
+        grp.add_argument(flag, dest=dest, type=float, metavar="X", help=text)
+    _add_mixture_options(p)
+    p.add_argument("--elements", default=None, metavar="LIST",
+                   help="comma-separated elements to list (default: all of a custom mix; "
+                        "H,He,C,N,O,Na,Mg,Si,Ca,Fe for solar)")
+    p.add_argument("--min-fraction", type=float, default=1e-6, metavar="F",
+                   help="hide stages below this fraction of their element (default 1e-6)")
+    p.add_argument("--dominant-only", action="store_true",
+                   help="one row per element: its dominant stage")
+    p.add_argument("--plasma", action="store_true",
+                   help="also print Debye length, coupling parameter and the McWhirter check")
+    add_format_option(p)
+    p.set_defaults(func=run_state)
+
+    p = sub.add_parser("half-ionization",
+                       help="temperatures where each ionization of an element is half complete",
+                       description="At a fixed electron or gas pressure, the temperature of each "
+                                   "stage transition q -> q+1 of an element, where half of the "
+                                   "element is above stage q.")
+    p.add_argument("element", help="element symbol, e.g. H, Fe")
+    grp = p.add_mutually_exclusive_group(required=True)
+    grp.add_argument("--electron-pressure", type=float, metavar="X", help="P_e [dyn cm^-2]")
+    grp.add_argument("--gas-pressure", type=float, metavar="X", help="P_gas [dyn cm^-2]")
+    p.add_argument("--mix", default=None, metavar="MIX",
+                   help="'solar' or amounts 'H:0.9,He:0.1' (default: the pure element)")
+    p.add_argument("--by", choices=("number", "mass"), default="number")
+    p.add_argument("--tmin", type=float, default=1e3, metavar="K", help="default 1000 K")
+    p.add_argument("--tmax", type=float, default=1e6, metavar="K", help="default 1e6 K")
+    p.add_argument("--lowering", action="store_true")
+    p.add_argument("--no-h-minus", action="store_true")
+    add_format_option(p)
+    p.set_defaults(func=run_half)
+
+
+def parse_mix(text: str, by: str = "number", metallicity: float = 0.0,
+              alpha: float = 0.0) -> Composition:
+    """'solar' or 'El:amount,El:amount' -> Composition."""
+    text = (text or "").strip()
+    if text.lower() == "solar":
+        return solar(metallicity=metallicity, alpha_enhancement=alpha)
+    amounts = {}
+    for part in filter(None, (s.strip() for s in text.split(","))):
+        if ":" not in part:
+            raise InputError(f"--mix: expected 'Element:amount' pairs such as 'Ar:1', got {part!r}")
+        el, val = part.split(":", 1)
+        try:
+            amounts[el.strip()] = float(val)
+        except ValueError:
+            raise InputError(f"--mix: amount of {el.strip()} is not a number: {val!r}") from None
+    if not amounts:
+        raise InputError("--mix: give 'solar' or amounts such as 'N:0.78,O:0.21,Ar:0.0093'")
+    comp = (Composition.from_mass_fraction(amounts, name=text) if by == "mass"
+            else Composition.from_number(amounts, name=text))
+    if metallicity or alpha:
+        comp = comp.scaled(metallicity, alpha)
+    return comp
+
+
+def run_state(args) -> int:
+    from sahaboltz.equilibrium import solve_equilibrium, stage_table
+
+    comp = parse_mix(args.mix, args.by, args.metallicity, args.alpha)
+    closure = {dest: getattr(args, dest) for dest, _, _ in _CLOSURE_FLAGS
+               if getattr(args, dest) is not None}
+    state = solve_equilibrium(comp, args.temperature, truncation=args.truncation,
+                              lowering=args.lowering, h_minus=not args.no_h_minus, **closure)
+    if args.elements:
+        elements = [e.strip() for e in args.elements.split(",") if e.strip()]
+    elif args.mix.strip().lower() == "solar":
+        elements = [e for e in ("H", "He", "C", "N", "O", "Na", "Mg", "Si", "Ca", "Fe")
+                    if e in comp]
+    else:
+        elements = comp.symbols
+    rows = stage_table(state, elements, min_fraction=args.min_fraction)
+    if args.dominant_only:
+        rows = [r for r in rows if r["dominant"]]
+    for r in rows:
+        r["dominant"] = "*" if r["dominant"] else ""
+    meta = state.summary()
+    meta["mixture"] = comp.name
+    if args.plasma:
+        meta["debye_length_cm"] = float(state.debye_length)
+        meta["coupling_parameter"] = float(state.coupling_parameter)
+        meta["mcwhirter_min_n_e_cm-3"] = float(state.mcwhirter_density())
+        meta["lte_mcwhirter"] = bool(state.lte_valid())
+    emit(rows, args.format, title=f"LTE ionization balance at T = {args.temperature:g} K",
+         meta=meta)
+    return 0
+
+
+def run_half(args) -> int:
+    from sahaboltz.equilibrium import half_ionization_temperatures
+
+    comp = parse_mix(args.mix, args.by) if args.mix else None
+    res = half_ionization_temperatures(args.element, electron_pressure=args.electron_pressure,
+                                       gas_pressure=args.gas_pressure, composition=comp,
+                                       t_min=args.tmin, t_max=args.tmax, lowering=args.lowering,
+                                       h_minus=not args.no_h_minus)
+    rows = [{"transition": h.label, "temperature_K": h.temperature,
+             "n_e_cm-3": h.electron_density} for h in res]
+    which = ("P_e" if args.electron_pressure is not None else "P_gas")
+    value = args.electron_pressure if args.electron_pressure is not None else args.gas_pressure
+    emit(rows, args.format,
+         title=f"half-ionization temperatures of {args.element} at {which} = {value:g} dyn cm^-2",
+         meta={"searched_K": f"{args.tmin:g} - {args.tmax:g}",
+               "transitions_found": len(rows)})
+    return 0
