@@ -18,6 +18,7 @@ from sahaboltz.errors import SahaboltzError
 COMMAND_MODULES = [
     "sahaboltz.faces.cmd_species",
     "sahaboltz.faces.cmd_table",
+    "sahaboltz.faces.cmd_diagnose",
     "sahaboltz.faces.cmd_plot",
     "sahaboltz.faces.cmd_partition",
     "sahaboltz.faces.cmd_state",
