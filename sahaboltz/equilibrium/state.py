@@ -254,8 +254,8 @@ class EquilibriumState:
         ----------
         delta_e_ev : float or array_like, optional
             The largest energy gap between adjacent levels [eV].  Default: the largest
-            adjacent-level gap among the species holding at least 1 % of the nuclei of their
-            element and of the mixture (usually the resonance gap of the dominant stage).
+            adjacent-level gap among the species at least 1 % as abundant as the most abundant
+            species with levels (usually the resonance gap of the dominant stage).
         """
         if delta_e_ev is None:
             delta_e_ev = self.largest_gap_ev()
@@ -269,11 +269,13 @@ class EquilibriumState:
         return self.n_e >= self.mcwhirter_density(delta_e_ev)
 
     def largest_gap_ev(self, threshold: float = 0.01) -> np.ndarray:
-        """Largest adjacent-level gap [eV] among the abundant species (see mcwhirter_density)."""
-        gaps = np.zeros(self.shape)
+        """Largest adjacent-level gap [eV] among the abundant species (see mcwhirter_density).
+
+        A species counts when its density is at least ``threshold`` times that of the most
+        abundant species that has a level list (bare nuclei and H- have none).
+        """
+        weights, gaps = [], []
         for c in self.network.chains:
-            if c.fraction < threshold:
-                continue
             f = self._chain_fractions(c)
             for j, sp in enumerate(c.species):
                 if sp is None or sp.is_bare_nucleus or c.model_rows[j] < 0:
@@ -281,12 +283,14 @@ class EquilibriumState:
                 e = np.unique(sp.bound_energy_ev)
                 if e.size < 2:
                     continue
-                gap = float(np.diff(e).max())
-                gaps = np.where(f[j] * c.fraction >= threshold * c.fraction, np.maximum(gaps, gap),
-                                gaps) if c.fraction >= threshold else gaps
-        if not np.all(gaps > 0):
-            raise NoDataError("no abundant species with two or more levels: pass delta_e_ev")
-        return gaps
+                weights.append(f[j] * c.fraction)
+                gaps.append(float(np.diff(e).max()))
+        if not gaps:
+            raise NoDataError("no species with two or more levels: pass delta_e_ev")
+        w = np.array(weights)
+        g = np.array(gaps).reshape((-1,) + (1,) * len(self.shape))
+        use = w >= threshold * w.max(axis=0)
+        return np.where(use, g, 0.0).max(axis=0)
 
     # -- presentation ------------------------------------------------------------------------
     def summary(self, index=None) -> dict:

@@ -20,7 +20,7 @@ from typing import Any, Sequence
 import numpy as np
 
 from sahaboltz.constants import H, K_B, K_B_EV, M_E
-from sahaboltz.errors import InputError
+from sahaboltz.errors import InputError, NoDataError
 from sahaboltz.quantities import as_array, as_positive_array
 
 __all__ = ["H_MINUS_AFFINITY_EV", "saha_constant", "log_saha_constant", "log_saha_factor",
@@ -104,7 +104,7 @@ def chain_fractions(log_rel: np.ndarray) -> np.ndarray:
 def saha_chain(element: Any, temperature: Any, electron_density: Any = None,
                electron_pressure: Any = None, *, truncation: str = "plain",
                lowering_ev: Any = None, completion: bool = False,
-               database=None) -> np.ndarray:
+               database=None, missing_levels: str = "unit") -> np.ndarray:
     """Stage fractions of one element at given (T, n_e) or (T, P_e): the Saha chain.
 
     Parameters
@@ -127,6 +127,8 @@ def saha_chain(element: Any, temperature: Any, electron_density: Any = None,
         Hydrogenic completion of the partition functions.
     database : SpeciesDatabase, optional
         Default: :func:`sahaboltz.data.database.default_database`.
+    missing_levels : {"unit", "error"}
+        Stages without a level list in the database: take U = 1, or raise NoDataError.
 
     Returns
     -------
@@ -153,7 +155,14 @@ def saha_chain(element: Any, temperature: Any, electron_density: Any = None,
     t, ne = np.broadcast_arrays(t, ne)
     db = database or default_database()
     stages = db.element(element)
-    model = PartitionModel(stages, truncation=truncation, completion=completion)
+    has = np.array([s.is_bare_nucleus or bool(s.bound.any()) for s in stages])
+    if missing_levels not in ("unit", "error"):
+        raise InputError(f"missing_levels must be 'unit' or 'error', got {missing_levels!r}")
+    if missing_levels == "error" and not has.all():
+        raise NoDataError(f"{stages[int(np.argmin(has))].name} has no level list; pass "
+                          "missing_levels='unit' to take U = 1 for it")
+    model = PartitionModel([s for s, h in zip(stages, has) if h], truncation=truncation,
+                           completion=completion)
     if lowering_ev is None:
         low = np.zeros((len(stages),) + t.shape)
     else:
@@ -162,7 +171,10 @@ def saha_chain(element: Any, temperature: Any, electron_density: Any = None,
     kw = {}
     if truncation != "plain":
         kw = {"n_e": ne, "lowering_ev": low if lowering_ev is not None else None}
-    u = np.broadcast_to(model.evaluate(t, **kw), (len(stages),) + t.shape)
+    if truncation == "lowered" and lowering_ev is not None:
+        kw["lowering_ev"] = low[has]
+    u = np.ones((len(stages),) + t.shape)
+    u[has] = model.evaluate(t, **kw)
     chi = np.array([s.ionization_energy_ev for s in stages[:-1]]).reshape((-1,) + (1,) * t.ndim)
     log_phi = (_LN2 + np.log(u[1:] / u[:-1]) + log_saha_constant(t)
                - (chi - low[:-1]) / (K_B_EV * t))
