@@ -46,8 +46,12 @@ def register(subparsers) -> None:
     g.add_argument("--pressure-scale", choices=("log", "linear"), default="log")
     g.add_argument("--composition", metavar="solar|SYM=N,..",
                    help="'solar' (default) or number abundances relative to H, e.g. H=1,He=0.1")
-    g.add_argument("--truncation", choices=("plain", "lowered", "occupation"), default="plain")
+    g.add_argument("--truncation", choices=("plain", "lowered", "occupation"), default=None,
+                   help="partition-function truncation (default plain; lowered with --lowering)")
     g.add_argument("--lowering", action="store_true", help="Debye-Hueckel lowering")
+    g.add_argument("--completion", action="store_true",
+                   help="hydrogenic completion of the level lists (not with plain truncation)")
+    g.add_argument("--no-h-minus", action="store_true", help="leave out H-")
     g.add_argument("--molecules", action="store_true", help="include molecules")
     g.add_argument("--fractions", default="all", metavar="all|EL,..",
                    help="stage fractions to store (default all elements)")
@@ -130,7 +134,8 @@ def _spec_from_args(args):
 
     grid_opts = (args.temperature, args.pressure, args.composition, args.levels, args.partition)
     if args.spec:
-        if any(grid_opts) or args.fractions != "all" or args.lowering or args.molecules:
+        if (any(grid_opts) or args.fractions != "all" or args.lowering or args.molecules
+                or args.truncation or args.completion or args.no_h_minus):
             raise InputError("give either a spec file or grid options, not both")
         return TableSpec.from_file(args.spec)
     return spec_from_options(args.temperature, args.pressure,
@@ -138,7 +143,8 @@ def _spec_from_args(args):
                              temperature_scale=args.temperature_scale,
                              pressure_scale=args.pressure_scale, composition=args.composition,
                              truncation=args.truncation, lowering=args.lowering,
-                             molecules=args.molecules, fractions=args.fractions,
+                             molecules=args.molecules, completion=args.completion,
+                             h_minus=not args.no_h_minus, fractions=args.fractions,
                              levels=args.levels, partition_functions=args.partition)
 
 

@@ -11,7 +11,7 @@ from typing import Any
 
 import numpy as np
 
-from sahaboltz.constants import K_B_EV
+from sahaboltz.constants import E_CHARGE, EV
 from sahaboltz.data.elements import atomic_number, spectroscopic_name
 from sahaboltz.errors import InputError
 from sahaboltz.tables.spec import TableSpec, dataset_name
@@ -41,16 +41,37 @@ def composition_digest_doc(spec: TableSpec) -> dict[str, Any]:
                                                            (float(x) for x in comp.number_fraction)))}
 
 
+_NETWORKS: dict[str, tuple[Any, Any]] = {}  # per process: spec identity -> (composition, network)
+
+
+def _network_key(spec: TableSpec) -> str:
+    return repr((sorted(spec.composition.items()), sorted(spec.physics.items())))
+
+
 def solve_block(spec: TableSpec, T: np.ndarray, P: np.ndarray):
-    """Solve the equilibrium of the states ``(T, P)`` with the spec's physics options."""
+    """Solve the equilibrium of the states ``(T, P)`` with the spec's physics options.
+
+    The solver's prepared network is kept per process and reused for every block (building
+    it costs about a second for the solar mixture; forked workers inherit the parent's).
+    """
     from sahaboltz.equilibrium import solve_equilibrium
 
     phys = spec.physics
     kwargs = {spec.pressure.name: P, "truncation": phys["truncation"],
-              "lowering": bool(phys["lowering"])}
+              "lowering": bool(phys["lowering"]), "completion": bool(phys["completion"]),
+              "h_minus": bool(phys["h_minus"])}
     if phys["molecules"]:
         kwargs["molecules"] = True
-    return solve_equilibrium(composition_of(spec), T, **kwargs)
+    key = _network_key(spec)
+    if key in _NETWORKS and not phys["molecules"]:
+        comp, network = _NETWORKS[key]
+        return solve_equilibrium(comp, T, network=network, **kwargs)
+    comp = composition_of(spec)
+    state = solve_equilibrium(comp, T, **kwargs)
+    network = getattr(state, "network", None)
+    if network is not None:
+        _NETWORKS[key] = (comp, network)
+    return state
 
 
 def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, np.ndarray]:
@@ -62,7 +83,7 @@ def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, n
                "mean_molecular_weight": "mean_molecular_weight", "mean_charge": "mean_charge"}
     for name in spec.outputs.quantities:
         out[name] = np.asarray(getattr(state, scalars[name]), dtype=float).reshape(T.shape)
-    comp = composition_of(spec)
+    comp = state.composition if hasattr(state, "composition") else composition_of(spec)
     sf = spec.outputs.stage_fractions
     elements = comp.symbols if sf == "all" else list(sf)
     for el in elements:
@@ -81,36 +102,42 @@ def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, n
     return out
 
 
-def _partition(species, spec: TableSpec, T, n_e):
+def _partition(species, spec: TableSpec, state, T):
+    """U of one species with the truncation the solver used for this state."""
     from sahaboltz.kernels.partition import PartitionModel
 
-    pm = PartitionModel([species], truncation=spec.physics["truncation"])
-    return np.asarray(pm.evaluate(T, n_e=n_e), dtype=float)[0]
+    phys = spec.physics
+    pm = PartitionModel([species], truncation=phys["truncation"],
+                        completion=bool(phys["completion"]))
+    n_e = np.asarray(state.n_e, dtype=float).reshape(T.shape)
+    kw: dict[str, Any] = {"n_e": n_e}
+    if phys["truncation"] == "lowered":
+        lam = np.asarray(state.debye_length, dtype=float).reshape(T.shape)
+        kw["lowering_ev"] = (species.charge + 1.0) * E_CHARGE**2 / lam / EV
+    return np.asarray(pm.evaluate(T, **kw), dtype=float)[0]
 
 
 def _species_outputs(spec, state, T, out, attrs) -> None:
     from sahaboltz.data.database import default_database
 
     db = default_database()
-    n_e = np.asarray(state.n_e, dtype=float).reshape(T.shape)
     for name in spec.outputs.partition_functions:
         sp = db.species(name)
-        out[dataset_name("partition", sp.name)] = _partition(sp, spec, T, n_e)
+        out[dataset_name("partition", sp.name)] = _partition(sp, spec, state, T)
     for name, indices in spec.outputs.levels:
+        pops, energy = state.level_populations(name)
+        pops = np.asarray(pops, dtype=float).reshape(len(energy), -1)
+        if max(indices) >= len(energy):
+            raise InputError(f"{name} has {len(energy)} levels in its partition function "
+                             f"(indices 0..{len(energy) - 1}); asked for level {max(indices)}")
         sp = db.species(name)
-        if spec.physics["truncation"] != "plain":
-            raise InputError("level populations are stored for truncation 'plain' only so far "
-                             "(the occupation weights of single levels are not exposed yet)")
-        e, g = sp.bound_energy_ev, sp.bound_g
-        if max(indices) >= e.size:
-            raise InputError(f"{sp.name} has {e.size} bound levels (indices 0..{e.size - 1}); "
-                             f"asked for level {max(indices)}")
-        u = _partition(sp, spec, T, n_e)
-        n_sp = np.asarray(state.number_density(sp.name), dtype=float).reshape(T.shape)
+        g = sp.bound_g
         for i in indices:
-            dn = dataset_name("population", sp.name, i)
-            out[dn] = n_sp * g[i] * np.exp(-e[i] / (K_B_EV * T)) / u
-            attrs[dn] = {"energy_ev": float(e[i]), "g": float(g[i])}
+            dn = dataset_name("population", name, i)
+            out[dn] = pops[i].reshape(T.shape)
+            attrs[dn] = {"energy_ev": float(energy[i])}
+            if i < g.size:
+                attrs[dn]["g"] = float(g[i])
 
 
 __all__ = ["solver_compute", "composition_of", "composition_digest_doc"]

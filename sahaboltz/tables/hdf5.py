@@ -69,6 +69,7 @@ class TableWriter:
         self.spec = spec
         self.file = h5py.File(self.path, "w", libver=("earliest", "v110"))
         self._names: list[str] = []
+        self._refs: list = []
         self._extra_attrs: dict[str, dict] = {}
         bt, bp = block_shape
         while bt * bp > MAX_CHUNK_ELEMENTS:  # keep chunks ~<= 1 MB
@@ -106,8 +107,14 @@ class TableWriter:
         d = self.file.create_dataset(name, shape=self.spec.shape, dtype=dtype, chunks=self.chunks,
                                      compression="gzip", compression_opts=1, shuffle=True,
                                      fletcher32=True)
-        d.dims[0].attach_scale(self._t)
-        d.dims[1].attach_scale(self._p)
+        # dimension scales, attached the way H5DSattach_scale does, but with each scale's
+        # REFERENCE_LIST written once in finish(): attaching one by one is quadratic in the
+        # number of datasets (thousands for a solar mixture)
+        dl = np.empty(2, dtype=object)
+        dl[0] = np.array([self._t.ref], dtype=h5py.ref_dtype)
+        dl[1] = np.array([self._p.ref], dtype=h5py.ref_dtype)
+        d.attrs.create("DIMENSION_LIST", dl, dtype=h5py.vlen_dtype(h5py.ref_dtype))
+        self._refs.append(d.ref)
         for k, v in {**quantity_attrs(name), **self._extra_attrs.get(name, {})}.items():
             d.attrs[k] = v
         self._names.append(name)
@@ -135,6 +142,13 @@ class TableWriter:
         f = self.file
         for k, v in (extra or {}).items():
             f.attrs[k] = v
+        rl_type = np.dtype([("dataset", h5py.ref_dtype), ("dimension", np.int32)])
+        for scale, dim in ((self._t, 0), (self._p, 1)):
+            if self._refs:
+                rl = np.empty(len(self._refs), dtype=rl_type)
+                rl["dataset"] = self._refs
+                rl["dimension"] = dim
+                scale.attrs.create("REFERENCE_LIST", rl, dtype=rl_type)
         f.attrs["quantities"] = json.dumps(self._names)
         f.attrs["complete"] = 1
         f.flush()

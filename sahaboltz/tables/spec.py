@@ -76,8 +76,10 @@ name = "solar"              # Asplund et al. (2009); optional metallicity = -0.5
 # He = 0.085
 
 [physics]
-truncation = "plain"        # plain | lowered | occupation
+truncation = "plain"        # plain | lowered | occupation  (default "lowered" with lowering)
 lowering = false            # Debye-Hueckel ionization-potential lowering
+completion = false          # hydrogenic completion of the level lists (not with "plain")
+h_minus = true              # include H-
 molecules = false
 
 [outputs]
@@ -240,7 +242,8 @@ class TableSpec:
     composition : dict
         ``{"name": "solar"}`` or ``{"abundances": {"H": 1.0, ...}}`` (number ratios N_X/N_H).
     physics : dict
-        ``truncation`` (plain | lowered | occupation), ``lowering`` (bool), ``molecules`` (bool).
+        ``truncation`` (plain | lowered | occupation), ``lowering``, ``completion``, ``h_minus``,
+        ``molecules`` (bools), handed to the solver.
     outputs : Outputs
         The quantities to store.
     """
@@ -248,8 +251,7 @@ class TableSpec:
     temperature: Axis
     pressure: Axis
     composition: dict = field(default_factory=lambda: {"name": "solar"})
-    physics: dict = field(default_factory=lambda: {"truncation": "plain", "lowering": False,
-                                                    "molecules": False})
+    physics: dict = field(default_factory=lambda: _physics({}))
     outputs: Outputs = field(default_factory=Outputs)
 
     @property
@@ -358,15 +360,19 @@ def _composition(c: Any) -> dict:
 
 
 def _physics(p: Mapping[str, Any]) -> dict:
-    known = {"truncation", "lowering", "molecules"}
+    known = {"truncation", "lowering", "molecules", "completion", "h_minus"}
     extra = set(p) - known
     if extra:
         raise InputError(f"physics: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
-    trunc = p.get("truncation", "plain")
+    lowering = bool(p.get("lowering", False))
+    # the solver's rule: with lowering the partition functions are cut at the lowered limit
+    trunc = p.get("truncation") or ("lowered" if lowering else "plain")
     if trunc not in TRUNCATIONS:
         raise InputError(f"physics.truncation must be one of {TRUNCATIONS}, got {trunc!r}")
-    return {"truncation": trunc, "lowering": bool(p.get("lowering", False)),
-            "molecules": bool(p.get("molecules", False))}
+    return {"truncation": trunc, "lowering": lowering,
+            "molecules": bool(p.get("molecules", False)),
+            "completion": bool(p.get("completion", False)),
+            "h_minus": bool(p.get("h_minus", True))}
 
 
 def axis_from_text(name: str, unit: str, text: str, scale: str = "log") -> Axis:
@@ -390,7 +396,8 @@ def axis_from_text(name: str, unit: str, text: str, scale: str = "log") -> Axis:
 def spec_from_options(temperature: str | None = None, pressure: str | None = None, *,
                       pressure_quantity: str = "gas_pressure", temperature_scale: str = "log",
                       pressure_scale: str = "log", composition: str | None = None,
-                      truncation: str = "plain", lowering: bool = False, molecules: bool = False,
+                      truncation: str | None = None, lowering: bool = False,
+                      molecules: bool = False, completion: bool = False, h_minus: bool = True,
                       fractions: str | Sequence[str] = "all", levels: Sequence[str] = (),
                       partition_functions: Sequence[str] = (),
                       quantities: Sequence[str] | None = None) -> TableSpec:
@@ -423,5 +430,6 @@ def spec_from_options(temperature: str | None = None, pressure: str | None = Non
         out["quantities"] = list(quantities)
     return TableSpec(t_axis, p_axis, _composition(comp),
                      _physics({"truncation": truncation, "lowering": lowering,
-                               "molecules": molecules}),
+                               "molecules": molecules, "completion": completion,
+                               "h_minus": h_minus}),
                      Outputs.from_mapping(out))
