@@ -1,0 +1,83 @@
+"""Population tables built with the real equilibrium solver (solar mixture).
+
+Round trip: the stored values at grid points are what solve_equilibrium gives there directly;
+off-grid interpolation is checked against direct solves at random points.  The reference here
+is the solver itself (its own physics is tested in its own test files); these tests check that
+the table stores, orders and interpolates its results faithfully.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from sahaboltz.tables import cache
+from sahaboltz.tables.build import build_table
+from sahaboltz.tables.interpolate import open_table
+from sahaboltz.tables.spec import spec_from_options
+
+equilibrium = pytest.importorskip("sahaboltz.equilibrium")
+if not hasattr(equilibrium, "solve_equilibrium"):  # pragma: no cover
+    pytest.skip("the equilibrium solver is not available", allow_module_level=True)
+
+from sahaboltz.data.composition import solar  # noqa: E402
+from sahaboltz.equilibrium import solve_equilibrium  # noqa: E402
+
+ELEMENTS = ("H", "He", "C", "Na", "Fe")
+
+
+def _direct(t, p):
+    return solve_equilibrium(solar(), t, gas_pressure=p)
+
+
+def test_round_trip_at_grid_points(tmp_path):
+    spec = spec_from_options("3000:30000:9", "1e-1:1e7:7", fractions=",".join(ELEMENTS),
+                             levels=["Fe II:0-2"], partition_functions=["Fe I"])
+    path = build_table(spec, tmp_path / "solar.h5", workers=2, chunk_states=20, progress=False,
+                       provenance=cache.solver_provenance(spec))
+    tab = open_table(path)
+    t, p = np.meshgrid(spec.temperature.array, spec.pressure.array, indexing="ij")
+    state = _direct(t, p)
+    np.testing.assert_allclose(tab["electron_density"], state.n_e, rtol=1e-9)
+    np.testing.assert_allclose(tab["mass_density"], state.mass_density, rtol=1e-9)
+    for el in ELEMENTS:
+        fr = state.stage_fractions(el)
+        for charge in range(fr.shape[0]):
+            name = f"fraction_{el}_{_roman(charge + 1)}"
+            np.testing.assert_allclose(tab[name], fr[charge], rtol=1e-8, atol=1e-300)
+    pops, energy = state.level_populations("Fe II")
+    np.testing.assert_allclose(tab["population_Fe_II_L2"], pops[2], rtol=1e-8)
+    assert tab.quantity_attrs("population_Fe_II_L2")["energy_ev"] == pytest.approx(energy[2])
+    assert "level_data_digest" in tab.attrs and "solver_version" in tab.attrs
+
+
+def _roman(n):
+    from sahaboltz.data.elements import roman
+    return roman(n)
+
+
+@pytest.mark.slow
+def test_interpolation_accuracy_default_grid(tmp_path):
+    """Max relative error of stage fractions > 1e-6 at random off-grid points, default grid."""
+    spec = spec_from_options(fractions=",".join(ELEMENTS))  # default density
+    tab = open_table(build_table(spec, tmp_path / "solar.h5", progress=False,
+                                 provenance=cache.solver_provenance(spec)))
+    rng = np.random.default_rng(7)
+    n = 3000
+    t = np.exp(rng.uniform(np.log(2000.0), np.log(50000.0), n))
+    p = np.exp(rng.uniform(np.log(1e-2), np.log(1e8), n))
+    state = _direct(t, p)
+    worst = {}
+    for el in ELEMENTS:
+        fr = state.stage_fractions(el)
+        names = [f"fraction_{el}_{_roman(q + 1)}" for q in range(fr.shape[0])]
+        got = tab.interpolate(names, t, p)
+        for q, name in enumerate(names):
+            keep = fr[q] > 1e-6
+            if keep.any():
+                worst[name] = float(np.max(np.abs(got[name][keep] / fr[q][keep] - 1)))
+    ne = tab.interpolate("electron_density", t, p)
+    worst["electron_density"] = float(np.max(np.abs(ne / state.n_e - 1)))
+    print("max relative interpolation error:", max(worst.values()),
+          max(worst, key=worst.get))
+    assert max(worst.values()) < 1e-3  # the issue's target for stage fractions above 1e-6
