@@ -1,0 +1,731 @@
+"""Atoms, ions, H- and diatomic molecules in one LTE equilibrium.
+
+Formulation
+-----------
+For every element k that occurs in one of the chosen molecules ("molecular elements", set M)
+the unknown is y_k = ln n_k0, the density of its neutral atoms; further unknowns are
+x = ln n_e and, for a gas-pressure or electron-pressure closure, w = ln N (N = all nuclei).
+The Saha chains (:class:`~sahaboltz.equilibrium.network.AtomicNetwork`) give every stage of k
+relative to its neutral atom, n_kq = n_k0 exp(L_kq - q x), and each molecule's dissociation
+constant (:mod:`sahaboltz.kernels.molecular`) gives, for its process AB = A + B with A, B
+given stages of elements a, b,
+
+    ln n_AB = y_a + y_b + L_a,qA + L_b,qB - ln K_n(T) - (qA + qB) x.
+
+Elements not in M need no unknown: their stage fractions follow from x alone (as in the
+atoms-only solver).  The equations, all written as differences of logarithms of sums of
+positive terms (no cancellation, well scaled from 1 to 10^20 cm^-3):
+
+* nuclei of each k in M:   ln(atoms_k + sum_m nu_mk n_m) - ln(alpha_k N) = 0
+* charge neutrality:       ln(positive charges) - ln(n_e + negative charges) = 0
+* closure:                 gas pressure: ln(all free particles) - ln(P/kT) = 0;
+                           mass or hydrogen density: N fixed; electron pressure: x fixed.
+
+Every density is exp of a linear function of the unknowns times T-only factors, so the
+Jacobian is exact and cheap (sums of fractions).  Newton's method runs on all states at once
+(batched dense solves of size |M| + 2), with a step cap of 5 in the logarithms and a
+backtracking line search on the squared residual.  Starting values: the atoms-only solution,
+whose neutral densities overestimate the molecular ones; Newton in the logarithms corrects a
+product n_a n_b / K that is orders of magnitude too large in a few steps (it is linear in the
+unknowns when one term dominates a sum).
+
+Results come back as a :class:`MolecularEquilibriumState` (an
+:class:`~sahaboltz.equilibrium.state.EquilibriumState` whose atomic populations are scaled to
+the part of each element not in molecules) with the molecule densities, the fraction of each
+element locked in molecules and an element-budget report.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Sequence
+
+import numpy as np
+
+from sahaboltz.constants import AMU, K_B
+from sahaboltz.data.composition import Composition
+from sahaboltz.data.elements import SYMBOLS, atomic_number
+from sahaboltz.data.molecules import Molecule, MoleculeDatabase, default_molecule_database
+from sahaboltz.equilibrium.network import AtomicNetwork
+from sahaboltz.equilibrium.state import EquilibriumState
+from sahaboltz.errors import ConvergenceError, InputError, UnknownSpeciesError
+from sahaboltz.kernels.molecular import EquilibriumConstants
+from sahaboltz.quantities import as_positive_array
+
+#: the short default set: the diatomics that take a noticeable share of an abundant element in
+#: cool stellar atmospheres (H, C, N, O, and the main metal hydrides and oxides)
+DEFAULT_MOLECULES = ("H2", "H2+", "CH", "NH", "OH", "C2", "CN", "CO", "N2", "NO", "O2", "SiO",
+                     "SiS", "CS", "SO", "HS", "MgH", "SiH", "CaH", "FeH", "AlH", "TiO", "AlO")
+MOLECULE_SETS = ("default", "all", "none")
+#: lowest temperature the molecular solver accepts [K] (the issue's supported range starts
+#: at 1000 K; below ~500 K solar-mixture densities span more than float64's range)
+T_MIN = 500.0
+_MAX_STEP = 5.0           # largest change of any logarithm in one Newton step
+_MAX_OUTER_STEP = 2.0     # largest change of ln n_e or ln N in one outer step
+_CHUNK = 2048             # states solved together
+_X_WINDOW = 20.0          # ln n_e stays within this distance of the atoms-only value
+
+
+# ------------------------------------------------------------------------------ molecule sets
+def select_molecules(composition: Composition, molecules: Any, network: AtomicNetwork,
+                     database: MoleculeDatabase | None = None) -> tuple[list[Molecule], list[str]]:
+    """Resolve the ``molecules=`` option into records; also return the skipped names and why.
+
+    ``"default"``: :data:`DEFAULT_MOLECULES` whose elements are all in the mixture;
+    ``"all"``: every molecule of the data made of the mixture's elements; a list of names:
+    exactly those (an error if one is unknown or needs an element or ion the mixture lacks);
+    ``"none"`` or an empty list: no molecules.  Processes that involve an atomic negative ion
+    other than H- (C-, O-, Si-, S-) are skipped in the sets, because the atomic network has no
+    such ions (no electron affinities in our data); naming one explicitly is an error.
+    """
+    db = database or default_molecule_database()
+    present = set(int(z) for z in composition.Z)
+
+    def usable(m: Molecule) -> str | None:
+        missing = [SYMBOLS[z] for z in m.elements if z not in present]
+        if missing:
+            return f"element(s) {', '.join(missing)} not in the mixture"
+        for z, q in zip(m.component_Z, m.component_charges):
+            try:
+                network.species_index((z, q))
+            except (UnknownSpeciesError, InputError):
+                return (f"its process {m.name} = {' + '.join(m.components)} needs "
+                        f"{SYMBOLS[z]}{'+' * q if q > 0 else '-' * (-q)}, which the atomic "
+                        "network does not include")
+        return None
+
+    skipped: list[str] = []
+    if isinstance(molecules, str):
+        if molecules not in MOLECULE_SETS:
+            raise InputError(f"molecules must be one of {MOLECULE_SETS} or a list of names "
+                             f"such as ['H2', 'CO'], got {molecules!r}")
+        if molecules == "none":
+            return [], skipped
+        pool = [db[n] for n in DEFAULT_MOLECULES] if molecules == "default" else db.all_molecules()
+        out = []
+        for m in pool:
+            why = usable(m)
+            if why is None:
+                out.append(m)
+            elif not why.startswith("element"):
+                skipped.append(f"{m.name}: {why}")
+        return out, skipped
+    try:
+        names = list(molecules)
+    except TypeError:
+        raise InputError(f"molecules must be 'default', 'all', 'none' or a list of names, got "
+                         f"{molecules!r}") from None
+    out, seen = [], set()
+    for n in names:
+        m = db.molecule(n)
+        why = usable(m)
+        if why is not None:
+            raise InputError(f"molecule {m.name}: {why}; remove it from molecules= or add the "
+                             "element to the composition")
+        if m.name not in seen:
+            seen.add(m.name)
+            out.append(m)
+    return out, skipped
+
+
+# ------------------------------------------------------------------------------ the solve
+def solve_with_molecules(composition: Composition, temperature: Any, *, gas_pressure=None,
+                         mass_density=None, hydrogen_density=None, electron_pressure=None,
+                         truncation=None, lowering=False, completion=False, h_minus=True,
+                         molecules="default", database=None, missing_levels="unit",
+                         tolerance=1e-12, max_passes=200, molecule_database=None):
+    """Equilibrium of atoms, ions, H- and molecules (called by ``solve_equilibrium``).
+
+    Parameters are those of :func:`sahaboltz.equilibrium.solve_equilibrium`; ``molecules`` is
+    ``"default"``, ``"all"``, ``"none"`` or a list of molecule names (see
+    :func:`select_molecules`).  Only the ideal-gas options are supported with molecules
+    (``truncation="plain"``, no lowering): at the densities where molecules survive,
+    pressure ionization is negligible.
+
+    Returns
+    -------
+    MolecularEquilibriumState (or the atoms-only state for an empty molecule set)
+
+    Raises
+    ------
+    InputError
+        Bad arguments; temperatures below :data:`T_MIN`; a molecule the mixture cannot form.
+    ConvergenceError
+        Listing the states that did not converge.
+    """
+    from sahaboltz.equilibrium.solver import _check_options, _closure, solve_equilibrium, CLOSURES
+
+    if not isinstance(composition, Composition):
+        raise InputError("composition must be a Composition (e.g. solar()), got "
+                         f"{composition!r}")
+    name, value = _closure({"gas_pressure": gas_pressure, "mass_density": mass_density,
+                            "hydrogen_density": hydrogen_density,
+                            "electron_pressure": electron_pressure})
+    truncation = _check_options(truncation, lowering)
+    if truncation != "plain" or lowering:
+        raise InputError("molecules are solved with the ideal-gas options only "
+                         "(truncation='plain', lowering=False); at the densities where "
+                         "molecules survive the non-ideal corrections are negligible")
+    t = as_positive_array(temperature, "K", "temperature")
+    v = as_positive_array(value, CLOSURES[name], name)
+    try:
+        t, v = np.broadcast_arrays(t, v)
+    except ValueError:
+        raise InputError(f"temperature {t.shape} and {name} {v.shape} do not broadcast") from None
+    if np.any(t < T_MIN):
+        raise InputError(f"temperature {t[t < T_MIN].min():g} K is below {T_MIN:g} K, the lowest "
+                         "temperature of the molecular equilibrium")
+    network = AtomicNetwork(composition, database, truncation, completion, h_minus,
+                            missing_levels)
+    mols, skipped = select_molecules(composition, molecules, network, molecule_database)
+    if not mols:
+        return solve_equilibrium(composition, t, **{name: v}, truncation=truncation,
+                                 tolerance=tolerance, max_passes=max_passes, network=network)
+    # starting values from the atoms-only solution.  With a given electron pressure that
+    # solution may not exist (molecules can leave more free electrons than atoms alone, e.g.
+    # by starving H- of H atoms); those states start from N = e^15 n_e instead.
+    shape = t.shape
+    tf, vf = t.ravel().copy(), v.ravel().copy()
+    try:
+        atoms = solve_equilibrium(composition, tf, **{name: vf}, truncation=truncation,
+                                  tolerance=max(tolerance, 1e-14), max_passes=max_passes,
+                                  network=network)
+        x0, w0 = atoms.log_ne.copy(), np.log(atoms.nuclei_density)
+    except ConvergenceError as exc:
+        if name != "electron_pressure":
+            raise
+        x0 = np.log(vf / (K_B * tf))
+        w0 = x0 + 15.0
+        bad = np.zeros(tf.size, dtype=bool)
+        bad[[i[0] for i in exc.indices]] = True
+        if (~bad).any():
+            good = solve_equilibrium(composition, tf[~bad], electron_pressure=vf[~bad],
+                                     truncation=truncation, tolerance=max(tolerance, 1e-14),
+                                     max_passes=max_passes, network=network)
+            w0[~bad] = np.log(good.nuclei_density)
+    system = MolecularSystem(network, mols)
+    sol = system.solve(tf, vf, name, x0, w0, tolerance, max_passes, shape)
+    return MolecularEquilibriumState(
+        network=network, temperature=t.copy(), log_ne=sol["x"].reshape(shape),
+        nuclei_density=np.exp(sol["w"]).reshape(shape), closure=name, closure_value=v.copy(),
+        lowering=False, debye_length=None, report=sol["report"], system=system,
+        log_neutral=sol["y"].reshape((-1,) + shape), skipped_molecules=skipped)
+
+
+class MolecularSystem:
+    """The unknowns, T-only tables and residual/Jacobian of the molecular equilibrium."""
+
+    def __init__(self, network: AtomicNetwork, molecules: Sequence[Molecule]):
+        self.network = network
+        self.molecules = list(molecules)
+        self.constants = EquilibriumConstants(self.molecules, above_range="absent")
+        zs = sorted({z for m in self.molecules for z in m.component_Z})
+        self.mol_chains = [network.chain_of(z) for z in zs]          # elements in M, by Z
+        self.other_chains = [c for c in network.chains if c.Z not in set(zs)]
+        pos = {c.Z: i for i, c in enumerate(self.mol_chains)}
+        nm, nk = len(self.molecules), len(self.mol_chains)
+        self.nu = np.zeros((nm, nk))
+        for i, m in enumerate(self.molecules):
+            for z in m.component_Z:
+                self.nu[i, pos[z]] += 1.0
+        self.q_mol = np.array([float(m.charge) for m in self.molecules])
+        self.alpha = np.array([c.fraction for c in self.mol_chains])
+        # component stages: (chain position, row of the stage in that chain)
+        self._comp = [[(pos[z], int(np.flatnonzero(self.mol_chains[pos[z]].charges == q)[0]))
+                       for z, q in zip(m.component_Z, m.component_charges)] for m in self.molecules]
+
+    @property
+    def names(self) -> list[str]:
+        return [m.name for m in self.molecules]
+
+    # -- temperature-only tables -------------------------------------------------------------
+    def tables(self, t: np.ndarray, x0: np.ndarray | None = None, others: bool = True) -> dict:
+        """T-only tables for the states ``t``: stages relative to the neutral atom, packed.
+
+        With ``x0`` (a starting ln n_e per state), ln n_e is confined to the window
+        x0 +- :data:`_X_WINDOW` and each chain keeps only the stages that come within e^-60 of
+        its most populated stage somewhere in that window: at
+        T <= 10,000 K that is a handful of the up to 93 stages, which makes every residual
+        evaluation cheap.  ``others=False`` leaves out the elements not in molecules.
+        """
+        net = self.network
+        ut, inv = np.unique(t, return_inverse=True)
+
+        def rel(c):
+            tab = net.log_c(c, ut)
+            i0 = int(np.flatnonzero(c.charges == 0)[0])
+            return (tab - tab[i0])[:, inv]
+
+        lmol = [rel(c) for c in self.mol_chains]
+        ln_kn = self.constants.ln_kn(ut)[:, inv]
+        s = -ln_kn
+        for i, comps in enumerate(self._comp):
+            for k, row in comps:
+                s[i] = s[i] + lmol[k][row]
+        out = {"s": s, "t": t, "mol": _pack(self.mol_chains, lmol, x0)}
+        if others:
+            out["oth"] = _pack(self.other_chains, [rel(c) for c in self.other_chains], x0)
+        if x0 is not None:
+            out["xlo"], out["xhi"] = x0 - _X_WINDOW, x0 + _X_WINDOW
+        return out
+
+    # -- residual and Jacobian ---------------------------------------------------------------
+    def evaluate(self, tab: dict, y: np.ndarray, x: np.ndarray, w: np.ndarray,
+                 closure: str, target: np.ndarray | None, want_jacobian: bool = True):
+        """Residuals R (n_eq, m) and Jacobian J (m, n_eq, n_unknown) at (y, x, w).
+
+        Unknown order: y_1..y_K, then x unless the closure fixes n_e, then w unless it fixes N.
+        """
+        nk, m = y.shape
+        # atomic moments of the molecular elements
+        ln_at, qm, qp, qn, q2p, q2n = _packed_moments(*tab["mol"][:2], x)
+        ln_at += y                                      # ln(atoms of k, all stages)
+        # molecules
+        ln_m = tab["s"] + self.nu @ y - np.multiply.outer(self.q_mol, x)
+        ln_m = np.minimum(ln_m, 700.0)                  # guard overflow on wild trial points
+        n_m = np.exp(ln_m)
+        at = np.exp(ln_at)
+        ln_n = w
+        n_nuc = np.exp(ln_n)
+        # other elements: charge moments from x alone
+        qo, lo_, fr = tab["oth"]
+        if fr.size:
+            _, a1, a2, a3, a4, a5 = _packed_moments(qo, lo_, x)
+            op, on = fr @ a2, fr @ a3
+            odp = fr @ (-a4 + a1 * a2)                   # d<q+>/dx per nucleus
+            odn = fr @ (a5 + a1 * a3)                    # d<q->/dx per nucleus
+        else:
+            op = on = odp = odn = np.zeros(m)
+        ofrac = float(fr.sum())
+        ne = np.exp(x)
+        # element totals
+        tot = at + self.nu.T @ n_m                        # (nk, m)
+        r_el = np.log(tot) - np.log(self.alpha)[:, None] - ln_n[None, :]
+        # charges
+        q_pos_m = np.where(self.q_mol > 0, self.q_mol, 0.0)
+        q_neg_m = np.where(self.q_mol < 0, -self.q_mol, 0.0)
+        pos = (at * qp).sum(axis=0) + n_nuc * op + q_pos_m @ n_m
+        neg = ne + (at * qn).sum(axis=0) + n_nuc * on + q_neg_m @ n_m
+        r_ch = np.log(pos) - np.log(neg)
+        rows = [r_el, r_ch[None, :]]
+        fix_x = closure == "electron_pressure"
+        fix_w = closure in ("mass_density", "hydrogen_density")
+        if closure == "gas_pressure":
+            part = at.sum(axis=0) + n_nuc * ofrac + n_m.sum(axis=0) + ne
+            rows.append((np.log(part) - np.log(target))[None, :])
+        r = np.concatenate(rows, axis=0)
+        if not want_jacobian:
+            return r, None
+        n_unk = nk + (0 if fix_x else 1) + (0 if fix_w else 1)
+        jac = np.zeros((m, r.shape[0], n_unk))
+        # d/dy
+        # sum_i nu_ik nu_ij n_i / T_k
+        jac[:, :nk, :nk] = (np.einsum("ik,im,ij->mkj", self.nu, n_m, self.nu, optimize=True)
+                            / tot.T[:, :, None])
+        idx = np.arange(nk)
+        jac[:, idx, idx] += (at / tot).T
+        dpos_y = (at * qp).T + (n_m.T @ (self.nu * q_pos_m[:, None]))
+        dneg_y = (at * qn).T + (n_m.T @ (self.nu * q_neg_m[:, None]))
+        jac[:, nk, :nk] = dpos_y / pos[:, None] - dneg_y / neg[:, None]
+        if closure == "gas_pressure":
+            jac[:, nk + 1, :nk] = (at.T + n_m.T @ self.nu) / part[:, None]
+        col = nk
+        if not fix_x:
+            dtot_x = -(at * qm) - (self.nu * self.q_mol[:, None]).T @ n_m
+            jac[:, :nk, col] = (dtot_x / tot).T
+            dpos_x = -(at * q2p).sum(axis=0) + n_nuc * odp - (q_pos_m * self.q_mol) @ n_m
+            dneg_x = ne + (at * q2n).sum(axis=0) + n_nuc * odn - (q_neg_m * self.q_mol) @ n_m
+            jac[:, nk, col] = dpos_x / pos - dneg_x / neg
+            if closure == "gas_pressure":
+                dpart_x = -(at * qm).sum(axis=0) - self.q_mol @ n_m + ne
+                jac[:, nk + 1, col] = dpart_x / part
+            col += 1
+        if not fix_w:
+            jac[:, :nk, col] = -1.0
+            jac[:, nk, col] = n_nuc * op / pos - n_nuc * on / neg
+            if closure == "gas_pressure":
+                jac[:, nk + 1, col] = n_nuc * ofrac / part
+        return r, jac
+
+    # -- Newton ------------------------------------------------------------------------------
+    def solve(self, t, v, closure, x0, w0, tol, max_passes, shape) -> dict:
+        n = t.size
+        out_y = np.empty((len(self.mol_chains), n))
+        out_x, out_w = x0.copy(), w0.copy()
+        passes = np.zeros(n, dtype=int)
+        resid = np.full(n, np.inf)
+        order = np.argsort(t, kind="stable")
+        for c0 in range(0, n, _CHUNK):
+            idx = order[c0:c0 + _CHUNK]
+            y, x, w, p, r = self._solve_chunk(t[idx], v[idx], closure, x0[idx], w0[idx], tol,
+                                              max_passes)
+            out_y[:, idx], out_x[idx], out_w[idx], passes[idx], resid[idx] = y, x, w, p, r
+        bad = ~(resid <= tol) | ~np.isfinite(out_x) | ~np.isfinite(out_w)
+        if bad.any():
+            raise _failure(bad, t, v, closure, resid, shape)
+        from sahaboltz.equilibrium.solver import SolveReport
+        return {"y": out_y, "x": out_x, "w": out_w,
+                "report": SolveReport(passes.reshape(shape), resid.reshape(shape))}
+
+    def _fixed(self, t, v, closure):
+        comp = self.network.composition
+        if closure == "mass_density":
+            return np.log(v / (comp.mean_mass_amu * AMU)), None
+        if closure == "hydrogen_density":
+            return np.log(v / comp.number_fraction_of("H")), None
+        if closure == "gas_pressure":
+            return None, v / (K_B * t)
+        return None, None
+
+    def _solve_chunk(self, t, v, closure, x, w, tol, max_passes):
+        m = t.size
+        w_fixed, target = self._fixed(t, v, closure)
+        if w_fixed is not None:
+            w = w_fixed.copy()
+        if closure == "electron_pressure":
+            x = np.log(v / (K_B * t))
+        tab = self.tables(t, x0=x)
+        # start: neutral densities of the atoms-only solution
+        y = np.log(self.alpha)[:, None] + w[None, :] - _packed_moments(*tab["mol"][:2], x)[0]
+        y = self._relax_elements(tab, y, x, w)
+        passes = np.zeros(m, dtype=int)
+        resid = np.full(m, np.inf)
+        active = np.arange(m)
+        nk = y.shape[0]
+        fix_x = closure == "electron_pressure"
+        fix_w = w_fixed is not None
+
+        def sub(d, sel):
+            return {"s": d["s"][:, sel], "t": d["t"][sel], "xlo": d["xlo"][sel],
+                    "xhi": d["xhi"][sel],
+                    "mol": (d["mol"][0], d["mol"][1][:, :, sel], d["mol"][2]),
+                    "oth": (d["oth"][0], d["oth"][1][:, :, sel], d["oth"][2])}
+
+        damp = np.ones(m)                     # per-state outer step factor (trust region)
+        prev = np.full(m, np.inf)
+        for _ in range(max_passes):
+            tb = sub(tab, active)
+            tg = None if target is None else target[active]
+            ya = self._inner(tb, y[:, active], x[active], w[active], tol)
+            y[:, active] = ya
+            xa, wa = x[active], w[active]
+            r, jac = self.evaluate(tb, ya, xa, wa, closure, tg)
+            passes[active] += 1
+            err = np.abs(r).max(axis=0)
+            resid[active] = err
+            done = err <= tol
+            if done.all():
+                break
+            # outer residual (charge, pressure) grew: shrink this state's next step
+            outer = np.abs(r[nk:]).max(axis=0)
+            grew = outer > prev[active]
+            damp[active] = np.where(grew, 0.5 * damp[active], np.minimum(1.0, 2.0 * damp[active]))
+            prev[active] = outer
+            keep = ~done
+            active = active[keep]
+            r, jac = r[:, keep], jac[keep]
+            ya, xa, wa = ya[:, keep], xa[keep], wa[keep]
+            tb = sub(tab, active)
+            # at a point where the element equations hold, the full Newton step is the Schur
+            # complement step in (x, w); the y part is its linear prediction, which the next
+            # inner solve corrects
+            step = _solve_batched(jac, -r.T)               # (m_act, n_unk)
+            outer_step = np.abs(step[:, nk:]).max(axis=1) if step.shape[1] > nk else np.zeros(active.size)
+            scale = np.minimum(damp[active], np.minimum(
+                _MAX_OUTER_STEP / np.maximum(outer_step, 1e-300),
+                _MAX_STEP / np.maximum(np.abs(step[:, :nk]).max(axis=1), 1e-300)))
+            step *= np.minimum(scale, 1.0)[:, None]
+            y[:, active] = ya + step[:, :nk].T
+            col = nk
+            if not fix_x:
+                x[active] = np.clip(xa + step[:, col], tb["xlo"], tb["xhi"])
+                col += 1
+            if not fix_w:
+                w[active] = wa + step[:, col]
+        return y, x, w, passes, resid
+
+    def _inner(self, tb, y, x, w, tol, max_iter: int = 100):
+        """Element equations at fixed n_e and N: minimise the convex function
+
+            G(y) = sum_k atoms_k(y) + sum_m n_m(y) - sum_k alpha_k N y_k,
+
+        whose gradient is (nuclei of k found - nuclei of k given) and whose Hessian
+        diag(atoms) + sum_m n_m nu_m nu_m^T is positive definite: Newton with a backtracking
+        line search on G converges from any start.  G differences are formed with expm1, so
+        the line search stays meaningful down to the rounding level.
+        """
+        y = y.copy()
+        nk, m = y.shape
+        ln_at0 = _packed_moments(*tb["mol"][:2], x)[0]
+        ln_b = np.log(self.alpha)[:, None] + w[None, :]
+        b = np.exp(ln_b)
+        qx = np.multiply.outer(self.q_mol, x)
+        act = np.arange(m)
+        eye = np.eye(nk)
+        for _i in range(max_iter):
+            ya, s_, qa, la, lb, ba = y[:, act], tb["s"][:, act], qx[:, act], ln_at0[:, act], ln_b[:, act], b[:, act]
+            n_m = np.exp(np.minimum(s_ + self.nu @ ya - qa, 700.0))
+            at = np.exp(np.minimum(ya + la, 700.0))
+            tot = at + self.nu.T @ n_m
+            res = np.log(tot) - lb
+            ok = np.abs(res).max(axis=0) <= tol
+            if ok.all():
+                break
+            keep = ~ok
+            act, ya, n_m, at, tot, ba, s_, qa, la = (act[keep], ya[:, keep], n_m[:, keep],
+                                                    at[:, keep], tot[:, keep], ba[:, keep],
+                                                    s_[:, keep], qa[:, keep], la[:, keep])
+            grad = tot - ba                                            # (nk, ma)
+            hess = np.einsum("ik,im,ij->mkj", self.nu, n_m, self.nu, optimize=True)
+            hess += at.T[:, :, None] * eye[None]
+            dsc = 1.0 / np.sqrt(np.einsum("mkk->mk", hess))
+            hs = hess * dsc[:, :, None] * dsc[:, None, :]
+            d = -_solve_batched(hs, (grad.T * dsc)) * dsc              # (ma, nk)
+            big = np.abs(d).max(axis=1)
+            d *= np.minimum(1.0, _MAX_STEP / np.maximum(big, 1e-300))[:, None]
+            slope = (grad.T * d).sum(axis=1)                           # < 0
+            nud = d @ self.nu.T                                        # (ma, nm)
+            lam = np.ones(act.size)
+            pend = np.arange(act.size)
+            for _h in range(40):
+                lp = lam[pend]
+                dg = ((at[:, pend] * np.expm1(np.minimum(lp[:, None] * d[pend], 700.0).T)).sum(axis=0)
+                      + (n_m[:, pend] * np.expm1(np.minimum(lp[:, None] * nud[pend], 700.0).T)).sum(axis=0)
+                      - lp * (ba[:, pend] * d[pend].T).sum(axis=0))
+                good = dg <= 1e-4 * lp * slope[pend]
+                pend = pend[~good]
+                if not pend.size:
+                    break
+                lam[pend] *= 0.5
+            y[:, act] = ya + (lam[:, None] * d).T
+        return y
+
+    def _relax_elements(self, tab, y, x, w, sweeps: int = 6, iters: int = 40):
+        """Starting values: Gauss-Seidel sweeps over the element equations at fixed n_e, N.
+
+        For one element the equation ln(atoms_k + sum_m nu_mk n_m) = ln(alpha_k N) is convex
+        and increasing in y_k, so Newton from the atoms-only value (an upper bound: molecules
+        only add) converges monotonically; sweeping the elements in order of abundance
+        removes the gross overestimate of the molecules that would make the full Jacobian
+        nearly singular (e.g. C and O both seemingly all in CO).
+        """
+        y = y.copy()
+        order = np.argsort(-self.alpha, kind="stable")
+        ln_at0 = _packed_moments(*tab["mol"][:2], x)[0]
+        goal = np.log(self.alpha)[:, None] + w[None, :]
+        for _s in range(sweeps):
+            for k in order:
+                nu_k = self.nu[:, k]
+                involved = nu_k > 0
+                if not involved.any():
+                    continue
+                for _i in range(iters):
+                    ln_m = tab["s"][involved] + self.nu[involved] @ y - np.multiply.outer(
+                        self.q_mol[involved], x)
+                    ln_m = np.minimum(ln_m, 700.0)
+                    nm = np.exp(ln_m)
+                    at = np.exp(np.minimum(y[k] + ln_at0[k], 700.0))
+                    tot = at + nu_k[involved] @ nm
+                    g = np.log(tot) - goal[k]
+                    dg = (at + (nu_k[involved] ** 2) @ nm) / tot
+                    y[k] = y[k] - g / dg
+                    if np.all(np.abs(g) < 1e-6):
+                        break
+        return y
+
+
+def _pack(chains, tables, x0):
+    """Stack chains into (charges (nc, nq), L (nc, nq, m), fractions (nc,)), -inf padded,
+    keeping per chain the contiguous stage range that matters in the x window (see tables;
+    stages between the two ends' dominant stages are all kept)."""
+    kept = []
+    for c, lt in zip(chains, tables):
+        if x0 is None:
+            lo, hi = 0, c.n
+        else:
+            # the dominant stage moves monotonically with ln n_e, and a stage off the dominant
+            # range is least suppressed at one end of the window: testing the two ends is exact
+            sig = np.zeros(c.n, dtype=bool)
+            for xe in (x0 - _X_WINDOW, x0 + _X_WINDOW):
+                a = lt - np.multiply.outer(c.charges, xe)
+                sig |= (a >= a.max(axis=0) - 60.0).any(axis=1)
+            rows = np.flatnonzero(sig)
+            lo, hi = int(rows[0]), int(rows[-1]) + 1
+        kept.append((c.charges[lo:hi], lt[lo:hi]))
+    m = tables[0].shape[1] if tables else 0
+    nq = max((len(q) for q, _ in kept), default=1)
+    qs = np.zeros((len(kept), nq))
+    ls = np.full((len(kept), nq, m), -np.inf)
+    for i, (q, lt) in enumerate(kept):
+        qs[i, :len(q)] = q
+        ls[i, :len(q)] = lt
+    return qs, ls, np.array([c.fraction for c in chains])
+
+
+def _packed_moments(q, lt, x):
+    """For packed chains (see _pack) relative to their neutral atoms: ln S = ln sum_q
+    exp(L_q - q x) and the moments <q>, <q+>, <|q-|>, <q^2>_{q>0}, <q^2>_{q<0}, each (nc, m)."""
+    a = lt - q[:, :, None] * x[None, None, :]
+    mx = a.max(axis=1)
+    f = np.exp(a - mx[:, None, :])
+    s = f.sum(axis=1)
+    f /= s[:, None, :]
+    qp = np.where(q > 0, q, 0.0)[:, :, None]
+    qn = np.where(q < 0, q, 0.0)[:, :, None]
+    return (mx + np.log(s), (q[:, :, None] * f).sum(axis=1), (qp * f).sum(axis=1),
+            (-qn * f).sum(axis=1), (qp * qp * f).sum(axis=1), (qn * qn * f).sum(axis=1))
+
+
+def _solve_batched(jac: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """Solve J d = rhs for every state; singular states fall back to least squares."""
+    try:
+        return np.linalg.solve(jac, rhs[..., None])[..., 0]
+    except np.linalg.LinAlgError:
+        out = np.empty_like(rhs)
+        for i in range(rhs.shape[0]):
+            out[i] = np.linalg.lstsq(jac[i], rhs[i], rcond=None)[0]
+        return out
+
+
+def _failure(bad, t, v, name, resid, shape) -> ConvergenceError:
+    from sahaboltz.equilibrium.solver import CLOSURES
+    where = np.flatnonzero(bad)
+    lines = []
+    for i in where[:10]:
+        idx = tuple(int(j) for j in np.unravel_index(i, shape)) if shape else ()
+        lines.append(f"  state {idx}: T = {t[i]:.6g} K, {name} = {v[i]:.6g} {CLOSURES[name]} "
+                     f"(residual {resid[i]:.3g})")
+    more = f"\n  ... and {where.size - 10} more" if where.size > 10 else ""
+    err = ConvergenceError(f"the molecular equilibrium did not converge at {where.size} of "
+                           f"{bad.size} states:\n" + "\n".join(lines) + more +
+                           "\n(try molecules='default' or fewer molecules, or a looser tolerance)")
+    err.indices = [tuple(int(j) for j in np.unravel_index(i, shape)) for i in where]
+    return err
+
+
+# ------------------------------------------------------------------------------ the result
+class MolecularEquilibriumState(EquilibriumState):
+    """An equilibrium state with molecules.
+
+    Atomic populations (``number_density``, ``fraction``, ``stage_fractions`` ...) are those of
+    the atoms and ions only; ``fraction`` and ``stage_fractions`` stay relative to *all* nuclei
+    of the element, so for each element
+
+        sum(stage_fractions(el)) + molecular_fraction(el) = 1.
+
+    ``nuclei_density`` counts every nucleus, free or bound in a molecule.
+    """
+
+    def __init__(self, *, system: MolecularSystem, log_neutral: np.ndarray,
+                 skipped_molecules: list[str], **kw):
+        super().__init__(**kw)
+        self.system = system
+        self.log_neutral = log_neutral
+        self.skipped_molecules = list(skipped_molecules)
+        t = self.temperature.ravel()
+        tab = system.tables(t, others=False)
+        x = self.log_ne.ravel()
+        y = log_neutral.reshape(log_neutral.shape[0], -1)
+        ln_m = tab["s"] + system.nu @ y - np.multiply.outer(system.q_mol, x)
+        self._n_mol = np.exp(ln_m).reshape((len(system.molecules),) + self.shape)
+        n_nuc = self.nuclei_density.ravel()
+        ln_at = _packed_moments(*tab["mol"][:2], x)[0]
+        self._atomic_share = {}
+        for k, c in enumerate(system.mol_chains):
+            share = np.exp(y[k] + ln_at[k]) / (n_nuc * c.fraction)
+            self._atomic_share[c.k] = share.reshape(self.shape)
+
+    # -- molecules ---------------------------------------------------------------------------
+    @property
+    def molecule_names(self) -> list[str]:
+        return self.system.names
+
+    def molecule_densities(self) -> np.ndarray:
+        """Number densities of the molecules [cm^-3], shape (n_molecules,) + state shape."""
+        return self._n_mol
+
+    def molecule_density(self, name: str) -> np.ndarray:
+        """Number density of one molecule [cm^-3] (``"CO"``, ``"H2"``, ``"CO+"``)."""
+        db = default_molecule_database()
+        mol = db.molecule(name)
+        try:
+            i = self.system.names.index(mol.name)
+        except ValueError:
+            raise UnknownSpeciesError(f"{mol.name} is not among the molecules of this solve "
+                                      f"({', '.join(self.system.names)})") from None
+        return self._n_mol[i]
+
+    def molecular_fraction(self, element) -> np.ndarray:
+        """Fraction of the nuclei of ``element`` that are bound in molecules."""
+        chain = self.network.chain_of(element)
+        share = self._atomic_share.get(chain.k)
+        return np.zeros(self.shape) if share is None else 1.0 - share
+
+    def element_budget(self, element) -> dict[str, np.ndarray]:
+        """Where the nuclei of one element are: ``{"atoms": ..., "CO": ..., ...}`` as fractions
+        of its nuclei (molecules that hold none of it are left out)."""
+        chain = self.network.chain_of(element)
+        total = self.nuclei_density * chain.fraction
+        out = {"atoms": self._atomic_share.get(chain.k, np.ones(self.shape))}
+        z = chain.Z
+        for i, m in enumerate(self.system.molecules):
+            cnt = m.component_Z.count(z)
+            if cnt:
+                out[m.name] = cnt * self._n_mol[i] / total
+        return out
+
+    # -- overrides: atoms scaled to the part of each element not in molecules ---------------
+    def _chain_fractions(self, chain):
+        if chain.k not in self._cache:
+            f = super()._chain_fractions(chain)
+            share = self._atomic_share.get(chain.k)
+            if share is not None:
+                self._cache[chain.k] = f * share
+        return self._cache[chain.k]
+
+    @property
+    def particle_density(self) -> np.ndarray:
+        """Free particles: atoms and ions, molecules, electrons [cm^-3]."""
+        bound = (self.system.nu.sum(axis=1) - 1.0) @ self._n_mol.reshape(len(self.system.molecules), -1)
+        return self.nuclei_density + self.n_e - bound.reshape(self.shape)
+
+    def sum_z2_n(self) -> np.ndarray:
+        out = super().sum_z2_n()
+        return out + np.tensordot(self.system.q_mol**2, self._n_mol, axes=1)
+
+    def charge_residual(self) -> np.ndarray:
+        pos = np.zeros(self.shape)
+        tot = np.zeros(self.shape)
+        for c in self.network.chains:
+            nk = self._chain_fractions(c) * (self.nuclei_density * c.fraction)
+            pos += np.tensordot(c.charges, nk, axes=1)
+            tot += np.tensordot(np.abs(c.charges), nk, axes=1)
+        q = self.system.q_mol
+        pos += np.tensordot(q, self._n_mol, axes=1)
+        tot += np.tensordot(np.abs(q), self._n_mol, axes=1)
+        return np.abs(pos - self.n_e) / (tot + self.n_e)
+
+    def conservation_residual(self) -> np.ndarray:
+        worst = np.zeros(self.shape)
+        for c in self.network.chains:
+            nk = self._chain_fractions(c) * (self.nuclei_density * c.fraction)
+            have = nk.sum(axis=0)
+            for i, m in enumerate(self.system.molecules):
+                have = have + m.component_Z.count(c.Z) * self._n_mol[i]
+            want = self.nuclei_density * c.fraction
+            worst = np.maximum(worst, np.abs(have - want) / want)
+        return worst
+
+    def summary(self, index=None) -> dict:
+        out = super().summary(index)
+        idx = () if index is None else index
+        for el in ("H", "C", "N", "O"):
+            try:
+                out[f"molecular_fraction_{el}"] = float(self.molecular_fraction(el)[idx])
+            except UnknownSpeciesError:
+                pass
+        return out
+
+    def __repr__(self) -> str:
+        return (f"MolecularEquilibriumState({self.composition.name!r}, shape={self.shape}, "
+                f"closure={self.closure}, {self.network.n_species} atomic species, "
+                f"{len(self.system.molecules)} molecules)")
