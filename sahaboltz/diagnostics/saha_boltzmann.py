@@ -46,7 +46,7 @@ import numpy as np
 from sahaboltz.constants import K_B_EV
 from sahaboltz.data.elements import spectroscopic_name
 from sahaboltz.diagnostics.boltzmann_plot import boltzmann_ordinate, line_flags, resonance_mask
-from sahaboltz.diagnostics.fitting import LinearFit, fit_with_rejection, weighted_linear_fit
+from sahaboltz.diagnostics.fitting import fit_with_rejection, weighted_linear_fit
 from sahaboltz.diagnostics.lines import LineList
 from sahaboltz.diagnostics.lte import McWhirterCheck, mcwhirter_check
 from sahaboltz.errors import ConvergenceError, InputError, NoDataError
