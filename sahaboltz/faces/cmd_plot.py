@@ -1,15 +1,16 @@
 """``sahaboltz plot``: pictures of LTE equilibria, written as PNG or PDF (by file suffix).
 
-    sahaboltz plot stages Fe --temperature 3000:12000:200 --pressure 1e5 -o fe.png
-    sahaboltz plot dominant Fe --temperature 3000:30000:80 --pressure 1e-2:1e6:33 -o fe_map.pdf
+    sahaboltz plot stages Fe --temperature 3000:12000:200 --gas-pressure 1e5 -o fe.png
+    sahaboltz plot dominant Fe --temperature 3000:30000:80 --gas-pressure 1e-2:1e6:33 -o fe.pdf
     sahaboltz plot partition "Fe I" "Fe II" --truncations plain,occupation --electron-density 1e15
-    sahaboltz plot electron-pressure --temperature 3000:12000:100 --pressure 1e2,1e4,1e6
-    sahaboltz plot levels "Fe I" --temperature 4600,6000 --pressure 1e5
+    sahaboltz plot electron-pressure --temperature 3000:12000:100 --gas-pressure 1e2,1e4,1e6
+    sahaboltz plot levels "Fe I" --temperature 4600,6000 --gas-pressure 1e5
 
 Temperatures and pressures are MIN:MAX:NUM (evenly spaced; logarithmically for pressures and
 for the temperature axis of maps) or comma-separated values, in K and cgs units.  The state
-options (--composition, --metallicity, --pressure-quantity, --truncation, --lowering) are those
-of the other computing commands.
+options (--mix, --by, --metallicity, --alpha, --lowering, --truncation, --no-h-minus and one of
+--gas-pressure, --mass-density, --hydrogen-density, --electron-pressure) are those of
+'sahaboltz state'.
 """
 
 from __future__ import annotations
@@ -20,8 +21,8 @@ from pathlib import Path
 
 from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
-from sahaboltz.faces.state_options import (add_closure_options, add_composition_options,
-                                           add_physics_options, composition_from_args,
+from sahaboltz.faces.state_options import (add_closure_options, add_mixture_options,
+                                           closure_from_args, composition_from_args,
                                            parse_values, solver_options)
 
 
@@ -36,8 +37,7 @@ def register(subparsers) -> None:
     s = sub.add_parser("stages", help="stage fractions of an element against temperature")
     s.add_argument("element", help="element symbol, e.g. Fe")
     _temperature(s, "3000:30000:300", "linear")
-    s.add_argument("--pressure", default="1e5", metavar="VALUE",
-                   help="the fixed pressure-like quantity in cgs (default 1e5)")
+    add_closure_options(s, default=("gas_pressure", "1e5"))
     s.add_argument("--log", action="store_true", help="logarithmic fraction axis")
     s.add_argument("--min-fraction", type=float, default=1e-3, metavar="F",
                    help="leave out stages that never reach F (default 1e-3)")
@@ -47,8 +47,8 @@ def register(subparsers) -> None:
     d = sub.add_parser("dominant", help="map of the dominant stage of an element over T and P")
     d.add_argument("element", help="element symbol, e.g. Fe")
     _temperature(d, "2000:50000:90", "log")
-    d.add_argument("--pressure", default="1e-2:1e8:41", metavar="MIN:MAX:NUM|V1,V2,..",
-                   help="pressure-like axis in cgs, log-spaced (default 1e-2:1e8:41)")
+    add_closure_options(d, default=("gas_pressure", "1e-2:1e8:41"),
+                        values="MIN:MAX:NUM|V1,V2,..")
     _state(d)
     _finish(d, _dominant)
 
@@ -65,18 +65,16 @@ def register(subparsers) -> None:
 
     e = sub.add_parser("electron-pressure", help="electron pressure of a mixture against T")
     _temperature(e, "2000:20000:200", "linear")
-    e.add_argument("--pressure", default="1e2,1e4,1e6", metavar="P1,P2,..|MIN:MAX:NUM",
+    e.add_argument("--gas-pressure", default="1e2,1e4,1e6", metavar="P1,P2,..|MIN:MAX:NUM",
                    help="gas pressures [dyn cm^-2], one curve each (default 1e2,1e4,1e6)")
-    add_composition_options(e)
-    add_physics_options(e)
+    add_mixture_options(e)
     _finish(e, _electron_pressure)
 
     v = sub.add_parser("levels", help="level-population (Boltzmann) diagram of one species")
     v.add_argument("species", help="e.g. 'Fe I', 'Ar II'")
     v.add_argument("--temperature", default="5000", metavar="T1,T2,..",
                    help="one or a few temperatures [K], one series each (default 5000)")
-    v.add_argument("--pressure", default="1e5", metavar="VALUE",
-                   help="the fixed pressure-like quantity in cgs (default 1e5)")
+    add_closure_options(v, default=("gas_pressure", "1e5"))
     v.add_argument("--max-energy", type=float, default=None, metavar="EV",
                    help="only levels up to this excitation energy [eV]")
     _state(v)
@@ -89,9 +87,7 @@ def _temperature(p, default: str, scale: str) -> None:
 
 
 def _state(p) -> None:
-    add_composition_options(p)
-    add_closure_options(p)
-    add_physics_options(p)
+    add_mixture_options(p)
 
 
 def _finish(p, func) -> None:
@@ -115,22 +111,24 @@ def _safe(text: str) -> str:
     return "".join(c if c.isalnum() else "_" for c in text).strip("_")
 
 
-def _one_value(text: str, name: str) -> float:
+def _one_closure(args) -> tuple[str, float]:
+    name, text = closure_from_args(args)
     vals = parse_values(text, name)
     if vals.size != 1:
-        raise InputError(f"--pressure: give one value for this plot, got {text!r}")
-    return float(vals[0])
+        raise InputError(f"--{name.replace('_', '-')}: give one value for this plot, "
+                         f"got {text!r}")
+    return name, float(vals[0])
 
 
 def _stages(args) -> int:
     from sahaboltz.faces.plots import stage_fractions_plot
 
     t0 = time.perf_counter()
+    closure, value = _one_closure(args)
     fig = stage_fractions_plot(args.element, parse_values(args.temperature, "--temperature",
-                                                          scale="linear"),
-                               _one_value(args.pressure, args.pressure_quantity),
+                                                          scale="linear"), value,
                                composition=composition_from_args(args),
-                               pressure_quantity=args.pressure_quantity, log=args.log,
+                               pressure_quantity=closure, log=args.log,
                                min_fraction=args.min_fraction, **solver_options(args))
     return _write(args, fig, f"stages_{_safe(args.element)}", "stage fractions", t0)
 
@@ -139,10 +137,11 @@ def _dominant(args) -> int:
     from sahaboltz.faces.plots import dominant_stage_plot
 
     t0 = time.perf_counter()
+    closure, text = closure_from_args(args)
     fig = dominant_stage_plot(args.element, parse_values(args.temperature, "--temperature"),
-                              parse_values(args.pressure, "--pressure"),
+                              parse_values(text, closure),
                               composition=composition_from_args(args),
-                              pressure_quantity=args.pressure_quantity, **solver_options(args))
+                              pressure_quantity=closure, **solver_options(args))
     return _write(args, fig, f"dominant_{_safe(args.element)}", "dominant stage", t0)
 
 
@@ -164,7 +163,7 @@ def _electron_pressure(args) -> int:
 
     t0 = time.perf_counter()
     fig = electron_pressure_plot(parse_values(args.temperature, "--temperature", scale="linear"),
-                                 parse_values(args.pressure, "--pressure"),
+                                 parse_values(args.gas_pressure, "--gas-pressure"),
                                  composition=composition_from_args(args), **solver_options(args))
     return _write(args, fig, "electron_pressure", "electron pressure", t0)
 
@@ -173,10 +172,10 @@ def _levels(args) -> int:
     from sahaboltz.faces.plots import level_population_plot
 
     t0 = time.perf_counter()
+    closure, value = _one_closure(args)
     fig = level_population_plot(args.species, parse_values(args.temperature, "--temperature"),
-                                _one_value(args.pressure, args.pressure_quantity),
-                                composition=composition_from_args(args),
-                                pressure_quantity=args.pressure_quantity,
+                                value, composition=composition_from_args(args),
+                                pressure_quantity=closure,
                                 max_energy_ev=args.max_energy, **solver_options(args))
     return _write(args, fig, f"levels_{_safe(args.species)}", "level populations", t0)
 

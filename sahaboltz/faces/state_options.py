@@ -1,18 +1,20 @@
-"""Command-line options that describe an equilibrium state, shared by the computing commands.
+"""State options shared by the commands that compute and draw equilibria.
 
-A state is a composition, a temperature, one pressure-like quantity (the closure) and the
-physics options.  Commands add the option groups they need with the ``add_*`` functions and
-turn the parsed arguments into solver inputs with :func:`composition_from_args`,
-:func:`solver_options` and :func:`closure_from_args`; :func:`describe_state` gives the one-line
-statement of the conditions that plots and summaries print.
+The mixture and physics options (``--mix``, ``--by``, ``--metallicity``, ``--alpha``,
+``--lowering``, ``--truncation``, ``--no-h-minus``) and the closure flags (``--gas-pressure``,
+``--mass-density``, ``--hydrogen-density``, ``--electron-pressure``) are those of
+``sahaboltz state`` (:mod:`sahaboltz.faces.cmd_state`); this module re-exports them so that
+other commands take the very same options, and adds what a grid or a picture needs: closure
+flags that take several values (``MIN:MAX:NUM`` or ``V1,V2,..``), and one-line statements of
+the conditions for titles and notes.
 
     p = sub.add_parser("...")
-    add_composition_options(p)
-    add_closure_options(p)
-    add_physics_options(p)
+    add_mixture_options(p)
+    add_closure_options(p, default=("gas_pressure", "1e5"))
     ...
     comp = composition_from_args(args)
-    state = solve_equilibrium(comp, T, **closure_from_args(args, P), **solver_options(args))
+    name, text = closure_from_args(args)
+    state = solve_equilibrium(comp, T, **{name: parse_values(text, name)}, **solver_options(args))
 """
 
 from __future__ import annotations
@@ -24,6 +26,8 @@ from typing import Any
 import numpy as np
 
 from sahaboltz.errors import InputError
+from sahaboltz.faces.cmd_state import _CLOSURE_FLAGS, parse_mix
+from sahaboltz.faces.cmd_state import _add_mixture_options as add_mixture_options
 
 #: pressure-like closures and their cgs unit (the solver's keyword names)
 CLOSURE_UNITS = {"gas_pressure": "dyn cm-2", "electron_pressure": "dyn cm-2",
@@ -31,90 +35,46 @@ CLOSURE_UNITS = {"gas_pressure": "dyn cm-2", "electron_pressure": "dyn cm-2",
 #: short symbols for titles
 CLOSURE_SYMBOLS = {"gas_pressure": "P_gas", "electron_pressure": "P_e",
                    "mass_density": "rho", "hydrogen_density": "n_H"}
-TRUNCATIONS = ("plain", "lowered", "occupation")
 
 
-# -- adding options ------------------------------------------------------------------------
-def add_composition_options(parser: argparse.ArgumentParser) -> None:
-    """``--composition solar|SYM=N,..``, ``--metallicity`` and ``--alpha``."""
-    g = parser.add_argument_group("composition")
-    g.add_argument("--composition", default="solar", metavar="solar|SYM=N,..",
-                   help="'solar' (Asplund et al. 2009, default) or amounts by number, "
-                        "e.g. H=1,He=0.1 or Ar=1")
-    g.add_argument("--metallicity", type=float, default=0.0, metavar="DEX",
-                   help="[M/H]: scale the solar metals by 10^DEX (default 0)")
-    g.add_argument("--alpha", type=float, default=0.0, metavar="DEX",
-                   help="[alpha/Fe]: extra scaling of O Ne Mg Si S Ar Ca Ti (default 0)")
+def add_closure_options(parser: argparse.ArgumentParser, *, default: tuple[str, str],
+                        values: str = "VALUE") -> None:
+    """The closure flags of ``sahaboltz state``, taking text (one value, a list or a range).
+
+    Parameters
+    ----------
+    default : (closure name, text)
+        Used when none of the flags is given, e.g. ``("gas_pressure", "1e5")``.
+    values : str
+        Metavar: "VALUE" for one value, "MIN:MAX:NUM|V1,V2,.." for several.
+    """
+    grp = parser.add_mutually_exclusive_group()
+    for dest, flag, text in _CLOSURE_FLAGS:
+        extra = f" (default {default[1]})" if dest == default[0] else ""
+        grp.add_argument(flag, dest=dest, metavar=values, help=text + extra)
+    parser.set_defaults(_closure_default=default)
 
 
-def add_closure_options(parser: argparse.ArgumentParser) -> None:
-    """``--pressure-quantity``: which quantity the ``--pressure`` values are."""
-    parser.add_argument("--pressure-quantity", default="gas_pressure",
-                        choices=tuple(CLOSURE_UNITS),
-                        help="what --pressure gives (cgs: dyn cm-2, g cm-3 or cm-3); "
-                             "default gas_pressure")
-
-
-def add_physics_options(parser: argparse.ArgumentParser) -> None:
-    """``--truncation``, ``--lowering``."""
-    g = parser.add_argument_group("physics")
-    g.add_argument("--truncation", choices=TRUNCATIONS, default=None,
-                   help="partition-function truncation (default: plain, or lowered with "
-                        "--lowering)")
-    g.add_argument("--lowering", action="store_true",
-                   help="Debye-Hueckel ionization-potential lowering")
-
-
-# -- reading them --------------------------------------------------------------------------
-def parse_composition(text: str | None, metallicity: float = 0.0, alpha: float = 0.0):
-    """A :class:`~sahaboltz.data.composition.Composition` from ``solar`` or ``SYM=N,...``."""
-    from sahaboltz.data.composition import Composition, solar
-
-    text = (text or "solar").strip()
-    if "=" in text:
-        if metallicity or alpha:
-            raise InputError("--metallicity/--alpha scale the solar mixture; with explicit "
-                             "amounts (SYM=N,..) give the amounts you want instead")
-        amounts: dict[str, float] = {}
-        for item in text.split(","):
-            if not item.strip():
-                continue
-            if item.count("=") != 1:
-                raise InputError(f"composition: write SYMBOL=NUMBER,..., e.g. H=1,He=0.1; "
-                                 f"got {item!r}")
-            sym, val = (s.strip() for s in item.split("="))
-            try:
-                amounts[sym] = float(val)
-            except ValueError:
-                raise InputError(f"composition: amount of {sym} must be a number, "
-                                 f"got {val!r}") from None
-        name = "+".join(f"{k}" for k in amounts) if len(amounts) <= 4 else "custom"
-        return Composition.from_number(amounts, name=name)
-    if text.lower() not in ("solar", "asplund2009"):
-        raise InputError(f"composition: unknown name {text!r}; use 'solar' or give amounts "
-                         "by number, e.g. H=1,He=0.1")
-    return solar("asplund2009", metallicity=metallicity, alpha_enhancement=alpha)
+def closure_from_args(args: argparse.Namespace) -> tuple[str, str]:
+    """(closure name, its text) from the closure flags, or the command's default."""
+    given = [(dest, getattr(args, dest)) for dest, _, _ in _CLOSURE_FLAGS
+             if getattr(args, dest, None) is not None]
+    return given[0] if given else tuple(args._closure_default)
 
 
 def composition_from_args(args: argparse.Namespace):
-    """The composition the ``add_composition_options`` options ask for."""
-    return parse_composition(getattr(args, "composition", "solar"),
-                             getattr(args, "metallicity", 0.0), getattr(args, "alpha", 0.0))
+    """The composition the mixture options ask for (see ``parse_mix``)."""
+    return parse_mix(args.mix, args.by, args.metallicity, args.alpha)
 
 
 def solver_options(args: argparse.Namespace) -> dict[str, Any]:
     """Keyword arguments of ``solve_equilibrium`` from the physics options."""
-    return {"truncation": getattr(args, "truncation", None),
-            "lowering": bool(getattr(args, "lowering", False))}
-
-
-def closure_from_args(args: argparse.Namespace, values: Any) -> dict[str, Any]:
-    """``{pressure quantity: values}`` for ``solve_equilibrium``."""
-    return {getattr(args, "pressure_quantity", "gas_pressure"): values}
+    return {"truncation": args.truncation, "lowering": bool(args.lowering),
+            "h_minus": not args.no_h_minus}
 
 
 def parse_values(text: str, name: str, *, scale: str = "log") -> np.ndarray:
-    """Axis values from ``MIN:MAX:NUM`` (log-spaced unless ``scale='linear'``) or ``V1,V2,..``."""
+    """Values from ``MIN:MAX:NUM`` (log-spaced unless ``scale='linear'``) or ``V1,V2,..``."""
     text = str(text).strip()
     try:
         if ":" in text:
@@ -155,14 +115,14 @@ def physics_label(truncation: str | None, lowering: bool) -> str:
     return text + (", Debye-Hueckel lowering" if lowering else ", no IP lowering")
 
 
-def format_value(value: float, unit: str) -> str:
-    """``1e+05 dyn cm-2`` -> ``1e5 dyn cm^-2`` for titles."""
+def format_value(value: float, unit: str, tex: bool = False) -> str:
+    """``1e+05 dyn cm-2`` -> ``1e5 dyn cm^-2`` for titles (``tex``: mathtext exponents)."""
     v = float(value)
-    text = f"{v:.3g}"
+    text = f"{v:.4g}"
     if "e" in text:
         m, e = text.split("e")
         text = f"{m}e{int(e)}" if m != "1" else f"1e{int(e)}"
-    return f"{text} {unit_label(unit)}"
+    return f"{text} {unit_label(unit, tex)}"
 
 
 def unit_label(unit: str, tex: bool = False) -> str:
@@ -173,7 +133,8 @@ def unit_label(unit: str, tex: bool = False) -> str:
 
 
 def describe_state(composition, *, closure: str | None = None, value: Any = None,
-                   truncation: str | None = None, lowering: bool = False) -> str:
+                   truncation: str | None = None, lowering: bool = False,
+                   h_minus: bool = True) -> str:
     """One line naming the conditions: composition; closure = value; physics options."""
     parts = [composition_label(composition)]
     if closure is not None and value is not None:
@@ -185,11 +146,12 @@ def describe_state(composition, *, closure: str | None = None, value: Any = None
         else:
             parts.append(f"{sym} = {format_value(v.min(), unit)} .. {format_value(v.max(), unit)}")
     parts.append(physics_label(truncation, lowering))
+    if not h_minus:
+        parts.append("no H-")
     parts.append("LTE")
     return "; ".join(parts)
 
 
-__all__ = ["add_composition_options", "add_closure_options", "add_physics_options",
-           "composition_from_args", "solver_options", "closure_from_args", "parse_values",
-           "parse_composition", "describe_state", "composition_label", "physics_label",
-           "format_value", "unit_label", "CLOSURE_UNITS", "CLOSURE_SYMBOLS"]
+__all__ = ["add_mixture_options", "add_closure_options", "composition_from_args",
+           "solver_options", "closure_from_args", "parse_values", "parse_mix", "describe_state",
+           "composition_label", "physics_label", "format_value", "unit_label", "CLOSURE_UNITS", "CLOSURE_SYMBOLS"]
