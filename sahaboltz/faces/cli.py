@@ -20,6 +20,7 @@ COMMAND_MODULES = [
     "sahaboltz.faces.cmd_table",
     "sahaboltz.faces.cmd_diagnose",
     "sahaboltz.faces.cmd_plot",
+    "sahaboltz.faces.cmd_demo",
     "sahaboltz.faces.cmd_partition",
     "sahaboltz.faces.cmd_state",
 ]
