@@ -26,7 +26,8 @@ def register(sub) -> None:
                        description="Plasma diagnostics from a CSV of measured lines (columns: "
                                    "species, wavelength_nm, intensity, intensity_error, "
                                    "upper_energy_eV or upper_energy_cm-1, upper_g, A_s-1; "
-                                   "optional A_rel_error, lower_energy_eV, label). " + _SAFETY + ".")
+                                   "optional A_rel_error, lower_energy_eV, label). "
+                                   + _SAFETY[0].upper() + _SAFETY[1:] + ".")
     dsub = p.add_subparsers(dest="diagnose_command", metavar="METHOD")
     dsub.required = True
 
