@@ -73,7 +73,8 @@ def select_molecules(composition: Composition, molecules: Any, network: AtomicNe
     ``"default"``: :data:`DEFAULT_MOLECULES` whose elements are all in the mixture;
     ``"all"``: every molecule of the data made of the mixture's elements; a list of names:
     exactly those (an error if one is unknown or needs an element or ion the mixture lacks);
-    ``"none"`` or an empty list: no molecules.  Processes that involve an atomic negative ion
+    ``"none"`` or an empty list: no molecules; ``True``/``False`` mean ``"default"``/``"none"``.
+    Processes that involve an atomic negative ion
     other than H- (C-, O-, Si-, S-) are skipped in the sets, because the atomic network has no
     such ions (no electron affinities in our data); naming one explicitly is an error.
     """
@@ -94,6 +95,8 @@ def select_molecules(composition: Composition, molecules: Any, network: AtomicNe
         return None
 
     skipped: list[str] = []
+    if isinstance(molecules, (bool, np.bool_)):      # molecules=True / False (table specs)
+        molecules = "default" if molecules else "none"
     if isinstance(molecules, str):
         if molecules not in MOLECULE_SETS:
             raise InputError(f"molecules must be one of {MOLECULE_SETS} or a list of names "
@@ -261,9 +264,9 @@ class MolecularSystem:
         for i, comps in enumerate(self._comp):
             for k, row in comps:
                 s[i] = s[i] + lmol[k][row]
-        out = {"s": s, "t": t, "mol": _pack(self.mol_chains, lmol, x0)}
+        out = {"s": s, "t": t, "mol": _pack(self.mol_chains, lmol, x0, t.size)}
         if others:
-            out["oth"] = _pack(self.other_chains, [rel(c) for c in self.other_chains], x0)
+            out["oth"] = _pack(self.other_chains, [rel(c) for c in self.other_chains], x0, t.size)
         if x0 is not None:
             out["xlo"], out["xhi"] = x0 - _X_WINDOW, x0 + _X_WINDOW
         return out
@@ -402,17 +405,22 @@ class MolecularSystem:
 
         damp = np.ones(m)                     # per-state outer step factor (trust region)
         prev = np.full(m, np.inf)
+        last_err = np.full(m, np.inf)
+        # aim a decade below the requested tolerance (so that residuals recomputed from the
+        # state stay inside it); accept the requested one once progress stalls at rounding
+        goal = max(0.1 * tol, 1e-14)
         for _ in range(max_passes):
             tb = sub(tab, active)
             tg = None if target is None else target[active]
-            ya = self._inner(tb, y[:, active], x[active], w[active], tol)
+            ya = self._inner(tb, y[:, active], x[active], w[active], goal)
             y[:, active] = ya
             xa, wa = x[active], w[active]
             r, jac = self.evaluate(tb, ya, xa, wa, closure, tg)
             passes[active] += 1
             err = np.abs(r).max(axis=0)
             resid[active] = err
-            done = err <= tol
+            done = (err <= goal) | ((err <= tol) & (err > 0.5 * last_err[active]))
+            last_err[active] = err
             if done.all():
                 break
             # outer residual (charge, pressure) grew: shrink this state's next step
@@ -533,7 +541,7 @@ class MolecularSystem:
         return y
 
 
-def _pack(chains, tables, x0):
+def _pack(chains, tables, x0, m):
     """Stack chains into (charges (nc, nq), L (nc, nq, m), fractions (nc,)), -inf padded,
     keeping per chain the contiguous stage range that matters in the x window (see tables;
     stages between the two ends' dominant stages are all kept)."""
@@ -551,7 +559,6 @@ def _pack(chains, tables, x0):
             rows = np.flatnonzero(sig)
             lo, hi = int(rows[0]), int(rows[-1]) + 1
         kept.append((c.charges[lo:hi], lt[lo:hi]))
-    m = tables[0].shape[1] if tables else 0
     nq = max((len(q) for q, _ in kept), default=1)
     qs = np.zeros((len(kept), nq))
     ls = np.full((len(kept), nq, m), -np.inf)
