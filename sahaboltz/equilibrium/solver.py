@@ -339,8 +339,9 @@ class _ChunkSolver:
         s_z2 = np.exp(x)  # sum z^2 n_z, lagged by one pass (used only with lowering)
         active = np.arange(m)
         windows = _Windows(self.net.chains, *self.ideal_tables) if self.ideal else None
-        step = np.full(m, 2.0)  # size of the last Newton step (sets the window margins)
+        step = np.full(m, 0.25)  # size of the last Newton step (sets the window margins)
         fixed_pe = self.fixed_n is None and self.ntot is None
+        prev = np.full(m, np.inf)  # previous step size, for the rtsafe-style safeguard
         for _ in range(max_passes):
             xa = x[active]
             if self.ideal:
@@ -400,20 +401,31 @@ class _ChunkSolver:
                 if self.ntot is not None:
                     dg = dg - nek / nnk
                 xn = xa - g / dg
+                # Zbar <= 0 (negative ions outweigh the positive ones: n_e far too high):
+                # Newton on the linear form F = N Zbar / n_e - 1 instead of its logarithm
+                lin = (nnk > 0) & ~valid
+                if lin.any():
+                    f_lin = nnk * zb / nek - 1.0
+                    df_lin = -(nnk / nek) * (vr + zb)
+                    if self.ntot is not None:
+                        df_lin = df_lin - zb
+                    xn = np.where(lin, xa - f_lin / df_lin, xn)
             lo[a] = np.where(g > 0, np.maximum(lo[a], xa), lo[a])
             hi[a] = np.where(g < 0, np.minimum(hi[a], xa), hi[a])
             la, ha = lo[a], hi[a]
-            outside = ~valid | ~np.isfinite(xn) | ~(xn > la) | ~(xn < ha)
+            outside = ~(nnk > 0) | ~np.isfinite(xn) | ~(xn > la) | ~(xn < ha)
+            # too slow a decrease (e.g. Newton cycling across a kink): bisect (as rtsafe)
+            outside |= np.isfinite(la) & (np.abs(xn - xa) > 0.5 * prev[a])
             bisect = np.where(np.isfinite(la), 0.5 * (la + ha), ha - _MAX_STEP)
             xn = np.where(outside, bisect, xn)
             xn = np.where(np.isfinite(la), xn, np.maximum(xn, xa - _MAX_STEP))
-            step[a] = np.abs(xn - xa)
+            prev[a] = step[a] = np.abs(xn - xa)
             x[a] = xn
             active = a
 
 
 def _significance_intervals(charges: np.ndarray, tab: np.ndarray, thr: float = 40.0,
-                            block: int = 1 << 22) -> tuple[np.ndarray, np.ndarray]:
+                            reach: int = 32) -> tuple[np.ndarray, np.ndarray]:
     """Where in x = ln n_e each stage of a chain can matter, at each tabulated temperature.
 
     With a_r(x) = C_r - q_r x, stage r is within e^-thr of the largest stage exactly when
@@ -422,33 +434,31 @@ def _significance_intervals(charges: np.ndarray, tab: np.ndarray, thr: float = 4
         xl_r = max_{s > r} (C_s - C_r - thr) / (q_s - q_r),
         xr_r = min_{s < r} (C_r - C_s + thr) / (q_r - q_s).
 
-    Returned as monotone envelopes (xl running minimum from the first stage, xr running
-    maximum from the last), which only widen the intervals and make the windows contiguous,
-    clipped to [-_X_CLIP, _X_CLIP]; shape (n_T, n_stages) each.
+    Only stages s within ``reach`` of r are used: a maximum (minimum) over fewer stages can
+    only lower xl (raise xr), so the intervals stay supersets.  They are returned as monotone
+    envelopes (xl running minimum from the first stage, xr running maximum from the last),
+    which again only widen them and make the windows contiguous, clipped to
+    [-_X_CLIP, _X_CLIP]; shape (n_T, n_stages) each.
     """
     n, nt = tab.shape
-    xl = np.full((nt, n), -_X_CLIP)
-    xr = np.full((nt, n), _X_CLIP)
-    if n > 1:
-        dq = charges[None, :] - charges[:, None]          # q_s - q_r
-        upper = dq > 0
-        lower = dq < 0
-        step = max(1, block // (n * n))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            for t0 in range(0, nt, step):
-                c = tab[:, t0:t0 + step]
-                dc = c[None, :, :] - c[:, None, :]              # C_s - C_r, (r, s, t)
-                lo_b = np.where(upper[:, :, None], (dc - thr) / dq[:, :, None], -np.inf)
-                hi_b = np.where(lower[:, :, None], (dc - thr) / dq[:, :, None], np.inf)
-                xl[t0:t0 + step] = np.clip(lo_b.max(axis=1), -_X_CLIP, _X_CLIP).T
-                xr[t0:t0 + step] = np.clip(hi_b.min(axis=1), -_X_CLIP, _X_CLIP).T
-    xl = np.minimum.accumulate(xl, axis=1)
-    xr = np.maximum.accumulate(xr[:, ::-1], axis=1)[:, ::-1]
-    return xl, xr
+    xl = np.full((n, nt), -_X_CLIP)
+    xr = np.full((n, nt), _X_CLIP)
+    for d in range(1, min(reach, n - 1) + 1):
+        dq = (charges[d:] - charges[:-d])[:, None]
+        slope = (tab[d:] - tab[:-d]) / dq         # secant slopes between stages r and r + d
+        np.maximum(xl[:-d], slope - thr / dq, out=xl[:-d])
+        np.minimum(xr[d:], slope + thr / dq, out=xr[d:])
+    np.clip(xl, -_X_CLIP, _X_CLIP, out=xl)
+    np.clip(xr, -_X_CLIP, _X_CLIP, out=xr)
+    xl = np.minimum.accumulate(xl, axis=0)
+    xr = np.maximum.accumulate(xr[::-1], axis=0)[::-1]
+    return xl.T.copy(), xr.T.copy()
 
 
 # ln n_e never leaves this range (|x| = 2000 is n_e = 10^(+-869) cm^-3)
 _X_CLIP = 2000.0
+# window margin: delta = _MARGIN x the last Newton step, within [_DELTA_MIN, _DELTA_MAX]
+_MARGIN, _DELTA_MIN, _DELTA_MAX = 2.0, 0.01, 1.0
 
 
 class _Windows:
@@ -472,6 +482,7 @@ class _Windows:
         self.chains = chains
         self.c_unique = c_unique
         self.tpos = tpos                      # each state's index into the unique temperatures
+        self.ids = np.arange(tpos.size)       # chunk positions of the rows held here
         m = tpos.size
         self.m = m
         self.xref = np.full(m, np.nan)
@@ -545,17 +556,31 @@ class _Windows:
         self.delta[sel] = delta
         return True
 
+    def _compress(self, keep: np.ndarray) -> None:
+        """Drop the rows of converged states so later passes touch contiguous arrays."""
+        self.ids = self.ids[keep]
+        self.m = keep.size
+        for name in ("xref", "delta", "tpos", "local"):
+            setattr(self, name, getattr(self, name)[keep])
+        self.start = [st[keep] for st in self.start]
+        self.e0 = [None if e is None else e[:, keep] for e in self.e0]
+
     def moments(self, sel, x, last_step):
-        """(Zbar, sum Var, sum |q|, sum q^2) per nucleus at the states ``sel``."""
+        """(Zbar, sum Var, sum |q|, sum q^2) per nucleus at the states ``sel`` (chunk positions)."""
+        rows = np.searchsorted(self.ids, sel)
+        if rows.size < 0.6 * self.m:
+            self._compress(rows)
+            rows = np.arange(rows.size)
+        sel = rows
         stale = ~(np.abs(x - self.xref[sel]) <= self.delta[sel])
         if stale.any():
-            delta = np.clip(3.0 * last_step[stale], 0.05, 3.0)
+            delta = np.clip(_MARGIN * last_step[stale], _DELTA_MIN, _DELTA_MAX)
             if not self._refresh(sel[stale], x[stale], delta):
                 # a window got too narrow: rebuild the windows of these states from scratch
                 self.width = [None] * len(self.chains)
                 self.e0 = [None] * len(self.chains)
                 self.xref[:] = np.nan
-                d = np.clip(3.0 * last_step, 0.05, 3.0)
+                d = np.clip(_MARGIN * last_step, _DELTA_MIN, _DELTA_MAX)
                 self._refresh(sel, x, d)
         allsel = sel.size == self.m
         dx = x - self.xref[sel]
