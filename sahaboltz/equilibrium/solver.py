@@ -213,13 +213,13 @@ def _solve_flat(network, t, v, name, lowering, tol, max_passes, shape):
             lam_out[idx] = sub.lam
     bad = failed | ~np.isfinite(x_out) | ~np.isfinite(nuc_out) | ~(nuc_out > 0)
     if bad.any():
-        raise _failure(bad, t, v, name, resid, shape)
+        raise _failure(bad, t, v, name, resid, shape, network.truncation)
     if lowering:
         _check_lowering(network, lam_out, t, v, name, shape)
     return x_out, nuc_out, lam_out, SolveReport(passes.reshape(shape), resid.reshape(shape))
 
 
-def _failure(bad, t, v, name, resid, shape) -> ConvergenceError:
+def _failure(bad, t, v, name, resid, shape, truncation="plain") -> ConvergenceError:
     where = np.flatnonzero(bad)
     lines = []
     for i in where[:10]:
@@ -230,6 +230,10 @@ def _failure(bad, t, v, name, resid, shape) -> ConvergenceError:
     hint = ("a given electron pressure may be unreachable at these temperatures (too few "
             "electron donors)" if name == "electron_pressure" else
             "check that the states are physical; try a looser tolerance")
+    if truncation == "lowered":
+        hint += ("; with truncation='lowered' the partition functions jump whenever a level "
+                 "crosses the lowered limit, so the balance can lack an exact root: "
+                 "truncation='occupation' is continuous")
     err = ConvergenceError(f"the ionization balance did not converge at {where.size} of "
                            f"{bad.size} states:\n" + "\n".join(lines) + more + f"\n({hint})")
     err.indices = [tuple(int(j) for j in np.unravel_index(i, shape)) for i in where]
@@ -410,12 +414,27 @@ class _ChunkSolver:
                     if self.ntot is not None:
                         df_lin = df_lin - zb
                     xn = np.where(lin, xa - f_lin / df_lin, xn)
+            # a bracket end that contradicts the sign found here is dropped (with n_e-dependent
+            # corrections the function moves a little between passes, and near the root a
+            # bracket can collapse on the wrong side of it)
+            hi[a] = np.where((g > 0) & ~(xa < hi[a]), self.x_hi[a], hi[a])
+            lo[a] = np.where((g < 0) & ~(xa > lo[a]), -np.inf, lo[a])
             lo[a] = np.where(g > 0, np.maximum(lo[a], xa), lo[a])
             hi[a] = np.where(g < 0, np.minimum(hi[a], xa), hi[a])
             la, ha = lo[a], hi[a]
             outside = ~(nnk > 0) | ~np.isfinite(xn) | ~(xn > la) | ~(xn < ha)
-            # too slow a decrease (e.g. Newton cycling across a kink): bisect (as rtsafe)
-            outside |= np.isfinite(la) & (np.abs(xn - xa) > 0.5 * prev[a])
+            if self.ideal:
+                # too slow a decrease (e.g. Newton cycling across a kink): bisect (as rtsafe)
+                outside |= np.isfinite(la) & (np.abs(xn - xa) > 0.5 * prev[a])
+            else:
+                # the corrections lag one pass, so old bracket ends can be stale: a collapsed
+                # bracket around an unconverged state is opened again
+                stale = (ha - la) <= 1e-9 * np.maximum(1.0, np.abs(xa))
+                if stale.any():
+                    lo[a] = np.where(stale, -np.inf, la)
+                    hi[a] = np.where(stale, self.x_hi[a], ha)
+                    la, ha = lo[a], hi[a]
+                    outside = ~(nnk > 0) | ~np.isfinite(xn) | ~(xn > la) | ~(xn < ha)
             bisect = np.where(np.isfinite(la), 0.5 * (la + ha), ha - _MAX_STEP)
             xn = np.where(outside, bisect, xn)
             xn = np.where(np.isfinite(la), xn, np.maximum(xn, xa - _MAX_STEP))
