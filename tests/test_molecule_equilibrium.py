@@ -140,3 +140,28 @@ def test_bad_input(cool_mix):
         solve_equilibrium(cool_mix, [3000.0, 300.0], molecules="default", **kw)
     with pytest.raises(InputError, match="ideal-gas"):
         solve_equilibrium(cool_mix, 3000.0, molecules="default", lowering=True, **kw)
+
+
+@pytest.mark.parametrize("amounts,molecules", [
+    ({"N": 78, "O": 21, "Ar": 1}, "all"),    # dry air by number (common practice): no easy donors
+    ({"C": 1, "O": 2}, "default"),           # CO + O2 gas: molecules remove most C+ and O+ donors
+])
+def test_electron_poor_gases_converge(amounts, molecules):
+    t = np.geomspace(1000.0, 1e4, 6)[:, None]
+    p = np.geomspace(1e-2, 1e8, 6)[None, :]
+    st = solve_equilibrium(Composition.from_number(amounts), t, gas_pressure=p,
+                           molecules=molecules)
+    assert st.charge_residual().max() <= 1e-10
+    assert st.conservation_residual().max() <= 1e-12
+    np.testing.assert_allclose(st.gas_pressure, np.broadcast_to(p, st.shape), rtol=1e-12)
+
+
+def test_carbon_rich_gas_co_locks_oxygen(cool_mix):
+    # C/O = 2: now oxygen is the minority and CO takes nearly all of it, the spare carbon goes
+    # to C2, CN, CH and atoms (common practice: CO locking in carbon stars)
+    fr = cool_mix.as_dict()
+    fr["C"] = 2 * fr["O"]
+    st = solve_equilibrium(Composition.from_number(fr), 2500.0, gas_pressure=1e6,
+                           molecules="default")
+    assert float(st.element_budget("O")["CO"]) > 0.99
+    assert float(st.element_budget("C")["CO"]) == pytest.approx(0.5, abs=0.02)

@@ -62,6 +62,8 @@ T_MIN = 500.0
 _MAX_STEP = 5.0           # largest change of any logarithm in one Newton step
 _MAX_OUTER_STEP = 2.0     # largest change of ln n_e or ln N in one outer step
 _CHUNK = 2048             # states solved together
+_RIDGE = 1e-10
+_STALL_ACCEPT = 1e-9      # residual accepted for a state that stops improving (see _solve_chunk)
 _X_WINDOW = 20.0          # ln n_e stays within this distance of the atoms-only value
 
 
@@ -264,12 +266,19 @@ class MolecularSystem:
         for i, comps in enumerate(self._comp):
             for k, row in comps:
                 s[i] = s[i] + lmol[k][row]
-        out = {"s": s, "t": t, "mol": _pack(self.mol_chains, lmol, x0, t.size)}
-        if others:
-            out["oth"] = _pack(self.other_chains, [rel(c) for c in self.other_chains], x0, t.size)
+        out = {"s": s, "t": t, "full_mol": lmol,
+               "full_oth": [rel(c) for c in self.other_chains] if others else None}
+        return self.repack(out, x0)
+
+    def repack(self, tab: dict, x0: np.ndarray | None) -> dict:
+        """(Re)build the trimmed stage tables of ``tab`` for a window centred on ``x0``."""
+        m = tab["t"].size
+        tab["mol"] = _pack(self.mol_chains, tab["full_mol"], x0, m)
+        if tab["full_oth"] is not None:
+            tab["oth"] = _pack(self.other_chains, tab["full_oth"], x0, m)
         if x0 is not None:
-            out["xlo"], out["xhi"] = x0 - _X_WINDOW, x0 + _X_WINDOW
-        return out
+            tab["xlo"], tab["xhi"] = x0 - _X_WINDOW, x0 + _X_WINDOW
+        return tab
 
     # -- residual and Jacobian ---------------------------------------------------------------
     def evaluate(self, tab: dict, y: np.ndarray, x: np.ndarray, w: np.ndarray,
@@ -356,13 +365,15 @@ class MolecularSystem:
         out_x, out_w = x0.copy(), w0.copy()
         passes = np.zeros(n, dtype=int)
         resid = np.full(n, np.inf)
+        ok = np.zeros(n, dtype=bool)
         order = np.argsort(t, kind="stable")
         for c0 in range(0, n, _CHUNK):
             idx = order[c0:c0 + _CHUNK]
-            y, x, w, p, r = self._solve_chunk(t[idx], v[idx], closure, x0[idx], w0[idx], tol,
+            y, x, w, p, r, rr = self._solve_chunk(t[idx], v[idx], closure, x0[idx], w0[idx], tol,
                                               max_passes)
-            out_y[:, idx], out_x[idx], out_w[idx], passes[idx], resid[idx] = y, x, w, p, r
-        bad = ~(resid <= tol) | ~np.isfinite(out_x) | ~np.isfinite(out_w)
+            out_y[:, idx], out_x[idx], out_w[idx], passes[idx], resid[idx] = y, x, w, p, rr
+            ok[idx] = np.isfinite(r)
+        bad = ~ok | ~np.isfinite(out_x) | ~np.isfinite(out_w)
         if bad.any():
             raise _failure(bad, t, v, closure, resid, shape)
         from sahaboltz.equilibrium.solver import SolveReport
@@ -406,10 +417,19 @@ class MolecularSystem:
         damp = np.ones(m)                     # per-state outer step factor (trust region)
         prev = np.full(m, np.inf)
         last_err = np.full(m, np.inf)
+        stall = np.zeros(m, dtype=int)
+        accepted = np.zeros(m, dtype=bool)
         # aim a decade below the requested tolerance (so that residuals recomputed from the
         # state stay inside it); accept the requested one once progress stalls at rounding
         goal = max(0.1 * tol, 1e-14)
         for _ in range(max_passes):
+            # ln n_e ran to the edge of its window (electron-poor gas, where molecules remove
+            # the donors): re-centre the window and re-trim the stage tables
+            edge = (x[active] - tab["xlo"][active] < 1.0) | (tab["xhi"][active] - x[active] < 1.0)
+            if edge.any():
+                centre = np.where(np.isin(np.arange(m), active[edge]), x,
+                                  0.5 * (tab["xlo"] + tab["xhi"]))
+                tab = self.repack(tab, centre)
             tb = sub(tab, active)
             tg = None if target is None else target[active]
             ya = self._inner(tb, y[:, active], x[active], w[active], goal)
@@ -419,8 +439,16 @@ class MolecularSystem:
             passes[active] += 1
             err = np.abs(r).max(axis=0)
             resid[active] = err
-            done = (err <= goal) | ((err <= tol) & (err > 0.5 * last_err[active]))
+            stalled = err > 0.5 * last_err[active]
+            stall[active] = np.where(stalled, stall[active] + 1, 0)
             last_err[active] = err
+            # converged; or stuck at rounding within the tolerance; or stuck for several passes
+            # at the conditioning limit of a near-stoichiometric mixture (e.g. C/O = 1 exactly,
+            # where free C and O are a tiny difference of nearly equal totals): residual kept
+            # in the report
+            done = ((err <= goal) | ((err <= tol) & stalled)
+                    | ((err <= _STALL_ACCEPT) & (stall[active] >= 4)))
+            accepted[active[done]] = True
             if done.all():
                 break
             # outer residual (charge, pressure) grew: shrink this state's next step
@@ -449,7 +477,7 @@ class MolecularSystem:
                 col += 1
             if not fix_w:
                 w[active] = wa + step[:, col]
-        return y, x, w, passes, resid
+        return y, x, w, passes, np.where(accepted, resid, np.inf), resid
 
     def _inner(self, tb, y, x, w, tol, max_iter: int = 100):
         """Element equations at fixed n_e and N: minimise the convex function
@@ -487,6 +515,11 @@ class MolecularSystem:
             hess += at.T[:, :, None] * eye[None]
             dsc = 1.0 / np.sqrt(np.einsum("mkk->mk", hess))
             hs = hess * dsc[:, :, None] * dsc[:, None, :]
+            # a ridge of 1e-10 (relative): where one molecule holds nearly all of two elements
+            # (CO when C < O) the Hessian is singular to working precision; the ridge turns
+            # the free direction (how the rest splits between C and O) into a long, capped
+            # descent step instead of no step at all
+            hs += _RIDGE * eye[None]
             d = -_solve_batched(hs, (grad.T * dsc)) * dsc              # (ma, nk)
             big = np.abs(d).max(axis=1)
             d *= np.minimum(1.0, _MAX_STEP / np.maximum(big, 1e-300))[:, None]
