@@ -34,6 +34,8 @@ def main(argv=None) -> int:
     ap.add_argument("--workers", type=int, default=None)
     ap.add_argument("--fractions", default="all", help="stage fractions to store (default all)")
     ap.add_argument("--points", type=float, default=1e6, help="interpolation points")
+    ap.add_argument("--cache-dir", help="keep the tables in this directory (default: a temporary "
+                                        "one, deleted at the end)")
     args = ap.parse_args(argv)
 
     from sahaboltz.tables import cache
@@ -52,7 +54,7 @@ def main(argv=None) -> int:
     print(f"compute: {label}; workers: {args.workers or os.cpu_count()}")
 
     with tempfile.TemporaryDirectory(prefix="sahaboltz-bench-") as tmp:
-        os.environ[cache.CACHE_ENV] = tmp
+        os.environ[cache.CACHE_ENV] = args.cache_dir or tmp
         for size in (int(float(s)) for s in args.sizes.split(",")):
             n = int(round(size ** 0.5))
             spec = spec_from_options(f"2000:50000:{n}", f"1e-2:1e8:{n}", fractions=fractions)

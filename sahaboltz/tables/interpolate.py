@@ -68,8 +68,8 @@ class PopulationTable:
             self.temperature = f["temperature"][()]
             self.pressure = f[self.pressure_quantity][()]
             self.quantities = list(self.attrs["quantities"])
-            self._qattrs = {n: {k: _decode(v) for k, v in f[n].attrs.items()
-                                if k not in ("DIMENSION_LIST",)} for n in self.quantities}
+        self._qset = set(self.quantities)
+        self._qattrs: dict[str, dict] = {}  # read on demand: opening thousands takes seconds
         self.pressure_unit = PRESSURE_QUANTITIES[self.pressure_quantity]
         self._data: dict[str, np.ndarray] = {}
         self._prepared: dict[str, tuple[np.ndarray, bool, np.ndarray | None]] = {}
@@ -82,18 +82,23 @@ class PopulationTable:
                 f"{len(self.pressure)}, {len(self.quantities)} quantities)")
 
     def __contains__(self, name: str) -> bool:
-        return name in self.quantities
+        return name in self._qset
 
     def units(self, name: str) -> str:
-        self._known(name)
-        return str(self._qattrs[name].get("units", ""))
+        """The ``units`` attribute of a quantity."""
+        return str(self.quantity_attrs(name).get("units", ""))
 
     def quantity_attrs(self, name: str) -> dict[str, Any]:
+        """Attributes of a quantity's dataset (units, long_name, species ...)."""
         self._known(name)
+        if name not in self._qattrs:
+            with _open(self.path) as f:
+                self._qattrs[name] = {k: _decode(v) for k, v in f[name].attrs.items()
+                                      if k != "DIMENSION_LIST"}
         return dict(self._qattrs[name])
 
     def _known(self, name: str) -> None:
-        if name not in self.quantities:
+        if name not in self._qset:
             close = [q for q in self.quantities if name.lower() in q.lower()][:8]
             hint = f" (did you mean {', '.join(close)}?)" if close else ""
             raise InputError(f"table has no quantity {name!r}{hint}; it holds "
