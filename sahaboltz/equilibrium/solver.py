@@ -35,7 +35,7 @@ CLOSURES = {"gas_pressure": "dyn cm-2", "mass_density": "g cm-3",
 #: default relative tolerance on charge neutrality |sum q n - n_e| / (sum |q| n + n_e)
 DEFAULT_TOLERANCE = 1e-12
 # elements of (species x states) handled at once; bounds memory and keeps work in cache
-_CHUNK_ELEMENTS = 1 << 23
+_CHUNK_ELEMENTS = 1 << 24
 # a Newton step may move ln n_e by at most this much while no lower bracket is known
 _MAX_STEP = 20.0
 
@@ -558,7 +558,9 @@ class _Windows:
                 return False
             s0 = np.minimum(lo, n - w)
             rows = s0[None, :] + np.arange(w)[:, None]
-            a = self.c_unique[k][rows, tp[None, :]] - (c.q_min + rows) * x[None, :]
+            tab = self.c_unique[k]
+            a = np.take(tab.ravel(), rows * tab.shape[1] + tp[None, :])
+            a -= (c.q_min + rows) * x[None, :]
             plans.append((k, w, s0, a))
         for k, w, s0, a in plans:
             a -= a.max(axis=0)
