@@ -38,6 +38,8 @@ DEFAULT_TOLERANCE = 1e-12
 _CHUNK_ELEMENTS = 1 << 24
 # a Newton step may move ln n_e by at most this much while no lower bracket is known
 _MAX_STEP = 20.0
+# populations below e^-300 of an element's largest stage are floored there inside the solver
+_LOG_FLOOR = -300.0
 
 
 @dataclass
@@ -302,6 +304,7 @@ class _ChunkSolver:
         for c, tab, mom in zip(self.net.chains, tables, self.mom):
             a = tab - np.multiply.outer(c.charges, x)
             a -= a.max(axis=0)
+            np.maximum(a, _LOG_FLOOR, out=a)
             np.exp(a, out=a)
             s = mom @ a
             inv = 1.0 / s[0]
@@ -564,6 +567,8 @@ class _Windows:
             plans.append((k, w, s0, a))
         for k, w, s0, a in plans:
             a -= a.max(axis=0)
+            # e^-300 is as good as 0 here and keeps exp off its slow underflow path
+            np.maximum(a, _LOG_FLOOR, out=a)
             np.exp(a, out=a)
             if w is not None:
                 if self.width[k] is None:
