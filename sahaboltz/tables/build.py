@@ -2,8 +2,9 @@
 
 The grid is cut into rectangular blocks of at most ``chunk_states`` states.  Each block is handed
 to a *compute function* ``compute(spec, T, P) -> {name: array}`` (flat 1-D arrays of the block's
-states in, same-length arrays out) in a worker process; the parent writes finished blocks into a
-temporary HDF5 file as they arrive.  At most two blocks per worker are in flight, so memory is
+states in, same-length arrays out) in a worker process, which also compresses the results into
+HDF5 chunks (one chunk per block); the parent only stores those bytes into a temporary HDF5
+file as they arrive.  At most two blocks per worker are in flight, so memory is
 bounded by the chunk size, not the grid size.  Only a finished, flushed file is renamed into
 place (``os.replace``), so a build that fails or is killed never leaves a half table at ``path``.
 """
@@ -22,7 +23,7 @@ from typing import Any, Callable, Iterator, Mapping
 import numpy as np
 
 from sahaboltz.errors import InputError, TableError
-from sahaboltz.tables.hdf5 import TableWriter
+from sahaboltz.tables.hdf5 import MAX_CHUNK_ELEMENTS, TableWriter, encode_chunk
 from sahaboltz.tables.spec import TableSpec
 
 ComputeFn = Callable[[TableSpec, np.ndarray, np.ndarray], Mapping[str, np.ndarray]]
@@ -55,21 +56,35 @@ def block_states(spec: TableSpec, block: Block) -> tuple[np.ndarray, np.ndarray]
     return t.ravel(), p.ravel()
 
 
-def _run_block(compute: ComputeFn, spec: TableSpec, block: Block):
+def _run_block(compute: ComputeFn, spec: TableSpec, block: Block,
+               chunk_shape: tuple[int, int] | None = None):
+    """Compute one block; with ``chunk_shape``, return its HDF5 chunks encoded (as bytes)."""
     t, p = block_states(spec, block)
     out = dict(compute(spec, t, p))
     n = t.size
     for name, arr in out.items():
         if name == "_attrs":
             continue
-        arr = np.asarray(arr)
+        arr = np.asarray(arr, dtype=float)
         if arr.shape != (n,):
             raise TableError(f"compute function returned {name} with shape {arr.shape}; "
                              f"expected ({n},) for a block of {n} states")
         if not np.all(np.isfinite(arr)):
             raise TableError(f"compute function returned non-finite {name} in block {block}")
+        if chunk_shape is not None:
+            arr = encode_chunk(arr.reshape(block[1] - block[0], block[3] - block[2]), chunk_shape)
         out[name] = arr
     return block, out
+
+
+def _worker_init() -> None:
+    """Let a worker die with the build: a killed parent must not leave workers behind."""
+    try:  # Linux: prctl(PR_SET_PDEATHSIG, SIGKILL)
+        import ctypes
+        import signal
+        ctypes.CDLL("libc.so.6", use_errno=True).prctl(1, int(signal.SIGKILL))
+    except (OSError, AttributeError):
+        pass
 
 
 def default_compute() -> ComputeFn:
@@ -111,14 +126,14 @@ def _pool(workers: int) -> ProcessPoolExecutor:
     # fork shares the already-loaded level data with the workers; fall back where it is absent
     methods = multiprocessing.get_all_start_methods()
     ctx = multiprocessing.get_context("fork" if "fork" in methods else None)
-    return ProcessPoolExecutor(max_workers=workers, mp_context=ctx)
+    return ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_worker_init)
 
 
-def _results(compute: ComputeFn, spec: TableSpec, todo: list[Block],
-             workers: int) -> Iterator[tuple[Block, dict]]:
+def _results(compute: ComputeFn, spec: TableSpec, todo: list[Block], workers: int,
+             chunk_shape: tuple[int, int]) -> Iterator[tuple[Block, dict]]:
     if workers <= 1 or len(todo) <= 1:
         for b in todo:
-            yield _run_block(compute, spec, b)
+            yield _run_block(compute, spec, b, chunk_shape)
         return
     with _pool(workers) as pool:
         pending: set = set()
@@ -129,7 +144,7 @@ def _results(compute: ComputeFn, spec: TableSpec, todo: list[Block],
                     b = next(queue, None)
                     if b is None:
                         break
-                    pending.add(pool.submit(_run_block, compute, spec, b))
+                    pending.add(pool.submit(_run_block, compute, spec, b, chunk_shape))
                 if not pending:
                     return
                 finished, pending = wait(pending, return_when=FIRST_COMPLETED)
@@ -186,7 +201,7 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
         min(spec.shape[1], PROBE_STATES)
     in_flight = 2 * workers if workers > 1 else 1
     fit = int(memory_mb * 1e6 / (in_flight * max(per_state, 1.0)))
-    todo = blocks(spec.shape, max(1, min(chunk_states, fit)))
+    todo = blocks(spec.shape, max(1, min(chunk_states, fit, MAX_CHUNK_ELEMENTS)))
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = temp_path_for(path)
     first = todo[0]
@@ -194,9 +209,9 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
     bar = Progress(spec.size, progress)
     t0 = time.perf_counter()
     try:
-        writer = TableWriter(tmp, spec, dict(provenance or {}),
-                             (first[1] - first[0], first[3] - first[2]))
-        for block, values in _results(compute, spec, todo, workers):
+        chunk_shape = (first[1] - first[0], first[3] - first[2])
+        writer = TableWriter(tmp, spec, dict(provenance or {}), chunk_shape)
+        for block, values in _results(compute, spec, todo, workers, chunk_shape):
             writer.write_block(block, values)
             bar.update((block[1] - block[0]) * (block[3] - block[2]))
         writer.finish({"build_seconds": round(time.perf_counter() - t0, 3)})

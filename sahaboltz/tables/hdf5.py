@@ -8,7 +8,8 @@ Layout (documented in docs/table_format.md):
 - provenance in root attributes; ``complete = 1`` and the ``quantities`` list are written last.
 
 Files are plain HDF5 that h5py, xarray (engine ``h5netcdf``), C and Fortran read without custom
-code.  Datasets carry a Fletcher-32 checksum per chunk, so a damaged chunk fails loudly on read.
+code.  Chunks are deflate streams (with the shuffle filter); zlib's Adler-32 checksum makes a
+damaged chunk fail loudly on read.
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ import datetime as _dt
 import json
 import os
 import re
+import zlib
 from pathlib import Path
 from typing import Any, Mapping
 
@@ -29,8 +31,26 @@ from sahaboltz.tables.spec import PRESSURE_QUANTITIES, SCALAR_OUTPUTS, TableSpec
 
 FORMAT_NAME = "sahaboltz population table"
 FORMAT_VERSION = 1
-#: largest HDF5 chunk in elements (1 MB of float64); small enough to read a corner quickly
+#: largest HDF5 chunk (= build block) in elements: 1 MB of float64
 MAX_CHUNK_ELEMENTS = 131072
+GZIP_LEVEL = 1
+
+
+def encode_chunk(block: np.ndarray, chunk_shape: tuple[int, int]) -> bytes:
+    """One HDF5 chunk as the dataset's filters (shuffle, then deflate) would write it.
+
+    Workers encode their blocks so that compression runs in parallel and the writing process
+    only stores bytes (``write_direct_chunk``).  A block at the grid edge is padded with zeros
+    to the chunk shape (HDF5 ignores the part outside the dataset).  The zlib stream carries an
+    Adler-32 checksum, so a damaged chunk fails to decompress instead of reading as numbers.
+    """
+    a = np.asarray(block, dtype="<f8")
+    if a.shape != tuple(chunk_shape):
+        full = np.zeros(chunk_shape, dtype="<f8")
+        full[:a.shape[0], :a.shape[1]] = a
+        a = full
+    shuffled = np.ascontiguousarray(a).view(np.uint8).reshape(-1, 8).T.tobytes()
+    return zlib.compress(shuffled, GZIP_LEVEL)
 
 _SPECIES_RE = re.compile(r"^(fraction|population|partition)_([A-Z][a-z]?)_([IVXLCDM]+)(?:_L(\d+))?$")
 _LONG = {"fraction": "fraction of element {el} in stage {sp}",
@@ -71,13 +91,11 @@ class TableWriter:
         self._names: list[str] = []
         self._refs: list = []
         self._extra_attrs: dict[str, dict] = {}
-        bt, bp = block_shape
-        while bt * bp > MAX_CHUNK_ELEMENTS:  # keep chunks ~<= 1 MB
-            if bt >= bp:
-                bt = max(1, bt // 2)
-            else:
-                bp = max(1, bp // 2)
-        self.chunks = (bt, bp)
+        if block_shape[0] * block_shape[1] > MAX_CHUNK_ELEMENTS:
+            raise TableError(f"block {block_shape} is larger than the largest chunk "
+                             f"({MAX_CHUNK_ELEMENTS} states)")
+        self.chunks = tuple(block_shape)  # one HDF5 chunk per build block
+        self._datasets: dict[str, h5py.Dataset] = {}
         f = self.file
         f.attrs["format_name"] = FORMAT_NAME
         f.attrs["format_version"] = FORMAT_VERSION
@@ -103,10 +121,9 @@ class TableWriter:
         d.make_scale(name)
         return d
 
-    def _create(self, name: str, dtype) -> h5py.Dataset:
-        d = self.file.create_dataset(name, shape=self.spec.shape, dtype=dtype, chunks=self.chunks,
-                                     compression="gzip", compression_opts=1, shuffle=True,
-                                     fletcher32=True)
+    def _create(self, name: str) -> h5py.Dataset:
+        d = self.file.create_dataset(name, shape=self.spec.shape, dtype="<f8", chunks=self.chunks,
+                                     compression="gzip", compression_opts=GZIP_LEVEL, shuffle=True)
         # dimension scales, attached the way H5DSattach_scale does, but with each scale's
         # REFERENCE_LIST written once in finish(): attaching one by one is quadratic in the
         # number of datasets (thousands for a solar mixture)
@@ -118,10 +135,12 @@ class TableWriter:
         for k, v in {**quantity_attrs(name), **self._extra_attrs.get(name, {})}.items():
             d.attrs[k] = v
         self._names.append(name)
+        self._datasets[name] = d
         return d
 
-    def write_block(self, block: tuple[int, int, int, int], values: Mapping[str, np.ndarray]):
-        """Store ``values[name]`` (shape of the block) at ``block = (i0, i1, j0, j1)``."""
+    def write_block(self, block: tuple[int, int, int, int], values: Mapping[str, Any]):
+        """Store the block ``(i0, i1, j0, j1)``: per name an array of the block's states, or
+        its chunk already encoded by :func:`encode_chunk` (done in the workers)."""
         i0, i1, j0, j1 = block
         # the quantity that is the pressure axis is stored once, as the coordinate
         values = {k: v for k, v in values.items()
@@ -129,13 +148,16 @@ class TableWriter:
         self._extra_attrs.update(values.pop("_attrs", {}) or {})
         if not self._names:
             for name in values:
-                self._create(name, np.asarray(values[name]).dtype)
+                self._create(name)
         elif set(values) != set(self._names):
             raise TableError(f"compute function returned different quantities for block {block}: "
                              f"{sorted(set(values) ^ set(self._names))}")
-        for name, arr in values.items():
-            arr = np.asarray(arr).reshape(i1 - i0, j1 - j0)
-            self.file[name][i0:i1, j0:j1] = arr
+        if (i0 % self.chunks[0]) or (j0 % self.chunks[1]):
+            raise TableError(f"block {block} is not aligned with the chunks {self.chunks}")
+        for name, v in values.items():
+            raw = v if isinstance(v, bytes) else encode_chunk(
+                np.asarray(v, dtype=float).reshape(i1 - i0, j1 - j0), self.chunks)
+            self._datasets[name].id.write_direct_chunk((i0, j0), raw)
 
     def finish(self, extra: Mapping[str, Any] | None = None) -> None:
         """Write the closing attributes, flush to disk and close."""
@@ -203,8 +225,8 @@ def check_table(path: str | Path, *, key: str | None = None, full: bool = False)
 
     The quick check (fast enough for every cache hit) opens the file -- HDF5 itself notices a
     truncated file --, checks the closing attributes, that every listed dataset exists, and the
-    shape and last chunk of the last one written.  ``full=True`` reads every chunk of every dataset, verifying the
-    Fletcher-32 checksums, so flipped bits anywhere are found.
+    shape and last chunk of the last one written.  ``full=True`` reads every chunk of every
+    dataset, so damaged bytes anywhere are found (deflate checksums).
     """
     path = Path(path)
     with _open(path) as f:
