@@ -10,7 +10,10 @@ for free, which favours the reference), padded into an (elements x stages) array
 residual evaluation is one numpy expression over all species.  It is timed on a subset of the
 states spread over the grid and scaled to the full grid.
 
-Prints: times, speedup, the solver's average passes, the largest n_e difference against the
+A second reference does the same with a residual that loops over the elements in Python
+(timed on a quarter of the subset).
+
+Prints: times, speedups, the solver's average passes, the largest n_e difference against the
 reference, the charge-neutrality and element-conservation residuals of the solved grid.
 
     python benchmarks/bench_solver.py [--nt 200] [--np 200] [--subset 400]
@@ -68,6 +71,33 @@ def reference_solver(network: AtomicNetwork):
     return tables, solve
 
 
+def looping_reference(network: AtomicNetwork):
+    """The same brentq, but each residual walks the elements one by one (a plain loop)."""
+    chains = network.chains
+    zmax = network.max_mean_charge
+
+    def solve(t: float, p: float, ctabs: list) -> float:
+        ntot = p / (K_B * t)
+
+        def g(x):
+            zbar = 0.0
+            for c, tab in zip(chains, ctabs):
+                a = tab - c.charges * x
+                e = np.exp(a - a.max())
+                zbar += c.fraction * float(c.charges @ e) / float(e.sum())
+            if zbar <= 0:
+                return -1e3
+            return np.log((ntot - np.exp(x)) * zbar) - x
+
+        hi = np.log(ntot * zmax / (1.0 + zmax))
+        lo = hi - 50.0
+        while g(lo) <= 0:
+            lo -= 50.0
+        return float(np.exp(brentq(g, lo, hi, xtol=1e-13, rtol=8.9e-16)))
+
+    return solve
+
+
 def main(argv=None) -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--nt", type=int, default=200)
@@ -119,6 +149,21 @@ def main(argv=None) -> None:
           f"{t_ref_full:.1f} s")
     print(f"  (its Saha tables, given for free: {t_tab / ut.size * 1e3:.1f} ms per temperature)")
     print(f"speedup: {t_ref_full / t_vec:.0f}x")
+
+    loop = looping_reference(network)
+    few = pick[: max(1, pick.size // 4)]
+    ne_loop = np.empty(few.size)
+    t0 = time.perf_counter()
+    for j, i in enumerate(few):
+        t_i = tt.ravel()[i]
+        rows = ctabs[t_i]
+        ne_loop[j] = loop(t_i, pp.ravel()[i], [rows[k, :c.n] for k, c in
+                                               enumerate(network.chains)])
+    t_loop = (time.perf_counter() - t0) / few.size * tt.size
+    print(f"second reference (same brentq, residual looping over the elements): "
+          f"{t_loop / tt.size * 1e3:.2f} ms per state, scaled {t_loop:.1f} s; "
+          f"speedup {t_loop / t_vec:.0f}x; max n_e difference "
+          f"{np.abs(state.n_e.ravel()[few] / ne_loop - 1).max():.2e}")
 
     ne_vec = state.n_e.ravel()[pick]
     rel = np.abs(ne_vec / ne_ref - 1.0)
