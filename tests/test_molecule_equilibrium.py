@@ -77,6 +77,10 @@ def test_mass_action_and_budgets(cool_mix):
                                kn[1], rtol=1e-9)
     np.testing.assert_allclose(st.number_density("C II") * st.number_density("O I")
                                / st.molecule_density("CO+"), kn[2], rtol=1e-9)
+    # molecules by exact name through number_density too; "Co" stays cobalt (not in the mix)
+    np.testing.assert_array_equal(st.number_density("CO"), st.molecule_density("CO"))
+    with pytest.raises(UnknownSpeciesError):
+        st.number_density("Co")
     for el in ("H", "C", "O", "Fe"):
         budget = st.element_budget(el)
         np.testing.assert_allclose(sum(budget.values()), 1.0, rtol=1e-11)
@@ -165,3 +169,14 @@ def test_carbon_rich_gas_co_locks_oxygen(cool_mix):
                            molecules="default")
     assert float(st.element_budget("O")["CO"]) > 0.99
     assert float(st.element_budget("C")["CO"]) == pytest.approx(0.5, abs=0.02)
+
+
+def test_all_molecules_solar_over_the_range():
+    """Every usable molecule of the data (283 for the solar mixture) over the issue's range."""
+    t = np.geomspace(1000.0, 1e4, 12)[:, None]
+    p = np.geomspace(1e-2, 1e8, 12)[None, :]
+    st = solve_equilibrium(solar(), t, gas_pressure=p, molecules="all")
+    assert len(st.molecule_names) > 250
+    assert st.charge_residual().max() <= 1e-10
+    assert st.conservation_residual().max() <= 1e-12
+    np.testing.assert_allclose(st.gas_pressure, np.broadcast_to(p, st.shape), rtol=1e-12)

@@ -694,6 +694,13 @@ class MolecularEquilibriumState(EquilibriumState):
                                       f"({', '.join(self.system.names)})") from None
         return self._n_mol[i]
 
+    def number_density(self, species) -> np.ndarray:
+        """Number density [cm^-3] of an atomic species ("Fe II", "H-") or, by its exact name,
+        of a molecule of this solve ("CO" is carbon monoxide here, "Co" cobalt)."""
+        if isinstance(species, str) and species.strip() in self.system.names:
+            return self._n_mol[self.system.names.index(species.strip())]
+        return super().number_density(species)
+
     def molecular_fraction(self, element) -> np.ndarray:
         """Fraction of the nuclei of ``element`` that are bound in molecules."""
         chain = self.network.chain_of(element)
