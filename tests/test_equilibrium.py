@@ -239,3 +239,28 @@ def test_cli_state_and_half_ionization(capsys):
     assert "lte_mcwhirter" in capsys.readouterr().out
     assert main(["state", "-T", "5000", "--gas-pressure", "1e5", "--mix", "Xx:1"]) == 2
     assert main(["state", "-T", "0", "--gas-pressure", "1e5"]) == 2
+
+
+def test_occupation_truncation_tends_to_plain_at_low_density():
+    # DESIGN.md: at low density every truncation must tend to the plain level sum (Hummer &
+    # Mihalas 1988 occupation probabilities -> 1 as n_e -> 0)
+    comp = Composition.from_number({"H": 0.9, "He": 0.1})
+    t = np.array([6000.0, 12000.0, 30000.0])
+    plain = solve_equilibrium(comp, t, hydrogen_density=1e4)
+    occ = solve_equilibrium(comp, t, hydrogen_density=1e4, truncation="occupation")
+    np.testing.assert_allclose(occ.n_e, plain.n_e, rtol=1e-6)
+    dense = solve_equilibrium(comp, t, hydrogen_density=1e18, truncation="occupation")
+    assert dense.charge_residual().max() <= 1e-10
+    # dissolving the high levels lowers U(H I) and so raises the ionization at high density
+    assert np.all(dense.fraction("H II") >= solve_equilibrium(comp, t, hydrogen_density=1e18)
+                  .fraction("H II"))
+
+
+def test_missing_level_lists():
+    from sahaboltz.errors import NoDataError
+
+    nd = Composition.from_number({"Nd": 1.0})
+    st = solve_equilibrium(nd, 2e4, gas_pressure=1e3)
+    assert "Nd VI" in st.unit_partition   # no NIST level list for Nd VI-XI
+    with pytest.raises(NoDataError, match="Nd VI"):
+        solve_equilibrium(nd, 2e4, gas_pressure=1e3, missing_levels="error")
