@@ -418,3 +418,45 @@ def test_cli_template_is_a_valid_spec(tmp_path, capsys):
     f = tmp_path / "t.toml"
     f.write_text(out)
     assert TableSpec.from_file(f).shape == (141, 101)
+
+
+_POOL_BUILDER = """
+from sahaboltz.tables import cache
+from table_helpers import slow_hydrogen_compute
+from test_tables import small_spec
+cache.get_table(small_spec(), compute=slow_hydrogen_compute, workers=2, chunk_states=50,
+                progress=False)
+"""
+
+
+def _alive(pid: int) -> bool:
+    try:
+        state = Path(f"/proc/{pid}/status").read_text()
+    except OSError:
+        return False
+    return "State:\tZ" not in state  # a zombie has exited
+
+
+@pytest.mark.skipif(not Path("/proc/self/status").exists(), reason="needs Linux /proc")
+def test_killed_parallel_build_leaves_no_workers_or_table(cache_env, tmp_path):
+    d, marker = cache_env
+    env = _subprocess_env(tmp_path, SBT_TEST_SLEEP=0.3)
+    proc = subprocess.Popen([sys.executable, "-c", _POOL_BUILDER], env=env, cwd=tmp_path)
+    try:
+        deadline = time.time() + 60
+        # the probe runs in the builder itself, blocks in its workers: wait for two worker pids
+        while len(set(calls(marker)) - {str(proc.pid)}) < 2:
+            assert proc.poll() is None and time.time() < deadline
+            time.sleep(0.05)
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait(timeout=30)
+    finally:
+        if proc.poll() is None:
+            os.kill(proc.pid, signal.SIGKILL)
+            proc.wait()
+    workers = [int(x) for x in set(calls(marker)) - {str(proc.pid)}]
+    deadline = time.time() + 20
+    while any(_alive(w) for w in workers) and time.time() < deadline:
+        time.sleep(0.1)
+    assert not any(_alive(w) for w in workers)
+    assert list(d.glob("*.h5")) == []
