@@ -130,6 +130,31 @@ def plain_log_ticks(axis, lo: float, hi: float) -> None:
     axis.set_minor_formatter(NullFormatter())
 
 
+def log_ticks(axis, lo: float, hi: float, plain: bool = True) -> None:
+    """Ticks for an axis that shows log10 of a quantity: labels in the quantity itself.
+
+    ``plain``: 3,000 / 5,000 / 10,000 style labels; otherwise decades as powers of ten.
+    """
+    from matplotlib.ticker import FixedLocator, FuncFormatter
+
+    k0, k1 = int(np.floor(np.log10(lo))) - 1, int(np.ceil(np.log10(hi))) + 1
+    inside = lambda v: lo * (1 - 1e-9) <= v <= hi * (1 + 1e-9)
+    if plain:
+        for mantissas in ((1, 2, 3, 5), (1, 2, 5), (1, 3), (1,)):
+            major = [m * 10.0**k for k in range(k0, k1) for m in mantissas if inside(m * 10.0**k)]
+            if len(major) <= 9:
+                break
+        fmt = FuncFormatter(lambda v, _: f"{10**v:,.0f}" if 10**v >= 1 else f"{10**v:.3g}")
+    else:
+        step = max(1, int(np.ceil((np.log10(hi) - np.log10(lo)) / 9)))
+        major = [10.0**k for k in range(k0, k1) if k % step == 0 and inside(10.0**k)]
+        fmt = FuncFormatter(lambda v, _: f"$10^{{{int(round(v))}}}$")
+    minor = [m * 10.0**k for k in range(k0, k1) for m in range(1, 10) if inside(m * 10.0**k)]
+    axis.set_major_locator(FixedLocator(np.log10(major)))
+    axis.set_major_formatter(fmt)
+    axis.set_minor_locator(FixedLocator(np.log10(minor)))
+
+
 def _stage_names(element, charges: Sequence[int]) -> list[str]:
     z = atomic_number(element)
     return [spectroscopic_name(z, int(q)) for q in charges]
@@ -200,8 +225,9 @@ def draw_dominant_map(temperature, pressure, dominant, element, *, title: str, n
         Charge of the dominant stage at each grid point.
     element : str
     fractions : array_like, shape (n_stages, nT, nP), optional
-        Stage fractions; when given, the boundary between two neighbouring stages is drawn
-        where their fractions are equal (smoother than the boundary of the integer map).
+        Stage fractions; when given, regions and boundaries follow the lines where
+        neighbouring stages are equally populated (interpolated between grid points) instead
+        of the cells of the integer map.
     charges : sequence of int, optional
         Charge of each row of ``fractions``.
     track : (T, P, label), optional
@@ -223,65 +249,115 @@ def draw_dominant_map(temperature, pressure, dominant, element, *, title: str, n
                "#e2e2e2"]
     cmap = ListedColormap([palette[(q - lo) % len(palette)] for q in qs])
     norm = BoundaryNorm(np.arange(lo - 0.5, hi + 1.0), cmap.N)
-    tt, pp = np.meshgrid(t, p, indexing="ij")
-    ax.pcolormesh(tt, pp, d, cmap=cmap, norm=norm, shading="nearest", rasterized=True)
-    ax.set_xscale("log")
-    ax.set_yscale("log")
-    # boundaries between neighbouring stages: where their fractions are equal
-    for q in qs[:-1]:
-        if fractions is not None and charges is not None:
-            ch = list(charges)
-            fr = np.asarray(fractions)
-            a, b = fr[ch.index(q)], fr[ch.index(q + 1)]
+    # everything is drawn in (log10 T, log10 P) on linear axes, so that contour lines are
+    # interpolated in the logarithms, where the fields are smooth; ticks show plain values
+    lt, lp = np.log10(t), np.log10(p)
+    tt, pp = np.meshgrid(lt, lp, indexing="ij")
+    if fractions is not None and charges is not None and len(qs) > 1:
+        # a smooth "stage level": lo + sum_q logistic(ln f_{q+1} - ln f_q).  It passes q + 1/2
+        # exactly where stages q and q+1 are equally populated, so filling between its
+        # half-integer contours and drawing them gives regions and boundary lines that agree
+        # and do not show the grid cells
+        from scipy.special import expit
+
+        ch = list(charges)
+        floor = 1e-290
+        fr = np.asarray(fractions, dtype=float)
+        level = np.full(d.shape, float(lo))
+        for q in qs[:-1]:
+            a_, b_ = fr[ch.index(q)], fr[ch.index(q + 1)]
             with np.errstate(divide="ignore"):
-                field = np.log(np.maximum(b, 1e-300)) - np.log(np.maximum(a, 1e-300))
-            # only where these two are the leading pair
-            top2 = np.isin(d, (q, q + 1))
-            field = np.where(top2, field, np.nan)
-        else:
-            field = np.where(d <= q, -1.0, 1.0)
-        if not (np.nanmin(field) < 0 < np.nanmax(field)):
+                field = np.log(np.maximum(b_, floor)) - np.log(np.maximum(a_, floor))
+            # both underflowed: far from this boundary, on the side the dominant stage says
+            both = (a_ < floor) & (b_ < floor)
+            field = np.where(both, np.where(d > q, 50.0, -50.0), field)
+            level += expit(field)
+        ax.contourf(tt, pp, level, levels=np.arange(lo - 0.5, hi + 1.0), cmap=cmap, norm=norm)
+    else:
+        level = d.astype(float)
+        ax.pcolormesh(tt, pp, d, cmap=cmap, norm=norm, shading="nearest", rasterized=True)
+    # boundaries between neighbouring stages, labelled
+    for q in qs[:-1]:
+        if not (level.min() < q + 0.5 < level.max()):
             continue
-        cs = ax.contour(tt, pp, field, levels=[0.0], colors="k", linewidths=1.3)
+        cs = ax.contour(tt, pp, level, levels=[q + 0.5], colors="k", linewidths=1.3)
+        cs.stage_boundary = (q, q + 1)  # for readers of the figure (tests); log10 T, log10 P
         label = f"{names[q - lo]} | {names[q - lo + 1]}"
-        ax.clabel(cs, fmt={0.0: label}, inline=True, fontsize=7.5, inline_spacing=3)
-    # stage names in the middle of their regions
-    _label_regions(ax, t, p, d, qs, names)
+        ax.clabel(cs, fmt={q + 0.5: label}, inline=True, fontsize=7.5, inline_spacing=3)
     if track is not None:
         tt_, pp_, lab = track
-        ax.plot(tt_, pp_, color="#8b1a1a", lw=2.0, label=lab)
+        ax.plot(np.log10(tt_), np.log10(pp_), color="#8b1a1a", lw=2.0, label=lab)
         ax.legend(loc="upper left", fontsize=8.5, framealpha=0.9)
     for tm, pm, text in marks:
-        ax.plot([tm], [pm], "o", color="#8b1a1a", ms=4.5)
-        ax.annotate(text, (tm, pm), xytext=(6, -3), textcoords="offset points", fontsize=8,
-                    color="#8b1a1a", ha="left", va="top")
-    ax.set_xlim(t[0], t[-1])
-    ax.set_ylim(p[0], p[-1])
-    plain_log_ticks(ax.xaxis, t[0], t[-1])
+        ax.plot([np.log10(tm)], [np.log10(pm)], "o", color="#8b1a1a", ms=4.5)
+        ax.annotate(text, (np.log10(tm), np.log10(pm)), xytext=(6, -3),
+                    textcoords="offset points", fontsize=8, color="#8b1a1a", ha="left",
+                    va="top")
+    ax.set_xlim(lt[0], lt[-1])
+    ax.set_ylim(lp[0], lp[-1])
+    log_ticks(ax.xaxis, t[0], t[-1], plain=True)
+    log_ticks(ax.yaxis, p[0], p[-1], plain=False)
     ax.set_xlabel("temperature $T$ [K]")
     ax.set_ylabel(_pressure_axis_label(pressure_quantity))
     set_title(fig, ax, title)
     if note:
         add_note(fig, note)
+    # stage names inside their regions, last: they are placed where they clear the lines
+    _label_regions(fig, ax, lt, lp, d, qs, names)
     return fig
 
 
-def _label_regions(ax, t, p, d, qs, names) -> None:
+def _label_regions(fig, ax, x, y, d, qs, names) -> None:
+    """Stage names inside their regions (x, y: the plot coordinates of the grid).
+
+    Candidates are the points deepest inside each region, nearest its centre first; a name is
+    put at the first candidate where its box clears every line and label already drawn, and
+    left out when none does (the boundary labels still name the stage).
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
     from scipy.ndimage import distance_transform_edt, label
 
+    if not isinstance(fig.canvas, FigureCanvasAgg):
+        FigureCanvasAgg(fig)
+    renderer = fig.canvas.get_renderer()
+    lines = [ax.transData.transform_path(path)
+             for coll in ax.collections if hasattr(coll, "stage_boundary")
+             for path in coll.get_paths()]
+    lines += [ax.transData.transform_path(ln.get_path()) for ln in ax.lines]
+    taken = [t.get_window_extent(renderer) for t in ax.texts]
+    frame = ax.get_window_extent(renderer)
+    sampling = ((x[1] - x[0]) / (x[-1] - x[0]), (y[1] - y[0]) / (y[-1] - y[0]))
     for q, name in zip(qs, names):
         regions, n = label(d == q)
         for r in range(1, n + 1):
             mask = regions == r
-            # the point deepest inside the region, distances in fractions of the axes (the
-            # axes are logarithmic and the grids near-uniform in log); the frame is an edge
-            sampling = (1.0 / max(1, t.size - 1), 1.0 / max(1, p.size - 1))
             dist = distance_transform_edt(np.pad(mask, 1), sampling=sampling)[1:-1, 1:-1]
-            if dist.max() < 0.045:
+            if dist.max() < 0.03:
                 continue  # a sliver: its boundary label says enough
-            i, j = np.unravel_index(int(np.argmax(dist)), mask.shape)
-            ax.text(t[i], p[j], name, ha="center", va="center", fontsize=12, fontweight="bold",
-                    color="0.15")
+            ii, jj = np.nonzero(dist >= 0.5 * dist.max())
+            ci, cj = np.nonzero(mask)
+            far = ((ii - ci.mean()) * sampling[0]) ** 2 + ((jj - cj.mean()) * sampling[1]) ** 2
+            score = dist[ii, jj] - 0.5 * np.sqrt(far)
+            text = ax.text(0, 0, name, ha="center", va="center", fontweight="bold",
+                           color="0.15")
+            if not _place(text, renderer, frame, lines, taken,
+                          [(x[ii[k]], y[jj[k]]) for k in np.argsort(-score)[:60]]):
+                text.remove()
+
+
+def _place(text, renderer, frame, lines, taken, candidates) -> bool:
+    """Put ``text`` at the first candidate (large type, then smaller) that clears everything."""
+    for size in (12, 9.5):
+        text.set_fontsize(size)
+        for xy in candidates:
+            text.set_position(xy)
+            box = text.get_window_extent(renderer).expanded(1.15, 1.3)
+            if (frame.contains(box.x0, box.y0) and frame.contains(box.x1, box.y1)
+                    and not any(pth.intersects_bbox(box, filled=False) for pth in lines)
+                    and not any(box.overlaps(b) for b in taken)):
+                taken.append(box)
+                return True
+    return False
 
 
 # -- drawing: partition functions, electron pressure, level populations ---------------------
