@@ -180,3 +180,12 @@ def test_all_molecules_solar_over_the_range():
     assert st.charge_residual().max() <= 1e-10
     assert st.conservation_residual().max() <= 1e-12
     np.testing.assert_allclose(st.gas_pressure, np.broadcast_to(p, st.shape), rtol=1e-12)
+
+
+def test_unconverged_states_are_reported(cool_mix):
+    from sahaboltz.errors import ConvergenceError
+    t = np.array([[1500.0, 2500.0], [3500.0, 4500.0]])
+    with pytest.raises(ConvergenceError, match=r"did not converge at \d+ of 4 states") as info:
+        solve_equilibrium(cool_mix, t, gas_pressure=1e6, molecules="default", max_passes=1)
+    assert info.value.indices and all(len(i) == 2 for i in info.value.indices)
+    assert "T = 1500 K" in str(info.value)

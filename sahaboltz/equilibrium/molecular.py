@@ -61,6 +61,7 @@ MOLECULE_SETS = ("default", "all", "none")
 T_MIN = 500.0
 _MAX_STEP = 5.0           # largest change of any logarithm in one Newton step
 _MAX_OUTER_STEP = 2.0     # largest change of ln n_e or ln N in one outer step
+_START_PASSES = 200       # passes allowed to the atoms-only solver that gives the start
 _CHUNK = 2048             # states solved together
 _RIDGE = 1e-10
 _STALL_ACCEPT = 1e-9      # residual accepted for a state that stops improving (see _solve_chunk)
@@ -192,12 +193,15 @@ def solve_with_molecules(composition: Composition, temperature: Any, *, gas_pres
     tf, vf = t.ravel().copy(), v.ravel().copy()
     try:
         atoms = solve_equilibrium(composition, tf, **{name: vf}, truncation=truncation,
-                                  tolerance=max(tolerance, 1e-14), max_passes=max_passes,
+                                  tolerance=max(tolerance, 1e-14), max_passes=_START_PASSES,
                                   network=network)
         x0, w0 = atoms.log_ne.copy(), np.log(atoms.nuclei_density)
     except ConvergenceError as exc:
         if name != "electron_pressure":
-            raise
+            bad = np.zeros(tf.size, dtype=bool)
+            bad[[i[0] for i in exc.indices]] = True
+            raise _failure(bad, tf, vf, name, np.full(tf.size, np.inf), shape,
+                           what="the atoms-only starting solution") from None
         x0 = np.log(vf / (K_B * tf))
         w0 = x0 + 15.0
         bad = np.zeros(tf.size, dtype=bool)
@@ -205,7 +209,7 @@ def solve_with_molecules(composition: Composition, temperature: Any, *, gas_pres
         if (~bad).any():
             good = solve_equilibrium(composition, tf[~bad], electron_pressure=vf[~bad],
                                      truncation=truncation, tolerance=max(tolerance, 1e-14),
-                                     max_passes=max_passes, network=network)
+                                     max_passes=_START_PASSES, network=network)
             w0[~bad] = np.log(good.nuclei_density)
     system = MolecularSystem(network, mols)
     sol = system.solve(tf, vf, name, x0, w0, tolerance, max_passes, shape)
@@ -626,7 +630,8 @@ def _solve_batched(jac: np.ndarray, rhs: np.ndarray) -> np.ndarray:
         return out
 
 
-def _failure(bad, t, v, name, resid, shape) -> ConvergenceError:
+def _failure(bad, t, v, name, resid, shape,
+             what: str = "the molecular equilibrium") -> ConvergenceError:
     from sahaboltz.equilibrium.solver import CLOSURES
     where = np.flatnonzero(bad)
     lines = []
@@ -635,7 +640,7 @@ def _failure(bad, t, v, name, resid, shape) -> ConvergenceError:
         lines.append(f"  state {idx}: T = {t[i]:.6g} K, {name} = {v[i]:.6g} {CLOSURES[name]} "
                      f"(residual {resid[i]:.3g})")
     more = f"\n  ... and {where.size - 10} more" if where.size > 10 else ""
-    err = ConvergenceError(f"the molecular equilibrium did not converge at {where.size} of "
+    err = ConvergenceError(f"{what} did not converge at {where.size} of "
                            f"{bad.size} states:\n" + "\n".join(lines) + more +
                            "\n(try molecules='default' or fewer molecules, or a looser tolerance)")
     err.indices = [tuple(int(j) for j in np.unravel_index(i, shape)) for i in where]
