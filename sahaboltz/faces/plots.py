@@ -288,11 +288,8 @@ def draw_dominant_map(temperature, pressure, dominant, element, *, title: str, n
         tt_, pp_, lab = track
         ax.plot(np.log10(tt_), np.log10(pp_), color="#8b1a1a", lw=2.0, label=lab)
         ax.legend(loc="upper left", fontsize=8.5, framealpha=0.9)
-    for tm, pm, text in marks:
+    for tm, pm, _ in marks:
         ax.plot([np.log10(tm)], [np.log10(pm)], "o", color="#8b1a1a", ms=4.5)
-        ax.annotate(text, (np.log10(tm), np.log10(pm)), xytext=(6, -3),
-                    textcoords="offset points", fontsize=8, color="#8b1a1a", ha="left",
-                    va="top")
     ax.set_xlim(lt[0], lt[-1])
     ax.set_ylim(lp[0], lp[-1])
     log_ticks(ax.xaxis, t[0], t[-1], plain=True)
@@ -302,20 +299,15 @@ def draw_dominant_map(temperature, pressure, dominant, element, *, title: str, n
     set_title(fig, ax, title)
     if note:
         add_note(fig, note)
-    # stage names inside their regions, last: they are placed where they clear the lines
+    # labels last, placed where they clear the lines: the marks, then the stage names
+    _label_marks(fig, ax, [(np.log10(tm), np.log10(pm), text) for tm, pm, text in marks])
     _label_regions(fig, ax, lt, lp, d, qs, names)
     return fig
 
 
-def _label_regions(fig, ax, x, y, d, qs, names) -> None:
-    """Stage names inside their regions (x, y: the plot coordinates of the grid).
-
-    Candidates are the points deepest inside each region, nearest its centre first; a name is
-    put at the first candidate where its box clears every line and label already drawn, and
-    left out when none does (the boundary labels still name the stage).
-    """
+def _obstacles(fig, ax):
+    """Renderer, axes frame, drawn line paths and text boxes, in display coordinates."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from scipy.ndimage import distance_transform_edt, label
 
     if not isinstance(fig.canvas, FigureCanvasAgg):
         FigureCanvasAgg(fig)
@@ -325,7 +317,45 @@ def _label_regions(fig, ax, x, y, d, qs, names) -> None:
              for path in coll.get_paths()]
     lines += [ax.transData.transform_path(ln.get_path()) for ln in ax.lines]
     taken = [t.get_window_extent(renderer) for t in ax.texts]
-    frame = ax.get_window_extent(renderer)
+    return renderer, ax.get_window_extent(renderer), lines, taken
+
+
+def _label_marks(fig, ax, marks) -> None:
+    """Label marked points beside them, on the first side where the label clears the lines."""
+    if not marks:
+        return
+    renderer, frame, lines, taken = _obstacles(fig, ax)
+    sides = [((7, -2), "left", "top"), ((-7, -2), "right", "top"),
+             ((7, 4), "left", "bottom"), ((-7, 4), "right", "bottom")]
+    for x, y, text in marks:
+        for k, (off, ha, va) in enumerate(sides):
+            ann = ax.annotate(text, (x, y), xytext=off, textcoords="offset points", fontsize=8,
+                              color="#8b1a1a", ha=ha, va=va)
+            box = ann.get_window_extent(renderer).expanded(1.05, 1.1)
+            fits = (frame.contains(box.x0, box.y0) and frame.contains(box.x1, box.y1)
+                    and not any(p.intersects_bbox(box, filled=False) for p in lines)
+                    and not any(box.overlaps(b) for b in taken))
+            if fits or k == len(sides) - 1:  # no side is free: keep the first choice
+                if not fits:
+                    ann.remove()
+                    ann = ax.annotate(text, (x, y), xytext=sides[0][0],
+                                      textcoords="offset points", fontsize=8,
+                                      color="#8b1a1a", ha="left", va="top")
+                taken.append(ann.get_window_extent(renderer))
+                break
+            ann.remove()
+
+
+def _label_regions(fig, ax, x, y, d, qs, names) -> None:
+    """Stage names inside their regions (x, y: the plot coordinates of the grid).
+
+    Candidates are the points deepest inside each region, nearest its centre first; a name is
+    put at the first candidate where its box clears every line and label already drawn, and
+    left out when none does (the boundary labels still name the stage).
+    """
+    from scipy.ndimage import distance_transform_edt, label
+
+    renderer, frame, lines, taken = _obstacles(fig, ax)
     sampling = ((x[1] - x[0]) / (x[-1] - x[0]), (y[1] - y[0]) / (y[-1] - y[0]))
     for q, name in zip(qs, names):
         regions, n = label(d == q)
