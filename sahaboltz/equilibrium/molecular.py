@@ -22,12 +22,15 @@ positive terms (no cancellation, well scaled from 1 to 10^20 cm^-3):
                            mass or hydrogen density: N fixed; electron pressure: x fixed.
 
 Every density is exp of a linear function of the unknowns times T-only factors, so the
-Jacobian is exact and cheap (sums of fractions).  Newton's method runs on all states at once
-(batched dense solves of size |M| + 2), with a step cap of 5 in the logarithms and a
-backtracking line search on the squared residual.  Starting values: the atoms-only solution,
-whose neutral densities overestimate the molecular ones; Newton in the logarithms corrects a
-product n_a n_b / K that is orders of magnitude too large in a few steps (it is linear in the
-unknowns when one term dominates a sum).
+Jacobian is exact and cheap (sums of fractions).  All states are solved at once:
+
+1. start from the atoms-only solution, then Gauss-Seidel sweeps over the element equations at
+   fixed n_e and N (removes the gross overestimate of the molecules);
+2. inner solve: at fixed n_e and N the element equations are the gradient of a convex function
+   of y; damped Newton on it (line search, small ridge) converges from any start;
+3. outer step: one full Newton step at the inner solution (the Schur-complement step in
+   ln n_e, ln N), capped at 2 in those logarithms and halved for a state whose charge or
+   pressure residual grew; back to 2 until every log residual is below the tolerance.
 
 Results come back as a :class:`MolecularEquilibriumState` (an
 :class:`~sahaboltz.equilibrium.state.EquilibriumState` whose atomic populations are scaled to
@@ -43,7 +46,7 @@ import numpy as np
 
 from sahaboltz.constants import AMU, K_B
 from sahaboltz.data.composition import Composition
-from sahaboltz.data.elements import SYMBOLS, atomic_number
+from sahaboltz.data.elements import SYMBOLS
 from sahaboltz.data.molecules import Molecule, MoleculeDatabase, default_molecule_database
 from sahaboltz.equilibrium.network import AtomicNetwork
 from sahaboltz.equilibrium.state import EquilibriumState
