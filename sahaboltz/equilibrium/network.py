@@ -160,7 +160,7 @@ class AtomicNetwork:
             z, q = int(name[0]), int(name[1])
         else:
             z, q = parse_species(name)
-        key = H_MINUS if (z == 1 and q == -1) else spectroscopic_name(z, q) if q >= 0 else None
+        key = spectroscopic_name(z, q)  # "H-" for the negative ion
         if key not in self._by_name:
             raise UnknownSpeciesError(f"{name!r} is not among the species of this mixture "
                                       f"({', '.join(self.composition.symbols)})")

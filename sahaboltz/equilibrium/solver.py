@@ -346,7 +346,7 @@ class _ChunkSolver:
         s_z2 = np.exp(x)  # sum z^2 n_z, lagged by one pass (used only with lowering)
         active = np.arange(m)
         windows = _Windows(self.net.chains, *self.ideal_tables) if self.ideal else None
-        step = np.full(m, 0.25)  # size of the last Newton step (sets the window margins)
+        step = np.full(m, 0.5)  # size of the last Newton step (sets the window margins)
         fixed_pe = self.fixed_n is None and self.ntot is None
         prev = np.full(m, np.inf)  # previous step size, for the rtsafe-style safeguard
         for _ in range(max_passes):

@@ -12,8 +12,8 @@ from typing import Any
 
 import numpy as np
 
-from sahaboltz.constants import AMU, E_CHARGE, K_B
-from sahaboltz.equilibrium.network import H_MINUS, AtomicNetwork, Chain
+from sahaboltz.constants import AMU, E_CHARGE, EV, K_B
+from sahaboltz.equilibrium.network import AtomicNetwork, Chain
 from sahaboltz.errors import InputError, NoDataError
 
 #: McWhirter (1965) criterion coefficient [cm^-3 K^-1/2 eV^-3]: n_e >= 1.6e12 T^1/2 dE^3
@@ -193,7 +193,7 @@ class EquilibriumState:
         kw = {}
         if self.network.truncation == "lowered":
             q = chain.charges[i - chain.offset]
-            kw["lowering_ev"] = (q + 1.0) * E_CHARGE**2 / self.debye_length / _EV()
+            kw["lowering_ev"] = (q + 1.0) * E_CHARGE**2 / self.debye_length / EV
         elif self.network.truncation == "occupation":
             kw["n_e"] = self.n_e
         terms, energy, _ = chain.model.level_terms(sp, self.temperature, **kw)
@@ -311,7 +311,3 @@ class EquilibriumState:
         return (f"EquilibriumState({self.composition.name!r}, shape={self.shape}, "
                 f"closure={self.closure}, {self.network.n_species} species)")
 
-
-def _EV() -> float:
-    from sahaboltz.constants import EV
-    return EV
