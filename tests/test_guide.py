@@ -1,9 +1,10 @@
 """The user guide's examples run: every ```python block (in order, one namespace) and every
 line of a ```sh block that starts with ``sahaboltz`` (through the CLI entry point), in an
 empty directory with a private table cache; a ```toml block whose first line is
-``# NAME.toml: ...`` is written to NAME.toml when it is reached.  The C and Fortran examples cannot be compiled
-here (no HDF5 development files are assumed), so their dataset paths are checked against the
-table the guide builds; the guide's links to other documents must resolve."""
+``# NAME.toml: ...`` is written to NAME.toml when it is reached.  The C and Fortran examples
+cannot be compiled here (no HDF5 development files are assumed), so their dataset paths are
+checked against the table the guide builds; the guide's links to other documents must
+resolve."""
 
 from __future__ import annotations
 
@@ -77,8 +78,8 @@ def test_guide_examples_run(tmp_path, monkeypatch):
                 ran += 1
     assert ran >= 20
     # the files the examples say they write exist and are what they claim
-    for name in ("first.h5", "grid.toml", "template.toml", "fe_stages.png", "fe_map.png", "fe_u.pdf", "pe.png",
-                 "ar2_levels.png", "ca_stages.png"):
+    for name in ("first.h5", "grid.toml", "template.toml", "fe_stages.png", "fe_map.png",
+                 "fe_u.pdf", "pe.png", "ar2_levels.png", "ca_stages.png"):
         assert (tmp_path / name).stat().st_size > 0, name
     assert (tmp_path / "fe_u.pdf").read_bytes()[:5] == b"%PDF-"
     assert sorted(p.name for p in (tmp_path / "demo-plots").glob("*.png"))

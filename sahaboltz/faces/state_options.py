@@ -154,4 +154,5 @@ def describe_state(composition, *, closure: str | None = None, value: Any = None
 
 __all__ = ["add_mixture_options", "add_closure_options", "composition_from_args",
            "solver_options", "closure_from_args", "parse_values", "parse_mix", "describe_state",
-           "composition_label", "physics_label", "format_value", "unit_label", "CLOSURE_UNITS", "CLOSURE_SYMBOLS"]
+           "composition_label", "physics_label", "format_value", "unit_label",
+           "CLOSURE_UNITS", "CLOSURE_SYMBOLS"]
