@@ -5,9 +5,9 @@
    3,000-12,000 K x gas pressure 1e2-1e6 dyn cm^-2 is built through the table cache; its
    depths follow an illustrative T-P relation: the Eddington grey law
    T^4 = 3/4 Teff^4 (tau + 2/3) and an invented P_gas = 1.5e5 tau^0.65 dyn cm^-2.
-2. **"ARC-1"**, an invented laboratory arc in pure argon at 1 atm, 8,000-20,000 K (table
-   through the cache), plus, at a few temperatures, the size of the Debye-Hueckel lowering
-   (is the ideal gas good enough?) and the McWhirter check of LTE.
+2. **"ARC-1"**, an invented laboratory arc in pure argon at 1 atm, 8,000-20,000 K, with
+   Debye-Hueckel lowering of the ionization energies (table through the cache), plus, at a few
+   temperatures, the size of that lowering against kT and the McWhirter check of LTE.
 
 :func:`run_demo` builds (or finds) both tables, reads them back with the interpolating reader,
 writes a few plots and returns a summary; ``sahaboltz demo`` prints it.  ``quick=True`` uses
@@ -37,7 +37,7 @@ P_TAU1, P_POWER = 1.5e5, 0.65
 
 ATM = 1.01325e6  # dyn cm^-2 per standard atmosphere (definition of the atmosphere)
 #: the invented arc; ``lowering`` switches Debye-Hueckel lowering on in its table
-ARC = {"name": "ARC-1", "gas": "argon", "pressure": ATM, "lowering": False}
+ARC = {"name": "ARC-1", "gas": "argon", "pressure": ATM, "lowering": True}
 ARC_REPORT_T = (8000.0, 10000.0, 12000.0, 14000.0, 16000.0, 18000.0, 20000.0)
 
 
