@@ -185,14 +185,7 @@ def draw_stage_fractions(temperature, fractions, names: Sequence[str], *, title:
     fig, ax = new_figure()
     shown = [i for i in range(len(names)) if f[i].max() >= min_fraction]
     for k, i in enumerate(shown):
-        color = _COLORS[k % len(_COLORS)]
-        ax.plot(t, f[i], color=color, lw=1.8, label=names[i])
-        j = int(np.argmax(f[i]))
-        y = f[i, j]
-        # label each curve at its peak, nudged inside the axes at the ends of the range
-        ha = "left" if j < 0.06 * t.size else ("right" if j > 0.94 * t.size else "center")
-        ax.annotate(names[i], (t[j], y), xytext=(0, 4), textcoords="offset points",
-                    ha=ha, va="bottom", color=color, fontsize=9.5, fontweight="bold")
+        ax.plot(t, f[i], color=_COLORS[k % len(_COLORS)], lw=1.8, label=names[i])
     ax.set_xlabel("temperature $T$ [K]")
     ax.set_ylabel("fraction of the element in the stage, $n_r/N$")
     ax.set_xlim(t[0], t[-1])
@@ -205,7 +198,45 @@ def draw_stage_fractions(temperature, fractions, names: Sequence[str], *, title:
     set_title(fig, ax, title)
     if note:
         add_note(fig, note)
+    _label_curves(fig, ax, t, [f[i] for i in shown], [names[i] for i in shown],
+                  [_COLORS[k % len(_COLORS)] for k in range(len(shown))])
     return fig
+
+
+def _label_curves(fig, ax, t, curves, names, colors) -> None:
+    """Name each curve near its peak, at the first spot where the name clears the other
+    names and the curves (above the peak, else beside the falling or rising flank)."""
+    renderer, frame, lines, taken = _obstacles(fig, ax)
+    n = t.size
+    idx = np.arange(n)
+    for y, name, color in zip(curves, names, colors):
+        j = int(np.argmax(y))
+        edge = "left" if j < 0.06 * n else ("right" if j > 0.94 * n else "center")
+        spots = [(j, (0, 4), edge)]
+        for level in (0.8, 0.5, 0.25):
+            for side, off, ha in ((idx > j, (5, 2), "left"), (idx < j, (-5, 2), "right")):
+                if side.any():
+                    k = int(np.argmin(np.where(side, np.abs(y - level * y[j]), np.inf)))
+                    spots.append((k, off, ha))
+        placed = False
+        for k, off, ha in spots:
+            ann = ax.annotate(name, (t[k], y[k]), xytext=off, textcoords="offset points",
+                              ha=ha, va="bottom", color=color, fontsize=9.5,
+                              fontweight="bold")
+            box = ann.get_window_extent(renderer)
+            pad = box.expanded(1.06, 1.1)
+            if (frame.contains(box.x0 + 1, box.y0 + 1) and frame.contains(box.x1 - 1, box.y1 - 1)
+                    and not any(pth.intersects_bbox(pad, filled=False) for pth in lines)
+                    and not any(pad.overlaps(b) for b in taken)):
+                taken.append(pad)
+                placed = True
+                break
+            ann.remove()
+        if not placed:  # nowhere free: above the peak after all
+            ann = ax.annotate(name, (t[j], y[j]), xytext=(0, 4), textcoords="offset points",
+                              ha=edge, va="bottom", color=color, fontsize=9.5,
+                              fontweight="bold")
+            taken.append(ann.get_window_extent(renderer))
 
 
 # -- drawing: dominant stage ---------------------------------------------------------------
