@@ -14,7 +14,6 @@ import signal
 import subprocess
 import sys
 import time
-import warnings
 from pathlib import Path
 
 import astropy.units as u
@@ -30,7 +29,6 @@ from sahaboltz.tables.hdf5 import check_table
 from sahaboltz.tables.interpolate import open_table
 from sahaboltz.tables.spec import EXAMPLE_TOML, TableSpec, spec_from_options
 
-import table_helpers
 from table_helpers import hydrogen_compute, hydrogen_saha, slow_hydrogen_compute
 
 TESTS_DIR = Path(__file__).resolve().parent

@@ -15,11 +15,9 @@ clamps them onto the grid edge and ``outside="nan"`` returns NaN there (asked-fo
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
-from typing import Any, Iterable, Sequence
+from typing import Any, Sequence
 
-import h5py
 import numpy as np
 
 from sahaboltz.errors import InputError, TableError
