@@ -83,7 +83,8 @@ def register(subparsers) -> None:
 
 def _temperature(p, default: str, scale: str) -> None:
     p.add_argument("--temperature", default=default, metavar="MIN:MAX:NUM|V1,V2,..",
-                   help=f"temperatures [K] ({scale}ly spaced; default {default})")
+                   help=f"temperatures [K] ({'log-spaced' if scale == 'log' else 'evenly spaced'} "
+                        f"from MIN:MAX:NUM; default {default})")
 
 
 def _state(p) -> None:

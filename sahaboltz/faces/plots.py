@@ -33,7 +33,7 @@ from sahaboltz.constants import K_B_EV
 from sahaboltz.data.elements import atomic_number, parse_species, spectroscopic_name
 from sahaboltz.errors import InputError
 from sahaboltz.faces.state_options import (CLOSURE_SYMBOLS, CLOSURE_UNITS, describe_state,
-                                           format_value, physics_label, unit_label)
+                                           format_value, unit_label)
 from sahaboltz.quantities import as_positive_array
 
 #: file suffixes :func:`save_figure` writes
@@ -785,4 +785,4 @@ __all__ = ["save_figure", "new_figure", "add_note", "draw_stage_fractions", "dra
            "draw_partition_functions", "draw_electron_pressure", "draw_level_populations",
            "stage_fractions_plot", "dominant_stage_plot", "partition_function_plot",
            "electron_pressure_plot", "level_population_data", "level_population_plot",
-           "physics_label"]
+           "log_ticks", "plain_log_ticks", "set_title"]
