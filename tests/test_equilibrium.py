@@ -264,3 +264,17 @@ def test_missing_level_lists():
     assert "Nd VI" in st.unit_partition   # no NIST level list for Nd VI-XI
     with pytest.raises(NoDataError, match="Nd VI"):
         solve_equilibrium(nd, 2e4, gas_pressure=1e3, missing_levels="error")
+
+
+@pytest.mark.parametrize("truncation", ["lowered", "occupation"])
+def test_lowering_converges_over_the_range(truncation):
+    t = np.geomspace(1e3, 1e6, 5)[:, None]
+    p = np.geomspace(1e-4, 1e10, 6)[None, :]
+    comp = solar(elements=["H", "He", "C", "N", "O", "Ne", "Na", "Mg", "Si", "S", "Ca", "Fe"])
+    st = solve_equilibrium(comp, t, gas_pressure=p, lowering=True, truncation=truncation,
+                           completion=truncation == "lowered")
+    assert st.charge_residual().max() <= 1e-10
+    assert st.conservation_residual().max() <= 1e-12
+    np.testing.assert_allclose(st.gas_pressure, np.broadcast_to(p, st.shape), rtol=1e-12)
+    # the lowering is weak where Debye-Hueckel holds: cold dense gas stays almost neutral
+    assert float(st.fraction("H I")[0, -1]) > 0.99

@@ -13,7 +13,9 @@ pressure (each nucleus is one particle while there are no molecules); N = n_e / 
 given electron pressure.  We solve g(x) = ln(N Zbar) - x = 0 in x = ln n_e for all states at
 once with a safeguarded Newton method: dZbar/dx = -sum_k alpha_k Var_k(q) exactly (the stage
 populations are an exponential family in x), g' <= -1, and every state keeps a bracket
-[lo, hi] with g(lo) > 0 > g(hi) so that a bad Newton step becomes a bisection.
+[lo, hi] with g(lo) > 0 > g(hi) so that a bad Newton step becomes a bisection.  Non-ideal
+corrections (lowering, occupation probabilities) are frozen, solved for, and updated in an
+outer fixed point (:func:`_solve_nonideal_block`).
 """
 
 from __future__ import annotations
@@ -38,6 +40,10 @@ DEFAULT_TOLERANCE = 1e-12
 _CHUNK_ELEMENTS = 1 << 24
 # a Newton step may move ln n_e by at most this much while no lower bracket is known
 _MAX_STEP = 20.0
+# half-width in ln n_e of a bracket opened again around a state (non-ideal options)
+_REOPEN = 0.05
+# most updates of the frozen non-ideal corrections
+_MAX_OUTER = 60
 # populations below e^-300 of an element's largest stage are floored there inside the solver
 _LOG_FLOOR = -300.0
 
@@ -204,6 +210,16 @@ def _solve_flat(network, t, v, name, lowering, tol, max_passes, shape):
         ut = tinv = c_unique = None
     for c0 in range(0, n, chunk):
         idx = order[c0:c0 + chunk]
+        if c_unique is None:
+            out = _solve_nonideal_block(network, t[idx], v[idx], name,
+                                        None if fixed_n is None else fixed_n[idx],
+                                        None if ntot is None else ntot[idx], lowering, tol,
+                                        max_passes)
+            x_out[idx], nuc_out[idx], passes[idx], resid[idx], done, lam = out
+            failed[idx] = ~done
+            if lowering:
+                lam_out[idx] = lam
+            continue
         sub = _ChunkSolver(network, t[idx], v[idx], name,
                            None if fixed_n is None else fixed_n[idx],
                            None if ntot is None else ntot[idx], lowering,
@@ -219,6 +235,74 @@ def _solve_flat(network, t, v, name, lowering, tol, max_passes, shape):
     if lowering:
         _check_lowering(network, lam_out, t, v, name, shape)
     return x_out, nuc_out, lam_out, SolveReport(passes.reshape(shape), resid.reshape(shape))
+
+
+def _solve_nonideal_block(network, t, v, name, fixed_n, ntot, lowering, tol, max_passes):
+    """Outer fixed point on the n_e-dependent corrections around the ideal Newton solver.
+
+    The corrections (Debye-Hueckel lowering from n_e and sum z^2 n_z; occupation
+    probabilities from n_e) are frozen at theta = (n_e, sum z^2 n_z); with them frozen the
+    Saha chains depend on T alone and the safeguarded Newton solve of the ideal case applies
+    unchanged (monotone, bracketed).  theta is then updated from the solution until it
+    reproduces itself to the tolerance.
+    """
+    m = t.size
+    x = np.full(m, np.nan)
+    nuc = np.full(m, np.nan)
+    passes = np.zeros(m, dtype=int)
+    resid = np.full(m, np.inf)
+    done = np.zeros(m, dtype=bool)
+    lam_out = np.full(m, np.nan)
+    zmax = network.max_mean_charge
+    if name == "gas_pressure":
+        x_hi = np.log(ntot * zmax / (1.0 + zmax))
+    elif fixed_n is not None:
+        x_hi = np.log(fixed_n * zmax)
+    else:
+        x_hi = np.log(v / (K_B * t))
+    # start from the weakly non-ideal branch: no lowering, a low density for the occupation
+    # probabilities (starting from full ionization can land on a spurious self-sustained
+    # Debye-Hueckel "pressure ionization" branch in cold dense gas)
+    fixed_pe = fixed_n is None and ntot is None
+    ne_th = np.exp(x_hi) if fixed_pe else np.ones(m)
+    s_th = ne_th.copy()
+    act = np.arange(m)
+    for outer in range(_MAX_OUTER):
+        if act.size == 0:
+            break
+        tt = t[act]
+        lam = (np.sqrt(K_B * tt / (4.0 * np.pi * E_CHARGE**2 * (ne_th + s_th)))
+               if lowering and outer > 0 else None)
+        tables = [network.log_c(c, tt, ne_th, lam) for c in network.chains]
+        intervals = [_significance_intervals(c.charges, tab) for c, tab in
+                     zip(network.chains, tables)]
+        child = _ChunkSolver(network, tt, v[act], name,
+                             None if fixed_n is None else fixed_n[act],
+                             None if ntot is None else ntot[act], False,
+                             (tables, intervals, np.arange(act.size)))
+        child.run(tol, max_passes)
+        passes[act] += child.passes
+        ok = child.done
+        xn = np.where(ok, child.x, np.log(ne_th))
+        _, _, _, z2 = child._moments(tables, xn)
+        ne_new = np.exp(xn)
+        s_new = np.where(ok, child.nuc * z2, s_th)
+        conv = ok & (np.abs(xn - np.log(ne_th)) <= tol) & (outer > 0 or not lowering)
+        if lowering:
+            conv &= np.abs(s_new - s_th) <= tol * (ne_new + s_new)
+        fin = act[conv]
+        x[fin], nuc[fin], resid[fin] = xn[conv], child.nuc[conv], child.resid[conv]
+        done[fin] = True
+        if lowering and lam is not None:
+            lam_out[fin] = lam[conv]
+        # states whose frozen-correction solve failed cannot be helped by iterating
+        keep = ~conv & ok
+        resid[act[~ok]] = child.resid[~ok]
+        act = act[keep]
+        ne_th, s_th = ne_new[keep], s_new[keep]
+    if act.size:
+        resid[act] = np.maximum(resid[act], tol * 10)
+    return x, nuc, passes, resid, done, lam_out
 
 
 def _failure(bad, t, v, name, resid, shape, truncation="plain") -> ConvergenceError:
@@ -434,8 +518,8 @@ class _ChunkSolver:
                 # bracket around an unconverged state is opened again
                 stale = (ha - la) <= 1e-9 * np.maximum(1.0, np.abs(xa))
                 if stale.any():
-                    lo[a] = np.where(stale, -np.inf, la)
-                    hi[a] = np.where(stale, self.x_hi[a], ha)
+                    lo[a] = np.where(stale, xa - _REOPEN, la)
+                    hi[a] = np.where(stale, np.minimum(xa + _REOPEN, self.x_hi[a]), ha)
                     la, ha = lo[a], hi[a]
                     outside = ~(nnk > 0) | ~np.isfinite(xn) | ~(xn > la) | ~(xn < ha)
             bisect = np.where(np.isfinite(la), 0.5 * (la + ha), ha - _MAX_STEP)
