@@ -40,8 +40,6 @@ DEFAULT_TOLERANCE = 1e-12
 _CHUNK_ELEMENTS = 1 << 24
 # a Newton step may move ln n_e by at most this much while no lower bracket is known
 _MAX_STEP = 20.0
-# half-width in ln n_e of a bracket opened again around a state (non-ideal options)
-_REOPEN = 0.05
 # most updates of the frozen non-ideal corrections
 _MAX_OUTER = 60
 # populations below e^-300 of an element's largest stage are floored there inside the solver
@@ -222,13 +220,10 @@ def _solve_flat(network, t, v, name, lowering, tol, max_passes, shape):
             continue
         sub = _ChunkSolver(network, t[idx], v[idx], name,
                            None if fixed_n is None else fixed_n[idx],
-                           None if ntot is None else ntot[idx], lowering,
-                           None if c_unique is None else (c_unique, intervals, tinv[idx]))
+                           None if ntot is None else ntot[idx], (c_unique, intervals, tinv[idx]))
         sub.run(tol, max_passes)
         x_out[idx], nuc_out[idx], passes[idx], resid[idx] = sub.x, sub.nuc, sub.passes, sub.resid
         failed[idx] = ~sub.done
-        if lowering:
-            lam_out[idx] = sub.lam
     bad = failed | ~np.isfinite(x_out) | ~np.isfinite(nuc_out) | ~(nuc_out > 0)
     if bad.any():
         raise _failure(bad, t, v, name, resid, shape, network.truncation)
@@ -278,7 +273,7 @@ def _solve_nonideal_block(network, t, v, name, fixed_n, ntot, lowering, tol, max
                      zip(network.chains, tables)]
         child = _ChunkSolver(network, tt, v[act], name,
                              None if fixed_n is None else fixed_n[act],
-                             None if ntot is None else ntot[act], False,
+                             None if ntot is None else ntot[act],
                              (tables, intervals, np.arange(act.size)))
         child.run(tol, max_passes)
         passes[act] += child.passes
@@ -344,24 +339,20 @@ def _check_lowering(network, lam, t, v, name, shape):
 
 
 class _ChunkSolver:
-    """Safeguarded Newton in ln n_e over one block of states."""
+    """Safeguarded Newton in ln n_e over one block of states, with fixed Saha tables."""
 
-    def __init__(self, network, t, v, name, fixed_n, ntot, lowering, ideal_tables):
+    def __init__(self, network, t, v, name, fixed_n, ntot, tables):
         self.net = network
         self.t, self.v, self.name = t, v, name
         self.fixed_n, self.ntot = fixed_n, ntot
-        self.lowering = lowering
-        # (C tables on the unique temperatures, significance intervals, each state's T index),
-        # or None when the tables depend on n_e and are recomputed every pass
-        self.ideal_tables = ideal_tables
-        self.ideal = ideal_tables is not None
+        # (C tables per temperature, their significance intervals, each state's T index)
+        self.ideal_tables = tables
         m = t.size
         self.passes = np.zeros(m, dtype=int)
         self.done = np.zeros(m, dtype=bool)
         self.x = np.empty(m)
         self.nuc = np.full(m, np.nan)
         self.resid = np.full(m, np.inf)
-        self.lam = np.full(m, np.nan) if lowering else None
         zmax = network.max_mean_charge
         if name == "gas_pressure":
             self.x_hi = np.log(ntot * zmax / (1.0 + zmax))
@@ -373,16 +364,8 @@ class _ChunkSolver:
                     for c in network.chains]
 
     # -- the charge balance --------------------------------------------------------------
-    def _tables(self, sel, x, s_z2):
-        """C tables (recomputed: non-ideal) of the states ``sel`` and their Debye lengths."""
-        t = self.t[sel]
-        ne = np.exp(x)
-        lam = None
-        if self.lowering:
-            lam = np.sqrt(K_B * t / (4.0 * np.pi * E_CHARGE**2 * (ne + s_z2)))
-        return [self.net.log_c(c, t, ne, lam) for c in self.net.chains], lam
-
     def _moments(self, tables, x):
+        """Charge moments from full chains (tables of the same states as ``x``)."""
         m = x.size
         zbar, var, zabs, z2 = (np.zeros(m) for _ in range(4))
         for c, tab, mom in zip(self.net.chains, tables, self.mom):
@@ -405,17 +388,10 @@ class _ChunkSolver:
         if self.fixed_n is None and self.ntot is None:
             return self.x_hi.copy()
         terms = []
-        if self.ideal:
-            c_unique, _, tpos = self.ideal_tables
-            for c, tab in zip(self.net.chains, c_unique):
-                i0 = int(np.flatnonzero(c.charges == 0)[0])
-                terms.append(np.log(c.fraction) + (tab[i0 + 1] - tab[i0])[tpos])
-        else:  # any n_e-dependent correction will do for a first guess
-            ne = np.exp(self.x_hi - 3.0)
-            tables, _ = self._tables(np.arange(self.t.size), np.log(ne), ne)
-            for c, tab in zip(self.net.chains, tables):
-                i0 = int(np.flatnonzero(c.charges == 0)[0])
-                terms.append(np.log(c.fraction) + tab[i0 + 1] - tab[i0])
+        c_unique, _, tpos = self.ideal_tables
+        for c, tab in zip(self.net.chains, c_unique):
+            i0 = int(np.flatnonzero(c.charges == 0)[0])
+            terms.append(np.log(c.fraction) + (tab[i0 + 1] - tab[i0])[tpos])
         terms = np.array(terms)
         mx = terms.max(axis=0)
         ln_sum = mx + np.log(np.exp(terms - mx).sum(axis=0))
@@ -427,20 +403,14 @@ class _ChunkSolver:
         x = self._initial()
         lo = np.full(m, -np.inf)
         hi = self.x_hi.copy()
-        s_z2 = np.exp(x)  # sum z^2 n_z, lagged by one pass (used only with lowering)
         active = np.arange(m)
-        windows = _Windows(self.net.chains, *self.ideal_tables) if self.ideal else None
+        windows = _Windows(self.net.chains, *self.ideal_tables)
         step = np.full(m, 0.5)  # size of the last Newton step (sets the window margins)
         fixed_pe = self.fixed_n is None and self.ntot is None
         prev = np.full(m, np.inf)  # previous step size, for the rtsafe-style safeguard
         for _ in range(max_passes):
             xa = x[active]
-            if self.ideal:
-                zbar, var, zabs, z2 = windows.moments(active, xa, step[active])
-                lam = None
-            else:
-                tables, lam = self._tables(active, xa, s_z2[active])
-                zbar, var, zabs, z2 = self._moments(tables, xa)
+            zbar, var, zabs, _ = windows.moments(active, xa, step[active])
             self.passes[active] += 1
             ne = np.exp(xa)
             if fixed_pe:
@@ -456,10 +426,6 @@ class _ChunkSolver:
             if fixed_pe:
                 ok = np.isfinite(nn) & (nn > 0)
                 rel = np.where(ok, 0.0, np.inf)
-            if self.lowering:
-                s_new = np.maximum(nn * z2, 0.0)
-                ok &= np.abs(s_new - s_z2[active]) <= tol * (ne + s_z2[active])
-                s_z2[active] = np.where(np.isfinite(s_new), s_new, s_z2[active])
             # stalled at machine precision inside a collapsed bracket: accept if still good
             tight = (hi[active] - lo[active]) <= 8e-16 * np.maximum(1.0, np.abs(xa))
             ok |= tight & (rel <= 1e-10)
@@ -468,9 +434,7 @@ class _ChunkSolver:
             self.x[done_now] = xa[ok]
             self.nuc[done_now] = nn[ok]
             self.resid[done_now] = rel[ok]
-            if self.lowering:
-                self.lam[done_now] = lam[ok]
-            if fixed_pe and not self.lowering:
+            if fixed_pe:  # n_e is given: one evaluation decides
                 self.x[active] = xa
                 self.resid[active] = rel
                 break
@@ -479,9 +443,6 @@ class _ChunkSolver:
                 break
             self.resid[active[keep]] = rel[keep]
             self.x[active[keep]] = xa[keep]
-            if fixed_pe:
-                active = active[keep]
-                continue  # fixed point on the screening density only
             # Newton step with bracket safeguard
             a = active[keep]
             xa, zb, vr, nnk, nek = xa[keep], zbar[keep], var[keep], nn[keep], ne[keep]
@@ -501,27 +462,12 @@ class _ChunkSolver:
                     if self.ntot is not None:
                         df_lin = df_lin - zb
                     xn = np.where(lin, xa - f_lin / df_lin, xn)
-            # a bracket end that contradicts the sign found here is dropped (with n_e-dependent
-            # corrections the function moves a little between passes, and near the root a
-            # bracket can collapse on the wrong side of it)
-            hi[a] = np.where((g > 0) & ~(xa < hi[a]), self.x_hi[a], hi[a])
-            lo[a] = np.where((g < 0) & ~(xa > lo[a]), -np.inf, lo[a])
             lo[a] = np.where(g > 0, np.maximum(lo[a], xa), lo[a])
             hi[a] = np.where(g < 0, np.minimum(hi[a], xa), hi[a])
             la, ha = lo[a], hi[a]
             outside = ~(nnk > 0) | ~np.isfinite(xn) | ~(xn > la) | ~(xn < ha)
-            if self.ideal:
-                # too slow a decrease (e.g. Newton cycling across a kink): bisect (as rtsafe)
-                outside |= np.isfinite(la) & (np.abs(xn - xa) > 0.5 * prev[a])
-            else:
-                # the corrections lag one pass, so old bracket ends can be stale: a collapsed
-                # bracket around an unconverged state is opened again
-                stale = (ha - la) <= 1e-9 * np.maximum(1.0, np.abs(xa))
-                if stale.any():
-                    lo[a] = np.where(stale, xa - _REOPEN, la)
-                    hi[a] = np.where(stale, np.minimum(xa + _REOPEN, self.x_hi[a]), ha)
-                    la, ha = lo[a], hi[a]
-                    outside = ~(nnk > 0) | ~np.isfinite(xn) | ~(xn > la) | ~(xn < ha)
+            # too slow a decrease (e.g. Newton cycling across a kink): bisect (as rtsafe)
+            outside |= np.isfinite(la) & (np.abs(xn - xa) > 0.5 * prev[a])
             bisect = np.where(np.isfinite(la), 0.5 * (la + ha), ha - _MAX_STEP)
             xn = np.where(outside, bisect, xn)
             xn = np.where(np.isfinite(la), xn, np.maximum(xn, xa - _MAX_STEP))
