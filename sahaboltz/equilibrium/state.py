@@ -192,8 +192,9 @@ class EquilibriumState:
         sp = chain.model.species[row]
         kw = {}
         if self.network.truncation == "lowered":
-            q = chain.charges[i - chain.offset]
-            kw["lowering_ev"] = (q + 1.0) * E_CHARGE**2 / self.debye_length / EV
+            # the model wants a lowering for each of its species: (n_species,) + state shape
+            z1 = np.array([s.charge + 1.0 for s in chain.model.species])
+            kw["lowering_ev"] = np.multiply.outer(z1, E_CHARGE**2 / self.debye_length / EV)
         elif self.network.truncation == "occupation":
             kw["n_e"] = self.n_e
         terms, energy, _ = chain.model.level_terms(sp, self.temperature, **kw)

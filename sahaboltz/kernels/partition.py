@@ -273,6 +273,8 @@ class PartitionModel:
         """
         s = self.index(species)
         st = self._states(temperature, n_e, lowering_ev, n_neutral)
+        if "cut" in st:  # _arg pairs each species' cut with its levels: keep this species'
+            st["cut"] = st["cut"][s:s + 1]
         lv = np.arange(self._starts[s], self._starts[s] + self._counts[s])
         out = np.empty((st["n"], len(lv)))
         for lo in range(0, st["n"], max(1, _BLOCK // len(lv))):
