@@ -21,7 +21,8 @@ def test_populations_with_debye_lowering_sum_and_follow_boltzmann(db):
     kT = (const.k_B * T * u.K).to(u.eV).value
     expected = lv.g[1] / lv.g[0] * np.exp(-(lv.energy_ev[1] - lv.energy_ev[0]) / kT)
     np.testing.assert_allclose(pops[1] / pops[0], expected, rtol=1e-10)
-    # levels within the lowering of the limit are left out
-    dchi = 2 * const.e.gauss.value ** 2 / state.debye_length / (1 * u.eV).to(u.erg).value
-    top = energy[:, None] >= db["Ar II"].ionization_energy_ev - dchi[None, :]
+    # Ar I levels within the lowering of the limit, e^2 / lambda_D, are left out
+    pops, energy = state.level_populations("Ar I")
+    dchi = const.e.gauss.value ** 2 / state.debye_length / (1 * u.eV).to(u.erg).value
+    top = energy[:, None] >= db["Ar I"].ionization_energy_ev - dchi[None, :]
     assert top.any() and (pops[top] == 0).all() and (pops[~top] > 0).all()
