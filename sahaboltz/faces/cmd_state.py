@@ -2,33 +2,9 @@
 
 from __future__ import annotations
 
-from sahaboltz.data.composition import Composition, solar
-from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
-
-_CLOSURE_FLAGS = (("gas_pressure", "--gas-pressure", "P_gas [dyn cm^-2]"),
-                  ("mass_density", "--mass-density", "rho [g cm^-3]"),
-                  ("hydrogen_density", "--hydrogen-density", "n_H, hydrogen nuclei [cm^-3]"),
-                  ("electron_pressure", "--electron-pressure", "P_e [dyn cm^-2]"))
-
-
-def _add_mixture_options(p) -> None:
-    p.add_argument("--mix", default="solar", metavar="MIX",
-                   help="'solar' (Asplund et al. 2009) or amounts such as 'N:0.78,O:0.21,Ar:0.0093' "
-                        "(default solar)")
-    p.add_argument("--by", choices=("number", "mass"), default="number",
-                   help="whether --mix amounts are by number or mass fractions (default number)")
-    p.add_argument("--metallicity", type=float, default=0.0, metavar="DEX",
-                   help="[M/H] scaling of the metals (default 0)")
-    p.add_argument("--alpha", type=float, default=0.0, metavar="DEX",
-                   help="[alpha/Fe] enhancement of O Ne Mg Si S Ar Ca Ti (default 0)")
-    p.add_argument("--lowering", action="store_true",
-                   help="Debye-Hueckel lowering of the ionization energies (self-consistent)")
-    p.add_argument("--truncation", choices=("plain", "lowered", "occupation"), default=None,
-                   help="partition-function truncation (default: lowered with --lowering, "
-                        "else plain)")
-    p.add_argument("--no-h-minus", action="store_true", help="leave H- out")
-
+from sahaboltz.faces.state_options import (CLOSURE_FLAGS, add_mixture_options, parse_mix,
+                                           solver_options)
 
 def register(sub) -> None:
     p = sub.add_parser("state", help="stage fractions of a gas at one temperature and pressure",
@@ -37,9 +13,9 @@ def register(sub) -> None:
     p.add_argument("-T", "--temperature", type=float, required=True, metavar="K",
                    help="temperature [K]")
     grp = p.add_mutually_exclusive_group(required=True)
-    for dest, flag, text in _CLOSURE_FLAGS:
+    for dest, flag, text in CLOSURE_FLAGS:
         grp.add_argument(flag, dest=dest, type=float, metavar="X", help=text)
-    _add_mixture_options(p)
+    add_mixture_options(p)
     p.add_argument("--elements", default=None, metavar="LIST",
                    help="comma-separated elements to list (default: all of a custom mix; "
                         "H,He,C,N,O,Na,Mg,Si,Ca,Fe for solar)")
@@ -47,6 +23,9 @@ def register(sub) -> None:
                    help="hide stages below this fraction of their element (default 1e-6)")
     p.add_argument("--dominant-only", action="store_true",
                    help="one row per element: its dominant stage")
+    p.add_argument("--budget", action="store_true",
+                   help="with --molecules: where each listed element's nuclei are (atoms, "
+                        "each molecule), as fractions")
     p.add_argument("--plasma", action="store_true",
                    help="also print Debye length, coupling parameter and the McWhirter check")
     add_format_option(p)
@@ -72,38 +51,13 @@ def register(sub) -> None:
     p.set_defaults(func=run_half)
 
 
-def parse_mix(text: str, by: str = "number", metallicity: float = 0.0,
-              alpha: float = 0.0) -> Composition:
-    """'solar' or 'El:amount,El:amount' -> Composition."""
-    text = (text or "").strip()
-    if text.lower() == "solar":
-        return solar(metallicity=metallicity, alpha_enhancement=alpha)
-    amounts = {}
-    for part in filter(None, (s.strip() for s in text.split(","))):
-        if ":" not in part:
-            raise InputError(f"--mix: expected 'Element:amount' pairs such as 'Ar:1', got {part!r}")
-        el, val = part.split(":", 1)
-        try:
-            amounts[el.strip()] = float(val)
-        except ValueError:
-            raise InputError(f"--mix: amount of {el.strip()} is not a number: {val!r}") from None
-    if not amounts:
-        raise InputError("--mix: give 'solar' or amounts such as 'N:0.78,O:0.21,Ar:0.0093'")
-    comp = (Composition.from_mass_fraction(amounts, name=text) if by == "mass"
-            else Composition.from_number(amounts, name=text))
-    if metallicity or alpha:
-        comp = comp.scaled(metallicity, alpha)
-    return comp
-
-
 def run_state(args) -> int:
     from sahaboltz.equilibrium import solve_equilibrium, stage_table
 
     comp = parse_mix(args.mix, args.by, args.metallicity, args.alpha)
-    closure = {dest: getattr(args, dest) for dest, _, _ in _CLOSURE_FLAGS
+    closure = {dest: getattr(args, dest) for dest, _, _ in CLOSURE_FLAGS
                if getattr(args, dest) is not None}
-    state = solve_equilibrium(comp, args.temperature, truncation=args.truncation,
-                              lowering=args.lowering, h_minus=not args.no_h_minus, **closure)
+    state = solve_equilibrium(comp, args.temperature, **closure, **solver_options(args))
     if args.elements:
         elements = [e.strip() for e in args.elements.split(",") if e.strip()]
     elif args.mix.strip().lower() == "solar":
@@ -111,6 +65,8 @@ def run_state(args) -> int:
                     if e in comp]
     else:
         elements = comp.symbols
+    if args.budget:
+        return _emit_budget(state, elements, args)
     rows = stage_table(state, elements, min_fraction=args.min_fraction)
     if args.dominant_only:
         rows = [r for r in rows if r["dominant"]]
@@ -144,4 +100,22 @@ def run_half(args) -> int:
          title=f"half-ionization temperatures of {args.element} at {which} = {value:g} dyn cm^-2",
          meta={"searched_K": f"{args.tmin:g} - {args.tmax:g}",
                "transitions_found": len(rows)})
+    return 0
+
+
+def _emit_budget(state, elements, args) -> int:
+    """Element budget: the share of each element's nuclei in atoms/ions and in each molecule."""
+    if not hasattr(state, "element_budget"):
+        from sahaboltz.errors import InputError
+        raise InputError("--budget needs molecules: add --molecules default (or all)")
+    rows = []
+    for el in elements:
+        for where, share in state.element_budget(el).items():
+            value = float(share)
+            if where == "atoms" or value >= args.min_fraction:
+                rows.append({"element": el, "in": "atoms and ions" if where == "atoms" else where,
+                             "fraction": value})
+    meta = state.summary()
+    meta["molecules"] = len(state.molecule_names)
+    emit(rows, args.format, title=f"element budget at T = {args.temperature:g} K", meta=meta)
     return 0

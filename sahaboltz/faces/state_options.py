@@ -1,10 +1,10 @@
 """State options shared by the commands that compute and draw equilibria.
 
 The mixture and physics options (``--mix``, ``--by``, ``--metallicity``, ``--alpha``,
-``--lowering``, ``--truncation``, ``--no-h-minus``) and the closure flags (``--gas-pressure``,
-``--mass-density``, ``--hydrogen-density``, ``--electron-pressure``) are those of
-``sahaboltz state`` (:mod:`sahaboltz.faces.cmd_state`); this module re-exports them so that
-other commands take the very same options, and adds what a grid or a picture needs: closure
+``--lowering``, ``--truncation``, ``--no-h-minus``, ``--molecules``) and the closure flags (``--gas-pressure``,
+``--mass-density``, ``--hydrogen-density``, ``--electron-pressure``) are defined here once
+and used by ``sahaboltz state``, the plot commands and the demo, so that every command takes
+the very same options; this module also adds what a grid or a picture needs: closure
 flags that take several values (``MIN:MAX:NUM`` or ``V1,V2,..``), and one-line statements of
 the conditions for titles and notes.
 
@@ -25,9 +25,8 @@ from typing import Any
 
 import numpy as np
 
+from sahaboltz.data.composition import Composition, solar
 from sahaboltz.errors import InputError
-from sahaboltz.faces.cmd_state import _CLOSURE_FLAGS, parse_mix
-from sahaboltz.faces.cmd_state import _add_mixture_options as add_mixture_options
 
 #: pressure-like closures and their cgs unit (the solver's keyword names)
 CLOSURE_UNITS = {"gas_pressure": "dyn cm-2", "electron_pressure": "dyn cm-2",
@@ -35,6 +34,58 @@ CLOSURE_UNITS = {"gas_pressure": "dyn cm-2", "electron_pressure": "dyn cm-2",
 #: short symbols for titles
 CLOSURE_SYMBOLS = {"gas_pressure": "P_gas", "electron_pressure": "P_e",
                    "mass_density": "rho", "hydrogen_density": "n_H"}
+
+CLOSURE_FLAGS = (("gas_pressure", "--gas-pressure", "P_gas [dyn cm^-2]"),
+                  ("mass_density", "--mass-density", "rho [g cm^-3]"),
+                  ("hydrogen_density", "--hydrogen-density", "n_H, hydrogen nuclei [cm^-3]"),
+                  ("electron_pressure", "--electron-pressure", "P_e [dyn cm^-2]"))
+
+
+def add_mixture_options(p) -> None:
+    """The mixture and physics options shared by every command that solves a state."""
+    p.add_argument("--mix", default="solar", metavar="MIX",
+                   help="'solar' (Asplund et al. 2009) or amounts such as 'N:0.78,O:0.21,Ar:0.0093' "
+                        "(default solar)")
+    p.add_argument("--by", choices=("number", "mass"), default="number",
+                   help="whether --mix amounts are by number or mass fractions (default number)")
+    p.add_argument("--metallicity", type=float, default=0.0, metavar="DEX",
+                   help="[M/H] scaling of the metals (default 0)")
+    p.add_argument("--alpha", type=float, default=0.0, metavar="DEX",
+                   help="[alpha/Fe] enhancement of O Ne Mg Si S Ar Ca Ti (default 0)")
+    p.add_argument("--lowering", action="store_true",
+                   help="Debye-Hueckel lowering of the ionization energies (self-consistent)")
+    p.add_argument("--truncation", choices=("plain", "lowered", "occupation"), default=None,
+                   help="partition-function truncation (default: lowered with --lowering, "
+                        "else plain)")
+    p.add_argument("--no-h-minus", action="store_true", help="leave H- out")
+    p.add_argument("--molecules", choices=("none", "default", "all"), default="none",
+                   help="diatomic molecules in the equilibrium (Barklem & Collet 2016 data; "
+                        "1,000-10,000 K): 'default' the abundant ones, 'all' every one of the "
+                        "mixture's elements (default none)")
+
+
+def parse_mix(text: str, by: str = "number", metallicity: float = 0.0,
+              alpha: float = 0.0) -> Composition:
+    """'solar' or 'El:amount,El:amount' -> Composition."""
+    text = (text or "").strip()
+    if text.lower() == "solar":
+        return solar(metallicity=metallicity, alpha_enhancement=alpha)
+    amounts = {}
+    for part in filter(None, (s.strip() for s in text.split(","))):
+        if ":" not in part:
+            raise InputError(f"--mix: expected 'Element:amount' pairs such as 'Ar:1', got {part!r}")
+        el, val = part.split(":", 1)
+        try:
+            amounts[el.strip()] = float(val)
+        except ValueError:
+            raise InputError(f"--mix: amount of {el.strip()} is not a number: {val!r}") from None
+    if not amounts:
+        raise InputError("--mix: give 'solar' or amounts such as 'N:0.78,O:0.21,Ar:0.0093'")
+    comp = (Composition.from_mass_fraction(amounts, name=text) if by == "mass"
+            else Composition.from_number(amounts, name=text))
+    if metallicity or alpha:
+        comp = comp.scaled(metallicity, alpha)
+    return comp
 
 
 def add_closure_options(parser: argparse.ArgumentParser, *, default: tuple[str, str],
@@ -49,7 +100,7 @@ def add_closure_options(parser: argparse.ArgumentParser, *, default: tuple[str, 
         Metavar: "VALUE" for one value, "MIN:MAX:NUM|V1,V2,.." for several.
     """
     grp = parser.add_mutually_exclusive_group()
-    for dest, flag, text in _CLOSURE_FLAGS:
+    for dest, flag, text in CLOSURE_FLAGS:
         extra = f" (default {default[1]})" if dest == default[0] else ""
         grp.add_argument(flag, dest=dest, metavar=values, help=text + extra)
     parser.set_defaults(_closure_default=default)
@@ -57,7 +108,7 @@ def add_closure_options(parser: argparse.ArgumentParser, *, default: tuple[str, 
 
 def closure_from_args(args: argparse.Namespace) -> tuple[str, str]:
     """(closure name, its text) from the closure flags, or the command's default."""
-    given = [(dest, getattr(args, dest)) for dest, _, _ in _CLOSURE_FLAGS
+    given = [(dest, getattr(args, dest)) for dest, _, _ in CLOSURE_FLAGS
              if getattr(args, dest, None) is not None]
     return given[0] if given else tuple(args._closure_default)
 
@@ -69,8 +120,11 @@ def composition_from_args(args: argparse.Namespace):
 
 def solver_options(args: argparse.Namespace) -> dict[str, Any]:
     """Keyword arguments of ``solve_equilibrium`` from the physics options."""
-    return {"truncation": args.truncation, "lowering": bool(args.lowering),
+    opts = {"truncation": args.truncation, "lowering": bool(args.lowering),
             "h_minus": not args.no_h_minus}
+    if getattr(args, "molecules", "none") != "none":
+        opts["molecules"] = args.molecules
+    return opts
 
 
 def parse_values(text: str, name: str, *, scale: str = "log") -> np.ndarray:
