@@ -16,13 +16,13 @@ from sahaboltz.errors import SahaboltzError
 
 #: modules that add subcommands, in the order they appear in ``--help``
 COMMAND_MODULES = [
-    "sahaboltz.faces.cmd_species",
-    "sahaboltz.faces.cmd_table",
-    "sahaboltz.faces.cmd_diagnose",
-    "sahaboltz.faces.cmd_plot",
     "sahaboltz.faces.cmd_demo",
+    "sahaboltz.faces.cmd_species",
     "sahaboltz.faces.cmd_partition",
     "sahaboltz.faces.cmd_state",
+    "sahaboltz.faces.cmd_table",
+    "sahaboltz.faces.cmd_plot",
+    "sahaboltz.faces.cmd_diagnose",
 ]
 
 
