@@ -7,6 +7,8 @@ from typing import Any, Iterable
 
 import numpy as np
 
+from sahaboltz.constants import K_B
+
 from sahaboltz.data.composition import Composition
 from sahaboltz.data.elements import atomic_number, spectroscopic_name
 from sahaboltz.equilibrium.network import AtomicNetwork
@@ -110,14 +112,29 @@ def half_ionization_temperatures(element, *, electron_pressure: Any = None,
     chain = net.chain_of(z)
     kw = {closure: float(p), "truncation": trunc, "lowering": lowering, "network": net}
 
+    # At a given P_e (no lowering) the stage fractions follow from n_e = P_e / kT by the Saha
+    # chain alone; charge neutrality only sets the total density, and may have no solution
+    # (pure hydrogen in cool gas at a high P_e, where H- outnumbers H+), so skip the solve.
+    saha_only = closure == "electron_pressure" and not lowering and trunc != "occupation"
+
     def above(temps: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        st = solve_equilibrium(comp, temps, **kw)
-        f = st.stage_fractions(z, negative=True)          # (n, m)
+        if saha_only:
+            temps = np.atleast_1d(np.asarray(temps, dtype=float))
+            x = np.log(float(p) / (K_B * temps))
+            a = net.log_c(chain, temps) - np.multiply.outer(chain.charges, x)
+            a -= a.max(axis=0)
+            f = np.exp(a)
+            f /= f.sum(axis=0)
+            n_e = np.exp(x)
+        else:
+            st = solve_equilibrium(comp, temps, **kw)
+            f = st.stage_fractions(z, negative=True)          # (n, m)
+            n_e = st.n_e
         q = chain.charges
         # share above charge q for q = 0 .. Z-1
         tail = np.cumsum(f[::-1], axis=0)[::-1]            # tail[i] = sum_{s >= i}
         i0 = int(np.flatnonzero(q == 0)[0])
-        return tail[i0 + 1:], st.n_e
+        return tail[i0 + 1:], n_e
 
     grid = np.geomspace(lo_t, hi_t, int(n_grid))
     s_grid, _ = above(grid)
