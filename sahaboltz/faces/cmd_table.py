@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import argparse
 import csv
+from dataclasses import replace
 import importlib
 import sys
 import time
@@ -21,6 +22,8 @@ import numpy as np
 
 from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
+from sahaboltz.faces.state_options import add_mixture_options, parse_mix
+from sahaboltz.tables.spec import normalize_composition
 
 
 def register(subparsers) -> None:
@@ -44,15 +47,9 @@ def register(subparsers) -> None:
     g.add_argument("--pressure-quantity", default="gas_pressure",
                    choices=("gas_pressure", "electron_pressure", "mass_density", "hydrogen_density"))
     g.add_argument("--pressure-scale", choices=("log", "linear"), default="log")
-    g.add_argument("--composition", metavar="solar|SYM=N,..",
-                   help="'solar' (default) or number abundances relative to H, e.g. H=1,He=0.1")
-    g.add_argument("--truncation", choices=("plain", "lowered", "occupation"), default=None,
-                   help="partition-function truncation (default plain; lowered with --lowering)")
-    g.add_argument("--lowering", action="store_true", help="Debye-Hueckel lowering")
+    add_mixture_options(g)
     g.add_argument("--completion", action="store_true",
                    help="hydrogenic completion of the level lists (not with plain truncation)")
-    g.add_argument("--no-h-minus", action="store_true", help="leave out H-")
-    g.add_argument("--molecules", action="store_true", help="include molecules")
     g.add_argument("--fractions", default="all", metavar="all|EL,..",
                    help="stage fractions to store (default all elements)")
     g.add_argument("--levels", action="append", default=[], metavar="SPECIES:IDX",
@@ -132,20 +129,38 @@ def _load_compute(text: str | None):
 def _spec_from_args(args):
     from sahaboltz.tables.spec import TableSpec, spec_from_options
 
-    grid_opts = (args.temperature, args.pressure, args.composition, args.levels, args.partition)
+    grid_opts = (args.temperature, args.pressure, args.levels, args.partition)
+    physics_opts = (args.mix != "solar", args.metallicity, args.alpha, args.lowering,
+                    args.truncation, args.completion, args.no_h_minus, args.molecules != "none",
+                    args.fractions != "all")
     if args.spec:
-        if (any(grid_opts) or args.fractions != "all" or args.lowering or args.molecules
-                or args.truncation or args.completion or args.no_h_minus):
+        if any(grid_opts) or any(physics_opts):
             raise InputError("give either a spec file or grid options, not both")
         return TableSpec.from_file(args.spec)
-    return spec_from_options(args.temperature, args.pressure,
+    spec = spec_from_options(args.temperature, args.pressure,
                              pressure_quantity=args.pressure_quantity,
                              temperature_scale=args.temperature_scale,
-                             pressure_scale=args.pressure_scale, composition=args.composition,
+                             pressure_scale=args.pressure_scale,
                              truncation=args.truncation, lowering=args.lowering,
                              molecules=args.molecules, completion=args.completion,
                              h_minus=not args.no_h_minus, fractions=args.fractions,
                              levels=args.levels, partition_functions=args.partition)
+    return replace(spec, composition=_composition_doc(args))
+
+
+def _composition_doc(args) -> dict:
+    """The spec's composition from the shared mixture options (--mix, --by, --metallicity,
+    --alpha): solar by name, anything else as resolved number abundances."""
+    if args.mix.strip().lower() == "solar":
+        doc = {"name": "solar"}
+        if args.metallicity:
+            doc["metallicity"] = args.metallicity
+        if args.alpha:
+            doc["alpha_enhancement"] = args.alpha
+        return normalize_composition(doc)
+    comp = parse_mix(args.mix, args.by, args.metallicity, args.alpha)
+    return normalize_composition({"abundances": dict(zip(comp.symbols,
+                                                (float(x) for x in comp.number_fraction)))})
 
 
 def _build(args) -> int:

@@ -60,10 +60,10 @@ def solve_block(spec: TableSpec, T: np.ndarray, P: np.ndarray):
     kwargs = {spec.pressure.name: P, "truncation": phys["truncation"],
               "lowering": bool(phys["lowering"]), "completion": bool(phys["completion"]),
               "h_minus": bool(phys["h_minus"])}
-    if phys["molecules"]:
-        kwargs["molecules"] = True
+    if phys["molecules"] != "none":
+        kwargs["molecules"] = phys["molecules"]
     key = _network_key(spec)
-    if key in _NETWORKS and not phys["molecules"]:
+    if key in _NETWORKS and phys["molecules"] == "none":
         comp, network = _NETWORKS[key]
         return solve_equilibrium(comp, T, network=network, **kwargs)
     comp = composition_of(spec)
@@ -94,6 +94,9 @@ def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, n
         z = atomic_number(el)
         for charge in range(fr.shape[0]):
             out[dataset_name("fraction", spectroscopic_name(z, charge))] = fr[charge].reshape(T.shape)
+        if hasattr(state, "molecular_fraction"):  # solved with molecules
+            out[dataset_name("molecular_fraction", el)] = np.asarray(
+                state.molecular_fraction(el), dtype=float).reshape(T.shape)
     attrs: dict[str, dict] = {}
     if spec.outputs.partition_functions or spec.outputs.levels:
         _species_outputs(spec, state, T, out, attrs)

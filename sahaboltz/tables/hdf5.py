@@ -59,11 +59,18 @@ _LONG = {"fraction": "fraction of element {el} in stage {sp}",
 _UNITS = {"fraction": "1", "population": "cm-3", "partition": "1"}
 
 
+_MOLECULAR_RE = re.compile(r"^molecular_fraction_([A-Z][a-z]?)$")
+
+
 def quantity_attrs(name: str) -> dict[str, Any]:
     """Attributes (units, long_name, species ...) implied by a dataset name."""
     if name in SCALAR_OUTPUTS:
         unit, desc = SCALAR_OUTPUTS[name]
         return {"units": unit, "long_name": desc}
+    m = _MOLECULAR_RE.match(name)
+    if m:
+        return {"units": "1", "long_name": f"fraction of the {m.group(1)} nuclei bound in molecules",
+                "element": m.group(1)}
     m = _SPECIES_RE.match(name)
     if not m:
         return {"units": "unknown", "long_name": name}

@@ -80,7 +80,7 @@ truncation = "plain"        # plain | lowered | occupation  (default "lowered" w
 lowering = false            # Debye-Hueckel ionization-potential lowering
 completion = false          # hydrogenic completion of the level lists (not with "plain")
 h_minus = true              # include H-
-molecules = false
+molecules = "none"                 # or "default" (abundant diatomics), "all"
 
 [outputs]
 quantities = ["electron_density", "electron_pressure", "gas_pressure", "mass_density",
@@ -243,7 +243,7 @@ class TableSpec:
         ``{"name": "solar"}`` or ``{"abundances": {"H": 1.0, ...}}`` (number ratios N_X/N_H).
     physics : dict
         ``truncation`` (plain | lowered | occupation), ``lowering``, ``completion``, ``h_minus``,
-        ``molecules`` (bools), handed to the solver.
+        ``molecules`` ("none", "default" or "all"), handed to the solver.
     outputs : Outputs
         The quantities to store.
     """
@@ -282,7 +282,8 @@ class TableSpec:
             raise InputError(f"pressure.quantity must be one of {list(PRESSURE_QUANTITIES)}, "
                              f"got {quantity!r}")
         pressure = Axis.from_mapping(quantity, PRESSURE_QUANTITIES[quantity], pm)
-        return cls(temperature, pressure, _composition(m.get("composition", {"name": "solar"})),
+        composition = normalize_composition(m.get("composition", {"name": "solar"}))
+        return cls(temperature, pressure, composition,
                    _physics(m.get("physics", {})), Outputs.from_mapping(m.get("outputs", {})))
 
     @classmethod
@@ -332,7 +333,8 @@ class TableSpec:
                 f"{p[0]:g}..{p[-1]:g} {self.pressure.unit}")
 
 
-def _composition(c: Any) -> dict:
+def normalize_composition(c: Any) -> dict:
+    """A spec's composition table, checked: {"name": ..., [M/H], [alpha/Fe]} or {"abundances": ...}."""
     if isinstance(c, str):
         c = {"name": c}
     if not isinstance(c, Mapping):
@@ -370,9 +372,20 @@ def _physics(p: Mapping[str, Any]) -> dict:
     if trunc not in TRUNCATIONS:
         raise InputError(f"physics.truncation must be one of {TRUNCATIONS}, got {trunc!r}")
     return {"truncation": trunc, "lowering": lowering,
-            "molecules": bool(p.get("molecules", False)),
+            "molecules": _molecule_set(p.get("molecules", False)),
             "completion": bool(p.get("completion", False)),
             "h_minus": bool(p.get("h_minus", True))}
+
+
+def _molecule_set(value: Any) -> str:
+    """The molecule set of the solver's ``molecules=`` option: "none", "default" or "all"
+    (``true`` / ``false`` in a spec file mean "default" / "none")."""
+    if value is True or value is False:
+        return "default" if value else "none"
+    if value in ("none", "default", "all"):
+        return value
+    raise InputError(f"physics.molecules must be true, false, 'none', 'default' or 'all', "
+                     f"got {value!r}")
 
 
 def axis_from_text(name: str, unit: str, text: str, scale: str = "log") -> Axis:
@@ -397,7 +410,8 @@ def spec_from_options(temperature: str | None = None, pressure: str | None = Non
                       pressure_quantity: str = "gas_pressure", temperature_scale: str = "log",
                       pressure_scale: str = "log", composition: str | None = None,
                       truncation: str | None = None, lowering: bool = False,
-                      molecules: bool = False, completion: bool = False, h_minus: bool = True,
+                      molecules: bool | str = False, completion: bool = False,
+                      h_minus: bool = True,
                       fractions: str | Sequence[str] = "all", levels: Sequence[str] = (),
                       partition_functions: Sequence[str] = (),
                       quantities: Sequence[str] | None = None) -> TableSpec:
@@ -428,7 +442,7 @@ def spec_from_options(temperature: str | None = None, pressure: str | None = Non
            "partition_functions": list(partition_functions)}
     if quantities is not None:
         out["quantities"] = list(quantities)
-    return TableSpec(t_axis, p_axis, _composition(comp),
+    return TableSpec(t_axis, p_axis, normalize_composition(comp),
                      _physics({"truncation": truncation, "lowering": lowering,
                                "molecules": molecules, "completion": completion,
                                "h_minus": h_minus}),
