@@ -52,7 +52,6 @@ from sahaboltz.equilibrium.network import AtomicNetwork
 from sahaboltz.equilibrium.state import EquilibriumState
 from sahaboltz.errors import ConvergenceError, InputError, UnknownSpeciesError
 from sahaboltz.kernels.molecular import EquilibriumConstants
-from sahaboltz.quantities import as_positive_array
 
 #: the short default set: the diatomics that take a noticeable share of an abundant element in
 #: cool stellar atmospheres (H, C, N, O, and the main metal hydrides and oxides)
@@ -161,25 +160,17 @@ def solve_with_molecules(composition: Composition, temperature: Any, *, gas_pres
     ConvergenceError
         Listing the states that did not converge.
     """
-    from sahaboltz.equilibrium.solver import _check_options, _closure, solve_equilibrium, CLOSURES
+    from sahaboltz.equilibrium.solver import checked_inputs, solve_equilibrium
 
-    if not isinstance(composition, Composition):
-        raise InputError("composition must be a Composition (e.g. solar()), got "
-                         f"{composition!r}")
-    name, value = _closure({"gas_pressure": gas_pressure, "mass_density": mass_density,
-                            "hydrogen_density": hydrogen_density,
-                            "electron_pressure": electron_pressure})
-    truncation = _check_options(truncation, lowering)
+    name, t, v, truncation = checked_inputs(
+        composition, temperature, {"gas_pressure": gas_pressure, "mass_density": mass_density,
+                                   "hydrogen_density": hydrogen_density,
+                                   "electron_pressure": electron_pressure},
+        truncation, lowering)
     if truncation != "plain" or lowering:
         raise InputError("molecules are solved with the ideal-gas options only "
                          "(truncation='plain', lowering=False); at the densities where "
                          "molecules survive the non-ideal corrections are negligible")
-    t = as_positive_array(temperature, "K", "temperature")
-    v = as_positive_array(value, CLOSURES[name], name)
-    try:
-        t, v = np.broadcast_arrays(t, v)
-    except ValueError:
-        raise InputError(f"temperature {t.shape} and {name} {v.shape} do not broadcast") from None
     if np.any(t < T_MIN):
         raise InputError(f"temperature {t[t < T_MIN].min():g} K is below {T_MIN:g} K, the lowest "
                          "temperature of the molecular equilibrium")

@@ -67,6 +67,27 @@ def _closure(kw: dict) -> tuple[str, Any]:
     return given[0], kw[given[0]]
 
 
+def checked_inputs(composition, temperature, closures: dict, truncation,
+                   lowering) -> tuple[str, np.ndarray, np.ndarray, str]:
+    """Check what every solver takes: the composition, exactly one closure, the truncation and
+    lowering pair, and T and the closure value as positive arrays that broadcast.
+
+    Returns (closure name, T, closure value, truncation), T and value broadcast together.
+    """
+    if not isinstance(composition, Composition):
+        raise InputError("composition must be a Composition (e.g. solar() or "
+                         f"Composition.from_number({{'Ar': 1}})), got {composition!r}")
+    name, value = _closure(closures)
+    truncation = _check_options(truncation, lowering)
+    t = as_positive_array(temperature, "K", "temperature")
+    v = as_positive_array(value, CLOSURES[name], name)
+    try:
+        t, v = np.broadcast_arrays(t, v)
+    except ValueError:
+        raise InputError(f"temperature {t.shape} and {name} {v.shape} do not broadcast") from None
+    return name, t, v, truncation
+
+
 def _check_options(truncation, lowering) -> str:
     if truncation is None:
         return "lowered" if lowering else "plain"
@@ -144,21 +165,13 @@ def solve_equilibrium(composition: Composition, temperature: Any, *, gas_pressur
             truncation=truncation, lowering=lowering, completion=completion, h_minus=h_minus,
             molecules=molecules, database=database, missing_levels=missing_levels,
             tolerance=tolerance, max_passes=max_passes)
-    if not isinstance(composition, Composition):
-        raise InputError("composition must be a Composition (e.g. solar() or "
-                         f"Composition.from_number({{'Ar': 1}})), got {composition!r}")
-    name, value = _closure({"gas_pressure": gas_pressure, "mass_density": mass_density,
-                            "hydrogen_density": hydrogen_density,
-                            "electron_pressure": electron_pressure})
-    truncation = _check_options(truncation, lowering)
+    name, t, v, truncation = checked_inputs(
+        composition, temperature, {"gas_pressure": gas_pressure, "mass_density": mass_density,
+                                   "hydrogen_density": hydrogen_density,
+                                   "electron_pressure": electron_pressure},
+        truncation, lowering)
     if not (isinstance(tolerance, (int, float)) and 1e-15 <= tolerance < 1e-2):
         raise InputError(f"tolerance must be a number in [1e-15, 1e-2), got {tolerance!r}")
-    t = as_positive_array(temperature, "K", "temperature")
-    v = as_positive_array(value, CLOSURES[name], name)
-    try:
-        t, v = np.broadcast_arrays(t, v)
-    except ValueError:
-        raise InputError(f"temperature {t.shape} and {name} {v.shape} do not broadcast") from None
     shape = t.shape
     if network is None:
         network = AtomicNetwork(composition, database, truncation, completion, h_minus,
