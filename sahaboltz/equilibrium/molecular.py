@@ -738,17 +738,11 @@ class MolecularEquilibriumState(EquilibriumState):
         out = super().sum_z2_n()
         return out + np.tensordot(self.system.q_mol**2, self._n_mol, axes=1)
 
-    def charge_residual(self) -> np.ndarray:
-        pos = np.zeros(self.shape)
-        tot = np.zeros(self.shape)
-        for c in self.network.chains:
-            nk = self._chain_fractions(c) * (self.nuclei_density * c.fraction)
-            pos += np.tensordot(c.charges, nk, axes=1)
-            tot += np.tensordot(np.abs(c.charges), nk, axes=1)
-        q = self.system.q_mol
-        pos += np.tensordot(q, self._n_mol, axes=1)
-        tot += np.tensordot(np.abs(q), self._n_mol, axes=1)
-        return np.abs(pos - self.n_e) / (tot + self.n_e)
+    def _charge_sums(self) -> tuple[np.ndarray, np.ndarray]:
+        pos, tot = super()._charge_sums()
+        q = self.system.q_mol  # molecular ions count too
+        return (pos + np.tensordot(q, self._n_mol, axes=1),
+                tot + np.tensordot(np.abs(q), self._n_mol, axes=1))
 
     def conservation_residual(self) -> np.ndarray:
         worst = np.zeros(self.shape)

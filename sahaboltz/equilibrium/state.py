@@ -201,14 +201,19 @@ class EquilibriumState:
         return terms / terms.sum(axis=0) * self.number_density(species), energy
 
     # -- checks ------------------------------------------------------------------------------
-    def charge_residual(self) -> np.ndarray:
-        """|sum q n_q - n_e| / (sum |q| n_q + n_e) at every state."""
+    def _charge_sums(self) -> tuple[np.ndarray, np.ndarray]:
+        """(sum q n_q, sum |q| n_q) over the charged heavy particles, per state."""
         pos = np.zeros(self.shape)
         tot = np.zeros(self.shape)
         for c in self.network.chains:
             nk = self._chain_fractions(c) * (self.nuclei_density * c.fraction)
             pos += np.tensordot(c.charges, nk, axes=1)
             tot += np.tensordot(np.abs(c.charges), nk, axes=1)
+        return pos, tot
+
+    def charge_residual(self) -> np.ndarray:
+        """|sum q n_q - n_e| / (sum |q| n_q + n_e) at every state."""
+        pos, tot = self._charge_sums()
         return np.abs(pos - self.n_e) / (tot + self.n_e)
 
     def conservation_residual(self) -> np.ndarray:
