@@ -35,13 +35,11 @@ class SpeciesDatabase:
         self._weights: dict[int, float] = {}
         self._isotope_mass: dict[int, float] = {}
         self._completeness: dict[tuple[int, int], str] = {}
-        digest = hashlib.sha256()
         elements_file = self.path / "elements.txt"
         if not elements_file.is_file():
             raise NoDataError(f"{elements_file} is missing: re-run the importer "
                               "(python -m sahaboltz.data.nist_import all)")
         text = elements_file.read_text(encoding="utf-8")
-        digest.update(text.encode())
         for line in text.splitlines():
             if line and not line.startswith(("#", "Z\t")):
                 f = line.split("\t")
@@ -51,11 +49,9 @@ class SpeciesDatabase:
         if not files:
             raise NoDataError(f"no element files in {self.path / 'atoms'}: re-run the importer")
         for file in files:
-            raw = file.read_text(encoding="utf-8")
-            digest.update(file.name.encode())
-            digest.update(raw.encode())
-            self._load_element(raw, str(file))
-        self.digest = digest.hexdigest()
+            self._load_element(file.read_text(encoding="utf-8"), str(file))
+        #: SHA-256 of every file of the level_data directory (see :func:`data_digest`)
+        self.digest = data_digest(self.path)
 
     def _load_element(self, raw: str, path: str) -> None:
         _, sections = levelfile.parse(raw, path)
@@ -159,6 +155,19 @@ class SpeciesDatabase:
 
     def __repr__(self) -> str:
         return f"SpeciesDatabase({str(self.path)!r}, {len(self)} species)"
+
+
+def data_digest(path: str | Path | None = None) -> str:
+    """SHA-256 over every file of a level_data directory (relative names and contents, sorted).
+
+    Cheap (no parsing), so a table-cache look-up can key on the data without loading them.
+    """
+    root = Path(path) if path is not None else level_data_dir()
+    h = hashlib.sha256()
+    for file in sorted(p for p in root.rglob("*") if p.is_file()):
+        h.update(file.relative_to(root).as_posix().encode() + b"\0")
+        h.update(file.read_bytes())
+    return h.hexdigest()
 
 
 def _float(text: str | None) -> float:

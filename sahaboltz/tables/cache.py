@@ -55,10 +55,10 @@ def cache_dir(create: bool = True) -> Path:
 def solver_provenance(spec: TableSpec) -> dict[str, Any]:
     """Level-data digest, solver version and resolved composition for the real compute."""
     import sahaboltz.equilibrium as eq
-    from sahaboltz.data.database import default_database
+    from sahaboltz.data.database import data_digest
     from sahaboltz.tables.compute import composition_digest_doc
 
-    return {"level_data_digest": default_database().digest,
+    return {"level_data_digest": data_digest(),
             "solver_version": str(getattr(eq, "SOLVER_VERSION", __version__)),
             "resolved_composition": composition_digest_doc(spec),
             "compute": "sahaboltz.tables.compute.solver_compute"}
