@@ -115,3 +115,11 @@ def test_ionization_energy_csv_duplicate_species(tmp_path):
     ies = parse_ionization_energies(p)
     assert ies[(1, 0)].value_ev == 13.598434599702 and ies[(1, 0)].note == "theoretical"
     assert ies[(2, 1)].note == "estimated" and ies[(2, 1)].uncertainty_ev is None
+
+
+def test_row_with_a_term_but_no_j_is_the_whole_term():
+    # a 7G term with unresolved J: g = (2S+1)(2L+1) = 7 * 9 (LS coupling); "a 5D*": 5 * 5
+    sp = parse(row("3d5.(6S).6g", "7G", "", "", "113932.04", ""),
+               row("3d6.4s", "a 5D*", "", "", "120000.0", ""))
+    assert [lv.g for lv in sp.levels] == [63, 25]
+    assert all("j" in lv.flags for lv in sp.levels) and not sp.dropped

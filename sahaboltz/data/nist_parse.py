@@ -31,12 +31,15 @@ LEVEL_HEADER = ["Configuration", "Term", "J", "Prefix", "Level (cm-1)", "Suffix"
 DROP_REASONS = {
     "limit_row": "a 'Limit' row: an ionization or series limit, not a level",
     "no_energy": "the row gives no energy",
-    "no_J": "the row gives neither J nor a bare principal quantum number, so g is unknown",
+    "no_J": "the row gives no J, no LS term and no bare principal quantum number: g is unknown",
     "hydrogenic_duplicate": "a row giving only n that repeats levels resolved in the same file",
     "hydrogenic_replaced": "hydrogen-like ion: levels are taken from the Rydberg formula instead",
 }
 
 _OFFSET = re.compile(r"\+[a-z]")
+# an LS term such as "7G", "4P*" or "a 5D" (optional seniority / series letter in front)
+_LS_TERM = re.compile(r"^(?:[a-z]'* )?(\d+)([SPDFGHIKLMNOQRTUVWXYZ])\*?$")
+_L_LETTERS = "SPDFGHIKLMNOQRTUVWXYZ"
 _N_ONLY = re.compile(r"^\d+$")
 _FILE_NAME = re.compile(r"^nistspectrum=([A-Z][a-z]?)\+([IVXLCDM]+)\.webdump\.dat$")
 
@@ -185,9 +188,14 @@ def parse_level_export(path: str | Path, text: str | None = None) -> ParsedSpect
                                           config, term, lineno)))
             continue
         if not jtext:
-            out.dropped["no_J"] += 1
-            continue
-        g, jflags = parse_j(jtext, where)
+            lsm = _LS_TERM.match(term)
+            if not lsm:
+                out.dropped["no_J"] += 1
+                continue
+            # a whole LS term at one energy, J unresolved: g = (2S+1)(2L+1)
+            g, jflags = float(int(lsm.group(1)) * (2 * _L_LETTERS.index(lsm.group(2)) + 1)), "j"
+        else:
+            g, jflags = parse_j(jtext, where)
         m = re.match(r"^(\d+)[a-z]", config)
         if m:
             resolved_n.add(int(m.group(1)))

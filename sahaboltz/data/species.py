@@ -13,7 +13,8 @@ from sahaboltz.data.elements import roman
 
 #: level flags (one letter each, in the ``flags`` string of a level)
 FLAG_MEANINGS = {
-    "j": "J uncertain (alternatives 'a or b' averaged, or marked '?')",
+    "j": "J uncertain (alternatives 'a or b' averaged, marked '?', or not given: then the row "
+         "is a whole LS term and g = (2S+1)(2L+1))",
     "m": "several J at one energy; their g are summed",
     "t": "energy theoretical (in parentheses in the source)",
     "d": "energy derived, interpolated or extrapolated (in square brackets in the source)",
