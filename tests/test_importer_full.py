@@ -56,7 +56,10 @@ def test_user_import_of_one_species(tmp_path, source_dir, db):
     export = tmp_path / "nistspectrum=Na+I.webdump.dat"
     lines = (source_dir / "nist_asd" / "energy_levels" / export.name).read_text().splitlines()
     export.write_text("\n".join(lines[:11]) + "\n")  # the ten lowest rows only
+    before = (ld / "atoms" / element_file_name(11)).read_text()
     sec = import_species(export, "Na I", ld, ionization_energy=None, uncertainty=None)
+    after = (ld / "atoms" / element_file_name(11)).read_text()
+    assert after.split("\n[")[0] == before.split("\n[")[0]  # the file's header is kept
     assert sec.header["levels"] == "10"
     new = SpeciesDatabase(ld)
     assert len(new["Na I"].levels) == 10

@@ -249,7 +249,7 @@ def import_species(export: Path, species: str, out: Path, *, ionization_energy: 
     if not spec.levels:
         raise DataFormatError(f"{export}: no usable levels in the export")
     path = Path(out) / "atoms" / element_file_name(z)
-    comments, sections = levelfile.parse(path.read_text(encoding="utf-8"), str(path))
+    _, sections = levelfile.parse(path.read_text(encoding="utf-8"), str(path))
     old = next((s for s in sections if s.name == spectroscopic_name(z, charge)), None)
     if ionization_energy is not None:
         ie = IonizationEnergy(float(ionization_energy), uncertainty, "given by the user",
@@ -276,9 +276,7 @@ def import_species(export: Path, species: str, out: Path, *, ionization_energy: 
         new.header["ionization_energy_source"] = "given by the user"
     sections = [s for s in sections if s.name != new.name] + [new]
     sections.sort(key=lambda s: int(s.header["charge"]))
-    text = levelfile.render(SYMBOLS[z], z, sections, [c[2:] if c.startswith("# ") else c[1:]
-                                                        for c in comments[2:]
-                                                        if not c.startswith(("# columns:", "# flags:", "#   "))])
+    text = levelfile.render(SYMBOLS[z], z, sections, COMMENTS)
     fd, tmp = tempfile.mkstemp(prefix=".import-", dir=path.parent)
     with os.fdopen(fd, "w", encoding="utf-8") as fh:
         fh.write(text)
