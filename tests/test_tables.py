@@ -228,13 +228,11 @@ print(p)
 """
 
 
-def test_killed_build_leaves_no_half_table(cache_env, tmp_path):
-    d, marker = cache_env
-    env = _subprocess_env(tmp_path, SBT_TEST_SLEEP=0.2)
-    proc = subprocess.Popen([sys.executable, "-c", _BUILDER], env=env, cwd=tmp_path)
+def _kill_when(proc, ready, timeout: float = 60.0) -> None:
+    """SIGKILL the builder ``proc`` as soon as ``ready()`` holds; it must still be running."""
     try:
-        deadline = time.time() + 60
-        while len(calls(marker)) < 3:  # a few blocks written into the temporary file
+        deadline = time.time() + timeout
+        while not ready():
             assert proc.poll() is None, "builder exited early"
             assert time.time() < deadline
             time.sleep(0.05)
@@ -244,6 +242,14 @@ def test_killed_build_leaves_no_half_table(cache_env, tmp_path):
         if proc.poll() is None:
             os.kill(proc.pid, signal.SIGKILL)
             proc.wait()
+
+
+def test_killed_build_leaves_no_half_table(cache_env, tmp_path):
+    d, marker = cache_env
+    env = _subprocess_env(tmp_path, SBT_TEST_SLEEP=0.2)
+    proc = subprocess.Popen([sys.executable, "-c", _BUILDER], env=env, cwd=tmp_path)
+    # a few blocks written into the temporary file
+    _kill_when(proc, lambda: len(calls(marker)) >= 3)
     assert proc.returncode == -signal.SIGKILL
     assert list(d.glob("*.h5")) == []  # no table under its final name
     assert len(list(d.glob(".*.tmp"))) == 1  # the half-written temporary
@@ -440,18 +446,8 @@ def test_killed_parallel_build_leaves_no_workers_or_table(cache_env, tmp_path):
     d, marker = cache_env
     env = _subprocess_env(tmp_path, SBT_TEST_SLEEP=0.3)
     proc = subprocess.Popen([sys.executable, "-c", _POOL_BUILDER], env=env, cwd=tmp_path)
-    try:
-        deadline = time.time() + 60
-        # the probe runs in the builder itself, blocks in its workers: wait for two worker pids
-        while len(set(calls(marker)) - {str(proc.pid)}) < 2:
-            assert proc.poll() is None and time.time() < deadline
-            time.sleep(0.05)
-        os.kill(proc.pid, signal.SIGKILL)
-        proc.wait(timeout=30)
-    finally:
-        if proc.poll() is None:
-            os.kill(proc.pid, signal.SIGKILL)
-            proc.wait()
+    # the probe runs in the builder itself, blocks in its workers: wait for two worker pids
+    _kill_when(proc, lambda: len(set(calls(marker)) - {str(proc.pid)}) >= 2)
     workers = [int(x) for x in set(calls(marker)) - {str(proc.pid)}]
     deadline = time.time() + 20
     while any(_alive(w) for w in workers) and time.time() < deadline:
