@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from sahaboltz.errors import InputError
-from sahaboltz.kernels.lowering import debye_hueckel_lowering, debye_length
+from sahaboltz.kernels.plasma import debye_hueckel_lowering, debye_length
 from sahaboltz.kernels.occupation import (BOHR_RADIUS_CM, RYDBERG_EV, effective_n,
                                           log_w_charged, occupation_probability,
                                           stark_level_factor, stark_state_factors, w_charged,

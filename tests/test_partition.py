@@ -8,7 +8,7 @@ import pytest
 
 from sahaboltz.data.species import LevelTable, Species
 from sahaboltz.errors import InputError, NoDataError, UnknownSpeciesError
-from sahaboltz.kernels.lowering import debye_hueckel_lowering, debye_length
+from sahaboltz.kernels.plasma import debye_hueckel_lowering, debye_length
 from sahaboltz.kernels.partition import PartitionModel, log_derivative, partition_function
 
 

@@ -29,9 +29,10 @@ from sahaboltz.constants import K_B_EV
 from sahaboltz.diagnostics.boltzmann_plot import boltzmann_ordinate
 from sahaboltz.diagnostics.lines import LineList
 from sahaboltz.diagnostics.lte import mcwhirter_check
-from sahaboltz.diagnostics.saha_boltzmann import (ionization_energy, log_two_saha_constant,
-                                                  lowering_ev, stage_pair)
+from sahaboltz.diagnostics.saha_boltzmann import ionization_energy, stage_pair
 from sahaboltz.errors import ConvergenceError, InputError, NoDataError
+from sahaboltz.kernels.plasma import debye_hueckel_lowering, debye_length
+from sahaboltz.kernels.saha import log_two_saha_constant
 from sahaboltz.quantities import as_array, as_positive_array
 
 __all__ = ["RatioDensity", "ratio_density", "all_pairs"]
@@ -158,7 +159,7 @@ def ratio_density(neutral: LineList, ion: LineList, temperature, temperature_err
     dchi = np.zeros(n)
     for _ in range(_MAX_ITER):
         if lowering:
-            dchi = lowering_ev(t, np.exp(log_ne), neutral.charge)
+            dchi = debye_hueckel_lowering(neutral.charge, debye_length(t, np.exp(log_ne)))
         new = base - (x0 - dchi) / kt
         done = np.all(np.abs(new - log_ne) < 1e-12)
         log_ne = new

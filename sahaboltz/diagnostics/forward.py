@@ -29,16 +29,10 @@ import numpy as np
 from sahaboltz.constants import C, H, HC_EV_CM, K_B_EV
 from sahaboltz.diagnostics.lines import LineList
 from sahaboltz.errors import InputError
+from sahaboltz.kernels.plasma import debye_hueckel_lowering, debye_length
 from sahaboltz.quantities import as_array, as_positive_array
 
-__all__ = ["line_emissivity", "synthesize", "synthetic_line_list", "stage_lowering_ev"]
-
-
-def stage_lowering_ev(temperature: float, electron_density: float, charges: np.ndarray) -> np.ndarray:
-    """Debye-Hueckel lowering [eV] of the ionization of stages with these charges."""
-    from sahaboltz.kernels.lowering import debye_hueckel_lowering, debye_length
-    lam = debye_length(temperature, electron_density)
-    return debye_hueckel_lowering(np.asarray(charges, dtype=float), lam)
+__all__ = ["line_emissivity", "synthesize", "synthetic_line_list"]
 
 
 def line_emissivity(lines: LineList, temperature: Any, electron_density: Any, *,
@@ -78,7 +72,8 @@ def line_emissivity(lines: LineList, temperature: Any, electron_density: Any, *,
     pop = np.zeros(len(lines))
     for z in np.unique(lines.z):
         stages = db.element(int(z))
-        low = stage_lowering_ev(t, ne, [s.charge for s in stages]) if lowering else None
+        low = (debye_hueckel_lowering(np.array([s.charge for s in stages], dtype=float),
+                                     debye_length(t, ne)) if lowering else None)
         frac = saha_chain(int(z), t, electron_density=ne, lowering_ev=low, database=db)
         for ch in np.unique(lines.charge[lines.z == z]):
             sel = (lines.z == z) & (lines.charge == ch)

@@ -6,7 +6,7 @@ LTE among the levels of a species needs collisions to beat radiative decay.  McW
     n_e >= 1.6e12 T^1/2 (dE)^3     [cm^-3, T in K, dE in eV],
 
 with dE the largest gap between adjacent levels.  The coefficient is the one the equilibrium
-layer uses (:data:`sahaboltz.equilibrium.state.MCWHIRTER_COEFFICIENT`), and the default dE is
+kernels define (:func:`sahaboltz.kernels.plasma.mcwhirter_density`), and the default dE is
 defined as there: the largest gap between adjacent bound levels of the species, here of the
 species whose lines were measured.  The criterion is necessary, not sufficient: transient
 and inhomogeneous plasmas (laser-produced plumes) need more (relaxation times, diffusion
@@ -20,7 +20,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from sahaboltz.equilibrium.state import MCWHIRTER_COEFFICIENT
+from sahaboltz.kernels.plasma import _mcwhirter
 from sahaboltz.errors import InputError, NoDataError
 from sahaboltz.quantities import as_positive_array
 
@@ -101,6 +101,6 @@ def mcwhirter_check(temperature: Any, electron_density: Any = None, *,
         gaps = {s: largest_level_gap_ev(s, database) for s in species}
         who = max(gaps, key=gaps.get)
         de = gaps[who]
-    need = float(MCWHIRTER_COEFFICIENT * np.sqrt(t) * de**3)
+    need = float(_mcwhirter(t, de))
     return McWhirterCheck(temperature=t, electron_density=ne, delta_e_ev=de, gap_species=who,
                           required_density=need, satisfied=None if ne is None else ne >= need)

@@ -13,7 +13,7 @@ plot, the lines of the upper stage, moved to
 
 fall on the straight line of the lower stage, y = c - x / kT.  dchi is the Debye-Hueckel
 lowering e^2 / lambda_D of the lower stage (charge r; lambda_D with ion screening equal to
-n_e, :mod:`sahaboltz.kernels.lowering`), or 0 with ``lowering=False``.
+n_e, :mod:`sahaboltz.kernels.plasma`), or 0 with ``lowering=False``.
 
 Two ways to use the plot:
 
@@ -50,25 +50,13 @@ from sahaboltz.diagnostics.fitting import fit_with_rejection, weighted_linear_fi
 from sahaboltz.diagnostics.lines import LineList
 from sahaboltz.diagnostics.lte import McWhirterCheck, mcwhirter_check
 from sahaboltz.errors import ConvergenceError, InputError, NoDataError
+from sahaboltz.kernels.plasma import debye_hueckel_lowering, debye_length
+from sahaboltz.kernels.saha import log_two_saha_constant
 from sahaboltz.quantities import as_array, as_positive_array
 
-__all__ = ["SahaBoltzmannFit", "saha_boltzmann_plot", "lowering_ev", "stage_pair",
-           "log_two_saha_constant", "ionization_energy"]
+__all__ = ["SahaBoltzmannFit", "saha_boltzmann_plot", "stage_pair", "ionization_energy"]
 
-_LN2 = float(np.log(2.0))
 _MAX_ITER = 100
-
-
-def log_two_saha_constant(temperature) -> np.ndarray:
-    """ln(2 S(T)) with S = (2 pi m_e k T / h^2)^{3/2} [cm^-3] (from the Saha kernel)."""
-    from sahaboltz.kernels.saha import log_saha_constant
-    return _LN2 + log_saha_constant(temperature)
-
-
-def lowering_ev(temperature, electron_density, charge: int) -> np.ndarray:
-    """Debye-Hueckel lowering of the ionization of a stage of this charge [eV]."""
-    from sahaboltz.kernels.lowering import debye_hueckel_lowering, debye_length
-    return debye_hueckel_lowering(charge, debye_length(temperature, electron_density))
 
 
 def stage_pair(lines: LineList, element=None, database=None) -> tuple:
@@ -289,7 +277,7 @@ def _fit_free_ne(lines, e_u, y, sy, up, chi, s_chi, r, lowering, reject, thresho
     log_ne = base + b * chi
     dchi = 0.0
     for its in range(1, _MAX_ITER + 1):
-        dchi = float(lowering_ev(t, np.exp(log_ne), r)) if lowering else 0.0
+        dchi = float(debye_hueckel_lowering(r, debye_length(t, np.exp(log_ne)))) if lowering else 0.0
         new = base + b * (chi - dchi)
         if abs(new - log_ne) < 1e-12:
             log_ne = new
@@ -321,7 +309,7 @@ def _fit_given_ne(e_u, y, sy, up, chi, s_chi, r, ne, s_lne, lowering, t0, reject
     def model(b, used):
         """Model, Jacobian columns (b, c), and d model / d ln n_e, d model / d chi at b."""
         t = -1.0 / (K_B_EV * b)
-        dchi = float(lowering_ev(t, ne, r)) if lowering else 0.0
+        dchi = float(debye_hueckel_lowering(r, debye_length(t, ne))) if lowering else 0.0
         shift = chi - dchi
         f_no_c = b * (e_u + up * shift) + up * (float(log_two_saha_constant(t)) - log_ne)
         jb = e_u + up * (chi - 1.5 * dchi - 1.5 / b)

@@ -9,7 +9,8 @@
 from sahaboltz.equilibrium.network import H_MINUS, AtomicNetwork
 from sahaboltz.equilibrium.quick import (dominant_stage, half_ionization_temperatures,
                                          stage_table)
-from sahaboltz.equilibrium.solver import CLOSURES, solve_equilibrium
+from sahaboltz.equilibrium.closures import CLOSURES
+from sahaboltz.equilibrium.solver import solve_equilibrium
 from sahaboltz.equilibrium.state import EquilibriumState
 
 __all__ = ["solve_equilibrium", "EquilibriumState", "AtomicNetwork", "H_MINUS", "CLOSURES",

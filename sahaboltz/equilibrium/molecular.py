@@ -44,12 +44,14 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from sahaboltz.constants import AMU, K_B
 from sahaboltz.data.composition import Composition
 from sahaboltz.data.elements import SYMBOLS
 from sahaboltz.data.molecules import Molecule, MoleculeDatabase, default_molecule_database
+from sahaboltz.equilibrium.atomic import solve_atomic
+from sahaboltz.equilibrium.closures import Closure
+from sahaboltz.equilibrium.failures import convergence_failure
 from sahaboltz.equilibrium.network import AtomicNetwork
-from sahaboltz.equilibrium.state import EquilibriumState
+from sahaboltz.equilibrium.state import EquilibriumState, SolveReport
 from sahaboltz.errors import ConvergenceError, InputError, UnknownSpeciesError
 from sahaboltz.kernels.molecular import EquilibriumConstants
 
@@ -136,15 +138,14 @@ def select_molecules(composition: Composition, molecules: Any, network: AtomicNe
 
 
 # ------------------------------------------------------------------------------ the solve
-def solve_with_molecules(composition: Composition, temperature: Any, *, gas_pressure=None,
-                         mass_density=None, hydrogen_density=None, electron_pressure=None,
-                         truncation=None, lowering=False, completion=False, h_minus=True,
-                         molecules="default", database=None, missing_levels="unit",
-                         tolerance=1e-12, max_passes=200, molecule_database=None):
-    """Equilibrium of atoms, ions, H- and molecules (called by ``solve_equilibrium``).
+def solve_molecular(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closure: Closure, *,
+                    molecules: Any = "default", lowering: bool = False,
+                    tolerance: float = 1e-12, max_passes: int = 200,
+                    molecule_database: MoleculeDatabase | None = None):
+    """Equilibrium of atoms, ions, H- and molecules at the states (``t``, ``v``).
 
-    Parameters are those of :func:`sahaboltz.equilibrium.solve_equilibrium`; ``molecules`` is
-    ``"default"``, ``"all"``, ``"none"`` or a list of molecule names (see
+    Called by :func:`sahaboltz.equilibrium.solve_equilibrium` with checked, broadcast arrays;
+    ``molecules`` is ``"default"``, ``"all"``, ``"none"`` or a list of molecule names (see
     :func:`select_molecules`).  Only the ideal-gas options are supported with molecules
     (``truncation="plain"``, no lowering): at the densities where molecules survive,
     pressure ionization is negligible.
@@ -160,58 +161,46 @@ def solve_with_molecules(composition: Composition, temperature: Any, *, gas_pres
     ConvergenceError
         Listing the states that did not converge.
     """
-    from sahaboltz.equilibrium.solver import checked_inputs, solve_equilibrium
-
-    name, t, v, truncation = checked_inputs(
-        composition, temperature, {"gas_pressure": gas_pressure, "mass_density": mass_density,
-                                   "hydrogen_density": hydrogen_density,
-                                   "electron_pressure": electron_pressure},
-        truncation, lowering)
-    if truncation != "plain" or lowering:
+    if network.scheme.key != "plain" or lowering:
         raise InputError("molecules are solved with the ideal-gas options only "
                          "(truncation='plain', lowering=False); at the densities where "
                          "molecules survive the non-ideal corrections are negligible")
     if np.any(t < T_MIN):
         raise InputError(f"temperature {t[t < T_MIN].min():g} K is below {T_MIN:g} K, the lowest "
                          "temperature of the molecular equilibrium")
-    network = AtomicNetwork(composition, database, truncation, completion, h_minus,
-                            missing_levels)
+    composition = network.composition
     mols, skipped = select_molecules(composition, molecules, network, molecule_database)
     if not mols:
-        return solve_equilibrium(composition, t, **{name: v}, truncation=truncation,
-                                 tolerance=tolerance, max_passes=max_passes, network=network)
+        return solve_atomic(network, t, v, closure, tolerance=tolerance, max_passes=max_passes)
     # starting values from the atoms-only solution.  With a given electron pressure that
     # solution may not exist (molecules can leave more free electrons than atoms alone, e.g.
     # by starving H- of H atoms); those states start from N = e^15 n_e instead.
     shape = t.shape
     tf, vf = t.ravel().copy(), v.ravel().copy()
+    start_tol = max(tolerance, 1e-14)
     try:
-        atoms = solve_equilibrium(composition, tf, **{name: vf}, truncation=truncation,
-                                  tolerance=max(tolerance, 1e-14), max_passes=_START_PASSES,
-                                  network=network)
+        atoms = solve_atomic(network, tf, vf, closure, tolerance=start_tol,
+                             max_passes=_START_PASSES)
         x0, w0 = atoms.log_ne.copy(), np.log(atoms.nuclei_density)
     except ConvergenceError as exc:
-        if name != "electron_pressure":
-            bad = np.zeros(tf.size, dtype=bool)
-            bad[[i[0] for i in exc.indices]] = True
-            raise _failure(bad, tf, vf, name, np.full(tf.size, np.inf), shape,
-                           what="the atoms-only starting solution") from None
-        x0 = np.log(vf / (K_B * tf))
-        w0 = x0 + 15.0
         bad = np.zeros(tf.size, dtype=bool)
         bad[[i[0] for i in exc.indices]] = True
+        if closure.fixes != "electrons":
+            raise _failure(bad, tf, vf, closure, np.full(tf.size, np.inf), shape,
+                           what="the atoms-only starting solution") from None
+        x0 = np.log(closure.electrons(tf, vf))
+        w0 = x0 + 15.0
         if (~bad).any():
-            good = solve_equilibrium(composition, tf[~bad], electron_pressure=vf[~bad],
-                                     truncation=truncation, tolerance=max(tolerance, 1e-14),
-                                     max_passes=_START_PASSES, network=network)
+            good = solve_atomic(network, tf[~bad], vf[~bad], closure, tolerance=start_tol,
+                                max_passes=_START_PASSES)
             w0[~bad] = np.log(good.nuclei_density)
     system = MolecularSystem(network, mols)
-    sol = system.solve(tf, vf, name, x0, w0, tolerance, max_passes, shape)
+    sol = system.solve(tf, vf, closure, x0, w0, tolerance, max_passes, shape)
     return MolecularEquilibriumState(
         network=network, temperature=t.copy(), log_ne=sol["x"].reshape(shape),
-        nuclei_density=np.exp(sol["w"]).reshape(shape), closure=name, closure_value=v.copy(),
-        lowering=False, debye_length=None, report=sol["report"], system=system,
-        log_neutral=sol["y"].reshape((-1,) + shape), skipped_molecules=skipped)
+        nuclei_density=np.exp(sol["w"]).reshape(shape), closure=closure.name,
+        closure_value=v.copy(), lowering=False, debye_length=None, report=sol["report"],
+        system=system, log_neutral=sol["y"].reshape((-1,) + shape), skipped_molecules=skipped)
 
 
 class MolecularSystem:
@@ -280,7 +269,7 @@ class MolecularSystem:
 
     # -- residual and Jacobian ---------------------------------------------------------------
     def evaluate(self, tab: dict, y: np.ndarray, x: np.ndarray, w: np.ndarray,
-                 closure: str, target: np.ndarray | None, want_jacobian: bool = True):
+                 closure: Closure, target: np.ndarray | None, want_jacobian: bool = True):
         """Residuals R (n_eq, m) and Jacobian J (m, n_eq, n_unknown) at (y, x, w).
 
         Unknown order: y_1..y_K, then x unless the closure fixes n_e, then w unless it fixes N.
@@ -317,9 +306,9 @@ class MolecularSystem:
         neg = ne + (at * qn).sum(axis=0) + n_nuc * on + q_neg_m @ n_m
         r_ch = np.log(pos) - np.log(neg)
         rows = [r_el, r_ch[None, :]]
-        fix_x = closure == "electron_pressure"
-        fix_w = closure in ("mass_density", "hydrogen_density")
-        if closure == "gas_pressure":
+        fix_x = closure.fixes == "electrons"
+        fix_w = closure.fixes == "nuclei"
+        if closure.fixes == "particles":
             part = at.sum(axis=0) + n_nuc * ofrac + n_m.sum(axis=0) + ne
             rows.append((np.log(part) - np.log(target))[None, :])
         r = np.concatenate(rows, axis=0)
@@ -336,7 +325,7 @@ class MolecularSystem:
         dpos_y = (at * qp).T + (n_m.T @ (self.nu * q_pos_m[:, None]))
         dneg_y = (at * qn).T + (n_m.T @ (self.nu * q_neg_m[:, None]))
         jac[:, nk, :nk] = dpos_y / pos[:, None] - dneg_y / neg[:, None]
-        if closure == "gas_pressure":
+        if closure.fixes == "particles":
             jac[:, nk + 1, :nk] = (at.T + n_m.T @ self.nu) / part[:, None]
         col = nk
         if not fix_x:
@@ -345,14 +334,14 @@ class MolecularSystem:
             dpos_x = -(at * q2p).sum(axis=0) + n_nuc * odp - (q_pos_m * self.q_mol) @ n_m
             dneg_x = ne + (at * q2n).sum(axis=0) + n_nuc * odn - (q_neg_m * self.q_mol) @ n_m
             jac[:, nk, col] = dpos_x / pos - dneg_x / neg
-            if closure == "gas_pressure":
+            if closure.fixes == "particles":
                 dpart_x = -(at * qm).sum(axis=0) - self.q_mol @ n_m + ne
                 jac[:, nk + 1, col] = dpart_x / part
             col += 1
         if not fix_w:
             jac[:, :nk, col] = -1.0
             jac[:, nk, col] = n_nuc * op / pos - n_nuc * on / neg
-            if closure == "gas_pressure":
+            if closure.fixes == "particles":
                 jac[:, nk + 1, col] = n_nuc * ofrac / part
         return r, jac
 
@@ -374,18 +363,15 @@ class MolecularSystem:
         bad = ~ok | ~np.isfinite(out_x) | ~np.isfinite(out_w)
         if bad.any():
             raise _failure(bad, t, v, closure, resid, shape)
-        from sahaboltz.equilibrium.solver import SolveReport
         return {"y": out_y, "x": out_x, "w": out_w,
                 "report": SolveReport(passes.reshape(shape), resid.reshape(shape))}
 
     def _fixed(self, t, v, closure):
-        comp = self.network.composition
-        if closure == "mass_density":
-            return np.log(v / (comp.mean_mass_amu * AMU)), None
-        if closure == "hydrogen_density":
-            return np.log(v / comp.number_fraction_of("H")), None
-        if closure == "gas_pressure":
-            return None, v / (K_B * t)
+        """(fixed ln N or None, fixed free-particle density or None) for the closure's kind."""
+        if closure.fixes == "nuclei":
+            return np.log(closure.nuclei(self.network.composition, v)), None
+        if closure.fixes == "particles":
+            return None, closure.particles(t, v)
         return None, None
 
     def _solve_chunk(self, t, v, closure, x, w, tol, max_passes):
@@ -393,8 +379,8 @@ class MolecularSystem:
         w_fixed, target = self._fixed(t, v, closure)
         if w_fixed is not None:
             w = w_fixed.copy()
-        if closure == "electron_pressure":
-            x = np.log(v / (K_B * t))
+        if closure.fixes == "electrons":
+            x = np.log(closure.electrons(t, v))
         tab = self.tables(t, x0=x)
         # start: neutral densities of the atoms-only solution
         y = np.log(self.alpha)[:, None] + w[None, :] - _packed_moments(*tab["mol"][:2], x)[0]
@@ -403,7 +389,7 @@ class MolecularSystem:
         resid = np.full(m, np.inf)
         active = np.arange(m)
         nk = y.shape[0]
-        fix_x = closure == "electron_pressure"
+        fix_x = closure.fixes == "electrons"
         fix_w = w_fixed is not None
 
         def sub(d, sel):
@@ -624,21 +610,11 @@ def _solve_batched(jac: np.ndarray, rhs: np.ndarray) -> np.ndarray:
         return out
 
 
-def _failure(bad, t, v, name, resid, shape,
+def _failure(bad, t, v, closure, resid, shape,
              what: str = "the molecular equilibrium") -> ConvergenceError:
-    from sahaboltz.equilibrium.solver import CLOSURES
-    where = np.flatnonzero(bad)
-    lines = []
-    for i in where[:10]:
-        idx = tuple(int(j) for j in np.unravel_index(i, shape)) if shape else ()
-        lines.append(f"  state {idx}: T = {t[i]:.6g} K, {name} = {v[i]:.6g} {CLOSURES[name]} "
-                     f"(residual {resid[i]:.3g})")
-    more = f"\n  ... and {where.size - 10} more" if where.size > 10 else ""
-    err = ConvergenceError(f"{what} did not converge at {where.size} of "
-                           f"{bad.size} states:\n" + "\n".join(lines) + more +
-                           "\n(try molecules='default' or fewer molecules, or a looser tolerance)")
-    err.indices = [tuple(int(j) for j in np.unravel_index(i, shape)) for i in where]
-    return err
+    return convergence_failure(bad, t, v, closure, resid, shape, what,
+                               "try molecules='default' or fewer molecules, or a looser "
+                               "tolerance")
 
 
 # ------------------------------------------------------------------------------ the result

@@ -16,21 +16,19 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from sahaboltz.constants import E_CHARGE, EV, K_B_EV
 from sahaboltz.data.composition import Composition
-from sahaboltz.data.elements import SYMBOLS
-from sahaboltz.errors import InputError, NoDataError
-from sahaboltz.kernels.partition import TRUNCATIONS, PartitionModel
-from sahaboltz.kernels.saha import H_MINUS_AFFINITY_EV, log_saha_constant
+from sahaboltz.data.database import default_database
+from sahaboltz.data.elements import SYMBOLS, atomic_number, parse_species, spectroscopic_name
+from sahaboltz.errors import InputError, NoDataError, UnknownSpeciesError
+from sahaboltz.kernels import truncation as _truncation
+from sahaboltz.kernels.partition import PartitionModel
+from sahaboltz.kernels.plasma import _lowering_ev
+from sahaboltz.kernels.saha import H_MINUS_AFFINITY_EV, _log_saha_steps
 
 #: name of the negative hydrogen ion in results
 H_MINUS = "H-"
 #: what to do with stages that have no level list: "unit" -> U = 1 (recorded), "error"
 MISSING_LEVEL_CHOICES = ("unit", "error")
-
-_LN2 = float(np.log(2.0))
-# e^2 [eV cm]: Debye-Hueckel lowering (z + 1) e^2 / lambda_D in eV
-_E2_EV_CM = E_CHARGE**2 / EV
 
 
 @dataclass
@@ -65,8 +63,8 @@ class AtomicNetwork:
     ----------
     composition : Composition
     database : SpeciesDatabase, optional
-    truncation : {"plain", "lowered", "occupation"}
-        Partition-function truncation.
+    truncation : str or TruncationScheme
+        Partition-function truncation (:mod:`sahaboltz.kernels.truncation`).
     completion : bool
         Hydrogenic completion of the level lists (see the partition-function docs).
     h_minus : bool
@@ -79,18 +77,15 @@ class AtomicNetwork:
 
     def __init__(self, composition: Composition, database=None, truncation: str = "plain",
                  completion: bool = False, h_minus: bool = True, missing_levels: str = "unit"):
-        from sahaboltz.data.database import default_database
-
         if not isinstance(composition, Composition):
             raise InputError("composition must be a sahaboltz.data.composition.Composition, "
                              f"e.g. solar() or Composition.from_number(...); got {composition!r}")
-        if truncation not in TRUNCATIONS:
-            raise InputError(f"truncation must be one of {', '.join(TRUNCATIONS)}, got {truncation!r}")
+        self.scheme = _truncation.get(truncation)
         if missing_levels not in MISSING_LEVEL_CHOICES:
             raise InputError(f"missing_levels must be one of {MISSING_LEVEL_CHOICES}")
         self.composition = composition
         self.database = database or default_database()
-        self.truncation = truncation
+        self.truncation = self.scheme.key
         self.completion = bool(completion)
         self.h_minus = bool(h_minus) and 1 in set(composition.Z.tolist())
         self.unit_partition: list[str] = []
@@ -127,7 +122,7 @@ class AtomicNetwork:
                                       "to take U = 1 for it")
                 rows.append(-1)
                 self.unit_partition.append(s.name)
-        model = PartitionModel(with_levels, truncation=self.truncation,
+        model = PartitionModel(with_levels, truncation=self.scheme,
                                completion=self.completion) if with_levels else None
         names = [s.name for s in stages]
         charges = [float(s.charge) for s in stages]
@@ -151,9 +146,6 @@ class AtomicNetwork:
 
     def species_index(self, name: str) -> int:
         """Flat position of a species given as "Fe II", "Fe+", (Z, charge) or "H-"."""
-        from sahaboltz.data.elements import parse_species, spectroscopic_name
-        from sahaboltz.errors import UnknownSpeciesError
-
         if name in self._by_name:
             return self._by_name[name]
         if isinstance(name, tuple):
@@ -167,9 +159,6 @@ class AtomicNetwork:
         return self._by_name[key]
 
     def chain_of(self, element) -> Chain:
-        from sahaboltz.data.elements import atomic_number
-        from sahaboltz.errors import UnknownSpeciesError
-
         z = atomic_number(element)
         for c in self.chains:
             if c.Z == z:
@@ -181,7 +170,7 @@ class AtomicNetwork:
     @property
     def ideal(self) -> bool:
         """True when the chains depend on temperature only (no n_e-dependent corrections)."""
-        return self.truncation == "plain"
+        return not self.scheme.density_dependent
 
     def log_c(self, chain: Chain, t: np.ndarray, n_e: np.ndarray | None = None,
               debye_length: np.ndarray | None = None) -> np.ndarray:
@@ -192,10 +181,11 @@ class AtomicNetwork:
         t : ndarray, shape (n,)
             Temperatures [K].
         n_e : ndarray, shape (n,), optional
-            Electron densities, for the "occupation" truncation.
+            Electron densities, for density-dependent truncations.
         debye_length : ndarray, shape (n,), optional
             Debye length [cm]: apply Debye-Hueckel lowering (z + 1) e^2 / lambda_D to the
-            ionization energies and, for "lowered", to the partition-function cut-offs.
+            ionization energies and, for schemes that use a lowering, to the
+            partition-function cut-offs.
 
         Returns
         -------
@@ -203,27 +193,23 @@ class AtomicNetwork:
         """
         n = t.shape[0]
         ln_u = np.zeros((chain.n, n))
-        lowering = None
-        if debye_length is not None:
-            # charge of the species being ionized; H- (q = -1) is not lowered
-            lowering = np.maximum(chain.charges + 1.0, 0.0)[:, None] * (_E2_EV_CM / debye_length)
+        # lowering of each stage's ionization (H-, q = -1, is not lowered)
+        lowering = None if debye_length is None else _lowering_ev(chain.charges[:, None],
+                                                                   debye_length[None, :])
         if chain.model is not None:
             has = chain.model_rows >= 0
             kw = {}
-            if self.truncation == "lowered":
+            if "lowering_ev" in self.scheme.inputs:
                 low = np.zeros((chain.model.n_species, n)) if lowering is None else lowering[has]
                 # keep the ground level in the partition sum while a trial n_e is far too high;
                 # the converged state is checked against chi separately
                 chi_m = chain.model.ionization_energy_ev[:, None]
                 kw["lowering_ev"] = np.minimum(low, np.where(np.isfinite(chi_m), 0.999 * chi_m, 0.0))
-            elif self.truncation == "occupation":
+            elif self.scheme.density_dependent:
                 kw["n_e"] = n_e
             ln_u[has] = np.log(chain.model.evaluate(t, **kw))
-        beta = 1.0 / (K_B_EV * t)
-        steps = (_LN2 + ln_u[1:] - ln_u[:-1] + log_saha_constant(t)[None, :]
-                 - chain.chi_ev[:, None] * beta[None, :])
-        if lowering is not None:
-            steps += lowering[:-1] * beta[None, :]
+        steps = _log_saha_steps(t, chain.chi_ev, ln_u,
+                                None if lowering is None else lowering[:-1])
         out = np.zeros((chain.n, n))
         np.cumsum(steps, axis=0, out=out[1:])
         return out

@@ -12,9 +12,10 @@ from sahaboltz.constants import K_B
 from sahaboltz.data.composition import Composition
 from sahaboltz.data.elements import atomic_number, spectroscopic_name
 from sahaboltz.equilibrium.network import AtomicNetwork
-from sahaboltz.equilibrium.solver import _check_options, solve_equilibrium
+from sahaboltz.equilibrium.solver import solve_equilibrium
 from sahaboltz.equilibrium.state import EquilibriumState
 from sahaboltz.errors import InputError
+from sahaboltz.kernels import truncation as _truncation
 from sahaboltz.quantities import as_positive_array
 
 __all__ = ["dominant_stage", "half_ionization_temperatures", "HalfIonization", "stage_table"]
@@ -107,7 +108,7 @@ def half_ionization_temperatures(element, *, electron_pressure: Any = None,
     if int(n_grid) < 8:
         raise InputError("n_grid must be at least 8")
     comp = composition if composition is not None else Composition.from_number({z: 1.0})
-    trunc = _check_options(truncation, lowering)
+    trunc = _truncation.resolve(truncation, lowering)
     net = AtomicNetwork(comp, database, trunc, False, h_minus)
     chain = net.chain_of(z)
     kw = {closure: float(p), "truncation": trunc, "lowering": lowering, "network": net}
@@ -115,7 +116,7 @@ def half_ionization_temperatures(element, *, electron_pressure: Any = None,
     # At a given P_e (no lowering) the stage fractions follow from n_e = P_e / kT by the Saha
     # chain alone; charge neutrality only sets the total density, and may have no solution
     # (pure hydrogen in cool gas at a high P_e, where H- outnumbers H+), so skip the solve.
-    saha_only = closure == "electron_pressure" and not lowering and trunc != "occupation"
+    saha_only = closure == "electron_pressure" and not lowering and not trunc.density_dependent
 
     def above(temps: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         if saha_only:

@@ -1,126 +1,93 @@
-"""The mixture solver: electron density and every stage population of an atomic mixture.
+"""The solve front: option checks and dispatch to the atom-only or the molecular engine.
 
-Formulation (see docs/equilibrium.md).  With N the density of nuclei and alpha_k the number
-fraction of element k, the Saha chains fix each element's stage fractions f_kq from T and n_e
-alone (plus n_e-dependent corrections when non-ideal options are on).  Element conservation,
-n_kq = N alpha_k f_kq, then holds by construction, and the remaining unknowns are n_e and N.
-With Zbar(n_e) = sum_k alpha_k <q>_k the mean charge per nucleus, charge neutrality reads
-
-    N Zbar(n_e) = n_e,
-
-and the closure gives N: fixed for a hydrogen-nucleus or mass density; N = P/kT - n_e for a gas
-pressure (each nucleus is one particle while there are no molecules); N = n_e / Zbar for a
-given electron pressure.  We solve g(x) = ln(N Zbar) - x = 0 in x = ln n_e for all states at
-once with a safeguarded Newton method: dZbar/dx = -sum_k alpha_k Var_k(q) exactly (the stage
-populations are an exponential family in x), g' <= -1, and every state keeps a bracket
-[lo, hi] with g(lo) > 0 > g(hi) so that a bad Newton step becomes a bisection.  Non-ideal
-corrections (lowering, occupation probabilities) are frozen, solved for, and updated in an
-outer fixed point (:func:`_solve_nonideal_block`).
+:func:`solve_equilibrium` is the one entry point.  It checks the composition, the closure
+(:mod:`sahaboltz.equilibrium.closures`), the truncation and lowering pair
+(:mod:`sahaboltz.kernels.truncation`) and the numerical options, builds (or reuses) the
+:class:`~sahaboltz.equilibrium.network.AtomicNetwork`, and hands the checked arrays to
+:func:`sahaboltz.equilibrium.atomic.solve_atomic` or, with molecules, to
+:func:`sahaboltz.equilibrium.molecular.solve_molecular`.  The engines import nothing from here.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
-from sahaboltz.constants import AMU, E_CHARGE, K_B
 from sahaboltz.data.composition import Composition
+from sahaboltz.equilibrium import closures as _closures
+from sahaboltz.equilibrium.atomic import DEFAULT_TOLERANCE, solve_atomic
+from sahaboltz.equilibrium.closures import Closure
+from sahaboltz.equilibrium.molecular import solve_molecular
 from sahaboltz.equilibrium.network import AtomicNetwork
-from sahaboltz.errors import ConvergenceError, InputError
+from sahaboltz.errors import InputError
+from sahaboltz.kernels import truncation as _truncation
+from sahaboltz.kernels.truncation import TruncationScheme
 from sahaboltz.quantities import as_positive_array
 
-CLOSURES = {"gas_pressure": "dyn cm-2", "mass_density": "g cm-3",
-            "hydrogen_density": "cm-3", "electron_pressure": "dyn cm-2"}
-
-#: default relative tolerance on charge neutrality |sum q n - n_e| / (sum |q| n + n_e)
-DEFAULT_TOLERANCE = 1e-12
-# elements of (species x states) handled at once; bounds memory and keeps work in cache
-_CHUNK_ELEMENTS = 1 << 24
-# a Newton step may move ln n_e by at most this much while no lower bracket is known
-_MAX_STEP = 20.0
-# most updates of the frozen non-ideal corrections
-_MAX_OUTER = 60
-# populations below e^-300 of an element's largest stage are floored there inside the solver
-_LOG_FLOOR = -300.0
+__all__ = ["solve_equilibrium", "checked_inputs", "DEFAULT_TOLERANCE"]
 
 
-@dataclass
-class SolveReport:
-    """Bookkeeping of one solve, for diagnostics and benchmarks."""
-
-    passes: np.ndarray          # evaluations of the charge balance per state
-    residual: np.ndarray        # final relative charge-neutrality residual per state
-
-    @property
-    def mean_passes(self) -> float:
-        return float(self.passes.mean())
-
-
-def _closure(kw: dict) -> tuple[str, Any]:
-    given = [k for k, v in kw.items() if v is not None]
+def _closure(given: dict) -> tuple[Closure, Any]:
+    """The one closure among the keyword arguments (None values are not given)."""
+    given = {k: v for k, v in given.items() if v is not None}
+    unknown = [k for k in given if k not in _closures.CLOSURES]
+    if unknown:
+        raise InputError(f"unknown keyword argument(s) {', '.join(unknown)}: give exactly one "
+                         f"closure ({', '.join(_closures.CLOSURES)}) besides the options")
     if len(given) != 1:
-        names = ", ".join(CLOSURES)
-        raise InputError(f"give exactly one of {names}; got "
+        raise InputError(f"give exactly one of {', '.join(_closures.CLOSURES)}; got "
                          f"{', '.join(given) if given else 'none'}")
-    return given[0], kw[given[0]]
+    name, value = next(iter(given.items()))
+    return _closures.CLOSURES[name], value
 
 
-def checked_inputs(composition, temperature, closures: dict, truncation,
-                   lowering) -> tuple[str, np.ndarray, np.ndarray, str]:
-    """Check what every solver takes: the composition, exactly one closure, the truncation and
+def checked_inputs(composition, temperature, closure_values: dict, truncation,
+                   lowering) -> tuple[Closure, np.ndarray, np.ndarray, TruncationScheme]:
+    """Check what every engine takes: the composition, exactly one closure, the truncation and
     lowering pair, and T and the closure value as positive arrays that broadcast.
 
-    Returns (closure name, T, closure value, truncation), T and value broadcast together.
+    Returns (closure, T, closure value, truncation scheme), T and value broadcast together.
     """
     if not isinstance(composition, Composition):
         raise InputError("composition must be a Composition (e.g. solar() or "
                          f"Composition.from_number({{'Ar': 1}})), got {composition!r}")
-    name, value = _closure(closures)
-    truncation = _check_options(truncation, lowering)
+    closure, value = _closure(closure_values)
+    scheme = _truncation.resolve(truncation, lowering)
     t = as_positive_array(temperature, "K", "temperature")
-    v = as_positive_array(value, CLOSURES[name], name)
+    v = as_positive_array(value, closure.unit, closure.name)
     try:
         t, v = np.broadcast_arrays(t, v)
     except ValueError:
-        raise InputError(f"temperature {t.shape} and {name} {v.shape} do not broadcast") from None
-    return name, t, v, truncation
+        raise InputError(f"temperature {t.shape} and {closure.name} {v.shape} do not "
+                         "broadcast") from None
+    closure.check(composition)
+    return closure, t, v, scheme
 
 
-def _check_options(truncation, lowering) -> str:
-    if truncation is None:
-        return "lowered" if lowering else "plain"
-    if truncation == "lowered" and not lowering:
-        raise InputError("truncation='lowered' cuts the partition functions at the lowered "
-                         "ionization limit: it needs lowering=True (Debye-Hueckel)")
-    if truncation == "plain" and lowering:
-        raise InputError("lowering=True with truncation='plain' would lower the ionization "
-                         "energies but not the partition-function cut-off: use "
-                         "truncation='lowered' (the default with lowering) or 'occupation'")
-    return truncation
-
-
-def solve_equilibrium(composition: Composition, temperature: Any, *, gas_pressure: Any = None,
-                      mass_density: Any = None, hydrogen_density: Any = None,
-                      electron_pressure: Any = None, truncation: str | None = None,
+def solve_equilibrium(composition: Composition, temperature: Any, *,
+                      truncation: str | TruncationScheme | None = None,
                       lowering: bool = False, completion: bool = False, h_minus: bool = True,
                       molecules=None, database=None, missing_levels: str = "unit",
                       tolerance: float = DEFAULT_TOLERANCE, max_passes: int = 200,
-                      network: AtomicNetwork | None = None):
+                      network: AtomicNetwork | None = None, molecule_database=None,
+                      **closure: Any):
     """Solve the LTE ionization balance of a mixture at one or many states.
 
     Parameters
     ----------
     composition : Composition
-        The mixture, e.g. :func:`sahaboltz.data.composition.solar`.
+        The mixture, e.g. :func:`sahaboltz.solar`.
     temperature : float, array_like or Quantity
         T [K].
     gas_pressure, mass_density, hydrogen_density, electron_pressure : array_like or Quantity
-        Exactly one closure: P_gas [dyn cm^-2], rho [g cm^-3], n_H (hydrogen nuclei) [cm^-3]
-        or P_e [dyn cm^-2].  Broadcast against ``temperature``.
-    truncation : {"plain", "lowered", "occupation"}, optional
-        Partition-function truncation; default "lowered" when ``lowering`` else "plain".
+        Exactly one closure (the registry :data:`sahaboltz.equilibrium.closures.CLOSURES`):
+        P_gas [dyn cm^-2], rho [g cm^-3], n_H (hydrogen nuclei) [cm^-3] or P_e [dyn cm^-2].
+        Broadcast against ``temperature``.
+    truncation : str or TruncationScheme, optional
+        Partition-function truncation (:mod:`sahaboltz.kernels.truncation`: "plain",
+        "lowered", "occupation", "ground", "below:n=3" ...); default "lowered" when
+        ``lowering`` else "plain".
     lowering : bool
         Debye-Hueckel lowering of the ionization energies, self-consistent with n_e and the
         ion densities, used also as the partition-function cut-off ("lowered").
@@ -128,8 +95,8 @@ def solve_equilibrium(composition: Composition, temperature: Any, *, gas_pressur
         Hydrogenic completion of the level lists (needs a bounding truncation).
     h_minus : bool
         Include H- (default True when hydrogen is present).
-    molecules : None
-        Reserved for the molecular equilibrium (:mod:`sahaboltz.equilibrium.molecular`).
+    molecules : {"default", "all", "none"} or list of names, optional
+        Solve with molecules (:mod:`sahaboltz.equilibrium.molecular`); None: atoms only.
     database : SpeciesDatabase, optional
     missing_levels : {"unit", "error"}
         Stages without level lists: U = 1 (listed in ``state.unit_partition``) or an error.
@@ -139,10 +106,12 @@ def solve_equilibrium(composition: Composition, temperature: Any, *, gas_pressur
         Most evaluations of the charge balance per state before giving up.
     network : AtomicNetwork, optional
         A prepared network (reuse it across calls with the same composition and options).
+    molecule_database : MoleculeDatabase, optional
+        Molecular data (default: the shipped data).
 
     Returns
     -------
-    EquilibriumState
+    EquilibriumState (MolecularEquilibriumState with molecules)
 
     Raises
     ------
@@ -151,535 +120,18 @@ def solve_equilibrium(composition: Composition, temperature: Any, *, gas_pressur
     ConvergenceError
         Some states did not converge; the message lists them by index with their values.
     """
-    from sahaboltz.equilibrium.state import EquilibriumState
-
-    if molecules is not None:
-        try:
-            from sahaboltz.equilibrium import molecular
-        except ImportError:
-            raise InputError("molecules: the molecular equilibrium is not available in this "
-                             "version; call without molecules") from None
-        return molecular.solve_with_molecules(
-            composition, temperature, gas_pressure=gas_pressure, mass_density=mass_density,
-            hydrogen_density=hydrogen_density, electron_pressure=electron_pressure,
-            truncation=truncation, lowering=lowering, completion=completion, h_minus=h_minus,
-            molecules=molecules, database=database, missing_levels=missing_levels,
-            tolerance=tolerance, max_passes=max_passes)
-    name, t, v, truncation = checked_inputs(
-        composition, temperature, {"gas_pressure": gas_pressure, "mass_density": mass_density,
-                                   "hydrogen_density": hydrogen_density,
-                                   "electron_pressure": electron_pressure},
-        truncation, lowering)
+    closure_def, t, v, scheme = checked_inputs(composition, temperature, closure, truncation,
+                                               lowering)
     if not (isinstance(tolerance, (int, float)) and 1e-15 <= tolerance < 1e-2):
         raise InputError(f"tolerance must be a number in [1e-15, 1e-2), got {tolerance!r}")
-    shape = t.shape
     if network is None:
-        network = AtomicNetwork(composition, database, truncation, completion, h_minus,
+        network = AtomicNetwork(composition, database, scheme, completion, h_minus,
                                 missing_levels)
-    elif (network.composition is not composition or network.truncation != truncation):
+    elif network.composition is not composition or network.scheme != scheme:
         raise InputError("network was built for another composition or truncation")
-    if name == "hydrogen_density" and 1 not in set(composition.Z.tolist()):
-        raise InputError("hydrogen_density: the composition has no hydrogen; use "
-                         "mass_density or gas_pressure")
-    tf, vf = t.ravel().copy(), v.ravel().copy()
-    x, nuc, lam, report = _solve_flat(network, tf, vf, name, lowering, tolerance,
-                                      int(max_passes), shape)
-    return EquilibriumState(network=network, temperature=t.copy(), log_ne=x.reshape(shape),
-                            nuclei_density=nuc.reshape(shape), closure=name,
-                            closure_value=v.copy(), lowering=lowering,
-                            debye_length=None if lam is None else lam.reshape(shape),
-                            report=report)
-
-
-def _nuclei_fixed(network: AtomicNetwork, name: str, v: np.ndarray) -> np.ndarray | None:
-    comp = network.composition
-    if name == "hydrogen_density":
-        return v / comp.number_fraction_of("H")
-    if name == "mass_density":
-        return v / (comp.mean_mass_amu * AMU)
-    return None
-
-
-def _solve_flat(network, t, v, name, lowering, tol, max_passes, shape):
-    n = t.size
-    fixed_n = _nuclei_fixed(network, name, v)
-    ntot = v / (K_B * t) if name == "gas_pressure" else None
-    x_out = np.empty(n)
-    nuc_out = np.empty(n)
-    lam_out = np.empty(n) if lowering else None
-    passes = np.zeros(n, dtype=int)
-    resid = np.empty(n)
-    failed = np.zeros(n, dtype=bool)
-    chunk = max(1, _CHUNK_ELEMENTS // max(1, network.n_species))
-    order = np.argsort(t, kind="stable")  # neighbours in T share partition-function work
-    if network.ideal and not lowering:
-        ut, tinv = np.unique(t, return_inverse=True)
-        c_unique = [network.log_c(c, ut) for c in network.chains]
-        intervals = [_significance_intervals(c.charges, tab) for c, tab in
-                     zip(network.chains, c_unique)]
-    else:
-        ut = tinv = c_unique = None
-    for c0 in range(0, n, chunk):
-        idx = order[c0:c0 + chunk]
-        if c_unique is None:
-            out = _solve_nonideal_block(network, t[idx], v[idx], name,
-                                        None if fixed_n is None else fixed_n[idx],
-                                        None if ntot is None else ntot[idx], lowering, tol,
-                                        max_passes)
-            x_out[idx], nuc_out[idx], passes[idx], resid[idx], done, lam = out
-            failed[idx] = ~done
-            if lowering:
-                lam_out[idx] = lam
-            continue
-        sub = _ChunkSolver(network, t[idx], v[idx], name,
-                           None if fixed_n is None else fixed_n[idx],
-                           None if ntot is None else ntot[idx], (c_unique, intervals, tinv[idx]))
-        sub.run(tol, max_passes)
-        x_out[idx], nuc_out[idx], passes[idx], resid[idx] = sub.x, sub.nuc, sub.passes, sub.resid
-        failed[idx] = ~sub.done
-    bad = failed | ~np.isfinite(x_out) | ~np.isfinite(nuc_out) | ~(nuc_out > 0)
-    if bad.any():
-        raise _failure(bad, t, v, name, resid, shape, network.truncation)
-    if lowering:
-        _check_lowering(network, lam_out, t, v, name, shape)
-    return x_out, nuc_out, lam_out, SolveReport(passes.reshape(shape), resid.reshape(shape))
-
-
-def _solve_nonideal_block(network, t, v, name, fixed_n, ntot, lowering, tol, max_passes):
-    """Outer fixed point on the n_e-dependent corrections around the ideal Newton solver.
-
-    The corrections (Debye-Hueckel lowering from n_e and sum z^2 n_z; occupation
-    probabilities from n_e) are frozen at theta = (n_e, sum z^2 n_z); with them frozen the
-    Saha chains depend on T alone and the safeguarded Newton solve of the ideal case applies
-    unchanged (monotone, bracketed).  theta is then updated from the solution until it
-    reproduces itself to the tolerance.
-    """
-    m = t.size
-    x = np.full(m, np.nan)
-    nuc = np.full(m, np.nan)
-    passes = np.zeros(m, dtype=int)
-    resid = np.full(m, np.inf)
-    done = np.zeros(m, dtype=bool)
-    lam_out = np.full(m, np.nan)
-    zmax = network.max_mean_charge
-    if name == "gas_pressure":
-        x_hi = np.log(ntot * zmax / (1.0 + zmax))
-    elif fixed_n is not None:
-        x_hi = np.log(fixed_n * zmax)
-    else:
-        x_hi = np.log(v / (K_B * t))
-    # start from the weakly non-ideal branch: no lowering, a low density for the occupation
-    # probabilities (starting from full ionization can land on a spurious self-sustained
-    # Debye-Hueckel "pressure ionization" branch in cold dense gas)
-    fixed_pe = fixed_n is None and ntot is None
-    ne_th = np.exp(x_hi) if fixed_pe else np.ones(m)
-    s_th = ne_th.copy()
-    act = np.arange(m)
-    for outer in range(_MAX_OUTER):
-        if act.size == 0:
-            break
-        tt = t[act]
-        lam = (np.sqrt(K_B * tt / (4.0 * np.pi * E_CHARGE**2 * (ne_th + s_th)))
-               if lowering and outer > 0 else None)
-        tables = [network.log_c(c, tt, ne_th, lam) for c in network.chains]
-        intervals = [_significance_intervals(c.charges, tab) for c, tab in
-                     zip(network.chains, tables)]
-        child = _ChunkSolver(network, tt, v[act], name,
-                             None if fixed_n is None else fixed_n[act],
-                             None if ntot is None else ntot[act],
-                             (tables, intervals, np.arange(act.size)))
-        child.run(tol, max_passes)
-        passes[act] += child.passes
-        ok = child.done
-        xn = np.where(ok, child.x, np.log(ne_th))
-        _, _, _, z2 = child._moments(tables, xn)
-        ne_new = np.exp(xn)
-        s_new = np.where(ok, child.nuc * z2, s_th)
-        conv = ok & (np.abs(xn - np.log(ne_th)) <= tol) & (outer > 0 or not lowering)
-        if lowering:
-            conv &= np.abs(s_new - s_th) <= tol * (ne_new + s_new)
-        fin = act[conv]
-        x[fin], nuc[fin], resid[fin] = xn[conv], child.nuc[conv], child.resid[conv]
-        done[fin] = True
-        if lowering and lam is not None:
-            lam_out[fin] = lam[conv]
-        # states whose frozen-correction solve failed cannot be helped by iterating
-        keep = ~conv & ok
-        resid[act[~ok]] = child.resid[~ok]
-        act = act[keep]
-        ne_th, s_th = ne_new[keep], s_new[keep]
-    if act.size:
-        resid[act] = np.maximum(resid[act], tol * 10)
-    return x, nuc, passes, resid, done, lam_out
-
-
-def _failure(bad, t, v, name, resid, shape, truncation="plain") -> ConvergenceError:
-    where = np.flatnonzero(bad)
-    lines = []
-    for i in where[:10]:
-        idx = np.unravel_index(i, shape) if shape else ()
-        lines.append(f"  state {tuple(int(j) for j in idx)}: T = {t[i]:.6g} K, "
-                     f"{name} = {v[i]:.6g} {CLOSURES[name]} (residual {resid[i]:.3g})")
-    more = f"\n  ... and {where.size - 10} more" if where.size > 10 else ""
-    hint = ("a given electron pressure may be unreachable at these temperatures (too few "
-            "electron donors)" if name == "electron_pressure" else
-            "check that the states are physical; try a looser tolerance")
-    if truncation == "lowered":
-        hint += ("; with truncation='lowered' the partition functions jump whenever a level "
-                 "crosses the lowered limit, so the balance can lack an exact root: "
-                 "truncation='occupation' is continuous")
-    err = ConvergenceError(f"the ionization balance did not converge at {where.size} of "
-                           f"{bad.size} states:\n" + "\n".join(lines) + more + f"\n({hint})")
-    err.indices = [tuple(int(j) for j in np.unravel_index(i, shape)) for i in where]
-    return err
-
-
-def _check_lowering(network, lam, t, v, name, shape):
-    # the lowering of each species must stay below its ionization energy
-    low1 = E_CHARGE**2 / lam  # erg per unit (z + 1)
-    from sahaboltz.constants import EV
-    for c in network.chains:
-        zq = np.maximum(c.charges[:-1] + 1.0, 0.0)
-        ratio = (zq[:, None] * low1[None, :] / EV) / c.chi_ev[:, None]
-        over = (ratio >= 1.0).any(axis=0)
-        if over.any():
-            i = int(np.flatnonzero(over)[0])
-            idx = tuple(int(j) for j in np.unravel_index(i, shape))
-            raise ConvergenceError(
-                f"state {idx} (T = {t[i]:.6g} K, {name} = {v[i]:.6g}): the Debye-Hueckel "
-                f"lowering reaches the ionization energy of {c.symbol}; the plasma is too "
-                "strongly coupled for this model")
-
-
-class _ChunkSolver:
-    """Safeguarded Newton in ln n_e over one block of states, with fixed Saha tables."""
-
-    def __init__(self, network, t, v, name, fixed_n, ntot, tables):
-        self.net = network
-        self.t, self.v, self.name = t, v, name
-        self.fixed_n, self.ntot = fixed_n, ntot
-        # (C tables per temperature, their significance intervals, each state's T index)
-        self.ideal_tables = tables
-        m = t.size
-        self.passes = np.zeros(m, dtype=int)
-        self.done = np.zeros(m, dtype=bool)
-        self.x = np.empty(m)
-        self.nuc = np.full(m, np.nan)
-        self.resid = np.full(m, np.inf)
-        zmax = network.max_mean_charge
-        if name == "gas_pressure":
-            self.x_hi = np.log(ntot * zmax / (1.0 + zmax))
-        elif fixed_n is not None:
-            self.x_hi = np.log(fixed_n * zmax)
-        else:
-            self.x_hi = np.log(v / (K_B * t))  # electron pressure: n_e is given
-        self.mom = [np.stack([np.ones(c.n), c.charges, c.charges**2, np.abs(c.charges)])
-                    for c in network.chains]
-
-    # -- the charge balance --------------------------------------------------------------
-    def _moments(self, tables, x):
-        """Charge moments from full chains (tables of the same states as ``x``)."""
-        m = x.size
-        zbar, var, zabs, z2 = (np.zeros(m) for _ in range(4))
-        for c, tab, mom in zip(self.net.chains, tables, self.mom):
-            a = tab - np.multiply.outer(c.charges, x)
-            a -= a.max(axis=0)
-            np.maximum(a, _LOG_FLOOR, out=a)
-            np.exp(a, out=a)
-            s = mom @ a
-            inv = 1.0 / s[0]
-            mq = s[1] * inv
-            mq2 = s[2] * inv
-            zbar += c.fraction * mq
-            var += c.fraction * np.maximum(mq2 - mq * mq, 0.0)
-            zabs += c.fraction * s[3] * inv
-            z2 += c.fraction * mq2
-        return zbar, var, zabs, z2
-
-    def _initial(self):
-        """Weak-ionization estimate n_e ~ sqrt(N sum_k alpha_k Phi_k), capped by x_hi."""
-        if self.fixed_n is None and self.ntot is None:
-            return self.x_hi.copy()
-        terms = []
-        c_unique, _, tpos = self.ideal_tables
-        for c, tab in zip(self.net.chains, c_unique):
-            i0 = int(np.flatnonzero(c.charges == 0)[0])
-            terms.append(np.log(c.fraction) + (tab[i0 + 1] - tab[i0])[tpos])
-        terms = np.array(terms)
-        mx = terms.max(axis=0)
-        ln_sum = mx + np.log(np.exp(terms - mx).sum(axis=0))
-        nref = self.fixed_n if self.fixed_n is not None else self.ntot
-        return np.minimum(0.5 * (np.log(nref) + ln_sum), self.x_hi - 1e-9)
-
-    def run(self, tol, max_passes):
-        m = self.t.size
-        x = self._initial()
-        lo = np.full(m, -np.inf)
-        hi = self.x_hi.copy()
-        active = np.arange(m)
-        windows = _Windows(self.net.chains, *self.ideal_tables)
-        step = np.full(m, 0.5)  # size of the last Newton step (sets the window margins)
-        fixed_pe = self.fixed_n is None and self.ntot is None
-        prev = np.full(m, np.inf)  # previous step size, for the rtsafe-style safeguard
-        for _ in range(max_passes):
-            xa = x[active]
-            zbar, var, zabs, _ = windows.moments(active, xa, step[active])
-            self.passes[active] += 1
-            ne = np.exp(xa)
-            if fixed_pe:
-                nn = np.where(zbar > 0, ne / np.where(zbar > 0, zbar, 1.0), np.nan)
-            elif self.fixed_n is not None:
-                nn = self.fixed_n[active]
-            else:
-                nn = self.ntot[active] - ne
-            f = nn * zbar - ne
-            scale = nn * zabs + ne
-            rel = np.abs(f) / scale
-            ok = rel <= tol
-            if fixed_pe:
-                ok = np.isfinite(nn) & (nn > 0)
-                rel = np.where(ok, 0.0, np.inf)
-            # stalled at machine precision inside a collapsed bracket: accept if still good
-            tight = (hi[active] - lo[active]) <= 8e-16 * np.maximum(1.0, np.abs(xa))
-            ok |= tight & (rel <= 1e-10)
-            done_now = active[ok]
-            self.done[done_now] = True
-            self.x[done_now] = xa[ok]
-            self.nuc[done_now] = nn[ok]
-            self.resid[done_now] = rel[ok]
-            if fixed_pe:  # n_e is given: one evaluation decides
-                self.x[active] = xa
-                self.resid[active] = rel
-                break
-            keep = ~ok
-            if not keep.any():
-                break
-            self.resid[active[keep]] = rel[keep]
-            self.x[active[keep]] = xa[keep]
-            # Newton step with bracket safeguard
-            a = active[keep]
-            xa, zb, vr, nnk, nek = xa[keep], zbar[keep], var[keep], nn[keep], ne[keep]
-            valid = (nnk > 0) & (zb > 0)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                g = np.where(valid, np.log(np.where(valid, nnk * zb, 1.0)) - xa, -np.inf)
-                dg = -vr / zb - 1.0
-                if self.ntot is not None:
-                    dg = dg - nek / nnk
-                xn = xa - g / dg
-                # Zbar <= 0 (negative ions outweigh the positive ones: n_e far too high):
-                # Newton on the linear form F = N Zbar / n_e - 1 instead of its logarithm
-                lin = (nnk > 0) & ~valid
-                if lin.any():
-                    f_lin = nnk * zb / nek - 1.0
-                    df_lin = -(nnk / nek) * (vr + zb)
-                    if self.ntot is not None:
-                        df_lin = df_lin - zb
-                    xn = np.where(lin, xa - f_lin / df_lin, xn)
-            lo[a] = np.where(g > 0, np.maximum(lo[a], xa), lo[a])
-            hi[a] = np.where(g < 0, np.minimum(hi[a], xa), hi[a])
-            la, ha = lo[a], hi[a]
-            outside = ~(nnk > 0) | ~np.isfinite(xn) | ~(xn > la) | ~(xn < ha)
-            # too slow a decrease (e.g. Newton cycling across a kink): bisect (as rtsafe)
-            outside |= np.isfinite(la) & (np.abs(xn - xa) > 0.5 * prev[a])
-            bisect = np.where(np.isfinite(la), 0.5 * (la + ha), ha - _MAX_STEP)
-            xn = np.where(outside, bisect, xn)
-            xn = np.where(np.isfinite(la), xn, np.maximum(xn, xa - _MAX_STEP))
-            prev[a] = step[a] = np.abs(xn - xa)
-            x[a] = xn
-            active = a
-
-
-def _significance_intervals(charges: np.ndarray, tab: np.ndarray, thr: float = 40.0,
-                            reach: int = 32) -> tuple[np.ndarray, np.ndarray]:
-    """Where in x = ln n_e each stage of a chain can matter, at each tabulated temperature.
-
-    With a_r(x) = C_r - q_r x, stage r is within e^-thr of the largest stage exactly when
-    a_s(x) - a_r(x) <= thr for every other stage s, i.e. for x in [xl_r, xr_r] with
-
-        xl_r = max_{s > r} (C_s - C_r - thr) / (q_s - q_r),
-        xr_r = min_{s < r} (C_r - C_s + thr) / (q_r - q_s).
-
-    Only stages s within ``reach`` of r are used: a maximum (minimum) over fewer stages can
-    only lower xl (raise xr), so the intervals stay supersets.  They are returned as monotone
-    envelopes (xl running minimum from the first stage, xr running maximum from the last),
-    which again only widen them and make the windows contiguous, clipped to
-    [-_X_CLIP, _X_CLIP]; shape (n_T, n_stages) each.
-    """
-    n, nt = tab.shape
-    xl = np.full((n, nt), -_X_CLIP)
-    xr = np.full((n, nt), _X_CLIP)
-    for d in range(1, min(reach, n - 1) + 1):
-        dq = (charges[d:] - charges[:-d])[:, None]
-        slope = (tab[d:] - tab[:-d]) / dq         # secant slopes between stages r and r + d
-        np.maximum(xl[:-d], slope - thr / dq, out=xl[:-d])
-        np.minimum(xr[d:], slope + thr / dq, out=xr[d:])
-    np.clip(xl, -_X_CLIP, _X_CLIP, out=xl)
-    np.clip(xr, -_X_CLIP, _X_CLIP, out=xr)
-    xl = np.minimum.accumulate(xl, axis=0)
-    xr = np.maximum.accumulate(xr[::-1], axis=0)[::-1]
-    return xl.T.copy(), xr.T.copy()
-
-
-# ln n_e never leaves this range (|x| = 2000 is n_e = 10^(+-869) cm^-3)
-_X_CLIP = 2000.0
-# window margin: delta = _MARGIN x the last Newton step, within [_DELTA_MIN, _DELTA_MAX]
-_MARGIN, _DELTA_MIN, _DELTA_MAX = 2.0, 0.01, 1.0
-
-
-class _Windows:
-    """Charge moments of every element from a window of its significant stages.
-
-    For each temperature the significance intervals of :func:`_significance_intervals` say
-    which stages of a chain lie within e^-THR of its largest stage anywhere in
-    [x - delta, x + delta]; two binary searches per chain and state give that window of W_k
-    consecutive stages.  At the reference point x_ref the window populations are formed once,
-    E0_j = exp(a_j(x_ref) - max); for |x - x_ref| <= delta they are exactly E0_j y^j with
-    y = exp(-(x - x_ref)), so a Newton pass costs two small array operations per window stage
-    and no exponentials.  Stages left out stay below e^-40 (4e-18) of their element's
-    largest stage throughout.
-    """
-
-    #: chains this short are always taken whole (and H with H- needs its true charges)
-    WHOLE = 4
-    _BIG = 4.0 * _X_CLIP + 8.0
-
-    def __init__(self, chains, c_unique, intervals, tpos):
-        self.chains = chains
-        self.c_unique = c_unique
-        self.tpos = tpos                      # each state's index into the unique temperatures
-        self.ids = np.arange(tpos.size)       # chunk positions of the rows held here
-        m = tpos.size
-        self.m = m
-        self.xref = np.full(m, np.nan)
-        self.delta = np.zeros(m)
-        self.width = [None] * len(chains)
-        self.start = [np.zeros(m, dtype=np.intp) for _ in chains]
-        self.e0 = [None] * len(chains)
-        self.whole = [c.n <= self.WHOLE for c in chains]
-        self.mom_q = [np.stack([np.ones(c.n), c.charges, c.charges**2, np.abs(c.charges)])
-                      for c in chains]
-        self._mom_j = {}
-        # search keys: the chunk's temperatures one after another, offset by _BIG each
-        used, local = np.unique(tpos, return_inverse=True)
-        self.local = local.ravel()
-        off = (np.arange(used.size) * self._BIG)[:, None]
-        self.keys_l, self.keys_r = [], []
-        for k, c in enumerate(chains):
-            if self.whole[k]:
-                self.keys_l.append(None)
-                self.keys_r.append(None)
-                continue
-            xl, xr = intervals[k]
-            self.keys_l.append((off - xl[used]).ravel())   # ascending within each T
-            self.keys_r.append((off - xr[used]).ravel())
-
-    def _mom(self, w):
-        if w not in self._mom_j:
-            j = np.arange(w, dtype=float)
-            self._mom_j[w] = np.stack([np.ones(w), j, j * j])
-        return self._mom_j[w]
-
-    def _refresh(self, sel, x, delta) -> bool:
-        """New windows for the states ``sel`` (chunk positions) at x; False if one is too wide."""
-        loc = self.local[sel]
-        tp = self.tpos[sel]
-        base = loc * self._BIG
-        plans = []
-        for k, c in enumerate(self.chains):
-            n = c.n
-            if self.whole[k]:
-                a = self.c_unique[k][:, tp] - np.multiply.outer(c.charges, x)
-                plans.append((k, None, None, a))
-                continue
-            # lowest significant stage: #{r: xl_r > x + delta}; highest: n-1-#{r: xr_r < x - delta}
-            lo = np.searchsorted(self.keys_l[k], base - (x + delta), side="left") - loc * n
-            hi = n - 1 - (loc + 1) * n + np.searchsorted(self.keys_r[k], base - (x - delta),
-                                                         side="right")
-            hi = np.maximum(hi, lo)
-            need = int((hi - lo).max()) + 1
-            w = self.width[k]
-            if w is None:
-                w = min(n, need + 1)
-            elif need > w:
-                return False
-            s0 = np.minimum(lo, n - w)
-            rows = s0[None, :] + np.arange(w)[:, None]
-            tab = self.c_unique[k]
-            a = np.take(tab.ravel(), rows * tab.shape[1] + tp[None, :])
-            a -= (c.q_min + rows) * x[None, :]
-            plans.append((k, w, s0, a))
-        for k, w, s0, a in plans:
-            a -= a.max(axis=0)
-            # e^-300 is as good as 0 here and keeps exp off its slow underflow path
-            np.maximum(a, _LOG_FLOOR, out=a)
-            np.exp(a, out=a)
-            if w is not None:
-                if self.width[k] is None:
-                    self.width[k] = w
-                    self.e0[k] = np.zeros((w, self.m))
-                self.start[k][sel] = s0
-            elif self.e0[k] is None:
-                self.e0[k] = np.zeros((self.chains[k].n, self.m))
-            self.e0[k][:, sel] = a
-        self.xref[sel] = x
-        self.delta[sel] = delta
-        return True
-
-    def _compress(self, keep: np.ndarray) -> None:
-        """Drop the rows of converged states so later passes touch contiguous arrays."""
-        self.ids = self.ids[keep]
-        self.m = keep.size
-        for name in ("xref", "delta", "tpos", "local"):
-            setattr(self, name, getattr(self, name)[keep])
-        self.start = [st[keep] for st in self.start]
-        self.e0 = [None if e is None else e[:, keep] for e in self.e0]
-
-    def moments(self, sel, x, last_step):
-        """(Zbar, sum Var, sum |q|, sum q^2) per nucleus at the states ``sel`` (chunk positions)."""
-        rows = np.searchsorted(self.ids, sel)
-        if rows.size < 0.6 * self.m:
-            self._compress(rows)
-            rows = np.arange(rows.size)
-        sel = rows
-        stale = ~(np.abs(x - self.xref[sel]) <= self.delta[sel])
-        if stale.any():
-            delta = np.clip(_MARGIN * last_step[stale], _DELTA_MIN, _DELTA_MAX)
-            if not self._refresh(sel[stale], x[stale], delta):
-                # a window got too narrow: rebuild the windows of these states from scratch
-                self.width = [None] * len(self.chains)
-                self.e0 = [None] * len(self.chains)
-                self.xref[:] = np.nan
-                d = np.clip(_MARGIN * last_step, _DELTA_MIN, _DELTA_MAX)
-                self._refresh(sel, x, d)
-        allsel = sel.size == self.m
-        dx = x - self.xref[sel]
-        wmax = max(c.n if self.whole[k] else self.width[k] for k, c in enumerate(self.chains))
-        powers = np.empty((wmax, sel.size))
-        powers[0] = 1.0
-        if wmax > 1:
-            powers[1:] = np.exp(-dx)
-            np.cumprod(powers, axis=0, out=powers)
-        zbar, var, zabs, z2 = (np.zeros(sel.size) for _ in range(4))
-        for k, c in enumerate(self.chains):
-            e0 = self.e0[k] if allsel else self.e0[k][:, sel]
-            w = e0.shape[0]
-            e = e0 * powers[:w]
-            if self.whole[k]:
-                s = self.mom_q[k] @ e
-                inv = 1.0 / s[0]
-                mq, mq2 = s[1] * inv, s[2] * inv
-                zabs += c.fraction * (s[3] * inv)
-                vq = mq2 - mq * mq
-            else:
-                s = self._mom(w) @ e
-                inv = 1.0 / s[0]
-                mj, mj2 = s[1] * inv, s[2] * inv
-                base = c.q_min + (self.start[k] if allsel else self.start[k][sel])
-                mq = base + mj
-                mq2 = base * (base + 2.0 * mj) + mj2
-                zabs += c.fraction * mq   # no negative charges in a windowed chain
-                vq = mj2 - mj * mj
-            zbar += c.fraction * mq
-            var += c.fraction * np.maximum(vq, 0.0)
-            z2 += c.fraction * mq2
-        return zbar, var, zabs, z2
+    if molecules is not None:
+        return solve_molecular(network, t, v, closure_def, molecules=molecules,
+                               lowering=lowering, tolerance=tolerance, max_passes=max_passes,
+                               molecule_database=molecule_database)
+    return solve_atomic(network, t, v, closure_def, lowering=lowering, tolerance=tolerance,
+                        max_passes=max_passes)

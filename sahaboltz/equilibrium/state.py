@@ -8,16 +8,29 @@ Units: densities cm^-3, pressures dyn cm^-2, mass density g cm^-3, lengths cm, T
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
-from sahaboltz.constants import AMU, E_CHARGE, EV, K_B
+from sahaboltz.constants import AMU, K_B
 from sahaboltz.equilibrium.network import AtomicNetwork, Chain
 from sahaboltz.errors import InputError, NoDataError
+from sahaboltz.kernels.plasma import _coupling, _debye_length, _lowering_ev, _mcwhirter
+from sahaboltz.kernels.saha import chain_fractions
+from sahaboltz.quantities import as_positive_array
 
-#: McWhirter (1965) criterion coefficient [cm^-3 K^-1/2 eV^-3]: n_e >= 1.6e12 T^1/2 dE^3
-MCWHIRTER_COEFFICIENT = 1.6e12
+
+@dataclass
+class SolveReport:
+    """Bookkeeping of one solve, for diagnostics and benchmarks."""
+
+    passes: np.ndarray          # evaluations of the charge balance per state
+    residual: np.ndarray        # final relative charge-neutrality residual per state
+
+    @property
+    def mean_passes(self) -> float:
+        return float(self.passes.mean())
 
 
 class EquilibriumState:
@@ -117,10 +130,7 @@ class EquilibriumState:
             else:
                 lam = None if self._debye is None else self._debye.ravel()
                 tab = self.network.log_c(chain, t, np.exp(x), lam)
-            a = tab - np.multiply.outer(chain.charges, x)
-            a -= a.max(axis=0)
-            np.exp(a, out=a)
-            a /= a.sum(axis=0)
+            a = chain_fractions(tab - np.multiply.outer(chain.charges, x))
             self._cache[chain.k] = a.reshape((chain.n,) + self.shape)
         return self._cache[chain.k]
 
@@ -191,11 +201,13 @@ class EquilibriumState:
                               "(taken with U = 1), so no level populations")
         sp = chain.model.species[row]
         kw = {}
-        if self.network.truncation == "lowered":
+        scheme = self.network.scheme
+        if "lowering_ev" in scheme.inputs:
             # the model wants a lowering for each of its species: (n_species,) + state shape
-            z1 = np.array([s.charge + 1.0 for s in chain.model.species])
-            kw["lowering_ev"] = np.multiply.outer(z1, E_CHARGE**2 / self.debye_length / EV)
-        elif self.network.truncation == "occupation":
+            q = np.array([s.charge for s in chain.model.species], dtype=float)
+            kw["lowering_ev"] = _lowering_ev(q.reshape((-1,) + (1,) * len(self.shape)),
+                                             self.debye_length[None, ...])
+        elif scheme.density_dependent:
             kw["n_e"] = self.n_e
         terms, energy, _ = chain.model.level_terms(sp, self.temperature, **kw)
         return terms / terms.sum(axis=0) * self.number_density(species), energy
@@ -239,14 +251,12 @@ class EquilibriumState:
         """lambda_D = sqrt(kT / (4 pi e^2 (n_e + sum z^2 n_z))) [cm]."""
         if self._debye is not None:
             return self._debye
-        return np.sqrt(K_B * self.temperature /
-                       (4.0 * np.pi * E_CHARGE**2 * (self.n_e + self.sum_z2_n())))
+        return _debye_length(self.temperature, self.n_e + self.sum_z2_n())
 
     @property
     def coupling_parameter(self) -> np.ndarray:
         """Electron coupling Gamma_e = e^2 / (a_e k T), a_e = (3 / (4 pi n_e))^(1/3)."""
-        a = (3.0 / (4.0 * np.pi * self.n_e)) ** (1.0 / 3.0)
-        return E_CHARGE**2 / (a * K_B * self.temperature)
+        return _coupling(self.temperature, self.n_e)
 
     @property
     def debye_number(self) -> np.ndarray:
@@ -266,9 +276,8 @@ class EquilibriumState:
         if delta_e_ev is None:
             delta_e_ev = self.largest_gap_ev()
         else:
-            from sahaboltz.quantities import as_positive_array
             delta_e_ev = as_positive_array(delta_e_ev, "eV", "delta_e_ev")
-        return MCWHIRTER_COEFFICIENT * np.sqrt(self.temperature) * delta_e_ev**3
+        return _mcwhirter(self.temperature, delta_e_ev)
 
     def lte_valid(self, delta_e_ev: Any = None) -> np.ndarray:
         """McWhirter criterion n_e >= 1.6e12 T^1/2 dE^3 (necessary, not sufficient)."""

@@ -3,7 +3,7 @@
     sahaboltz demo                      # tables through the cache, summary, plots
     sahaboltz demo --out plots/ --quick # reduced grids, a few seconds
 
-See :mod:`sahaboltz.demo` for the scenario.  A second run finds both tables in the cache.
+See :mod:`sahaboltz.faces.demo` for the scenario.  A second run finds both tables in the cache.
 """
 
 from __future__ import annotations
@@ -33,7 +33,7 @@ def _status(hit: bool) -> str:
 
 
 def _run(args) -> int:
-    from sahaboltz.demo import ARC, STAR, run_demo
+    from sahaboltz.faces.demo import ARC, STAR, run_demo
 
     r = run_demo(args.out, quick=args.quick, workers=args.workers, plots=not args.no_plots)
     s = r.seconds

@@ -20,7 +20,7 @@ import numpy as np
 from sahaboltz.constants import K_B_EV
 from sahaboltz.data.species import Species
 from sahaboltz.errors import InputError
-from sahaboltz.kernels.partition import _model_for, _resolve
+from sahaboltz.kernels.partition import _model_for, _resolve, species_lowering
 from sahaboltz.quantities import as_array, as_positive_array
 
 __all__ = ["select_levels", "level_populations", "level_fraction", "level_ratio",
@@ -135,10 +135,8 @@ def level_populations(species, temperature: Any, *, truncation: str = "plain",
     sp = _resolve(species)
     model = _model_for(species if not isinstance(species, Species) else sp, truncation,
                        completion)
-    if lowering_ev is not None and truncation == "lowered":
-        low = as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False)
-        lowering_ev = low[None, ...] if low.ndim else low
-    terms, _, ncomp = model.level_terms(sp.name, temperature, n_e, lowering_ev, n_neutral)
+    terms, _, ncomp = model.level_terms(sp.name, temperature, n_e,
+                                        species_lowering(model, lowering_ev), n_neutral)
     u = terms.sum(axis=0)
     tab = terms[ncomp == 0]
     mask = sp.bound

@@ -1,20 +1,15 @@
 """Internal partition functions U(T) of atoms and ions, for many species at once.
 
-U_r = sum_i g_i w_i exp(-E_i / kT) over the bound levels of stage r, with one of three
-truncations of the (divergent) level sum:
-
-``"plain"``
-    every tabulated bound level (below the ionization energy, not autoionizing), w = 1;
-``"lowered"``
-    only levels with E_i < chi - dchi, where dchi is given (``lowering_ev``) or computed as the
-    Debye-Hueckel lowering from n_e and T;
-``"occupation"``
-    every level weighted by its occupation probability w_i (Hummer & Mihalas 1988; charged
-    perturbers after Hubeny, Hummer & Lanz 1994), see :mod:`sahaboltz.kernels.occupation`.
+U_r = sum_i g_i w_i exp(-E_i / kT) over the bound levels of stage r.  Which levels count, and
+with what weight w_i, is the truncation scheme, chosen from the registry
+:mod:`sahaboltz.kernels.truncation`: ``"plain"`` (every tabulated bound level), ``"lowered"``
+(levels below the lowered limit chi - dchi), ``"occupation"`` (Hummer & Mihalas occupation
+probabilities), ``"ground"`` (the lowest level), ``"below:n=N"`` / ``"below:e=E"`` (levels up
+to a principal quantum number or energy).
 
 ``completion=True`` adds hydrogenic Rydberg levels of the parent ion above the highest
 tabulated level (energies chi - R Z^2 / n^2, weights 2 n^2 g_parent; see
-docs/partition_functions.md); it needs a truncation that bounds the sum, so it is refused with
+docs/partition_functions.md); it needs a scheme that bounds the sum, so it is refused with
 ``"plain"``.
 
 :class:`PartitionModel` packs the levels of all its species into flat arrays once; each call
@@ -27,22 +22,21 @@ from __future__ import annotations
 
 import functools
 import math
-from typing import Any, Iterable, Sequence
+from typing import Any, Iterable
 
 import numpy as np
 
 from sahaboltz.constants import K_B_EV
 from sahaboltz.data.species import Species
 from sahaboltz.errors import InputError, NoDataError
-from sahaboltz.kernels.lowering import debye_hueckel_lowering, debye_length
-from sahaboltz.kernels.occupation import (_BETA_COEFF, RYDBERG_EV, hydrogenic_radius,
-                                          stark_k, stark_level_factor, stark_state_factors)
+from sahaboltz.kernels import truncation as _truncation
+from sahaboltz.kernels.occupation import RYDBERG_EV, hydrogenic_radius, stark_level_factor
 from sahaboltz.quantities import as_array, as_positive_array
 
 __all__ = ["TRUNCATIONS", "PartitionModel", "partition_function", "log_derivative"]
 
-#: the truncation choices, see the module docstring
-TRUNCATIONS = ("plain", "lowered", "occupation")
+#: the registered truncation scheme names (see :mod:`sahaboltz.kernels.truncation`)
+TRUNCATIONS = _truncation.names()
 
 # a term with E/kT - ln(g_max) > _CUT is below e^-50 = 2e-22 of a ground term g0 >= 1 at E = 0
 _CUT = 50.0
@@ -50,8 +44,6 @@ _CUT = 50.0
 _BLOCK = 1 << 17
 # states x levels per group sharing one pruned level set (the pruning test costs a pass)
 _GROUP_ELEMENTS = 1 << 22
-# completion levels with Stark parameter beta below this have f < 1.4e-16 (w ~ 0): skipped
-_BETA_MIN = 1e-5
 
 
 class PartitionModel:
@@ -61,11 +53,12 @@ class PartitionModel:
     ----------
     species : iterable of Species
         The species (any mix of elements and stages; a bare nucleus gives U = 1).
-    truncation : {"plain", "lowered", "occupation"}
-        How the level sum is truncated (see module docstring).  Default "plain".
+    truncation : str or TruncationScheme
+        How the level sum is truncated: a name of :mod:`sahaboltz.kernels.truncation`
+        ("plain", "lowered", "occupation", "ground", "below:n=3" ...).  Default "plain".
     completion : bool
         Add hydrogenic Rydberg levels of the parent above the highest tabulated level.
-        Needs ``truncation`` "lowered" or "occupation".
+        Needs a scheme that bounds the sum (not "plain").
     max_completion_n : int
         Highest principal quantum number of the completion levels (default 1000).  Below
         about n_e = 1e9 cm^-3 the bounding truncation would admit more; the sum then stops here.
@@ -78,7 +71,7 @@ class PartitionModel:
     Raises
     ------
     InputError
-        Unknown truncation, completion with "plain", or an empty species list.
+        Unknown truncation, completion with an unbounded one, or an empty species list.
     NoDataError
         A species (other than a bare nucleus) with no bound level, or a missing parent for
         completion.
@@ -97,15 +90,15 @@ class PartitionModel:
             if not isinstance(sp, Species):
                 raise InputError(f"species: expected Species objects, got {sp!r}; look names up "
                                  "with sahaboltz.data.database.default_database().species()")
-        if truncation not in TRUNCATIONS:
-            raise InputError(f"truncation must be one of {', '.join(TRUNCATIONS)}; "
-                             f"got {truncation!r}")
-        if completion and truncation == "plain":
-            raise InputError("completion=True needs truncation='lowered' or 'occupation': "
-                             "with the plain sum the Rydberg series diverges")
+        scheme = _truncation.get(truncation)
+        if completion and not scheme.bounded:
+            raise InputError(f"completion=True needs a truncation that bounds the sum "
+                             f"('lowered' or 'occupation'): with '{scheme.key}' the Rydberg "
+                             "series diverges")
         if int(max_completion_n) < 2:
             raise InputError(f"max_completion_n must be >= 2, got {max_completion_n}")
-        self.truncation = truncation
+        self.scheme = scheme
+        self.truncation = scheme.key
         self.completion = bool(completion)
         self.max_completion_n = int(max_completion_n)
         self.perturber_radius_cm = (hydrogenic_radius(1.0) if perturber_radius_cm is None
@@ -134,6 +127,7 @@ class PartitionModel:
 
     def _pack(self, given_parent_g: dict) -> None:
         e_all, g_all, neff_all, z_all, n_all, wapply_all, counts = [], [], [], [], [], [], []
+        static = []
         chi, charge, emin, ntop = [], [], [], []
         for sp in self.species:
             z = sp.charge + 1.0
@@ -172,12 +166,16 @@ class PartitionModel:
                         nlev = np.concatenate([nlev, n])
                 chi.append(sp.ionization_energy_ev)
             ntop.append(float(neff[nlev == 0].max()) if not sp.is_bare_nucleus else 0.0)
+            static.append(self.scheme.select(e, neff, nlev))
             e_all.append(e); g_all.append(g); neff_all.append(neff); n_all.append(nlev)
             z_all.append(np.full(len(e), z)); wapply_all.append(wap); counts.append(len(e))
             charge.append(sp.charge)
             emin.append(float(e[0]))
         self._e = np.concatenate(e_all)
-        self._lng = np.log(np.concatenate(g_all))
+        # levels the scheme leaves out for good keep their place with weight 0 (ln g = -inf),
+        # so that level indices stay those of the species' bound levels
+        self._static = np.concatenate(static)
+        self._lng = np.where(self._static, np.log(np.concatenate(g_all)), -np.inf)
         self._neff = np.concatenate(neff_all)
         self._zrad = np.concatenate(z_all)
         self._ncomp = np.concatenate(n_all)       # n of completion levels, 0 for tabulated
@@ -290,88 +288,31 @@ class PartitionModel:
         ne = None if n_e is None else as_positive_array(n_e, "cm-3", "n_e")
         nn = None if n_neutral is None else as_array(n_neutral, "cm-3", "n_neutral",
                                                       allow_negative=False)
-        mode = self.truncation
         shapes = [t.shape] + [a.shape for a in (ne, nn) if a is not None]
         try:
             shape = np.broadcast_shapes(*shapes)
         except ValueError:
             raise InputError(f"temperature, n_e and n_neutral do not broadcast together "
                              f"(shapes {', '.join(map(str, shapes))})") from None
-        if mode == "occupation" and ne is None:
-            raise InputError("n_e: the 'occupation' truncation needs the electron density")
-        cols = [np.broadcast_to(t, shape).ravel()]
-        names = ["T"]
-        low_const = None
-        if mode == "lowered":
-            if lowering_ev is not None:
-                low = as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False)
-                if low.ndim == 1 and len(low) == self.n_species:
-                    low = low.reshape((self.n_species,) + (1,) * len(shape))
-                try:
-                    full_shape = np.broadcast_shapes(low.shape, (self.n_species,) + shape)
-                except ValueError:
-                    raise InputError(f"lowering_ev of shape {low.shape} does not broadcast "
-                                     f"against (n_species,) + state shape "
-                                     f"{(self.n_species,) + shape}") from None
-                if full_shape != (self.n_species,) + shape:
-                    raise InputError(f"lowering_ev of shape {low.shape} would enlarge the "
-                                     f"state shape {shape}")
-                lw = np.broadcast_to(low, full_shape).reshape(self.n_species, -1)
-                if lw.shape[1] == 0 or (lw == lw[:, :1]).all():
-                    low_const = lw[:, 0].copy() if lw.shape[1] else np.zeros(self.n_species)
-                else:
-                    cols.extend(lw)
-                    names.extend(["L"] * self.n_species)
-            elif ne is not None:
-                cols.append(np.broadcast_to(ne, shape).ravel())
-                names.append("ne")
-            else:
-                raise InputError("lowering_ev / n_e: the 'lowered' truncation needs either "
-                                 "the lowering itself or the electron density")
-        elif mode == "occupation":
-            cols.append(np.broadcast_to(ne, shape).ravel())
-            names.append("ne")
-            if nn is not None:
-                cols.append(np.broadcast_to(nn, shape).ravel())
-                names.append("nn")
-        if mode == "occupation":
-            # sort states by density first: a group of neighbours then shares n_e, so the
-            # dissolved completion levels can be skipped for the whole group
-            order = [names.index("ne")] + [i for i in range(len(names)) if names[i] != "ne"]
-            cols, names = [cols[i] for i in order], [names[i] for i in order]
+        extra, shared = self.scheme.columns(
+            self, {"n_e": ne, "n_neutral": nn, "lowering_ev": lowering_ev}, shape)
+        cols = [("T", np.broadcast_to(t, shape).ravel())] + extra
+        if self.scheme.sort_first is not None:
+            # sort states by that column first: a group of neighbours then shares it, so
+            # e.g. dissolved completion levels can be skipped for the whole group
+            cols.sort(key=lambda c: c[0] != self.scheme.sort_first)
         if len(cols) == 1:
-            uniq, inverse = np.unique(cols[0], return_inverse=True)
+            uniq, inverse = np.unique(cols[0][1], return_inverse=True)
             table = uniq[:, None]
         else:
-            table, inverse = np.unique(np.stack(cols, axis=1), axis=0, return_inverse=True)
-        inverse = inverse.ravel()
-        st = {"shape": shape, "inverse": inverse, "n": len(table),
-              "T": table[:, names.index("T")].copy()}
+            table, inverse = np.unique(np.stack([c for _, c in cols], axis=1), axis=0,
+                                       return_inverse=True)
+        st = {"shape": shape, "inverse": inverse.ravel(), "n": len(table), **shared}
+        for name in dict.fromkeys(n for n, _ in cols):
+            idx = [i for i, (n, _) in enumerate(cols) if n == name]
+            st[name] = table[:, idx[0]].copy() if len(idx) == 1 else table[:, idx].T.copy()
         st["beta"] = 1.0 / (K_B_EV * st["T"])
-        if "ne" in names:
-            st["ne"] = table[:, names.index("ne")].copy()
-        if "nn" in names:
-            st["nn"] = table[:, names.index("nn")].copy()
-        if mode == "occupation":
-            st["stark_p"], st["stark_a"], st["stark_b"] = stark_state_factors(st["T"], st["ne"])
-        if mode == "lowered":
-            if low_const is not None:
-                low_s = np.repeat(low_const[:, None], st["n"], axis=1)
-            elif "L" in names:
-                first = names.index("L")
-                low_s = table[:, first:first + self.n_species].T.copy()
-            else:
-                lam = debye_length(st["T"], st["ne"])
-                low_s = debye_hueckel_lowering(self.charge[:, None], lam[None, :])
-            low_s = np.where(self._bare[:, None], 0.0, low_s)
-            cut = self.ionization_energy_ev[:, None] - low_s   # (n_species, n_states)
-            bad = cut <= self._emin[:, None]
-            if bad.any():
-                s = int(np.argwhere(bad)[0][0])
-                raise InputError(f"lowering_ev: the lowering of {self.names[s]} reaches its "
-                                 f"ionization energy ({self.ionization_energy_ev[s]:.6g} eV), so "
-                                 "no bound level is left; the plasma is too dense for this model")
-            st["cut"] = cut
+        self.scheme.prepare(self, st)
         return st
 
     def _arg(self, lv: np.ndarray, st: dict, sl: slice, counts: np.ndarray) -> np.ndarray:
@@ -379,40 +320,17 @@ class PartitionModel:
 
         ``counts`` is the number of levels of each species in ``lv`` (species are contiguous).
         """
-        beta = st["beta"][sl]
-        e = self._e[lv]
-        arg = np.multiply.outer(beta, -e)
+        arg = np.multiply.outer(st["beta"][sl], -self._e[lv])
         arg += self._lng[lv]
-        if self.truncation == "lowered":
-            cut = np.repeat(st["cut"][:, sl].T, counts, axis=1)
-            np.copyto(arg, -np.inf, where=~(e < cut))
-        elif self.truncation == "occupation":
-            wap = self._wapply[lv]
-            if wap.any():
-                q = self._q_stark[lv][wap]
-                sv = np.multiply.outer(st["stark_p"][sl], q)          # s = beta^(-3/2)
-                lw = sv * st["stark_a"][sl][:, None]
-                lw += st["stark_b"][sl][:, None]
-                lw *= sv
-                np.log1p(lw, out=lw)
-                if "nn" in st:
-                    lw += np.multiply.outer((4.0 * np.pi / 3.0) * st["nn"][sl], self._r3[lv][wap])
-                if wap.all():
-                    arg -= lw
-                else:
-                    arg[:, wap] -= lw
+        self.scheme.apply(self, lv, st, sl, counts, arg)
         return arg
 
     def _keep(self, st: dict, sl: slice) -> np.ndarray:
         """Levels that can matter for the states in ``sl`` (a prefix of every species)."""
-        keep = self._e * st["beta"][sl].min() - self._lng_max_lv < _CUT
-        if self.truncation == "lowered":
-            keep &= self._e < st["cut"][:, sl].max(axis=1)[self._sp]
-        elif self.truncation == "occupation" and self.completion:
-            ne_min = st["ne"][sl].min()
-            n = np.where(self._is_comp, self._ncomp, 1.0)
-            beta_stark = _BETA_COEFF * ne_min ** (-2.0 / 3.0) * stark_k(n) * self._zrad**3 / n**4
-            keep &= ~self._is_comp | (beta_stark > _BETA_MIN)
+        keep = self._static & (self._e * st["beta"][sl].min() - self._lng_max_lv < _CUT)
+        more = self.scheme.keep(self, st, sl)
+        if more is not None:
+            keep &= more
         keep[self._starts] = True  # never leave a species without a level
         return keep
 
@@ -435,14 +353,15 @@ class PartitionModel:
                 counts = np.add.reduceat(keep.astype(np.intp), self._starts)
                 starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
             step = max(1, _BLOCK // len(lv))
-            if self.truncation == "plain":
+            static = not self.scheme.density_dependent
+            if static:
                 neg_e, lng = -self._e[lv], self._lng[lv]
                 e = -neg_e
                 buf = np.empty((min(step, g1 - g0), len(lv)))
             for lo in range(g0, g1, step):
                 hi = min(g1, lo + step)
                 sl = slice(lo, hi)
-                if self.truncation == "plain":
+                if static:
                     terms = buf[:hi - lo]
                     np.multiply.outer(st["beta"][sl], neg_e, out=terms)
                     terms += lng
@@ -484,13 +403,22 @@ def _cached_model(key, truncation: str, completion: bool) -> PartitionModel:
     return PartitionModel([_resolve(key)], truncation, completion)
 
 
-def _model_for(species, truncation: str, completion: bool) -> PartitionModel:
+def _model_for(species, truncation, completion: bool) -> PartitionModel:
     if isinstance(species, Species):
         return PartitionModel([species], truncation, completion)
     if not isinstance(species, (str, tuple)):
         raise InputError(f"species must be a name ('Fe II', 'Fe+'), (Z, charge) or a Species; "
                          f"got {species!r}")
-    return _cached_model(species, truncation, completion)
+    return _cached_model(species, _truncation.get(truncation).key, completion)
+
+
+def species_lowering(model: PartitionModel, lowering_ev: Any):
+    """A lowering given for one species (scalar or state-shaped) as the model wants it:
+    (n_species,) + state shape; None when the model's scheme does not use a lowering."""
+    if lowering_ev is None or "lowering_ev" not in model.scheme.inputs:
+        return None
+    low = as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False)
+    return low[None, ...] if low.ndim else low
 
 
 def partition_function(species, temperature: Any, *, truncation: str = "plain",
@@ -521,10 +449,7 @@ def partition_function(species, temperature: Any, *, truncation: str = "plain",
         Bad temperature / density / options.
     """
     model = _model_for(species, truncation, completion)
-    if lowering_ev is not None and truncation == "lowered":
-        low = as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False)
-        lowering_ev = low[None, ...] if low.ndim else low
-    return model.evaluate(temperature, n_e, lowering_ev, n_neutral)[0]
+    return model.evaluate(temperature, n_e, species_lowering(model, lowering_ev), n_neutral)[0]
 
 
 def log_derivative(species, temperature: Any, *, truncation: str = "plain",
@@ -532,7 +457,5 @@ def log_derivative(species, temperature: Any, *, truncation: str = "plain",
                    n_neutral: Any = None) -> np.ndarray:
     """d ln U / d ln T of one species (arguments as :func:`partition_function`)."""
     model = _model_for(species, truncation, completion)
-    if lowering_ev is not None and truncation == "lowered":
-        low = as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False)
-        lowering_ev = low[None, ...] if low.ndim else low
-    return model.log_derivative(temperature, n_e, lowering_ev, n_neutral)[0]
+    return model.log_derivative(temperature, n_e, species_lowering(model, lowering_ev),
+                                n_neutral)[0]

@@ -20,22 +20,54 @@ from typing import Any, Sequence
 import numpy as np
 
 from sahaboltz.constants import H, K_B, K_B_EV, M_E
+from sahaboltz.data.database import default_database
 from sahaboltz.errors import InputError, NoDataError
+from sahaboltz.kernels import truncation as _truncation
+from sahaboltz.kernels.partition import PartitionModel
 from sahaboltz.quantities import as_array, as_positive_array
 
-__all__ = ["H_MINUS_AFFINITY_EV", "saha_constant", "log_saha_constant", "log_saha_factor",
-           "chain_log_populations", "chain_fractions", "saha_chain"]
+__all__ = ["H_MINUS_AFFINITY_EV", "saha_constant", "log_saha_constant", "log_two_saha_constant",
+           "log_saha_factor", "chain_log_populations", "chain_fractions", "saha_chain"]
 
 #: electron affinity of hydrogen [eV] (Lykke, Murray & Lineberger 1991, Phys. Rev. A 43, 6104)
 H_MINUS_AFFINITY_EV = 0.754195
 
 _LN2 = float(np.log(2.0))
+# 2 pi m_e k / h^2 [cm^-2 K^-1]
+_TWO_PI_ME_K_H2 = 2.0 * np.pi * M_E * K_B / H**2
 
 
+# -- fast cores (plain float arrays, no checks) ----------------------------------------------
+def _log_saha_constant(t: np.ndarray) -> np.ndarray:
+    """ln (2 pi m_e k T / h^2)^{3/2} [cm^-3]."""
+    return 1.5 * np.log(_TWO_PI_ME_K_H2 * t)
+
+
+def _log_saha_steps(t: np.ndarray, chi_ev: np.ndarray, ln_u: np.ndarray,
+                    lowering_ev: np.ndarray | None = None) -> np.ndarray:
+    """ln Phi_r of the R steps of a chain, shape (R, n).
+
+    ``t`` (n,) [K]; ``chi_ev`` (R,) the ionization energy of each step's lower stage;
+    ``ln_u`` (R+1, n) ln U of the stages; ``lowering_ev`` (R, n) or None.
+    """
+    beta = 1.0 / (K_B_EV * t)
+    steps = (_LN2 + ln_u[1:] - ln_u[:-1] + _log_saha_constant(t)[None, :]
+             - np.multiply.outer(chi_ev, beta))
+    if lowering_ev is not None:
+        steps += lowering_ev * beta[None, :]
+    return steps
+
+
+# -- checked wrappers ------------------------------------------------------------------------
 def log_saha_constant(temperature: Any) -> np.ndarray:
     """ln of (2 pi m_e k T / h^2)^{3/2} with the constant in cm^-3."""
-    t = as_positive_array(temperature, "K", "temperature")
-    return 1.5 * np.log(2.0 * np.pi * M_E * K_B * t / H**2)
+    return _log_saha_constant(as_positive_array(temperature, "K", "temperature"))
+
+
+def log_two_saha_constant(temperature: Any) -> np.ndarray:
+    """ln(2 S(T)), S = (2 pi m_e k T / h^2)^{3/2} [cm^-3]: the Saha factor's constant with the
+    free electron's two spin states."""
+    return _LN2 + log_saha_constant(temperature)
 
 
 def saha_constant(temperature: Any) -> np.ndarray:
@@ -68,8 +100,7 @@ def log_saha_factor(temperature: Any, ionization_energy_ev: Any, u_lower: Any, u
     ul = as_positive_array(u_lower, "", "u_lower")
     uu = as_positive_array(u_upper, "", "u_upper")
     dchi = as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False)
-    return (_LN2 + np.log(uu / ul) + log_saha_constant(t)
-            - (chi - dchi) / (K_B_EV * t))
+    return _LN2 + np.log(uu / ul) + _log_saha_constant(t) - (chi - dchi) / (K_B_EV * t)
 
 
 def chain_log_populations(log_phi: np.ndarray, log_ne: np.ndarray) -> np.ndarray:
@@ -140,9 +171,6 @@ def saha_chain(element: Any, temperature: Any, electron_density: Any = None,
     InputError
         Neither or both of ``electron_density`` and ``electron_pressure``; bad values.
     """
-    from sahaboltz.data.database import default_database
-    from sahaboltz.kernels.partition import PartitionModel
-
     if (electron_density is None) == (electron_pressure is None):
         raise InputError("give exactly one of electron_density [cm^-3] and "
                          "electron_pressure [dyn cm^-2]")
@@ -168,17 +196,18 @@ def saha_chain(element: Any, temperature: Any, electron_density: Any = None,
     else:
         low = np.broadcast_to(as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False),
                               (len(stages),) + t.shape)
+    scheme = _truncation.get(truncation)
     kw = {}
-    if truncation != "plain":
-        kw = {"n_e": ne, "lowering_ev": low if lowering_ev is not None else None}
-    if truncation == "lowered" and lowering_ev is not None:
-        kw["lowering_ev"] = low[has]
+    if scheme.density_dependent:
+        kw["n_e"] = ne
+        if lowering_ev is not None and "lowering_ev" in scheme.inputs:
+            kw["lowering_ev"] = low[has]
     u = np.ones((len(stages),) + t.shape)
     u[has] = model.evaluate(t, **kw)
-    chi = np.array([s.ionization_energy_ev for s in stages[:-1]]).reshape((-1,) + (1,) * t.ndim)
-    log_phi = (_LN2 + np.log(u[1:] / u[:-1]) + log_saha_constant(t)
-               - (chi - low[:-1]) / (K_B_EV * t))
-    return chain_fractions(chain_log_populations(log_phi, np.log(ne)))
+    chi = np.array([s.ionization_energy_ev for s in stages[:-1]])
+    log_phi = _log_saha_steps(t.ravel(), chi, np.log(u.reshape(len(stages), -1)),
+                              low[:-1].reshape(len(stages) - 1, -1))
+    return chain_fractions(chain_log_populations(log_phi.reshape((-1,) + t.shape), np.log(ne)))
 
 
 def stage_charges(stages: Sequence) -> np.ndarray:

@@ -145,7 +145,7 @@ def run_demo(out_dir: str | Path = "sahaboltz-demo", *, quick: bool = False,
     from sahaboltz.data.composition import Composition
     from sahaboltz.constants import K_B_EV
     from sahaboltz.equilibrium import solve_equilibrium
-    from sahaboltz.kernels.lowering import debye_hueckel_lowering
+    from sahaboltz.kernels.plasma import debye_hueckel_lowering
     from sahaboltz.tables import cache
     from sahaboltz.tables.interpolate import open_table
 

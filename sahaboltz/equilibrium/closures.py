@@ -1,0 +1,126 @@
+"""The registry of closures: the pressure-like quantity that fixes a state besides T.
+
+Charge neutrality and element conservation leave one condition open; a closure supplies it.
+Each closure says which density it fixes (its ``fixes`` kind), and the solvers dispatch on that
+kind, never on the closure's name:
+
+``"particles"``
+    all free particles: ``value`` is P_gas and the total P / kT is fixed;
+``"nuclei"``
+    the density of nuclei N is fixed by ``value`` and the composition (mass density,
+    hydrogen-nucleus density);
+``"electrons"``
+    n_e is fixed (electron pressure).
+
+The solvers' keywords, table axes, command-line flags and plot labels all read
+:data:`CLOSURES`.  A new closure of an existing kind is one :func:`register` call here (plus a
+test and its line in the docs).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, Callable
+
+import numpy as np
+
+from sahaboltz.constants import AMU, K_B
+from sahaboltz.errors import InputError
+
+__all__ = ["Closure", "CLOSURES", "register", "get", "FIXES"]
+
+#: the kinds of density a closure can fix (see the module docstring)
+FIXES = ("particles", "nuclei", "electrons")
+
+
+@dataclass(frozen=True)
+class Closure:
+    """One closure: names, unit and how it fixes the state.
+
+    Attributes
+    ----------
+    name : str
+        Keyword of the solvers and name of a table axis (``"gas_pressure"``).
+    unit : str
+        The cgs unit of the value (astropy syntax, ``"dyn cm-2"``).
+    symbol, tex : str
+        Short symbol for text (``"P_gas"``) and for matplotlib mathtext.
+    flag : str
+        Command-line option (``"--gas-pressure"``).
+    long_name : str
+        What it is, for help texts and file attributes.
+    fixes : {"particles", "nuclei", "electrons"}
+        Which density the value fixes.
+    nuclei_per_value : callable, optional
+        For ``fixes == "nuclei"``: ``f(composition)`` such that N = value * f.
+    needs : callable, optional
+        ``f(composition)`` returning an error text when the closure cannot be used for that
+        composition (e.g. a hydrogen density without hydrogen), else None.
+    """
+
+    name: str
+    unit: str
+    symbol: str
+    tex: str
+    flag: str
+    long_name: str
+    fixes: str
+    nuclei_per_value: Callable[[Any], float] | None = None
+    needs: Callable[[Any], str | None] | None = None
+
+    def check(self, composition) -> None:
+        """Raise InputError when this closure cannot fix a state of ``composition``."""
+        why = self.needs(composition) if self.needs is not None else None
+        if why:
+            raise InputError(f"{self.name}: {why}")
+
+    def nuclei(self, composition, value: np.ndarray) -> np.ndarray:
+        """The fixed density of nuclei N [cm^-3] (``fixes == "nuclei"`` only)."""
+        return value * self.nuclei_per_value(composition)
+
+    def particles(self, temperature: np.ndarray, value: np.ndarray) -> np.ndarray:
+        """The fixed density of free particles P / kT [cm^-3] (``fixes == "particles"``)."""
+        return value / (K_B * temperature)
+
+    def electrons(self, temperature: np.ndarray, value: np.ndarray) -> np.ndarray:
+        """The fixed electron density P_e / kT [cm^-3] (``fixes == "electrons"``)."""
+        return value / (K_B * temperature)
+
+
+#: name -> Closure, in the order options are listed
+CLOSURES: dict[str, Closure] = {}
+
+
+def register(closure: Closure) -> Closure:
+    """Add a closure to the registry."""
+    if closure.fixes not in FIXES:
+        raise ValueError(f"closure {closure.name}: fixes must be one of {FIXES}")
+    CLOSURES[closure.name] = closure
+    return closure
+
+
+def get(name: str) -> Closure:
+    """The closure called ``name``; InputError naming the choices otherwise."""
+    try:
+        return CLOSURES[name]
+    except (KeyError, TypeError):
+        raise InputError(f"unknown closure {name!r}; choose one of {', '.join(CLOSURES)}") from None
+
+
+def _needs_hydrogen(composition) -> str | None:
+    if "H" not in composition:
+        return "the composition has no hydrogen; use mass_density or gas_pressure"
+    return None
+
+
+register(Closure("gas_pressure", "dyn cm-2", "P_gas", r"P_\mathrm{gas}", "--gas-pressure",
+                 "gas pressure, all free particles", "particles"))
+register(Closure("mass_density", "g cm-3", "rho", r"\rho", "--mass-density",
+                 "mass density", "nuclei",
+                 nuclei_per_value=lambda comp: 1.0 / (comp.mean_mass_amu * AMU)))
+register(Closure("hydrogen_density", "cm-3", "n_H", r"n_\mathrm{H}", "--hydrogen-density",
+                 "density of hydrogen nuclei", "nuclei",
+                 nuclei_per_value=lambda comp: 1.0 / comp.number_fraction_of("H"),
+                 needs=_needs_hydrogen))
+register(Closure("electron_pressure", "dyn cm-2", "P_e", r"P_\mathrm{e}", "--electron-pressure",
+                 "electron pressure P_e = n_e k T", "electrons"))
