@@ -23,7 +23,7 @@ import sys
 import tempfile
 from pathlib import Path
 
-from sahaboltz import __version__
+from sahaboltz._version import __version__
 from sahaboltz.data.elements import SYMBOLS
 from sahaboltz.errors import DataFormatError, NoDataError
 

@@ -28,7 +28,7 @@ import tempfile
 from collections import Counter
 from pathlib import Path
 
-from sahaboltz import __version__
+from sahaboltz._version import __version__
 from sahaboltz.constants import AMU, HC_EV_CM, M_E, RYDBERG_CM
 from sahaboltz.data import levelfile
 from sahaboltz.data.elements import SYMBOLS, parse_species, spectroscopic_name

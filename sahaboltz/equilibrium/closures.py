@@ -24,8 +24,10 @@ from typing import Any, Callable
 
 import numpy as np
 
-from sahaboltz.constants import AMU, K_B
 from sahaboltz.errors import InputError
+
+# sahaboltz.constants (astropy) is imported where a value is computed, not here: reading the
+# registry (names, units, flags) stays cheap for the command line and the table cache
 
 __all__ = ["Closure", "CLOSURES", "register", "get", "FIXES"]
 
@@ -47,6 +49,8 @@ class Closure:
         Short symbol for text (``"P_gas"``) and for matplotlib mathtext.
     flag : str
         Command-line option (``"--gas-pressure"``).
+    label : str
+        Short name for axis labels (``"gas pressure"``).
     long_name : str
         What it is, for help texts and file attributes.
     fixes : {"particles", "nuclei", "electrons"}
@@ -63,6 +67,7 @@ class Closure:
     symbol: str
     tex: str
     flag: str
+    label: str
     long_name: str
     fixes: str
     nuclei_per_value: Callable[[Any], float] | None = None
@@ -80,10 +85,12 @@ class Closure:
 
     def particles(self, temperature: np.ndarray, value: np.ndarray) -> np.ndarray:
         """The fixed density of free particles P / kT [cm^-3] (``fixes == "particles"``)."""
+        from sahaboltz.constants import K_B
         return value / (K_B * temperature)
 
     def electrons(self, temperature: np.ndarray, value: np.ndarray) -> np.ndarray:
         """The fixed electron density P_e / kT [cm^-3] (``fixes == "electrons"``)."""
+        from sahaboltz.constants import K_B
         return value / (K_B * temperature)
 
 
@@ -107,6 +114,11 @@ def get(name: str) -> Closure:
         raise InputError(f"unknown closure {name!r}; choose one of {', '.join(CLOSURES)}") from None
 
 
+def _nuclei_per_gram(composition) -> float:
+    from sahaboltz.constants import AMU
+    return 1.0 / (composition.mean_mass_amu * AMU)
+
+
 def _needs_hydrogen(composition) -> str | None:
     if "H" not in composition:
         return "the composition has no hydrogen; use mass_density or gas_pressure"
@@ -114,13 +126,16 @@ def _needs_hydrogen(composition) -> str | None:
 
 
 register(Closure("gas_pressure", "dyn cm-2", "P_gas", r"P_\mathrm{gas}", "--gas-pressure",
-                 "gas pressure, all free particles", "particles"))
+                 "gas pressure", "gas pressure, all free particles", "particles"))
 register(Closure("mass_density", "g cm-3", "rho", r"\rho", "--mass-density",
-                 "mass density", "nuclei",
-                 nuclei_per_value=lambda comp: 1.0 / (comp.mean_mass_amu * AMU)))
+                 "mass density", "mass density", "nuclei",
+                 nuclei_per_value=_nuclei_per_gram))
 register(Closure("hydrogen_density", "cm-3", "n_H", r"n_\mathrm{H}", "--hydrogen-density",
-                 "density of hydrogen nuclei", "nuclei",
+                 "hydrogen-nucleus density", "density of hydrogen nuclei", "nuclei",
                  nuclei_per_value=lambda comp: 1.0 / comp.number_fraction_of("H"),
                  needs=_needs_hydrogen))
+register(Closure("nuclei_density", "cm-3", "N", r"N", "--nuclei-density",
+                 "nuclei density", "density of nuclei of all elements (heavy particles)",
+                 "nuclei", nuclei_per_value=lambda comp: 1.0))
 register(Closure("electron_pressure", "dyn cm-2", "P_e", r"P_\mathrm{e}", "--electron-pressure",
-                 "electron pressure P_e = n_e k T", "electrons"))
+                 "electron pressure", "electron pressure P_e = n_e k T", "electrons"))

@@ -115,6 +115,11 @@ class EquilibriumState:
         """Mean charge per nucleus, n_e / N (H- counted negative)."""
         return self.n_e / self.nuclei_density
 
+    @property
+    def hydrogen_density(self) -> np.ndarray:
+        """Hydrogen nuclei n_H [cm^-3] (atoms, ions, H-, and in molecules)."""
+        return self.element_density("H")
+
     def element_density(self, element) -> np.ndarray:
         """Nuclei of one element [cm^-3]."""
         return self.nuclei_density * self.network.chain_of(element).fraction

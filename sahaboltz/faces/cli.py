@@ -11,7 +11,7 @@ import argparse
 import importlib
 import sys
 
-from sahaboltz import __version__
+from sahaboltz._version import __version__
 from sahaboltz.errors import SahaboltzError
 
 #: modules that add subcommands, in the order they appear in ``--help``

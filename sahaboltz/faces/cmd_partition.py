@@ -7,14 +7,16 @@ import numpy as np
 from sahaboltz.data.database import default_database
 from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
+from sahaboltz.faces.state_options import truncation_option
+from sahaboltz.kernels import truncation as registry
 from sahaboltz.kernels.boltzmann import level_populations, select_levels
-from sahaboltz.kernels.partition import TRUNCATIONS, PartitionModel
+from sahaboltz.kernels.partition import PartitionModel
 
 
 def _add_truncation_options(p) -> None:
-    p.add_argument("--truncation", choices=TRUNCATIONS, default="plain",
-                   help="plain sum of tabulated levels (default), lowered ionization limit, or "
-                        "occupation probabilities")
+    p.add_argument("--truncation", type=truncation_option, default="plain", metavar="SCHEME",
+                   help=f"how the level sum is truncated (default plain): "
+                        f"{registry.choices_help()}")
     p.add_argument("--completion", action="store_true",
                    help="add hydrogenic Rydberg levels of the parent above the highest "
                         "tabulated level (needs --truncation lowered or occupation)")

@@ -20,6 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
+from sahaboltz.equilibrium.closures import CLOSURES
 from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
 from sahaboltz.faces.state_options import add_mixture_options, parse_mix
@@ -45,7 +46,7 @@ def register(subparsers) -> None:
                    help="pressure-like axis in cgs (default gas pressure 1e-2:1e8 dyn cm-2, "
                         "10 per decade)")
     g.add_argument("--pressure-quantity", default="gas_pressure",
-                   choices=("gas_pressure", "electron_pressure", "mass_density", "hydrogen_density"))
+                   choices=tuple(CLOSURES))
     g.add_argument("--pressure-scale", choices=("log", "linear"), default="log")
     add_mixture_options(g)
     g.add_argument("--completion", action="store_true",
@@ -164,27 +165,18 @@ def _composition_doc(args) -> dict:
 
 
 def _build(args) -> int:
-    from sahaboltz.tables import build as tb
-    from sahaboltz.tables import cache
+    from sahaboltz.tables.cache import obtain_table
 
     spec = _spec_from_args(args)
-    compute = _load_compute(args.compute)
     opts = {"workers": args.workers, "progress": False if args.no_progress else None}
     if args.chunk_states:
         opts["chunk_states"] = args.chunk_states
     t0 = time.perf_counter()
-    key = cache.table_key(spec, compute)
-    if args.output:
-        path = tb.build_table(spec, args.output, compute=compute,
-                              provenance={**cache.compute_provenance(compute, spec),
-                                          "cache_key": key}, **opts)
-        status = "built"
-    else:
-        existed = (cache.cache_dir() / f"{key}.h5").exists()
-        path = cache.get_table(spec, compute=compute, rebuild=args.rebuild, **opts)
-        status = "cached" if existed and not args.rebuild else "built"
-    emit([{"key": key[:16], "status": status, "grid": f"{spec.shape[0]}x{spec.shape[1]}",
-           "seconds": round(time.perf_counter() - t0, 3), "path": str(path)}], args.format)
+    res = obtain_table(spec, output=args.output, compute=_load_compute(args.compute),
+                       rebuild=args.rebuild, **opts)
+    emit([{"key": res.key[:16], "status": res.status,
+           "grid": f"{spec.shape[0]}x{spec.shape[1]}",
+           "seconds": round(time.perf_counter() - t0, 3), "path": str(res.path)}], args.format)
     return 0
 
 

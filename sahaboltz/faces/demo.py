@@ -99,13 +99,11 @@ class DemoResult:
 
 
 def _table(spec, workers):
-    from sahaboltz.tables import cache
+    from sahaboltz.tables.cache import obtain_table
 
-    key = cache.table_key(spec)
-    hit = (cache.cache_dir() / f"{key}.h5").exists()
     t0 = time.perf_counter()
-    path = cache.get_table(spec, workers=workers, progress=False)
-    return path, hit, time.perf_counter() - t0
+    res = obtain_table(spec, workers=workers, progress=False)
+    return res.path, res.status != "built", time.perf_counter() - t0
 
 
 def _stage_rows(tab, element: str) -> tuple[list[str], np.ndarray]:

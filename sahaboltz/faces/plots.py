@@ -31,6 +31,7 @@ from matplotlib.figure import Figure
 
 from sahaboltz.constants import K_B_EV
 from sahaboltz.data.elements import atomic_number, parse_species, spectroscopic_name
+from sahaboltz.equilibrium.closures import CLOSURES
 from sahaboltz.errors import InputError
 from sahaboltz.faces.state_options import (CLOSURE_SYMBOLS, CLOSURE_UNITS, describe_state,
                                            format_value, unit_label)
@@ -39,7 +40,8 @@ from sahaboltz.quantities import as_positive_array
 #: file suffixes :func:`save_figure` writes
 FORMATS = {".png": "png", ".pdf": "pdf"}
 _LN10 = float(np.log(10.0))
-_STYLES = {"plain": "-", "lowered": "--", "occupation": ":"}
+# line styles of the truncation schemes, in the order they are drawn (the first: solid)
+_LINESTYLES = ["-", "--", ":", "-.", (0, (5, 1, 1, 1, 1, 1)), (0, (1, 3))]
 # a qualitative palette that stays readable in grey print
 _COLORS = ["#1b5e9e", "#d9661f", "#2a9d4b", "#b8332e", "#7b4fa6", "#8a5a44", "#d45fa8",
            "#6e6e6e", "#a6a21c", "#1fa6b8"]
@@ -106,11 +108,8 @@ def save_figure(fig: Figure, path: str | os.PathLike) -> Path:
 
 
 def _pressure_axis_label(quantity: str) -> str:
-    names = {"gas_pressure": "gas pressure", "electron_pressure": "electron pressure",
-             "mass_density": "mass density", "hydrogen_density": "hydrogen-nucleus density"}
-    sym = {"gas_pressure": "$P_\\mathrm{gas}$", "electron_pressure": "$P_e$",
-           "mass_density": "$\\rho$", "hydrogen_density": "$n_\\mathrm{H}$"}[quantity]
-    return f"{names[quantity]} {sym} [{unit_label(CLOSURE_UNITS[quantity], tex=True)}]"
+    c = CLOSURES[quantity]
+    return f"{c.label} ${c.tex}$ [{unit_label(c.unit, tex=True)}]"
 
 
 def plain_log_ticks(axis, lo: float, hi: float) -> None:
@@ -436,6 +435,8 @@ def draw_partition_functions(temperature, curves: Sequence[tuple[str, str, Any]]
     """
     t = np.asarray(temperature, dtype=float)
     species = list(dict.fromkeys(c[0] for c in curves))
+    styles = {tr: _LINESTYLES[i % len(_LINESTYLES)]
+              for i, tr in enumerate(dict.fromkeys(c[1] for c in curves))}
     plain = {c[0]: np.asarray(c[2], dtype=float) for c in curves if c[1] == "plain"}
     ratios = [c for c in curves if c[1] != "plain" and c[0] in plain]
     if ratios:
@@ -445,7 +446,7 @@ def draw_partition_functions(temperature, curves: Sequence[tuple[str, str, Any]]
         axr = None
     for name, trunc, u in curves:
         color = _COLORS[species.index(name) % len(_COLORS)]
-        ax.plot(t, np.asarray(u, dtype=float), color=color, ls=_STYLES.get(trunc, "-"), lw=1.7,
+        ax.plot(t, np.asarray(u, dtype=float), color=color, ls=styles[trunc], lw=1.7,
                 label=f"{name}, {trunc}")
     ax.set_yscale("log")
     lo, hi = ax.get_ylim()
@@ -459,7 +460,7 @@ def draw_partition_functions(temperature, curves: Sequence[tuple[str, str, Any]]
         for name, trunc, u in ratios:
             color = _COLORS[species.index(name) % len(_COLORS)]
             axr.plot(t, np.asarray(u, dtype=float) / plain[name], color=color,
-                     ls=_STYLES.get(trunc, "-"), lw=1.5)
+                     ls=styles[trunc], lw=1.5)
         axr.axhline(1.0, color="0.5", lw=0.8)
         axr.set_ylabel("ratio to plain sum")
         axr.grid(alpha=0.3)
@@ -641,14 +642,17 @@ def partition_function_plot(species: Sequence[str], temperature: Any, *,
     ----------
     species : sequence of str
         E.g. ``["Fe I", "Fe II"]``.
-    truncations : sequence of {"plain", "lowered", "occupation"}
-        "lowered" cuts the sum at the Debye-Hueckel-lowered limit and "occupation" weights the
-        levels by occupation probabilities; both need ``electron_density``.
+    truncations : sequence of str
+        Schemes of :mod:`sahaboltz.kernels.truncation` ("plain", "lowered", "occupation",
+        "ground", "below:n=3" ...); the density-dependent ones ("lowered" cuts the sum at
+        the Debye-Hueckel-lowered limit, "occupation" weights the levels by occupation
+        probabilities) need ``electron_density``.
     electron_density : float, optional
-        n_e [cm^-3] held fixed along the curves (needed for "lowered" and "occupation").
+        n_e [cm^-3] held fixed along the curves (needed by the density-dependent schemes).
     completion : bool
-        Hydrogenic completion of the level lists (for "lowered" and "occupation" only).
+        Hydrogenic completion of the level lists (for the density-dependent schemes only).
     """
+    from sahaboltz.kernels import truncation as registry
     from sahaboltz.kernels.partition import partition_function
 
     if isinstance(species, str):
@@ -656,11 +660,9 @@ def partition_function_plot(species: Sequence[str], temperature: Any, *,
     if not species:
         raise InputError("give at least one species, e.g. 'Fe I'")
     t = _sorted_temperature(temperature)
-    truncations = list(dict.fromkeys(truncations))
-    bad = [x for x in truncations if x not in _STYLES]
-    if bad:
-        raise InputError(f"unknown truncation {bad[0]!r}; choose from {', '.join(_STYLES)}")
-    needs_ne = [x for x in truncations if x != "plain"]
+    schemes = list(dict.fromkeys(registry.get(x) for x in truncations))
+    truncations = [sc.key for sc in schemes]
+    needs_ne = [sc.key for sc in schemes if sc.density_dependent]
     if needs_ne and electron_density is None:
         raise InputError(f"truncation {needs_ne[0]!r} depends on the density: give the "
                          "electron density (e.g. 1e15 cm^-3)")
@@ -672,12 +674,12 @@ def partition_function_plot(species: Sequence[str], temperature: Any, *,
         z, charge = parse_species(text)
         name = spectroscopic_name(z, charge)
         names.append(name)
-        for trunc in truncations:
-            kw: dict[str, Any] = {"truncation": trunc}
-            if trunc != "plain":
+        for sc in schemes:
+            kw: dict[str, Any] = {"truncation": sc}
+            if sc.density_dependent:
                 kw["n_e"] = ne
                 kw["completion"] = completion
-            curves.append((name, trunc, partition_function(name, t, **kw)))
+            curves.append((name, sc.key, partition_function(name, t, **kw)))
     title = f"Partition functions of {', '.join(names)}"
     bits = [f"truncations: {', '.join(truncations)}"]
     if needs_ne:

@@ -26,19 +26,24 @@ from typing import Any
 import numpy as np
 
 from sahaboltz.data.composition import Composition, solar
+from sahaboltz.equilibrium.closures import CLOSURES
 from sahaboltz.errors import InputError
+from sahaboltz.kernels import truncation as _truncation
 
-#: pressure-like closures and their cgs unit (the solver's keyword names)
-CLOSURE_UNITS = {"gas_pressure": "dyn cm-2", "electron_pressure": "dyn cm-2",
-                 "mass_density": "g cm-3", "hydrogen_density": "cm-3"}
+#: pressure-like closures and their cgs unit (the solver's keyword names), from the registry
+CLOSURE_UNITS = {name: c.unit for name, c in CLOSURES.items()}
 #: short symbols for titles
-CLOSURE_SYMBOLS = {"gas_pressure": "P_gas", "electron_pressure": "P_e",
-                   "mass_density": "rho", "hydrogen_density": "n_H"}
+CLOSURE_SYMBOLS = {name: c.symbol for name, c in CLOSURES.items()}
+#: (keyword, flag, help) of every closure
+CLOSURE_FLAGS = tuple((name, c.flag, f"{c.long_name} [{c.unit}]") for name, c in CLOSURES.items())
 
-CLOSURE_FLAGS = (("gas_pressure", "--gas-pressure", "P_gas [dyn cm^-2]"),
-                  ("mass_density", "--mass-density", "rho [g cm^-3]"),
-                  ("hydrogen_density", "--hydrogen-density", "n_H, hydrogen nuclei [cm^-3]"),
-                  ("electron_pressure", "--electron-pressure", "P_e [dyn cm^-2]"))
+
+def truncation_option(text: str) -> str:
+    """argparse type of ``--truncation``: a scheme of the registry, as its canonical text."""
+    try:
+        return _truncation.get(text).key
+    except InputError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def add_mixture_options(p) -> None:
@@ -54,9 +59,9 @@ def add_mixture_options(p) -> None:
                    help="[alpha/Fe] enhancement of O Ne Mg Si S Ar Ca Ti (default 0)")
     p.add_argument("--lowering", action="store_true",
                    help="Debye-Hueckel lowering of the ionization energies (self-consistent)")
-    p.add_argument("--truncation", choices=("plain", "lowered", "occupation"), default=None,
+    p.add_argument("--truncation", type=truncation_option, default=None, metavar="SCHEME",
                    help="partition-function truncation (default: lowered with --lowering, "
-                        "else plain)")
+                        f"else plain): {_truncation.choices_help()}")
     p.add_argument("--no-h-minus", action="store_true", help="leave H- out")
     p.add_argument("--molecules", choices=("none", "default", "all"), default="none",
                    help="diatomic molecules in the equilibrium (Barklem & Collet 2016 data; "
@@ -162,11 +167,9 @@ def composition_label(composition) -> str:
 
 
 def physics_label(truncation: str | None, lowering: bool) -> str:
-    """'plain partition functions, ideal gas' and the like."""
-    trunc = truncation or ("lowered" if lowering else "plain")
-    text = {"plain": "U: all tabulated levels", "lowered": "U cut at the lowered limit",
-            "occupation": "U with occupation probabilities"}[trunc]
-    return text + (", Debye-Hueckel lowering" if lowering else ", no IP lowering")
+    """'U: all tabulated levels, no IP lowering' and the like."""
+    scheme = _truncation.resolve(truncation, lowering)
+    return f"U: {scheme.label}" + (", Debye-Hueckel lowering" if lowering else ", no IP lowering")
 
 
 def format_value(value: float, unit: str, tex: bool = False) -> str:

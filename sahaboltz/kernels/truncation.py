@@ -34,9 +34,10 @@ from typing import Any, Callable
 import numpy as np
 
 from sahaboltz.errors import InputError
-from sahaboltz.kernels.occupation import _BETA_COEFF, stark_k, stark_state_factors
-from sahaboltz.kernels.plasma import _debye_length, _lowering_ev
-from sahaboltz.quantities import as_array
+
+# The physics kernels (occupation probabilities, plasma parameters) and the unit checks pull
+# in astropy; the hooks import them on first use so that reading the registry (names, labels,
+# checks of a spec file) stays cheap for the command line.
 
 __all__ = ["TruncationScheme", "REGISTRY", "register", "get", "names", "choices_help",
            "resolve", "label"]
@@ -170,6 +171,7 @@ class LoweredLimit(TruncationScheme):
         low, ne = inputs.get("lowering_ev"), inputs.get("n_e")
         ns = model.n_species
         if low is not None:
+            from sahaboltz.quantities import as_array
             low = as_array(low, "eV", "lowering_ev", allow_negative=False)
             if low.ndim == 1 and len(low) == ns:
                 low = low.reshape((ns,) + (1,) * len(shape))
@@ -197,6 +199,7 @@ class LoweredLimit(TruncationScheme):
         elif "L" in st:
             low = np.atleast_2d(st["L"])
         else:
+            from sahaboltz.kernels.plasma import _debye_length, _lowering_ev
             # Debye-Hueckel with the default screening of singly charged ions (2 n_e)
             low = _lowering_ev(model.charge[:, None], _debye_length(st["T"], 2.0 * st["ne"])[None, :])
         low = np.where(model._bare[:, None], 0.0, low)
@@ -239,6 +242,7 @@ class OccupationProbability(TruncationScheme):
         return cols, {}
 
     def prepare(self, model, st):
+        from sahaboltz.kernels.occupation import stark_state_factors
         st["stark_p"], st["stark_a"], st["stark_b"] = stark_state_factors(st["T"], st["ne"])
 
     def apply(self, model, lv, st, sl, counts, arg):
@@ -261,6 +265,7 @@ class OccupationProbability(TruncationScheme):
     def keep(self, model, st, sl):
         if not model.completion:
             return None
+        from sahaboltz.kernels.occupation import _BETA_COEFF, stark_k
         ne_min = st["ne"][sl].min()
         n = np.where(model._is_comp, model._ncomp, 1.0)
         beta_stark = _BETA_COEFF * ne_min ** (-2.0 / 3.0) * stark_k(n) * model._zrad**3 / n**4

@@ -8,9 +8,11 @@ The file layout is described in docs/table_format.md.
 """
 
 from sahaboltz.tables.build import build_table
-from sahaboltz.tables.cache import TableCacheWarning, cache_dir, get_table, table_key
+from sahaboltz.tables.cache import (TableCacheWarning, TableResult, cache_dir, get_table,
+                                    obtain_table, table_key)
 from sahaboltz.tables.interpolate import PopulationTable, open_table
 from sahaboltz.tables.spec import TableSpec, spec_from_options
 
-__all__ = ["TableSpec", "spec_from_options", "build_table", "get_table", "table_key",
+__all__ = ["TableSpec", "spec_from_options", "build_table", "get_table", "obtain_table",
+           "TableResult", "table_key",
            "cache_dir", "TableCacheWarning", "open_table", "PopulationTable"]

@@ -23,10 +23,12 @@ import hashlib
 import json
 import os
 import warnings
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterator
 
-from sahaboltz import __version__
+from sahaboltz._version import __version__
+from sahaboltz.equilibrium import SOLVER_VERSION
 from sahaboltz.errors import InputError, TableError
 from sahaboltz.tables.build import ComputeFn, build_table, default_compute
 from sahaboltz.tables.hdf5 import FORMAT_VERSION, check_table, read_metadata
@@ -54,12 +56,11 @@ def cache_dir(create: bool = True) -> Path:
 
 def solver_provenance(spec: TableSpec) -> dict[str, Any]:
     """Level-data digest, solver version and resolved composition for the real compute."""
-    import sahaboltz.equilibrium as eq
     from sahaboltz.data.database import data_digest
     from sahaboltz.tables.compute import composition_digest_doc
 
     return {"level_data_digest": data_digest(),
-            "solver_version": str(getattr(eq, "SOLVER_VERSION", __version__)),
+            "solver_version": SOLVER_VERSION,
             "resolved_composition": composition_digest_doc(spec),
             "compute": "sahaboltz.tables.compute.solver_compute"}
 
@@ -101,6 +102,53 @@ def _stale_temps(directory: Path, key: str) -> list[Path]:
     return list(directory.glob(f".{key}.h5.*.tmp"))
 
 
+@dataclass(frozen=True)
+class TableResult:
+    """What :func:`obtain_table` did: where the table is, its key, and ``status`` -- "built",
+    "cached" (found valid), or "waited" (another process built it while this one waited)."""
+
+    path: Path
+    key: str
+    status: str
+
+
+def obtain_table(spec: TableSpec, *, output: str | Path | None = None,
+                 compute: ComputeFn | None = None, directory: str | Path | None = None,
+                 rebuild: bool = False, **build_options) -> TableResult:
+    """The table for ``spec``: from the cache (built there first if needed), or built at
+    ``output`` with the same key and provenance as a cached one would carry.
+
+    This is the one place that derives a table's key, provenance and file name; the command
+    line and :func:`get_table` call it.
+    """
+    key = table_key(spec, compute)
+    prov = {**compute_provenance(compute, spec), "cache_key": key}
+    if output is not None:
+        path = build_table(spec, output, compute=compute, provenance=prov, **build_options)
+        return TableResult(Path(path), key, "built")
+    d = Path(directory) if directory is not None else cache_dir()
+    d.mkdir(parents=True, exist_ok=True)
+    final = d / f"{key}.h5"
+    if not rebuild and final.exists():
+        with contextlib.suppress(TableError):
+            check_table(final, key=key)
+            return TableResult(final, key, "cached")  # fast path: no lock for a hit
+    with key_lock(d, key):
+        if final.exists():
+            if not rebuild:
+                try:
+                    check_table(final, key=key)
+                    return TableResult(final, key, "waited")  # built while we waited
+                except TableError as exc:
+                    warnings.warn(f"cached table {final.name} is damaged and will be rebuilt: "
+                                  f"{exc}", TableCacheWarning, stacklevel=2)
+        for tmp in _stale_temps(d, key):  # left by a killed builder; we hold the lock
+            tmp.unlink(missing_ok=True)
+        build_table(spec, final, compute=compute, provenance=prov, **build_options)
+        _fsync_dir(d)
+    return TableResult(final, key, "built")
+
+
 def get_table(spec: TableSpec, *, compute: ComputeFn | None = None,
               directory: str | Path | None = None, rebuild: bool = False,
               **build_options) -> Path:
@@ -123,29 +171,8 @@ def get_table(spec: TableSpec, *, compute: ComputeFn | None = None,
     TableCacheWarning
         When a cached file is damaged; it is rebuilt.
     """
-    d = Path(directory) if directory is not None else cache_dir()
-    d.mkdir(parents=True, exist_ok=True)
-    key = table_key(spec, compute)
-    final = d / f"{key}.h5"
-    if not rebuild and final.exists():
-        with contextlib.suppress(TableError):
-            check_table(final, key=key)
-            return final  # fast path: no lock for a hit
-    with key_lock(d, key):
-        if final.exists():
-            if not rebuild:
-                try:
-                    check_table(final, key=key)
-                    return final  # another process built it while we waited
-                except TableError as exc:
-                    warnings.warn(f"cached table {final.name} is damaged and will be rebuilt: "
-                                  f"{exc}", TableCacheWarning, stacklevel=2)
-        for tmp in _stale_temps(d, key):  # left by a killed builder; we hold the lock
-            tmp.unlink(missing_ok=True)
-        prov = {**compute_provenance(compute, spec), "cache_key": key}
-        build_table(spec, final, compute=compute, provenance=prov, **build_options)
-        _fsync_dir(d)
-    return final
+    return obtain_table(spec, compute=compute, directory=directory, rebuild=rebuild,
+                        **build_options).path
 
 
 def _fsync_dir(d: Path) -> None:

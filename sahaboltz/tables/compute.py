@@ -11,7 +11,6 @@ from typing import Any
 
 import numpy as np
 
-from sahaboltz.constants import E_CHARGE, EV
 from sahaboltz.data.elements import atomic_number, spectroscopic_name
 from sahaboltz.errors import InputError
 from sahaboltz.tables.spec import TableSpec, dataset_name
@@ -108,15 +107,16 @@ def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, n
 def _partition(species, spec: TableSpec, state, T):
     """U of one species with the truncation the solver used for this state."""
     from sahaboltz.kernels.partition import PartitionModel
+    from sahaboltz.kernels.plasma import _lowering_ev
 
     phys = spec.physics
     pm = PartitionModel([species], truncation=phys["truncation"],
                         completion=bool(phys["completion"]))
     n_e = np.asarray(state.n_e, dtype=float).reshape(T.shape)
     kw: dict[str, Any] = {"n_e": n_e}
-    if phys["truncation"] == "lowered":
+    if "lowering_ev" in pm.scheme.inputs:
         lam = np.asarray(state.debye_length, dtype=float).reshape(T.shape)
-        kw["lowering_ev"] = (species.charge + 1.0) * E_CHARGE**2 / lam / EV
+        kw["lowering_ev"] = _lowering_ev(species.charge, lam)[None, :]
     return np.asarray(pm.evaluate(T, **kw), dtype=float)[0]
 
 

@@ -25,7 +25,7 @@ from typing import Any, Mapping
 import h5py
 import numpy as np
 
-from sahaboltz import __version__
+from sahaboltz._version import __version__
 from sahaboltz.errors import TableError
 from sahaboltz.tables.spec import PRESSURE_QUANTITIES, SCALAR_OUTPUTS, TableSpec
 

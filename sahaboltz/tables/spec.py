@@ -20,20 +20,17 @@ import astropy.units as u
 import numpy as np
 
 from sahaboltz.data.elements import SYMBOLS, atomic_number, parse_species, spectroscopic_name
+from sahaboltz.equilibrium.closures import CLOSURES
 from sahaboltz.errors import InputError
+from sahaboltz.kernels import truncation as _truncation
 
 if sys.version_info >= (3, 11):
     import tomllib
 else:  # pragma: no cover - exercised only on 3.10
     import tomli as tomllib
 
-#: pressure-like axis quantities and their cgs unit
-PRESSURE_QUANTITIES = {
-    "gas_pressure": "dyn cm-2",
-    "electron_pressure": "dyn cm-2",
-    "mass_density": "g cm-3",
-    "hydrogen_density": "cm-3",
-}
+#: pressure-like axis quantities and their cgs unit (from the closure registry)
+PRESSURE_QUANTITIES = {name: c.unit for name, c in CLOSURES.items()}
 
 #: scalar outputs: name -> (unit, description)
 SCALAR_OUTPUTS = {
@@ -45,7 +42,6 @@ SCALAR_OUTPUTS = {
     "mean_charge": ("1", "free electrons per heavy particle"),
 }
 
-TRUNCATIONS = ("plain", "lowered", "occupation")
 AXIS_SCALES = ("log", "linear", "values")
 
 #: default grid: dense enough in log T for cubic interpolation of stage fractions to ~1e-4
@@ -62,7 +58,7 @@ max = 50000.0
 per_decade = 100       # or: num = 141;  with scale = "values": values = [3000.0, 4000.0]
 
 [pressure]
-quantity = "gas_pressure"   # gas_pressure | electron_pressure | mass_density | hydrogen_density
+quantity = "gas_pressure"   # {closures}
 scale = "log"
 min = 1e-2                  # dyn cm-2 (or give unit = "Pa")
 max = 1e8
@@ -76,7 +72,7 @@ name = "solar"              # Asplund et al. (2009); optional metallicity = -0.5
 # He = 0.085
 
 [physics]
-truncation = "plain"        # plain | lowered | occupation  (default "lowered" with lowering)
+truncation = "plain"        # {truncations}  (default "lowered" with lowering)
 lowering = false            # Debye-Hueckel ionization-potential lowering
 completion = false          # hydrogenic completion of the level lists (not with "plain")
 h_minus = true              # include H-
@@ -88,7 +84,7 @@ quantities = ["electron_density", "electron_pressure", "gas_pressure", "mass_den
 stage_fractions = "all"     # or a list of elements, e.g. ["H", "He", "Fe"]
 levels = []                 # e.g. ["Fe II:0-9", "H I:0,1,2"]  (bound-level indices, ground = 0)
 partition_functions = []    # e.g. ["Fe I", "Fe II"]
-"""
+""".format(closures=" | ".join(CLOSURES), truncations=" | ".join(_truncation.names()))
 
 
 @dataclass(frozen=True)
@@ -242,7 +238,8 @@ class TableSpec:
     composition : dict
         ``{"name": "solar"}`` or ``{"abundances": {"H": 1.0, ...}}`` (number ratios N_X/N_H).
     physics : dict
-        ``truncation`` (plain | lowered | occupation), ``lowering``, ``completion``, ``h_minus``,
+        ``truncation`` (a name of :mod:`sahaboltz.kernels.truncation`), ``lowering``,
+        ``completion``, ``h_minus``,
         ``molecules`` ("none", "default" or "all"), handed to the solver.
     outputs : Outputs
         The quantities to store.
@@ -367,10 +364,10 @@ def _physics(p: Mapping[str, Any]) -> dict:
     if extra:
         raise InputError(f"physics: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
     lowering = bool(p.get("lowering", False))
-    # the solver's rule: with lowering the partition functions are cut at the lowered limit
-    trunc = p.get("truncation") or ("lowered" if lowering else "plain")
-    if trunc not in TRUNCATIONS:
-        raise InputError(f"physics.truncation must be one of {TRUNCATIONS}, got {trunc!r}")
+    try:  # the solver's rule, from the registry: the scheme it would use for these options
+        trunc = _truncation.resolve(p.get("truncation") or None, lowering).key
+    except InputError as exc:
+        raise InputError(f"physics.truncation: {exc}") from None
     return {"truncation": trunc, "lowering": lowering,
             "molecules": _molecule_set(p.get("molecules", False)),
             "completion": bool(p.get("completion", False)),
