@@ -132,6 +132,13 @@ class Species:
         return self.levels.energy_ev[self.bound]
 
     @property
+    def largest_gap_ev(self) -> float | None:
+        """Largest gap between adjacent bound levels [eV] (the dE of McWhirter's criterion);
+        None with fewer than two distinct bound levels."""
+        e = np.unique(self.bound_energy_ev)
+        return float(np.diff(e).max()) if e.size >= 2 else None
+
+    @property
     def bound_g(self) -> np.ndarray:
         """Statistical weights of the bound levels."""
         return self.levels.g[self.bound]

@@ -62,10 +62,9 @@ def largest_level_gap_ev(species: str, database=None) -> float:
     from sahaboltz.data.database import default_database
     db = database or default_database()
     sp = db.species(species)
-    e = np.unique(sp.bound_energy_ev)
-    if e.size < 2:
+    if sp.largest_gap_ev is None:
         raise NoDataError(f"{sp.name} has fewer than two bound levels: pass delta_e_ev")
-    return float(np.diff(e).max())
+    return sp.largest_gap_ev
 
 
 def mcwhirter_check(temperature: Any, electron_density: Any = None, *,

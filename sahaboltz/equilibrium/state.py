@@ -300,11 +300,10 @@ class EquilibriumState:
             for j, sp in enumerate(c.species):
                 if sp is None or sp.is_bare_nucleus or c.model_rows[j] < 0:
                     continue
-                e = np.unique(sp.bound_energy_ev)
-                if e.size < 2:
+                if sp.largest_gap_ev is None:
                     continue
                 weights.append(f[j] * c.fraction)
-                gaps.append(float(np.diff(e).max()))
+                gaps.append(sp.largest_gap_ev)
         if not gaps:
             raise NoDataError("no species with two or more levels: pass delta_e_ev")
         w = np.array(weights)
