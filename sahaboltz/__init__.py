@@ -14,8 +14,7 @@ Names are imported on first use, so ``import sahaboltz`` stays cheap (the comman
 
 from __future__ import annotations
 
-import importlib
-
+from sahaboltz._lazy import lazy_names
 from sahaboltz._version import __version__
 from sahaboltz.errors import (ConvergenceError, DataFormatError, InputError, NoDataError,
                               SahaboltzError, TableError, UnknownSpeciesError)
@@ -56,14 +55,4 @@ __all__ = ["__version__", "SahaboltzError", "InputError", "UnknownSpeciesError",
            "DataFormatError", "ConvergenceError", "TableError", *_LAZY]
 
 
-def __getattr__(name: str):
-    module = _LAZY.get(name)
-    if module is None:
-        raise AttributeError(f"module 'sahaboltz' has no attribute {name!r}")
-    value = getattr(importlib.import_module(module), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(_LAZY))
+__getattr__, __dir__ = lazy_names("sahaboltz", globals(), _LAZY)

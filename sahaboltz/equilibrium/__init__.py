@@ -14,7 +14,7 @@ quick answers.  Names are imported on first use.
 
 from __future__ import annotations
 
-import importlib
+from sahaboltz._lazy import lazy_names
 
 #: version of the equilibrium results: raise it with any change that alters a solved state
 #: (it is part of the table cache key, so cached tables computed before are not reused)
@@ -34,14 +34,4 @@ _LAZY = {
 __all__ = ["SOLVER_VERSION", *_LAZY]
 
 
-def __getattr__(name: str):
-    module = _LAZY.get(name)
-    if module is None:
-        raise AttributeError(f"module 'sahaboltz.equilibrium' has no attribute {name!r}")
-    value = getattr(importlib.import_module(module), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(_LAZY))
+__getattr__, __dir__ = lazy_names("sahaboltz.equilibrium", globals(), _LAZY)
