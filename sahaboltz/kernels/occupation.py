@@ -39,7 +39,7 @@ from sahaboltz.errors import InputError
 from sahaboltz.quantities import as_array, as_positive_array
 
 __all__ = ["RYDBERG_EV", "BOHR_RADIUS_CM", "effective_n", "stark_k", "hydrogenic_radius",
-           "stark_level_factor", "stark_state_factors",
+           "stark_level_factor", "stark_state_factors", "stark_state_slopes",
            "w_charged", "w_neutral", "occupation_probability", "log_w_charged", "log_w_neutral"]
 
 #: Rydberg energy for infinite nuclear mass [eV]
@@ -118,6 +118,21 @@ def stark_state_factors(temperature: np.ndarray, electron_density: np.ndarray
     denom = _F_C1 * (x + 4.0 * a**3)
     p = (_BETA_COEFF * electron_density ** (-2.0 / 3.0)) ** -1.5
     return p, 1.0 / denom, _F_C2 * x / denom
+
+
+def stark_state_slopes(temperature: np.ndarray, electron_density: np.ndarray
+                       ) -> tuple[np.ndarray, np.ndarray]:
+    """d ln(1 + s (A s + B)) / d ln n_e and / d ln T of the charged-perturber fit need how A and
+    B of :func:`stark_state_factors` change: returns (a dA/da, a dB/da), where
+    a = 0.09 n_e^(1/6) / sqrt(T) (so d a / d ln n_e = a/6 and d a / d ln T = -a/2)."""
+    a = _A_COEFF * electron_density ** (1.0 / 6.0) / np.sqrt(temperature)
+    x = (1.0 + a) ** _X_EXP
+    dx = _X_EXP * (1.0 + a) ** (_X_EXP - 1.0)
+    denom = _F_C1 * (x + 4.0 * a**3)
+    ddenom = _F_C1 * (dx + 12.0 * a * a)
+    da_a = -ddenom / denom**2
+    db_a = _F_C2 * (dx * denom - x * ddenom) / denom**2
+    return a * da_a, a * db_a
 
 
 def log_w_neutral(n: np.ndarray, z: np.ndarray, neutral_density: np.ndarray,

@@ -237,24 +237,36 @@ class PartitionModel:
         ndarray
             Shape (n_species,) + broadcast shape of the state arguments.
         """
-        return self._run(temperature, n_e, lowering_ev, n_neutral, want_energy=False)[0]
+        return self._run(temperature, n_e, lowering_ev, n_neutral)[0]
 
     def log_derivative(self, temperature: Any, n_e: Any = None, lowering_ev: Any = None,
                        n_neutral: Any = None) -> np.ndarray:
-        """d ln U / d ln T = <E> / kT, same arguments and shape as :meth:`evaluate`.
+        """d ln U / d ln T at fixed n_e, same arguments and shape as :meth:`evaluate`.
 
-        The derivative is taken at a fixed set of levels and fixed occupation probabilities
-        (the weak temperature dependence of w and of the Debye-Hueckel limit is left out).
+        It is <E>/kT plus the mean of d ln w / d ln T of the occupation probabilities (a cut
+        at the lowered limit adds nothing: U only jumps when a level crosses it).
         """
-        u, u1 = self._run(temperature, n_e, lowering_ev, n_neutral, want_energy=True)
+        u, u1, _ = self._run(temperature, n_e, lowering_ev, n_neutral, want_energy=True)
         return u1 / u
 
     def evaluate_with_derivative(self, temperature: Any, n_e: Any = None,
                                  lowering_ev: Any = None, n_neutral: Any = None
                                  ) -> tuple[np.ndarray, np.ndarray]:
         """(U, d ln U / d ln T) in one pass."""
-        u, u1 = self._run(temperature, n_e, lowering_ev, n_neutral, want_energy=True)
+        u, u1, _ = self._run(temperature, n_e, lowering_ev, n_neutral, want_energy=True)
         return u, u1 / u
+
+    def evaluate_derivatives(self, temperature: Any, n_e: Any = None,
+                             lowering_ev: Any = None, n_neutral: Any = None
+                             ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(U, d ln U / d ln T at fixed n_e, d ln U / d ln n_e at fixed T) in one pass.
+
+        The density derivative is that of the occupation probabilities (zero for schemes
+        that do not weight levels by density).
+        """
+        u, u1, u2 = self._run(temperature, n_e, lowering_ev, n_neutral, want_energy=True,
+                              want_density=True)
+        return u, u1 / u, u2 / u
 
     def level_terms(self, species, temperature: Any, n_e: Any = None, lowering_ev: Any = None,
                     n_neutral: Any = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -315,15 +327,17 @@ class PartitionModel:
         self.scheme.prepare(self, st)
         return st
 
-    def _arg(self, lv: np.ndarray, st: dict, sl: slice, counts: np.ndarray) -> np.ndarray:
-        """ln of the Boltzmann terms, shape (states in ``sl``, levels ``lv``).
+    def _arg(self, lv: np.ndarray, st: dict, sl: slice, counts: np.ndarray,
+             slopes: bool = False):
+        """ln of the Boltzmann terms, shape (states in ``sl``, levels ``lv``); with ``slopes``
+        also the weights' (d ln w / d ln T, d ln w / d ln n_e), or None where they vanish.
 
         ``counts`` is the number of levels of each species in ``lv`` (species are contiguous).
         """
         arg = np.multiply.outer(st["beta"][sl], -self._e[lv])
         arg += self._lng[lv]
-        self.scheme.apply(self, lv, st, sl, counts, arg)
-        return arg
+        out = self.scheme.apply(self, lv, st, sl, counts, arg, slopes)
+        return (arg, out) if slopes else arg
 
     def _keep(self, st: dict, sl: slice) -> np.ndarray:
         """Levels that can matter for the states in ``sl`` (a prefix of every species)."""
@@ -334,15 +348,19 @@ class PartitionModel:
         keep[self._starts] = True  # never leave a species without a level
         return keep
 
-    def _run(self, temperature, n_e, lowering_ev, n_neutral, want_energy: bool):
+    def _run(self, temperature, n_e, lowering_ev, n_neutral, want_energy: bool = False,
+             want_density: bool = False):
         st = self._states(temperature, n_e, lowering_ev, n_neutral)
         nst = st["n"]
         u = np.empty((self.n_species, nst))
         u1 = np.empty((self.n_species, nst)) if want_energy else None
+        u2 = np.zeros((self.n_species, nst)) if want_density else None
+        slopes = (want_energy or want_density) and self.scheme.density_dependent
         all_lv = np.arange(self.n_levels)
         # states are sorted by temperature: a group of neighbours shares one pruned level set,
         # decided once per group, then the group is evaluated in cache-sized blocks
         group = max(1, _GROUP_ELEMENTS // self.n_levels)
+        static = not self.scheme.density_dependent
         for g0 in range(0, nst, group):
             g1 = min(nst, g0 + group)
             keep = self._keep(st, slice(g0, g1))
@@ -353,31 +371,36 @@ class PartitionModel:
                 counts = np.add.reduceat(keep.astype(np.intp), self._starts)
                 starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
             step = max(1, _BLOCK // len(lv))
-            static = not self.scheme.density_dependent
+            e = self._e[lv]
             if static:
-                neg_e, lng = -self._e[lv], self._lng[lv]
-                e = -neg_e
+                neg_e, lng = -e, self._lng[lv]
                 buf = np.empty((min(step, g1 - g0), len(lv)))
             for lo in range(g0, g1, step):
                 hi = min(g1, lo + step)
                 sl = slice(lo, hi)
+                d_t = d_n = None
                 if static:
                     terms = buf[:hi - lo]
                     np.multiply.outer(st["beta"][sl], neg_e, out=terms)
                     terms += lng
+                elif slopes:
+                    terms, w_slopes = self._arg(lv, st, sl, counts, slopes=True)
+                    d_t, d_n = w_slopes if w_slopes is not None else (None, None)
                 else:
                     terms = self._arg(lv, st, sl, counts)
-                    e = self._e[lv]
                 np.exp(terms, out=terms)
                 u[:, sl] = np.add.reduceat(terms, starts, axis=1).T
+                if want_density and d_n is not None:
+                    u2[:, sl] = np.add.reduceat(terms * d_n, starts, axis=1).T
                 if want_energy:
-                    terms *= np.multiply.outer(st["beta"][sl], e)
+                    energy = np.multiply.outer(st["beta"][sl], e)
+                    if d_t is not None:
+                        energy += d_t
+                    terms *= energy
                     u1[:, sl] = np.add.reduceat(terms, starts, axis=1).T
         out_shape = (self.n_species,) + st["shape"]
-        u = u[:, st["inverse"]].reshape(out_shape)
-        if want_energy:
-            u1 = u1[:, st["inverse"]].reshape(out_shape)
-        return u, u1
+        return tuple(None if v is None else v[:, st["inverse"]].reshape(out_shape)
+                     for v in (u, u1, u2))
 
 
 def _ground_g(sp: Species) -> float:

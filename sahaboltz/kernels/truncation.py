@@ -95,8 +95,13 @@ class TruncationScheme:
         """Derive per-unique-state values from the columns stored in ``st``."""
 
     def apply(self, model, lv: np.ndarray, st: dict, sl: slice, counts: np.ndarray,
-              arg: np.ndarray) -> None:
-        """Cut (set to -inf) or weight (add ln w) the ln-terms ``arg`` (states x levels lv)."""
+              arg: np.ndarray, slopes: bool = False):
+        """Cut (set to -inf) or weight (add ln w) the ln-terms ``arg`` (states x levels lv).
+
+        With ``slopes``, return (d ln w / d ln T, d ln w / d ln n_e) of those terms at fixed
+        n_e and at fixed T (arrays like ``arg``, or None where they vanish): a cut has none
+        (U only jumps when a level crosses it)."""
+        return None
 
     def keep(self, model, st: dict, sl: slice) -> np.ndarray | None:
         """Levels that can matter for the states ``sl`` beyond the Boltzmann pruning, or None."""
@@ -212,9 +217,10 @@ class LoweredLimit(TruncationScheme):
                              "no bound level is left; the plasma is too dense for this model")
         st["cut"] = cut
 
-    def apply(self, model, lv, st, sl, counts, arg):
+    def apply(self, model, lv, st, sl, counts, arg, slopes=False):
         cut = np.repeat(st["cut"][:, sl].T, counts, axis=1)
         np.copyto(arg, -np.inf, where=~(model._e[lv] < cut))
+        return None
 
     def keep(self, model, st, sl):
         return model._e < st["cut"][:, sl].max(axis=1)[model._sp]
@@ -245,22 +251,46 @@ class OccupationProbability(TruncationScheme):
         from sahaboltz.kernels.occupation import stark_state_factors
         st["stark_p"], st["stark_a"], st["stark_b"] = stark_state_factors(st["T"], st["ne"])
 
-    def apply(self, model, lv, st, sl, counts, arg):
+    def apply(self, model, lv, st, sl, counts, arg, slopes=False):
         wap = model._wapply[lv]
         if not wap.any():
-            return
+            return None
         q = model._q_stark[lv][wap]
         sv = np.multiply.outer(st["stark_p"][sl], q)          # s = beta^(-3/2)
-        lw = sv * st["stark_a"][sl][:, None]
-        lw += st["stark_b"][sl][:, None]
-        lw *= sv
-        np.log1p(lw, out=lw)
+        a_, b_ = st["stark_a"][sl][:, None], st["stark_b"][sl][:, None]
+        f = sv * a_
+        f += b_
+        f *= sv                                               # F = s (A s + B), ln w = -ln(1+F)
+        if slopes:
+            out = self._slopes(st, sl, sv, a_, b_, f)
+        lw = np.log1p(f, out=f)
         if "nn" in st:
             lw += np.multiply.outer((4.0 * np.pi / 3.0) * st["nn"][sl], model._r3[lv][wap])
         if wap.all():
             arg -= lw
         else:
             arg[:, wap] -= lw
+        if not slopes:
+            return None
+        if wap.all():
+            return out
+        full = [np.zeros(arg.shape), np.zeros(arg.shape)]
+        for k in range(2):
+            full[k][:, wap] = out[k]
+        return tuple(full)
+
+    @staticmethod
+    def _slopes(st, sl, sv, a_, b_, f):
+        """(d ln w / d ln T, d ln w / d ln n_e) of the charged-perturber weights."""
+        from sahaboltz.kernels.occupation import stark_state_slopes
+        if "stark_slopes" not in st:
+            st["stark_slopes"] = stark_state_slopes(st["T"], st["ne"])
+        aa, ab = (v[sl][:, None] for v in st["stark_slopes"])   # a dA/da, a dB/da
+        da = sv * (sv * aa + ab)                                # dF/d ln a
+        inv = -1.0 / (1.0 + f)
+        d_t = (-0.5 * da) * inv                                 # d ln a / d ln T = -1/2
+        d_n = (sv * (2.0 * sv * a_ + b_) + da / 6.0) * inv      # d s / d ln n_e = s
+        return d_t, d_n
 
     def keep(self, model, st, sl):
         if not model.completion:
