@@ -45,6 +45,9 @@ _MAX_STEP = 20.0
 _MAX_OUTER = 60
 # populations below e^-300 of an element's largest stage are floored there inside the solver
 _LOG_FLOOR = -300.0
+# significance threshold of the windows when U depends on n_e: the low-density-limit tables
+# that place the windows overestimate each U, by up to this margin above the usual e^-40
+_DENSITY_THR = 70.0
 
 
 def solve_atomic(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closure: Closure, *,
@@ -96,15 +99,27 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
     failed = np.zeros(n, dtype=bool)
     chunk = max(1, _CHUNK_ELEMENTS // max(1, network.n_species))
     order = np.argsort(t, kind="stable")  # neighbours in T share partition-function work
-    if network.ideal and not lowering:
+    density = not network.ideal and not lowering
+    if not lowering:
+        # Saha tables per temperature: exact for T-only partition functions, and for
+        # density-dependent ones their low-density limit (the start and the windows)
         ut, tinv = np.unique(t, return_inverse=True)
         c_unique = [network.log_c(c, ut) for c in network.chains]
-        intervals = [_significance_intervals(c.charges, tab) for c, tab in
-                     zip(network.chains, c_unique)]
+        intervals = [_significance_intervals(c.charges, tab,
+                                             thr=_DENSITY_THR if density else 40.0)
+                     for c, tab in zip(network.chains, c_unique)]
     else:
         ut = tinv = c_unique = None
     for c0 in range(0, n, chunk):
         idx = order[c0:c0 + chunk]
+        if density:
+            out = _solve_density_block(network, t[idx], v[idx], closure,
+                                       None if fixed_n is None else fixed_n[idx],
+                                       None if ntot is None else ntot[idx],
+                                       (c_unique, intervals, tinv[idx]), ut, tol, max_passes)
+            x_out[idx], nuc_out[idx], passes[idx], resid[idx], done = out
+            failed[idx] = ~done
+            continue
         if c_unique is None:
             out = _solve_nonideal_block(network, t[idx], v[idx], closure,
                                         None if fixed_n is None else fixed_n[idx],
@@ -127,6 +142,89 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
     if lowering:
         _check_lowering(network, lam_out, t, v, closure, shape)
     return x_out, nuc_out, lam_out, SolveReport(passes.reshape(shape), resid.reshape(shape))
+
+
+def _solve_density_block(network, t, v, closure, fixed_n, ntot, tables, ut, tol, max_passes):
+    """Newton on ln n_e with partition functions that depend on n_e (occupation
+    probabilities, no lowering): started from the solution with their low-density limit,
+    each pass evaluates ln U and d ln U / d ln n_e of the stages that can matter at the trial
+    n_e, and the derivative of the charge balance includes them (exact Newton, bracketed).
+    """
+    start = _ChunkSolver(network, t, v, closure, fixed_n, ntot, tables)
+    start.run(tol, max_passes)
+    x0 = np.where(np.isfinite(start.x), start.x, start.x_hi - 1.0)
+    solver = _ChunkSolver(network, t, v, closure, fixed_n, ntot, tables)
+    moments = _DensityMoments(network, t, tables, ut)
+    solver.run(tol, max_passes, moments=moments, x0=x0)
+    return solver.x, solver.nuc, start.passes + solver.passes, solver.resid, solver.done
+
+
+class _DensityMoments:
+    """Charge moments of every element when ln U_q depends on n_e.
+
+    With K_q(T) the chain's T-only part (:meth:`AtomicNetwork.bare_log_c`), stage q of
+    element k has ln n_q = K_q + ln U_q(T, n_e) - q x + const; its significance window comes
+    from the low-density-limit tables (each U is largest there) with a wider threshold.  The
+    moments returned are Zbar, -dZbar/dx = sum_k alpha_k (Var_k(q) - Cov_k(q, d ln U/dx)),
+    sum alpha <|q|> and sum alpha <q^2>.
+    """
+
+    def __init__(self, network, t, tables, ut):
+        self.net = network
+        self.t = t
+        _, intervals, tpos = tables
+        self.tpos = tpos
+        self.intervals = intervals
+        self.bare = [network.bare_log_c(c, ut) for c in network.chains]
+
+    def __call__(self, sel, x):
+        m = sel.size
+        t = self.t[sel]
+        tp = self.tpos[sel]
+        ne = np.exp(x)
+        plans = []
+        pair_state, pair_row = [], []
+        npairs = 0
+        for k, c in enumerate(self.net.chains):
+            xl, xr = self.intervals[k]
+            lo = (xl[tp] > x[:, None]).sum(axis=1)
+            hi = np.maximum(c.n - 1 - (xr[tp] < x[:, None]).sum(axis=1), lo)
+            width = int((hi - lo).max()) + 1
+            s0 = np.minimum(lo, c.n - width)
+            rows = s0[None, :] + np.arange(width)[:, None]          # (w, m) stage indices
+            mrow = c.model_rows[rows]
+            has = mrow >= 0
+            where = np.flatnonzero(has.ravel())
+            plans.append((c, rows, where, npairs))
+            pair_state.append(np.broadcast_to(np.arange(m), rows.shape).ravel()[where])
+            pair_row.append((mrow + c.model_offset).ravel()[where])
+            npairs += where.size
+        lu = dlu = np.zeros(0)
+        if npairs:
+            st = np.concatenate(pair_state)
+            u, _, dlu = self.net.model.evaluate_pairs(t[st], ne[st], np.concatenate(pair_row))
+            lu = np.log(u)
+        zbar, slope, zabs, z2 = (np.zeros(m) for _ in range(4))
+        for c, rows, where, first in plans:
+            k = c.k
+            a = np.take_along_axis(self.bare[k][:, tp], rows, axis=0)
+            d = np.zeros(a.shape)
+            a.ravel()[where] += lu[first:first + where.size]
+            d.ravel()[where] = dlu[first:first + where.size]
+            q = c.q_min + rows
+            a -= q * x[None, :]
+            a -= a.max(axis=0)
+            np.maximum(a, _LOG_FLOOR, out=a)
+            p = np.exp(a)
+            p /= p.sum(axis=0)
+            mq = (p * q).sum(axis=0)
+            mq2 = (p * q * q).sum(axis=0)
+            cov = (p * q * d).sum(axis=0) - mq * (p * d).sum(axis=0)
+            zbar += c.fraction * mq
+            slope += c.fraction * (np.maximum(mq2 - mq * mq, 0.0) - cov)
+            zabs += c.fraction * (p * np.abs(q)).sum(axis=0)
+            z2 += c.fraction * mq2
+        return zbar, slope, zabs, z2
 
 
 def _solve_nonideal_block(network, t, v, closure, fixed_n, ntot, lowering, tol, max_passes):
@@ -270,19 +368,29 @@ class _ChunkSolver:
         nref = self.fixed_n if self.fixed_n is not None else self.ntot
         return np.minimum(0.5 * (np.log(nref) + ln_sum), self.x_hi - 1e-9)
 
-    def run(self, tol, max_passes):
+    def run(self, tol, max_passes, moments=None, x0=None):
+        """Safeguarded Newton in x = ln n_e.
+
+        ``moments(active, x) -> (Zbar, -dZbar/dx, <|q|>, <q^2>)`` per nucleus; default: from the
+        windows over the fixed Saha tables.  ``x0``: starting values (default: the
+        weak-ionization estimate).
+        """
         m = self.t.size
-        x = self._initial()
+        x = self._initial() if x0 is None else np.minimum(x0, self.x_hi - 1e-9)
         lo = np.full(m, -np.inf)
         hi = self.x_hi.copy()
         active = np.arange(m)
-        windows = _Windows(self.net.chains, *self.ideal_tables)
+        if moments is None:
+            windows = _Windows(self.net.chains, *self.ideal_tables)
+
+            def moments(sel, xs):
+                return windows.moments(sel, xs, step[sel])
         step = np.full(m, 0.5)  # size of the last Newton step (sets the window margins)
         fixed_pe = self.fixed_n is None and self.ntot is None
         prev = np.full(m, np.inf)  # previous step size, for the rtsafe-style safeguard
         for _ in range(max_passes):
             xa = x[active]
-            zbar, var, zabs, _ = windows.moments(active, xa, step[active])
+            zbar, var, zabs, _ = moments(active, xa)
             self.passes[active] += 1
             ne = np.exp(xa)
             if fixed_pe:

@@ -46,6 +46,7 @@ class Chain:
     model_rows: np.ndarray       # for each stage its row in ``model``, -1 for U = 1
     species: list = field(default_factory=list)  # Species objects (None for H-)
     offset: int = 0              # position of the first stage in the flat species list
+    model_offset: int = 0        # row of the chain's first modelled stage in network.model
 
     @property
     def n(self) -> int:
@@ -96,6 +97,19 @@ class AtomicNetwork:
             chain.offset = offset
             offset += chain.n
             self.chains.append(chain)
+        # one partition-function model for every stage with levels; each chain sees its own
+        # stages through a view (chain.model), and solvers can evaluate any (state, stage)
+        # pairs of the whole mixture in one call (self.model, rows chain.model_offset + row)
+        packed = [sp for c in self.chains if c.model for sp in c.model]
+        self.model = (PartitionModel(packed, truncation=self.scheme, completion=self.completion)
+                      if packed else None)
+        first = 0
+        for c in self.chains:
+            if c.model:
+                count = len(c.model)
+                c.model_offset = first
+                c.model = self.model.subset(first, first + count)
+                first += count
         self.species_names = [n for c in self.chains for n in c.names]
         self.charges = np.concatenate([c.charges for c in self.chains])
         self.element_index = np.concatenate([np.full(c.n, c.k) for c in self.chains])
@@ -122,8 +136,7 @@ class AtomicNetwork:
                                       "to take U = 1 for it")
                 rows.append(-1)
                 self.unit_partition.append(s.name)
-        model = PartitionModel(with_levels, truncation=self.scheme,
-                               completion=self.completion) if with_levels else None
+        model = with_levels or None   # the species; packed into one model for all chains below
         names = [s.name for s in stages]
         charges = [float(s.charge) for s in stages]
         chi = [s.ionization_energy_ev for s in stages[:-1]]
@@ -172,6 +185,34 @@ class AtomicNetwork:
         """True when the chains depend on temperature only (no n_e-dependent corrections)."""
         return not self.scheme.density_dependent
 
+    #: electron density [cm^-3] standing for the low-density limit of density-dependent
+    #: partition functions (every occupation probability is 1 to double precision there)
+    LIMIT_DENSITY = 1e-30
+
+    def bare_log_c(self, chain: Chain, t: np.ndarray) -> np.ndarray:
+        """C_q without the partition functions (all U = 1): the chain's T-only part, to which
+        ln U_q of each stage is added."""
+        steps = _log_saha_steps(t, chain.chi_ev, np.zeros((chain.n, t.shape[0])))
+        out = np.zeros((chain.n, t.shape[0]))
+        np.cumsum(steps, axis=0, out=out[1:])
+        return out
+
+    def stage_log_u(self, chain: Chain, t: np.ndarray, n_e: np.ndarray, rows: slice
+                    ) -> tuple[np.ndarray, np.ndarray]:
+        """(ln U, d ln U / d ln n_e) of the stages ``rows`` of a chain at the flat states (t, n_e)
+        (no Debye-Hueckel lowering); stages without levels (and H-) have U = 1."""
+        idx = np.arange(chain.n)[rows]
+        out = np.zeros((idx.size, t.shape[0]))
+        der = np.zeros((idx.size, t.shape[0]))
+        mrows = chain.model_rows[idx]
+        has = mrows >= 0
+        if has.any():
+            r0, r1 = int(mrows[has].min()), int(mrows[has].max()) + 1
+            u, _, dn = chain.model.subset(r0, r1).evaluate_derivatives(t, n_e)
+            out[has] = np.log(u[mrows[has] - r0])
+            der[has] = dn[mrows[has] - r0]
+        return out, der
+
     def log_c(self, chain: Chain, t: np.ndarray, n_e: np.ndarray | None = None,
               debye_length: np.ndarray | None = None) -> np.ndarray:
         """C_q (see module docstring) for the states given as flat arrays.
@@ -181,7 +222,8 @@ class AtomicNetwork:
         t : ndarray, shape (n,)
             Temperatures [K].
         n_e : ndarray, shape (n,), optional
-            Electron densities, for density-dependent truncations.
+            Electron densities, for density-dependent truncations (default: their
+            low-density limit, an upper bound of each U).
         debye_length : ndarray, shape (n,), optional
             Debye length [cm]: apply Debye-Hueckel lowering (z + 1) e^2 / lambda_D to the
             ionization energies and, for schemes that use a lowering, to the
@@ -206,7 +248,7 @@ class AtomicNetwork:
                 chi_m = chain.model.ionization_energy_ev[:, None]
                 kw["lowering_ev"] = np.minimum(low, np.where(np.isfinite(chi_m), 0.999 * chi_m, 0.0))
             elif self.scheme.density_dependent:
-                kw["n_e"] = n_e
+                kw["n_e"] = np.full(n, self.LIMIT_DENSITY) if n_e is None else n_e
             ln_u[has] = np.log(chain.model.evaluate(t, **kw))
         steps = _log_saha_steps(t, chain.chi_ev, ln_u,
                                 None if lowering is None else lowering[:-1])

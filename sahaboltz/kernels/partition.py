@@ -20,6 +20,7 @@ each species with ``np.add.reduceat``.  Terms smaller than e^-50 of the ground t
 
 from __future__ import annotations
 
+import copy
 import functools
 import math
 from typing import Any, Iterable
@@ -44,6 +45,10 @@ _CUT = 50.0
 _BLOCK = 1 << 17
 # states x levels per group sharing one pruned level set (the pruning test costs a pass)
 _GROUP_ELEMENTS = 1 << 22
+# level terms per block of evaluate_pairs
+_PAIR_BLOCK = 1 << 18
+# species stride of the sort keys that find each pair's pruned levels [eV]: above every energy
+_PAIR_KEY_STRIDE = 1e7
 
 
 class PartitionModel:
@@ -198,6 +203,30 @@ class PartitionModel:
     def n_species(self) -> int:
         return len(self.species)
 
+    # per-level and per-species packed arrays: what subset() slices
+    _LEVEL_ARRAYS = ("_e", "_lng", "_neff", "_zrad", "_ncomp", "_wapply", "_static", "_is_comp",
+                     "_q_stark", "_r3")
+    _SPECIES_ARRAYS = ("_counts", "ionization_energy_ev", "charge", "_emin", "_lng_max", "_bare")
+
+    def subset(self, start: int, stop: int) -> "PartitionModel":
+        """The species ``start:stop`` of this model as a model of their own (a view on the
+        packed levels: no copy, no re-packing)."""
+        if not 0 <= start < stop <= self.n_species:
+            raise InputError(f"subset {start}:{stop} is outside the {self.n_species} species")
+        sub = copy.copy(self)
+        l0 = int(self._starts[start])
+        l1 = int(self._starts[stop - 1] + self._counts[stop - 1])
+        for name in self._LEVEL_ARRAYS:
+            setattr(sub, name, getattr(self, name)[l0:l1])
+        for name in self._SPECIES_ARRAYS:
+            setattr(sub, name, getattr(self, name)[start:stop])
+        sub.species = self.species[start:stop]
+        sub.names = self.names[start:stop]
+        sub._starts = self._starts[start:stop] - l0
+        sub._sp = self._sp[l0:l1] - start
+        sub._lng_max_lv = self._lng_max_lv[l0:l1]
+        return sub
+
     @property
     def n_levels(self) -> int:
         """Number of packed levels (tabulated bound levels plus completion levels)."""
@@ -266,6 +295,64 @@ class PartitionModel:
         """
         u, u1, u2 = self._run(temperature, n_e, lowering_ev, n_neutral, want_energy=True,
                               want_density=True)
+        return u, u1 / u, u2 / u
+
+    def evaluate_pairs(self, temperature: np.ndarray, n_e: np.ndarray, rows: np.ndarray,
+                       n_neutral: np.ndarray | None = None
+                       ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(U, d ln U / d ln T, d ln U / d ln n_e) of one species per state: the flat pairs
+        (``temperature[p]``, ``n_e[p]``, species ``rows[p]``), unchecked float arrays.
+
+        For solvers that need a different set of species at every state: the work is the
+        levels of each pair's species alone (pruned as in :meth:`evaluate`), in one
+        vectorized pass over all pairs.  Schemes with a per-state lowering are not supported.
+        """
+        if "lowering_ev" in self.scheme.inputs:
+            raise InputError("evaluate_pairs: a lowering per state is not supported here")
+        t = np.asarray(temperature, dtype=float)
+        ne = np.asarray(n_e, dtype=float)
+        rows = np.asarray(rows, dtype=np.intp)
+        npair = rows.size
+        beta = 1.0 / (K_B_EV * t)
+        # levels of each pair's species that pass the Boltzmann pruning (a prefix: sorted by E)
+        if not hasattr(self, "_pair_keys"):
+            self._pair_keys = self._sp * _PAIR_KEY_STRIDE + self._e
+        cut = (_CUT + self._lng_max[rows]) / beta
+        start = self._starts[rows]
+        count = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
+        count = np.clip(count, 1, self._counts[rows])
+        pst = {"T": t, "ne": ne}
+        if n_neutral is not None:
+            pst["nn"] = np.asarray(n_neutral, dtype=float)
+        u, u1, u2 = (np.zeros(npair) for _ in range(3))
+        # blocks of pairs with about _PAIR_BLOCK terms each
+        ends = np.cumsum(count)
+        bounds = np.searchsorted(ends, np.arange(_PAIR_BLOCK, ends[-1] + _PAIR_BLOCK,
+                                                 _PAIR_BLOCK), side="right")
+        p0 = 0
+        for p1 in np.unique(np.concatenate([bounds[bounds > 0], [npair]])):
+            p1 = int(max(p1, p0 + 1)) if p0 < npair else p0
+            if p1 <= p0:
+                continue
+            cnt = count[p0:p1]
+            off = np.concatenate([[0], np.cumsum(cnt)[:-1]])
+            pair = np.repeat(np.arange(p0, p1), cnt)
+            lv = np.repeat(start[p0:p1] - off, cnt) + np.arange(int(cnt.sum()))
+            e = self._e[lv]
+            be = beta[pair] * e
+            arg = self._lng[lv] - be
+            w = self.scheme.pair_weights(self, lv, pair, pst, slopes=True)
+            d_t = d_n = None
+            if w is not None:
+                lw, d_t, d_n = w
+                arg += lw
+            terms = np.exp(arg)
+            u[p0:p1] = np.add.reduceat(terms, off)
+            if d_n is not None:
+                u2[p0:p1] = np.add.reduceat(terms * d_n, off)
+                be += d_t
+            u1[p0:p1] = np.add.reduceat(terms * be, off)
+            p0 = p1
         return u, u1 / u, u2 / u
 
     def level_terms(self, species, temperature: Any, n_e: Any = None, lowering_ev: Any = None,

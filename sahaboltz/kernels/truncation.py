@@ -107,6 +107,13 @@ class TruncationScheme:
         """Levels that can matter for the states ``sl`` beyond the Boltzmann pruning, or None."""
         return None
 
+    def pair_weights(self, model, lv: np.ndarray, pair: np.ndarray, pst: dict,
+                     slopes: bool = False):
+        """For :meth:`PartitionModel.evaluate_pairs`: ln w of the flat level terms ``lv``, each
+        belonging to the state ``pair`` of the per-pair state values ``pst`` (T, ne, ...);
+        with ``slopes`` also (d ln w / d ln T, d ln w / d ln n_e).  None: all w = 1."""
+        return None
+
 
 class GroundLevel(TruncationScheme):
     """Only the lowest level: U = g_0, as in textbook estimates."""
@@ -278,6 +285,26 @@ class OccupationProbability(TruncationScheme):
         for k in range(2):
             full[k][:, wap] = out[k]
         return tuple(full)
+
+    def pair_weights(self, model, lv, pair, pst, slopes=False):
+        from sahaboltz.kernels.occupation import stark_state_factors, stark_state_slopes
+        if "stark" not in pst:
+            pst["stark"] = stark_state_factors(pst["T"], pst["ne"])
+            pst["stark_slopes"] = stark_state_slopes(pst["T"], pst["ne"])
+        p_, a_, b_ = (v[pair] for v in pst["stark"])
+        sv = p_ * model._q_stark[lv]
+        sv = np.where(model._wapply[lv], sv, 0.0)
+        f = sv * (a_ * sv + b_)
+        if slopes:
+            aa, ab = (v[pair] for v in pst["stark_slopes"])
+            da = sv * (sv * aa + ab)
+            inv = -1.0 / (1.0 + f)
+            d_t = (-0.5 * da) * inv
+            d_n = (sv * (2.0 * sv * a_ + b_) + da / 6.0) * inv
+        lw = -np.log1p(f)
+        if "nn" in pst:
+            lw -= (4.0 * np.pi / 3.0) * pst["nn"][pair] * model._r3[lv]
+        return (lw, d_t, d_n) if slopes else (lw,)
 
     @staticmethod
     def _slopes(st, sl, sv, a_, b_, f):
