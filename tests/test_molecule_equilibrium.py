@@ -142,7 +142,7 @@ def test_bad_input(cool_mix):
         solve_equilibrium(cool_mix, 3000.0, molecules="most", **kw)
     with pytest.raises(InputError, match="below"):
         solve_equilibrium(cool_mix, [3000.0, 300.0], molecules="default", **kw)
-    with pytest.raises(InputError, match="ideal-gas"):
+    with pytest.raises(InputError, match="without Debye-Hueckel lowering"):
         solve_equilibrium(cool_mix, 3000.0, molecules="default", lowering=True, **kw)
 
 

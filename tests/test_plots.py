@@ -165,7 +165,7 @@ def test_electron_pressure_curves_follow_saha_for_hydrogen():
 
 def test_level_diagram_slope_is_the_boltzmann_law():
     temps = [4000.0, 7000.0]
-    fig = plots.level_population_plot("Fe I", temps, 1e5, max_energy_ev=6.0)
+    fig = plots.level_population_plot("Fe I", temps, 1e5, max_energy_ev=6.0, truncation="plain")
     ax = fig.axes[0]
     points = [ln for ln in ax.lines if ln.get_linestyle() == "None"]
     assert len(points) == 2

@@ -46,8 +46,8 @@ def test_hydrogen_half_ionized_at_200_dyn():
 
 def test_chain_matches_two_stage_saha_ratio():
     t, ne = 8000.0, 1e13
-    f = saha_chain("Ca", t, electron_density=ne)
-    u0, u1 = (partition_function(s, t) for s in ("Ca I", "Ca II"))
+    f = saha_chain("Ca", t, electron_density=ne, truncation="plain")
+    u0, u1 = (partition_function(s, t) for s in ("Ca I", "Ca II"))   # plain sums
     ratio = np.exp(log_saha_factor(t, 6.1131552, u0, u1)) / ne  # chi(Ca I), NIST ASD
     assert f[1] / f[0] == pytest.approx(ratio, rel=1e-6)
     assert f.shape == (21,)

@@ -74,11 +74,13 @@ def line_emissivity(lines: LineList, temperature: Any, electron_density: Any, *,
         stages = db.element(int(z))
         low = (debye_hueckel_lowering(np.array([s.charge for s in stages], dtype=float),
                                      debye_length(t, ne)) if lowering else None)
-        frac = saha_chain(int(z), t, electron_density=ne, lowering_ev=low, database=db)
+        # the plain level sums the fits invert (see docs/diagnostics.md)
+        frac = saha_chain(int(z), t, electron_density=ne, lowering_ev=low, database=db,
+                          truncation="plain")
         for ch in np.unique(lines.charge[lines.z == z]):
             sel = (lines.z == z) & (lines.charge == ch)
             sp = db.species((int(z), int(ch)))
-            u = float(partition_function(sp, t))
+            u = float(partition_function(sp, t, truncation="plain"))
             pop[sel] = (nel * frac[int(ch)] * lines.upper_g[sel]
                         * np.exp(-lines.upper_energy_ev[sel] / (K_B_EV * t)) / u)
     rate = lines.a_value * pop / (4.0 * np.pi)

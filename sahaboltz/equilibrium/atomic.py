@@ -47,7 +47,7 @@ _MAX_OUTER = 60
 _LOG_FLOOR = -300.0
 # significance threshold of the windows when U depends on n_e: the low-density-limit tables
 # that place the windows overestimate each U, by up to this margin above the usual e^-40
-_DENSITY_THR = 70.0
+_DENSITY_THR = 45.0
 
 
 def solve_atomic(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closure: Closure, *,
@@ -172,9 +172,8 @@ class _DensityMoments:
     def __init__(self, network, t, tables, ut):
         self.net = network
         self.t = t
-        _, intervals, tpos = tables
+        self.limit, _, tpos = tables
         self.tpos = tpos
-        self.intervals = intervals
         self.bare = [network.bare_log_c(c, ut) for c in network.chains]
 
     def __call__(self, sel, x):
@@ -186,35 +185,48 @@ class _DensityMoments:
         pair_state, pair_row = [], []
         npairs = 0
         for k, c in enumerate(self.net.chains):
-            xl, xr = self.intervals[k]
-            lo = (xl[tp] > x[:, None]).sum(axis=1)
-            hi = np.maximum(c.n - 1 - (xr[tp] < x[:, None]).sum(axis=1), lo)
-            width = int((hi - lo).max()) + 1
-            s0 = np.minimum(lo, c.n - width)
+            if c.n <= _Windows.WHOLE:   # short chains whole, as in the T-only windows
+                width, s0 = c.n, np.zeros(m, dtype=np.intp)
+                lo, hi = s0, np.full(m, c.n - 1)
+            else:
+                # the stages within e^-thr of the largest at this x, judged with the
+                # low-density-limit tables (each U largest there)
+                a0 = self.limit[k][:, tp] - np.multiply.outer(c.charges, x)
+                sig = a0 >= a0.max(axis=0) - _DENSITY_THR
+                # and one stage beyond each end: in an almost neutral gas the first ion
+                # carries the charge however small its share of the element
+                lo = np.maximum(np.argmax(sig, axis=0) - 1, 0)
+                hi = np.minimum(c.n - np.argmax(sig[::-1], axis=0), c.n - 1)
+                width = int((hi - lo).max()) + 1
+                s0 = np.minimum(lo, c.n - width)
             rows = s0[None, :] + np.arange(width)[:, None]          # (w, m) stage indices
             mrow = c.model_rows[rows]
-            has = mrow >= 0
+            # each state's own window only (the padding up to the widest is left out)
+            inside = (rows >= lo[None, :]) & (rows <= hi[None, :])
+            has = (mrow >= 0) & inside
             where = np.flatnonzero(has.ravel())
-            plans.append((c, rows, where, npairs))
+            plans.append((c, rows, where, npairs, inside))
             pair_state.append(np.broadcast_to(np.arange(m), rows.shape).ravel()[where])
             pair_row.append((mrow + c.model_offset).ravel()[where])
             npairs += where.size
         lu = dlu = np.zeros(0)
         if npairs:
             st = np.concatenate(pair_state)
-            u, _, dlu = self.net.model.evaluate_pairs(t[st], ne[st], np.concatenate(pair_row))
+            u, _, dlu = self.net.model.evaluate_pairs(t[st], ne[st], np.concatenate(pair_row),
+                                                      want_temperature=False)
             lu = np.log(u)
         zbar, slope, zabs, z2 = (np.zeros(m) for _ in range(4))
-        for c, rows, where, first in plans:
+        for c, rows, where, first, inside in plans:
             k = c.k
             a = np.take_along_axis(self.bare[k][:, tp], rows, axis=0)
+            a[~inside] = -np.inf
             d = np.zeros(a.shape)
             a.ravel()[where] += lu[first:first + where.size]
             d.ravel()[where] = dlu[first:first + where.size]
             q = c.q_min + rows
             a -= q * x[None, :]
             a -= a.max(axis=0)
-            np.maximum(a, _LOG_FLOOR, out=a)
+            np.maximum(a, _LOG_FLOOR, out=a, where=inside)
             p = np.exp(a)
             p /= p.sum(axis=0)
             mq = (p * q).sum(axis=0)
@@ -376,7 +388,9 @@ class _ChunkSolver:
         weak-ionization estimate).
         """
         m = self.t.size
-        x = self._initial() if x0 is None else np.minimum(x0, self.x_hi - 1e-9)
+        fixed_pe = self.fixed_n is None and self.ntot is None
+        x = (self._initial() if x0 is None or fixed_pe
+             else np.minimum(x0, self.x_hi - 1e-9))
         lo = np.full(m, -np.inf)
         hi = self.x_hi.copy()
         active = np.arange(m)

@@ -70,6 +70,7 @@ _CHUNK = 2048             # states solved together
 _RIDGE = 1e-10
 _STALL_ACCEPT = 1e-9      # residual accepted for a state that stops improving (see _solve_chunk)
 _X_WINDOW = 20.0          # ln n_e stays within this distance of the atoms-only value
+_MAX_REFREEZE = 20        # solves with the density-dependent partition functions updated
 
 
 # ------------------------------------------------------------------------------ molecule sets
@@ -161,10 +162,10 @@ def solve_molecular(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closur
     ConvergenceError
         Listing the states that did not converge.
     """
-    if network.scheme.key != "plain" or lowering:
-        raise InputError("molecules are solved with the ideal-gas options only "
-                         "(truncation='plain', lowering=False); at the densities where "
-                         "molecules survive the non-ideal corrections are negligible")
+    if lowering or "lowering_ev" in network.scheme.inputs:
+        raise InputError("molecules are solved without Debye-Hueckel lowering (at the densities "
+                         "where molecules survive it is negligible): drop lowering=True or the "
+                         "'lowered' truncation")
     if np.any(t < T_MIN):
         raise InputError(f"temperature {t[t < T_MIN].min():g} K is below {T_MIN:g} K, the lowest "
                          "temperature of the molecular equilibrium")
@@ -196,6 +197,14 @@ def solve_molecular(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closur
             w0[~bad] = np.log(good.nuclei_density)
     system = MolecularSystem(network, mols)
     sol = system.solve(tf, vf, closure, x0, w0, tolerance, max_passes, shape)
+    # partition functions that depend on n_e are held at the start's n_e in each solve:
+    # repeat from the solution until it reproduces itself (the dependence is weak here)
+    for _ in range(_MAX_REFREEZE if network.scheme.density_dependent else 0):
+        previous = sol["x"]
+        sol = system.solve(tf, vf, closure, previous, sol["w"], tolerance, max_passes, shape,
+                           passes=sol["report"].passes.ravel())
+        if np.abs(sol["x"] - previous).max() <= tolerance:
+            break
     return MolecularEquilibriumState(
         network=network, temperature=t.copy(), log_ne=sol["x"].reshape(shape),
         nuclei_density=np.exp(sol["w"]).reshape(shape), closure=closure.name,
@@ -230,8 +239,13 @@ class MolecularSystem:
         return [m.name for m in self.molecules]
 
     # -- temperature-only tables -------------------------------------------------------------
-    def tables(self, t: np.ndarray, x0: np.ndarray | None = None, others: bool = True) -> dict:
-        """T-only tables for the states ``t``: stages relative to the neutral atom, packed.
+    def tables(self, t: np.ndarray, x0: np.ndarray | None = None, others: bool = True,
+               n_e: np.ndarray | None = None) -> dict:
+        """Tables for the states ``t``: stages relative to the neutral atom, packed.
+
+        They depend on T alone unless the partition functions depend on n_e (occupation
+        probabilities); those are evaluated at ``n_e`` (default exp(x0)) and held fixed in
+        the solve, which :func:`solve_molecular` repeats until n_e reproduces itself.
 
         With ``x0`` (a starting ln n_e per state), ln n_e is confined to the window
         x0 +- :data:`_X_WINDOW` and each chain keeps only the stages that come within e^-60 of
@@ -241,10 +255,14 @@ class MolecularSystem:
         """
         net = self.network
         ut, inv = np.unique(t, return_inverse=True)
+        ne = n_e if n_e is not None or x0 is None else np.exp(x0)
 
         def rel(c):
-            tab = net.log_c(c, ut)
             i0 = int(np.flatnonzero(c.charges == 0)[0])
+            if net.scheme.density_dependent:
+                tab = net.log_c(c, t, ne)
+                return tab - tab[i0]
+            tab = net.log_c(c, ut)
             return (tab - tab[i0])[:, inv]
 
         lmol = [rel(c) for c in self.mol_chains]
@@ -346,11 +364,11 @@ class MolecularSystem:
         return r, jac
 
     # -- Newton ------------------------------------------------------------------------------
-    def solve(self, t, v, closure, x0, w0, tol, max_passes, shape) -> dict:
+    def solve(self, t, v, closure, x0, w0, tol, max_passes, shape, passes=None) -> dict:
         n = t.size
         out_y = np.empty((len(self.mol_chains), n))
         out_x, out_w = x0.copy(), w0.copy()
-        passes = np.zeros(n, dtype=int)
+        passes = np.zeros(n, dtype=int) if passes is None else passes.copy()
         resid = np.full(n, np.inf)
         ok = np.zeros(n, dtype=bool)
         order = np.argsort(t, kind="stable")
@@ -358,7 +376,8 @@ class MolecularSystem:
             idx = order[c0:c0 + _CHUNK]
             y, x, w, p, r, rr = self._solve_chunk(t[idx], v[idx], closure, x0[idx], w0[idx], tol,
                                               max_passes)
-            out_y[:, idx], out_x[idx], out_w[idx], passes[idx], resid[idx] = y, x, w, p, rr
+            out_y[:, idx], out_x[idx], out_w[idx], resid[idx] = y, x, w, rr
+            passes[idx] += p
             ok[idx] = np.isfinite(r)
         bad = ~ok | ~np.isfinite(out_x) | ~np.isfinite(out_w)
         if bad.any():
@@ -637,8 +656,8 @@ class MolecularEquilibriumState(EquilibriumState):
         self.log_neutral = log_neutral
         self.skipped_molecules = list(skipped_molecules)
         t = self.temperature.ravel()
-        tab = system.tables(t, others=False)
         x = self.log_ne.ravel()
+        tab = system.tables(t, others=False, n_e=np.exp(x))
         y = log_neutral.reshape(log_neutral.shape[0], -1)
         ln_m = tab["s"] + system.nu @ y - np.multiply.outer(system.q_mol, x)
         self._n_mol = np.exp(ln_m).reshape((len(system.molecules),) + self.shape)

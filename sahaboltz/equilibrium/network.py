@@ -64,8 +64,9 @@ class AtomicNetwork:
     ----------
     composition : Composition
     database : SpeciesDatabase, optional
-    truncation : str or TruncationScheme
-        Partition-function truncation (:mod:`sahaboltz.kernels.truncation`).
+    truncation : str or TruncationScheme, optional
+        Partition-function truncation (:mod:`sahaboltz.kernels.truncation`); default that of
+        the solver (occupation probabilities).
     completion : bool
         Hydrogenic completion of the level lists (see the partition-function docs).
     h_minus : bool
@@ -76,12 +77,13 @@ class AtomicNetwork:
         :attr:`unit_partition`) or raise NoDataError.
     """
 
-    def __init__(self, composition: Composition, database=None, truncation: str = "plain",
+    def __init__(self, composition: Composition, database=None, truncation=None,
                  completion: bool = False, h_minus: bool = True, missing_levels: str = "unit"):
         if not isinstance(composition, Composition):
             raise InputError("composition must be a sahaboltz.data.composition.Composition, "
                              f"e.g. solar() or Composition.from_number(...); got {composition!r}")
-        self.scheme = _truncation.get(truncation)
+        self.scheme = (_truncation.resolve(None) if truncation is None
+                       else _truncation.get(truncation))
         if missing_levels not in MISSING_LEVEL_CHOICES:
             raise InputError(f"missing_levels must be one of {MISSING_LEVEL_CHOICES}")
         self.composition = composition

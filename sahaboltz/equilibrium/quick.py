@@ -116,13 +116,13 @@ def half_ionization_temperatures(element, *, electron_pressure: Any = None,
     # At a given P_e (no lowering) the stage fractions follow from n_e = P_e / kT by the Saha
     # chain alone; charge neutrality only sets the total density, and may have no solution
     # (pure hydrogen in cool gas at a high P_e, where H- outnumbers H+), so skip the solve.
-    saha_only = closure == "electron_pressure" and not lowering and not trunc.density_dependent
+    saha_only = closure == "electron_pressure" and not lowering
 
     def above(temps: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         if saha_only:
             temps = np.atleast_1d(np.asarray(temps, dtype=float))
             x = np.log(float(p) / (K_B * temps))
-            a = net.log_c(chain, temps) - np.multiply.outer(chain.charges, x)
+            a = net.log_c(chain, temps, np.exp(x)) - np.multiply.outer(chain.charges, x)
             a -= a.max(axis=0)
             f = np.exp(a)
             f /= f.sum(axis=0)

@@ -86,8 +86,9 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
         Broadcast against ``temperature``.
     truncation : str or TruncationScheme, optional
         Partition-function truncation (:mod:`sahaboltz.kernels.truncation`: "plain",
-        "lowered", "occupation", "ground", "below:n=3" ...); default "lowered" when
-        ``lowering`` else "plain".
+        "lowered", "occupation", "ground", "below:n=3" ...); default "occupation"
+        (Hummer & Mihalas occupation probabilities at the solved n_e), or "lowered" with
+        ``lowering``.  "plain" stays available for comparisons and warns where it misleads.
     lowering : bool
         Debye-Hueckel lowering of the ionization energies, self-consistent with n_e and the
         ion densities, used also as the partition-function cut-off ("lowered").

@@ -20,7 +20,8 @@ import numpy as np
 from sahaboltz.constants import K_B_EV
 from sahaboltz.data.species import Species
 from sahaboltz.errors import InputError
-from sahaboltz.kernels.partition import _model_for, _resolve, species_lowering
+from sahaboltz.kernels.partition import (_model_for, _resolve, default_truncation,
+                                         species_lowering)
 from sahaboltz.quantities import as_array, as_positive_array
 
 __all__ = ["select_levels", "level_populations", "level_fraction", "level_ratio",
@@ -120,7 +121,7 @@ def _selection(species, sel: Selection, argument: str) -> np.ndarray:
     return select_levels(species, index=sel, argument=argument)
 
 
-def level_populations(species, temperature: Any, *, truncation: str = "plain",
+def level_populations(species, temperature: Any, *, truncation: str | None = None,
                       completion: bool = False, n_e: Any = None, lowering_ev: Any = None,
                       n_neutral: Any = None) -> np.ndarray:
     """Fraction n_i / N of the stage in every tabulated level.
@@ -133,8 +134,8 @@ def level_populations(species, temperature: Any, *, truncation: str = "plain",
         to less than 1 (the rest sits in the completion levels).
     """
     sp = _resolve(species)
-    model = _model_for(species if not isinstance(species, Species) else sp, truncation,
-                       completion)
+    model = _model_for(species if not isinstance(species, Species) else sp,
+                       default_truncation(truncation, n_e, lowering_ev), completion)
     terms, _, ncomp = model.level_terms(sp.name, temperature, n_e,
                                         species_lowering(model, lowering_ev), n_neutral)
     u = terms.sum(axis=0)
@@ -147,7 +148,7 @@ def level_populations(species, temperature: Any, *, truncation: str = "plain",
 
 
 def level_fraction(species, temperature: Any, levels: Selection = None, *,
-                   truncation: str = "plain", completion: bool = False, n_e: Any = None,
+                   truncation: str | None = None, completion: bool = False, n_e: Any = None,
                    lowering_ev: Any = None, n_neutral: Any = None, **criteria) -> np.ndarray:
     """Fraction of the stage in a level or a set of levels.
 
@@ -167,7 +168,7 @@ def level_fraction(species, temperature: Any, levels: Selection = None, *,
 
 
 def level_ratio(species, temperature: Any, upper: Selection, lower: Selection, *,
-                truncation: str = "plain", completion: bool = False, n_e: Any = None,
+                truncation: str | None = None, completion: bool = False, n_e: Any = None,
                 lowering_ev: Any = None, n_neutral: Any = None) -> np.ndarray:
     """Population ratio n(upper) / n(lower) of two levels or two sets of levels.
 

@@ -196,8 +196,10 @@ class PartitionModel:
         self._is_comp = self._ncomp > 0
         self._bare = np.array([sp.is_bare_nucleus for sp in self.species])
         # level parts of the occupation probabilities (see occupation.stark_state_factors)
-        self._q_stark = stark_level_factor(self._neff, self._zrad)
-        self._r3 = (hydrogenic_radius(self._neff, self._zrad) + self.perturber_radius_cm) ** 3
+        # (zero where no weight applies, e.g. a bare nucleus: w = 1 there)
+        self._q_stark = np.where(self._wapply, stark_level_factor(self._neff, self._zrad), 0.0)
+        self._r3 = np.where(self._wapply, (hydrogenic_radius(self._neff, self._zrad)
+                                           + self.perturber_radius_cm) ** 3, 0.0)
 
     @property
     def n_species(self) -> int:
@@ -298,19 +300,19 @@ class PartitionModel:
         return u, u1 / u, u2 / u
 
     def evaluate_pairs(self, temperature: np.ndarray, n_e: np.ndarray, rows: np.ndarray,
-                       n_neutral: np.ndarray | None = None
-                       ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                       n_neutral: np.ndarray | None = None, *, want_temperature: bool = True
+                       ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
         """(U, d ln U / d ln T, d ln U / d ln n_e) of one species per state: the flat pairs
         (``temperature[p]``, ``n_e[p]``, species ``rows[p]``), unchecked float arrays.
 
         For solvers that need a different set of species at every state: the work is the
         levels of each pair's species alone (pruned as in :meth:`evaluate`), in one
-        vectorized pass over all pairs.  Schemes with a per-state lowering are not supported.
+        vectorized pass over all pairs.  ``want_temperature=False`` skips the temperature
+        derivative (None).  Schemes with a per-state lowering are not supported.
         """
         if "lowering_ev" in self.scheme.inputs:
             raise InputError("evaluate_pairs: a lowering per state is not supported here")
         t = np.asarray(temperature, dtype=float)
-        ne = np.asarray(n_e, dtype=float)
         rows = np.asarray(rows, dtype=np.intp)
         npair = rows.size
         beta = 1.0 / (K_B_EV * t)
@@ -321,27 +323,22 @@ class PartitionModel:
         start = self._starts[rows]
         count = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
         count = np.clip(count, 1, self._counts[rows])
-        pst = {"T": t, "ne": ne}
+        pst = {"T": t, "ne": np.asarray(n_e, dtype=float)}
         if n_neutral is not None:
             pst["nn"] = np.asarray(n_neutral, dtype=float)
-        u, u1, u2 = (np.zeros(npair) for _ in range(3))
-        # blocks of pairs with about _PAIR_BLOCK terms each
+        self.scheme.prepare_pairs(self, pst)
+        u, u2 = np.zeros(npair), np.zeros(npair)
+        u1 = np.zeros(npair) if want_temperature else None
+        # blocks of consecutive pairs with about _PAIR_BLOCK level terms each
         ends = np.cumsum(count)
-        bounds = np.searchsorted(ends, np.arange(_PAIR_BLOCK, ends[-1] + _PAIR_BLOCK,
-                                                 _PAIR_BLOCK), side="right")
-        p0 = 0
-        for p1 in np.unique(np.concatenate([bounds[bounds > 0], [npair]])):
-            p1 = int(max(p1, p0 + 1)) if p0 < npair else p0
-            if p1 <= p0:
-                continue
+        cuts = np.searchsorted(ends, np.arange(_PAIR_BLOCK, ends[-1], _PAIR_BLOCK))
+        edges = np.unique(np.concatenate([[0], cuts + 1, [npair]]))
+        for p0, p1 in zip(edges[:-1], edges[1:]):
             cnt = count[p0:p1]
             off = np.concatenate([[0], np.cumsum(cnt)[:-1]])
-            pair = np.repeat(np.arange(p0, p1), cnt)
-            lv = np.repeat(start[p0:p1] - off, cnt) + np.arange(int(cnt.sum()))
-            e = self._e[lv]
-            be = beta[pair] * e
-            arg = self._lng[lv] - be
-            w = self.scheme.pair_weights(self, lv, pair, pst, slopes=True)
+            lv = np.repeat(start[p0:p1] - off, cnt) + np.arange(int(ends[p1 - 1] - (ends[p0 - 1] if p0 else 0)))
+            arg = self._lng[lv] - np.repeat(beta[p0:p1], cnt) * self._e[lv]
+            w = self.scheme.pair_weights(self, lv, cnt, slice(p0, p1), pst, want_temperature)
             d_t = d_n = None
             if w is not None:
                 lw, d_t, d_n = w
@@ -350,10 +347,12 @@ class PartitionModel:
             u[p0:p1] = np.add.reduceat(terms, off)
             if d_n is not None:
                 u2[p0:p1] = np.add.reduceat(terms * d_n, off)
-                be += d_t
-            u1[p0:p1] = np.add.reduceat(terms * be, off)
-            p0 = p1
-        return u, u1 / u, u2 / u
+            if want_temperature:
+                energy = np.repeat(beta[p0:p1], cnt) * self._e[lv]
+                if d_t is not None:
+                    energy += d_t
+                u1[p0:p1] = np.add.reduceat(terms * energy, off)
+        return u, None if u1 is None else u1 / u, u2 / u
 
     def level_terms(self, species, temperature: Any, n_e: Any = None, lowering_ev: Any = None,
                     n_neutral: Any = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -513,6 +512,15 @@ def _cached_model(key, truncation: str, completion: bool) -> PartitionModel:
     return PartitionModel([_resolve(key)], truncation, completion)
 
 
+def default_truncation(truncation, n_e, lowering_ev):
+    """The scheme of a partition-function call: the given one, else the physically best for
+    what is known (occupation probabilities with an electron density, the cut at the lowered
+    limit with a given lowering, the plain sum at a temperature alone)."""
+    if truncation is not None:
+        return _truncation.get(truncation)
+    return _truncation.resolve(None, lowering=lowering_ev is not None, density=n_e is not None)
+
+
 def _model_for(species, truncation, completion: bool) -> PartitionModel:
     if isinstance(species, Species):
         return PartitionModel([species], truncation, completion)
@@ -531,7 +539,7 @@ def species_lowering(model: PartitionModel, lowering_ev: Any):
     return low[None, ...] if low.ndim else low
 
 
-def partition_function(species, temperature: Any, *, truncation: str = "plain",
+def partition_function(species, temperature: Any, *, truncation: str | None = None,
                        completion: bool = False, n_e: Any = None, lowering_ev: Any = None,
                        n_neutral: Any = None) -> np.ndarray:
     """Partition function U of one species.
@@ -542,7 +550,11 @@ def partition_function(species, temperature: Any, *, truncation: str = "plain",
         E.g. ``"Fe II"``, ``"Fe+"``, ``(26, 1)``; names are looked up in the default database.
     temperature : float, array_like or Quantity
         Temperature [K].
-    truncation, completion, n_e, lowering_ev, n_neutral
+    truncation : str, optional
+        A scheme of :mod:`sahaboltz.kernels.truncation`.  Default: occupation probabilities
+        when ``n_e`` is given, the lowered limit when only ``lowering_ev`` is, else the plain
+        sum of the tabulated levels.
+    completion, n_e, lowering_ev, n_neutral
         As for :class:`PartitionModel` and :meth:`PartitionModel.evaluate` (``lowering_ev``
         is a scalar or an array of the state shape here).
 
@@ -558,14 +570,14 @@ def partition_function(species, temperature: Any, *, truncation: str = "plain",
     InputError
         Bad temperature / density / options.
     """
-    model = _model_for(species, truncation, completion)
+    model = _model_for(species, default_truncation(truncation, n_e, lowering_ev), completion)
     return model.evaluate(temperature, n_e, species_lowering(model, lowering_ev), n_neutral)[0]
 
 
-def log_derivative(species, temperature: Any, *, truncation: str = "plain",
+def log_derivative(species, temperature: Any, *, truncation: str | None = None,
                    completion: bool = False, n_e: Any = None, lowering_ev: Any = None,
                    n_neutral: Any = None) -> np.ndarray:
     """d ln U / d ln T of one species (arguments as :func:`partition_function`)."""
-    model = _model_for(species, truncation, completion)
+    model = _model_for(species, default_truncation(truncation, n_e, lowering_ev), completion)
     return model.log_derivative(temperature, n_e, species_lowering(model, lowering_ev),
                                 n_neutral)[0]

@@ -133,7 +133,7 @@ def chain_fractions(log_rel: np.ndarray) -> np.ndarray:
 
 
 def saha_chain(element: Any, temperature: Any, electron_density: Any = None,
-               electron_pressure: Any = None, *, truncation: str = "plain",
+               electron_pressure: Any = None, *, truncation: str | None = None,
                lowering_ev: Any = None, completion: bool = False,
                database=None, missing_levels: str = "unit") -> np.ndarray:
     """Stage fractions of one element at given (T, n_e) or (T, P_e): the Saha chain.
@@ -149,8 +149,9 @@ def saha_chain(element: Any, temperature: Any, electron_density: Any = None,
         n_e [cm^-3].  Give exactly one of ``electron_density`` and ``electron_pressure``.
     electron_pressure : float, array_like or Quantity, optional
         P_e = n_e k T [dyn cm^-2].
-    truncation : str
-        Partition-function truncation, see :class:`sahaboltz.kernels.partition.PartitionModel`.
+    truncation : str, optional
+        Partition-function truncation (:mod:`sahaboltz.kernels.truncation`); default
+        occupation probabilities at the given n_e (the lowered limit with ``lowering_ev``).
     lowering_ev : float or array_like, optional
         Lowering of every ionization energy of this element [eV], broadcastable to
         (n_stages,) + state shape (e.g. from Debye-Hueckel).  Default: none.
@@ -189,14 +190,15 @@ def saha_chain(element: Any, temperature: Any, electron_density: Any = None,
     if missing_levels == "error" and not has.all():
         raise NoDataError(f"{stages[int(np.argmin(has))].name} has no level list; pass "
                           "missing_levels='unit' to take U = 1 for it")
-    model = PartitionModel([s for s, h in zip(stages, has) if h], truncation=truncation,
+    scheme = (_truncation.get(truncation) if truncation is not None
+              else _truncation.resolve(None, lowering=lowering_ev is not None))
+    model = PartitionModel([s for s, h in zip(stages, has) if h], truncation=scheme,
                            completion=completion)
     if lowering_ev is None:
         low = np.zeros((len(stages),) + t.shape)
     else:
         low = np.broadcast_to(as_array(lowering_ev, "eV", "lowering_ev", allow_negative=False),
                               (len(stages),) + t.shape)
-    scheme = _truncation.get(truncation)
     kw = {}
     if scheme.density_dependent:
         kw["n_e"] = ne

@@ -107,11 +107,14 @@ class TruncationScheme:
         """Levels that can matter for the states ``sl`` beyond the Boltzmann pruning, or None."""
         return None
 
-    def pair_weights(self, model, lv: np.ndarray, pair: np.ndarray, pst: dict,
-                     slopes: bool = False):
-        """For :meth:`PartitionModel.evaluate_pairs`: ln w of the flat level terms ``lv``, each
-        belonging to the state ``pair`` of the per-pair state values ``pst`` (T, ne, ...);
-        with ``slopes`` also (d ln w / d ln T, d ln w / d ln n_e).  None: all w = 1."""
+    def prepare_pairs(self, model, pst: dict) -> None:
+        """For :meth:`PartitionModel.evaluate_pairs`: per-pair state values into ``pst``."""
+
+    def pair_weights(self, model, lv: np.ndarray, counts: np.ndarray, pairs: slice, pst: dict,
+                     want_temperature: bool = True):
+        """For :meth:`PartitionModel.evaluate_pairs`: (ln w, d ln w / d ln T or None,
+        d ln w / d ln n_e) of the flat level terms ``lv``, ``counts[j]`` of them for each pair
+        ``pairs.start + j``; None when every w = 1."""
         return None
 
 
@@ -286,25 +289,24 @@ class OccupationProbability(TruncationScheme):
             full[k][:, wap] = out[k]
         return tuple(full)
 
-    def pair_weights(self, model, lv, pair, pst, slopes=False):
+    def prepare_pairs(self, model, pst):
         from sahaboltz.kernels.occupation import stark_state_factors, stark_state_slopes
-        if "stark" not in pst:
-            pst["stark"] = stark_state_factors(pst["T"], pst["ne"])
-            pst["stark_slopes"] = stark_state_slopes(pst["T"], pst["ne"])
-        p_, a_, b_ = (v[pair] for v in pst["stark"])
-        sv = p_ * model._q_stark[lv]
-        sv = np.where(model._wapply[lv], sv, 0.0)
+        pst["stark"] = stark_state_factors(pst["T"], pst["ne"])
+        pst["stark_slopes"] = stark_state_slopes(pst["T"], pst["ne"])
+
+    def pair_weights(self, model, lv, counts, pairs, pst, want_temperature=True):
+        p_, a_, b_ = (np.repeat(v[pairs], counts) for v in pst["stark"])
+        aa, ab = (np.repeat(v[pairs], counts) for v in pst["stark_slopes"])
+        sv = p_ * model._q_stark[lv]          # zero for bare nuclei (their Q is 0 there)
         f = sv * (a_ * sv + b_)
-        if slopes:
-            aa, ab = (v[pair] for v in pst["stark_slopes"])
-            da = sv * (sv * aa + ab)
-            inv = -1.0 / (1.0 + f)
-            d_t = (-0.5 * da) * inv
-            d_n = (sv * (2.0 * sv * a_ + b_) + da / 6.0) * inv
+        da = sv * (sv * aa + ab)
+        inv = -1.0 / (1.0 + f)
+        d_t = (-0.5 * da) * inv if want_temperature else None
+        d_n = (sv * (2.0 * sv * a_ + b_) + da / 6.0) * inv
         lw = -np.log1p(f)
         if "nn" in pst:
-            lw -= (4.0 * np.pi / 3.0) * pst["nn"][pair] * model._r3[lv]
-        return (lw, d_t, d_n) if slopes else (lw,)
+            lw -= (4.0 * np.pi / 3.0) * np.repeat(pst["nn"][pairs], counts) * model._r3[lv]
+        return lw, d_t, d_n
 
     @staticmethod
     def _slopes(st, sl, sv, a_, b_, f):
@@ -400,16 +402,20 @@ def label(truncation: Any) -> str:
     return get(truncation).label
 
 
-def resolve(truncation: Any, lowering: bool) -> TruncationScheme:
-    """The scheme the solver uses for the options ``truncation`` (None: the default) and
-    ``lowering`` (Debye-Hueckel lowering of the ionization energies).
+def resolve(truncation: Any, lowering: bool = False, density: bool = True) -> TruncationScheme:
+    """The scheme to use for the options ``truncation`` (None: the default), ``lowering``
+    (Debye-Hueckel lowering of the ionization energies) and whether a density is known.
 
-    With lowering the partition functions must be cut consistently with the lowered limit, so
-    the default is "lowered" there; a scheme that counts levels above the lowered limit
-    ("plain") is refused with lowering, and "lowered" needs it.
+    The default is the physically best choice: occupation probabilities wherever the
+    electron density is known (every solve), the plain sum where it is not (a partition
+    function asked for at a temperature alone), and with lowering the cut at the lowered limit
+    (consistent with the lowered ionization energies).  A scheme that counts levels above the
+    lowered limit ("plain") is refused with lowering, and "lowered" needs it.
     """
     if truncation is None:
-        return REGISTRY["lowered"] if lowering else REGISTRY["plain"]
+        if lowering:
+            return REGISTRY["lowered"]
+        return REGISTRY["occupation"] if density else REGISTRY["plain"]
     scheme = get(truncation)
     if scheme.lowering == "required" and not lowering:
         raise InputError(f"truncation='{scheme.key}' cuts the partition functions at the "
