@@ -34,3 +34,17 @@ class ConvergenceError(SahaboltzError, RuntimeError):
 
 class TableError(SahaboltzError):
     """A stored table is damaged, incompatible, or cannot be written."""
+
+
+class SahaboltzWarning(UserWarning):
+    """Root of the warnings sahaboltz issues about its results."""
+
+
+class ValidityWarning(SahaboltzWarning):
+    """Some states lie where the model's assumptions fail (degenerate electrons, strong
+    coupling); the message says how many and which limit."""
+
+
+class TruncationWarning(SahaboltzWarning):
+    """An explicitly chosen partition-function truncation misleads at some states (the plain
+    sum far above the occupation-weighted one); the message names the species."""

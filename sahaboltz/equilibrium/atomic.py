@@ -27,10 +27,9 @@ from __future__ import annotations
 import numpy as np
 
 from sahaboltz.equilibrium.closures import Closure
-from sahaboltz.equilibrium.failures import convergence_failure
 from sahaboltz.equilibrium.network import AtomicNetwork
-from sahaboltz.equilibrium.state import EquilibriumState, SolveReport
-from sahaboltz.errors import ConvergenceError
+from sahaboltz.equilibrium.state import (CONVERGED, NOT_CONVERGED, STRONGLY_COUPLED,
+                                         UNREACHABLE, EquilibriumState, SolveReport)
 from sahaboltz.kernels.plasma import _debye_length, _lowering_ev
 
 __all__ = ["solve_atomic", "DEFAULT_TOLERANCE"]
@@ -56,17 +55,18 @@ def solve_atomic(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closure: 
     """Solve the atoms-only balance at the states (``t``, ``v``) (checked, broadcast arrays).
 
     ``closure`` says what ``v`` is; ``network`` holds the composition and the truncation.
-    Raises ConvergenceError naming the states that did not converge.
+    States that cannot be solved get a status and a reason in the result (and NaN values);
+    the front decides whether that is an error.
     """
     shape = t.shape
     tf, vf = t.ravel().copy(), v.ravel().copy()
-    x, nuc, lam, report = _solve_flat(network, tf, vf, closure, lowering, tolerance,
-                                      int(max_passes), shape)
+    x, nuc, lam, report, status, reason = _solve_flat(network, tf, vf, closure, lowering,
+                                                      tolerance, int(max_passes), shape)
     return EquilibriumState(network=network, temperature=t.copy(), log_ne=x.reshape(shape),
                             nuclei_density=nuc.reshape(shape), closure=closure.name,
                             closure_value=v.copy(), lowering=lowering,
                             debye_length=None if lam is None else lam.reshape(shape),
-                            report=report)
+                            report=report, status=status, reason=reason)
 
 
 def _fixed_densities(network: AtomicNetwork, closure: Closure, t, v):
@@ -137,11 +137,71 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
         x_out[idx], nuc_out[idx], passes[idx], resid[idx] = sub.x, sub.nuc, sub.passes, sub.resid
         failed[idx] = ~sub.done
     bad = failed | ~np.isfinite(x_out) | ~np.isfinite(nuc_out) | ~(nuc_out > 0)
+    status = np.zeros(n, dtype=np.int8)
+    reason = np.full(n, "", dtype=object)
     if bad.any():
-        raise _failure(bad, t, v, closure, resid, shape, network.truncation)
+        _classify_failures(network, closure, t, v, resid, passes, bad, status, reason)
     if lowering:
-        _check_lowering(network, lam_out, t, v, closure, shape)
-    return x_out, nuc_out, lam_out, SolveReport(passes.reshape(shape), resid.reshape(shape))
+        _check_lowering(network, lam_out, ~bad, status, reason)
+    failed = status != CONVERGED
+    x_out[failed] = nuc_out[failed] = np.nan
+    if lam_out is not None:
+        lam_out[failed] = np.nan
+    return (x_out, nuc_out, lam_out, SolveReport(passes.reshape(shape), resid.reshape(shape)),
+            status, reason)
+
+
+def _classify_failures(network, closure, t, v, resid, passes, bad, status, reason) -> None:
+    """Status and reason of the states ``bad``: a given electron pressure that the gas cannot
+    supply (with the largest it can there), or no convergence."""
+    idx = np.flatnonzero(bad)
+    if closure.fixes == "electrons":
+        pe_max = _largest_electron_pressure(network, t[idx])
+        # with n_e given, a failure means the charges cannot balance it: unreachable
+        status[idx] = UNREACHABLE
+        for i, pm in zip(idx, pe_max):
+            reason[i] = (f"P_e = {v[i]:.6g} dyn cm-2 cannot be reached at T = {t[i]:.6g} K: "
+                         + (f"at most {pm:.4g} dyn cm-2 there (above it negative ions "
+                            "outweigh the positive ones)" if np.isfinite(pm)
+                            else "too few electron donors"))
+        return
+    status[idx] = NOT_CONVERGED
+    hint = ("; the 'lowered' cut makes U jump whenever a level crosses the limit, so the "
+            "balance can lack an exact root: 'occupation' is continuous"
+            if network.scheme.key == "lowered" else "; check that the state is physical")
+    for i in idx:
+        reason[i] = (f"no convergence in {int(passes[i])} passes (relative charge residual "
+                     f"{resid[i]:.3g}){hint}")
+
+
+def _largest_electron_pressure(network, t) -> np.ndarray:
+    """The largest P_e [dyn cm^-2] that the gas can supply at each T: where the mean charge
+    per nucleus, falling as n_e rises (more H-, less ionization), reaches zero; inf when it
+    stays positive (no negative ions)."""
+    from sahaboltz.constants import K_B
+
+    ut, inv = np.unique(t, return_inverse=True)
+    tables = [network.log_c(c, ut) for c in network.chains]
+
+    def zbar(x):
+        total = np.zeros(x.size)
+        for c, tab in zip(network.chains, tables):
+            a = tab[:, inv] - np.multiply.outer(c.charges, x)
+            a -= a.max(axis=0)
+            f = np.exp(a)
+            total += c.fraction * (c.charges @ f) / f.sum(axis=0)
+        return total
+
+    lo = np.full(t.size, -100.0)
+    hi = np.full(t.size, 150.0)
+    if (zbar(hi) > 0).all():
+        return np.full(t.size, np.inf)
+    for _ in range(100):
+        mid = 0.5 * (lo + hi)
+        pos = zbar(mid) > 0
+        lo = np.where(pos, mid, lo)
+        hi = np.where(pos, hi, mid)
+    return np.where(zbar(hi) > 0, np.inf, np.exp(lo) * K_B * t)
 
 
 def _solve_density_block(network, t, v, closure, fixed_n, ntot, tables, ut, tol, max_passes):
@@ -223,6 +283,10 @@ class _DensityMoments:
             d = np.zeros(a.shape)
             a.ravel()[where] += lu[first:first + where.size]
             d.ravel()[where] = dlu[first:first + where.size]
+            neg = self.net.negative_ion_log_u(c, t, ne)
+            if neg is not None:       # a negative ion (H-) sits in row 0 of a whole chain
+                a[0] += neg[0]
+                d[0] = neg[1]
             q = c.q_min + rows
             a -= q * x[None, :]
             a -= a.max(axis=0)
@@ -300,30 +364,17 @@ def _solve_nonideal_block(network, t, v, closure, fixed_n, ntot, lowering, tol, 
     return x, nuc, passes, resid, done, lam_out
 
 
-def _failure(bad, t, v, closure, resid, shape, truncation="plain") -> ConvergenceError:
-    hint = ("a given electron pressure may be unreachable at these temperatures (too few "
-            "electron donors)" if closure.fixes == "electrons" else
-            "check that the states are physical; try a looser tolerance")
-    if truncation == "lowered":
-        hint += ("; with truncation='lowered' the partition functions jump whenever a level "
-                 "crosses the lowered limit, so the balance can lack an exact root: "
-                 "truncation='occupation' is continuous")
-    return convergence_failure(bad, t, v, closure, resid, shape,
-                               "the ionization balance", hint)
-
-
-def _check_lowering(network, lam, t, v, closure, shape):
-    # the lowering of each species must stay below its ionization energy
+def _check_lowering(network, lam, ok, status, reason) -> None:
+    """Refuse the states (``ok`` so far) where the Debye-Hueckel lowering of some species
+    reaches its ionization energy: the plasma is too strongly coupled for this model."""
     for c in network.chains:
         ratio = _lowering_ev(c.charges[:-1, None], lam[None, :]) / c.chi_ev[:, None]
-        over = (ratio >= 1.0).any(axis=0)
-        if over.any():
-            i = int(np.flatnonzero(over)[0])
-            idx = tuple(int(j) for j in np.unravel_index(i, shape))
-            raise ConvergenceError(
-                f"state {idx} (T = {t[i]:.6g} K, {closure.name} = {v[i]:.6g}): the Debye-Hueckel "
-                f"lowering reaches the ionization energy of {c.symbol}; the plasma is too "
-                "strongly coupled for this model")
+        over = ok & (ratio >= 1.0).any(axis=0) & (status == CONVERGED)
+        for i in np.flatnonzero(over):
+            status[i] = STRONGLY_COUPLED
+            reason[i] = (f"the Debye-Hueckel lowering reaches the ionization energy of "
+                         f"{c.symbol}: the plasma is too strongly coupled for this model "
+                         f"(Debye length {lam[i]:.3g} cm)")
 
 
 class _ChunkSolver:

@@ -1,30 +1,59 @@
-"""How the engines report states that did not converge: one error naming every such state."""
+"""How failed states are reported: per state in the result, and as one error naming all.
+
+The engines never raise for a state they cannot solve; they give it a status and a reason
+(:class:`~sahaboltz.equilibrium.state.EquilibriumState` ``status``, ``reason``) and NaN
+values.  :func:`raise_or_keep` applies the caller's choice: ``errors="raise"`` (default) raises
+one ConvergenceError naming every failed state and carrying the partial result,
+``errors="mask"`` returns the state as it is.
+"""
 
 from __future__ import annotations
 
 import numpy as np
 
-from sahaboltz.errors import ConvergenceError
+from sahaboltz.equilibrium.state import CONVERGED, STATUS_NAMES
+from sahaboltz.errors import ConvergenceError, InputError
 
-#: states listed in full in the message (the rest are counted)
+#: the choices of ``errors=``
+ERROR_MODES = ("raise", "mask")
+#: states listed in full in the message (the rest are counted by status)
 _LISTED = 10
 
 
-def convergence_failure(bad: np.ndarray, t: np.ndarray, v: np.ndarray, closure, resid: np.ndarray,
-                        shape: tuple, what: str, hint: str) -> ConvergenceError:
-    """A ConvergenceError for the flat states ``bad`` of an array of ``shape``.
+def check_mode(errors: str) -> str:
+    if errors not in ERROR_MODES:
+        raise InputError(f"errors must be one of {', '.join(ERROR_MODES)}, got {errors!r}")
+    return errors
 
-    The message lists the first states with T, the closure value and the residual; the error
-    carries every failed index (in the state shape) as ``.indices``.
-    """
-    where = np.flatnonzero(bad)
+
+def raise_or_keep(state, errors: str, what: str = "the ionization balance"):
+    """Return ``state``, or raise for its failed states when ``errors == "raise"``."""
+    bad = state.status != CONVERGED
+    if errors == "mask" or not bad.any():
+        return state
+    raise convergence_error(state, what)
+
+
+def convergence_error(state, what: str) -> ConvergenceError:
+    """One error for all failed states: the first ones listed with T, the closure value and
+    why, the rest counted; ``.indices`` (every failed index), ``.state`` (the partial
+    result) and ``.status`` go with it."""
+    flat = state.status.ravel()
+    where = np.flatnonzero(flat != CONVERGED)
+    t = state.temperature.ravel()
+    v = np.broadcast_to(state.closure_value, state.shape).ravel()
+    shape = state.shape
     lines = []
     for i in where[:_LISTED]:
         idx = tuple(int(j) for j in np.unravel_index(i, shape)) if shape else ()
-        lines.append(f"  state {idx}: T = {t[i]:.6g} K, {closure.name} = {v[i]:.6g} "
-                     f"{closure.unit} (residual {resid[i]:.3g})")
+        lines.append(f"  state {idx}: T = {t[i]:.6g} K, {state.closure} = {v[i]:.6g} "
+                     f"({STATUS_NAMES[flat[i]]}: {state.reason.ravel()[i]})")
+    counts = ", ".join(f"{int((flat == k).sum())} {name}" for k, name in enumerate(STATUS_NAMES)
+                       if k != CONVERGED and (flat == k).any())
     more = f"\n  ... and {where.size - _LISTED} more" if where.size > _LISTED else ""
-    err = ConvergenceError(f"{what} did not converge at {where.size} of {bad.size} states:\n"
-                           + "\n".join(lines) + more + f"\n({hint})")
+    err = ConvergenceError(f"{what} did not converge at {where.size} of {flat.size} states "
+                           f"({counts}):\n" + "\n".join(lines) + more +
+                           "\n(errors='mask' returns the other states, with a status per state)")
     err.indices = [tuple(int(j) for j in np.unravel_index(i, shape)) for i in where]
+    err.state = state
     return err

@@ -49,10 +49,10 @@ from sahaboltz.data.elements import SYMBOLS
 from sahaboltz.data.molecules import Molecule, MoleculeDatabase, default_molecule_database
 from sahaboltz.equilibrium.atomic import solve_atomic
 from sahaboltz.equilibrium.closures import Closure
-from sahaboltz.equilibrium.failures import convergence_failure
 from sahaboltz.equilibrium.network import AtomicNetwork
-from sahaboltz.equilibrium.state import EquilibriumState, SolveReport
-from sahaboltz.errors import ConvergenceError, InputError, UnknownSpeciesError
+from sahaboltz.equilibrium.state import (CONVERGED, NOT_CONVERGED, EquilibriumState,
+                                         SolveReport)
+from sahaboltz.errors import InputError, UnknownSpeciesError
 from sahaboltz.kernels.molecular import EquilibriumConstants
 
 #: the short default set: the diatomics that take a noticeable share of an abundant element in
@@ -159,8 +159,8 @@ def solve_molecular(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closur
     ------
     InputError
         Bad arguments; temperatures below :data:`T_MIN`; a molecule the mixture cannot form.
-    ConvergenceError
-        Listing the states that did not converge.
+    States that cannot be solved carry a status and a reason in the result (and NaN
+    values); the front raises for them unless ``errors="mask"``.
     """
     if lowering or "lowering_ev" in network.scheme.inputs:
         raise InputError("molecules are solved without Debye-Hueckel lowering (at the densities "
@@ -178,38 +178,64 @@ def solve_molecular(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closur
     # by starving H- of H atoms); those states start from N = e^15 n_e instead.
     shape = t.shape
     tf, vf = t.ravel().copy(), v.ravel().copy()
-    start_tol = max(tolerance, 1e-14)
-    try:
-        atoms = solve_atomic(network, tf, vf, closure, tolerance=start_tol,
-                             max_passes=_START_PASSES)
-        x0, w0 = atoms.log_ne.copy(), np.log(atoms.nuclei_density)
-    except ConvergenceError as exc:
-        bad = np.zeros(tf.size, dtype=bool)
-        bad[[i[0] for i in exc.indices]] = True
-        if closure.fixes != "electrons":
-            raise _failure(bad, tf, vf, closure, np.full(tf.size, np.inf), shape,
-                           what="the atoms-only starting solution") from None
-        x0 = np.log(closure.electrons(tf, vf))
-        w0 = x0 + 15.0
-        if (~bad).any():
-            good = solve_atomic(network, tf[~bad], vf[~bad], closure, tolerance=start_tol,
-                                max_passes=_START_PASSES)
-            w0[~bad] = np.log(good.nuclei_density)
+    n = tf.size
+    status = np.zeros(n, dtype=np.int8)
+    reason = np.full(n, "", dtype=object)
+    atoms = solve_atomic(network, tf, vf, closure, tolerance=max(tolerance, 1e-14),
+                         max_passes=_START_PASSES)
+    x0, w0 = atoms.log_ne.copy(), np.log(atoms.nuclei_density)
+    start_bad = ~atoms.converged
+    if start_bad.any():
+        if closure.fixes == "electrons":
+            x0[start_bad] = np.log(closure.electrons(tf, vf))[start_bad]
+            w0[start_bad] = x0[start_bad] + 15.0
+        else:
+            status[start_bad] = NOT_CONVERGED
+            for i in np.flatnonzero(start_bad):
+                reason[i] = f"the atoms-only starting solution failed: {atoms.reason[i]}"
+    sel = np.flatnonzero(status == CONVERGED)
     system = MolecularSystem(network, mols)
-    sol = system.solve(tf, vf, closure, x0, w0, tolerance, max_passes, shape)
-    # partition functions that depend on n_e are held at the start's n_e in each solve:
-    # repeat from the solution until it reproduces itself (the dependence is weak here)
-    for _ in range(_MAX_REFREEZE if network.scheme.density_dependent else 0):
-        previous = sol["x"]
-        sol = system.solve(tf, vf, closure, previous, sol["w"], tolerance, max_passes, shape,
-                           passes=sol["report"].passes.ravel())
-        if np.abs(sol["x"] - previous).max() <= tolerance:
-            break
+    out = {"y": np.full((len(system.mol_chains), n), np.nan), "x": np.full(n, np.nan),
+           "w": np.full(n, np.nan), "passes": np.zeros(n, dtype=int),
+           "resid": np.full(n, np.inf)}
+    if sel.size:
+        ts, vs = tf[sel], vf[sel]
+        sol = system.solve(ts, vs, closure, x0[sel], w0[sel], tolerance, max_passes)
+        # partition functions that depend on n_e are held at the start's n_e in each solve:
+        # repeat from the solution until it reproduces itself (the dependence is weak here)
+        for _ in range(_MAX_REFREEZE if network.scheme.density_dependent else 0):
+            # again for the states solved so far, within what is left of their passes
+            go = np.flatnonzero(sol["ok"] & (sol["passes"] < max_passes))
+            if not go.size:
+                break
+            previous = sol["x"][go]
+            left = max(1, max_passes - int(sol["passes"][go].max()))
+            again = system.solve(ts[go], vs[go], closure, previous, sol["w"][go], tolerance,
+                                 left, passes=sol["passes"][go])
+            for key in ("x", "w", "passes", "resid", "ok"):
+                sol[key][go] = again[key]
+            sol["y"][:, go] = again["y"]
+            if np.nanmax(np.abs(again["x"] - previous), initial=0.0) <= tolerance:
+                break
+        for key in ("x", "w", "passes", "resid"):
+            out[key][sel] = sol[key]
+        out["y"][:, sel] = sol["y"]
+        bad = sel[~sol["ok"]]
+        status[bad] = NOT_CONVERGED
+        for i in bad:
+            reason[i] = (f"no convergence in {int(out['passes'][i])} passes (largest log "
+                         f"residual {out['resid'][i]:.3g}); try molecules='default' or fewer "
+                         "molecules, or a looser tolerance")
+    failed = status != CONVERGED
+    out["x"][failed] = out["w"][failed] = np.nan
+    out["y"][:, failed] = np.nan
     return MolecularEquilibriumState(
-        network=network, temperature=t.copy(), log_ne=sol["x"].reshape(shape),
-        nuclei_density=np.exp(sol["w"]).reshape(shape), closure=closure.name,
-        closure_value=v.copy(), lowering=False, debye_length=None, report=sol["report"],
-        system=system, log_neutral=sol["y"].reshape((-1,) + shape), skipped_molecules=skipped)
+        network=network, temperature=t.copy(), log_ne=out["x"].reshape(shape),
+        nuclei_density=np.exp(out["w"]).reshape(shape), closure=closure.name,
+        closure_value=v.copy(), lowering=False, debye_length=None,
+        report=SolveReport(out["passes"].reshape(shape), out["resid"].reshape(shape)),
+        status=status, reason=reason,
+        system=system, log_neutral=out["y"].reshape((-1,) + shape), skipped_molecules=skipped)
 
 
 class MolecularSystem:
@@ -364,7 +390,9 @@ class MolecularSystem:
         return r, jac
 
     # -- Newton ------------------------------------------------------------------------------
-    def solve(self, t, v, closure, x0, w0, tol, max_passes, shape, passes=None) -> dict:
+    def solve(self, t, v, closure, x0, w0, tol, max_passes, passes=None) -> dict:
+        """Solve the flat states; ``ok`` says which converged (the others keep their last
+        iterate and residual)."""
         n = t.size
         out_y = np.empty((len(self.mol_chains), n))
         out_x, out_w = x0.copy(), w0.copy()
@@ -379,11 +407,8 @@ class MolecularSystem:
             out_y[:, idx], out_x[idx], out_w[idx], resid[idx] = y, x, w, rr
             passes[idx] += p
             ok[idx] = np.isfinite(r)
-        bad = ~ok | ~np.isfinite(out_x) | ~np.isfinite(out_w)
-        if bad.any():
-            raise _failure(bad, t, v, closure, resid, shape)
-        return {"y": out_y, "x": out_x, "w": out_w,
-                "report": SolveReport(passes.reshape(shape), resid.reshape(shape))}
+        ok &= np.isfinite(out_x) & np.isfinite(out_w)
+        return {"y": out_y, "x": out_x, "w": out_w, "passes": passes, "resid": resid, "ok": ok}
 
     def _fixed(self, t, v, closure):
         """(fixed ln N or None, fixed free-particle density or None) for the closure's kind."""
@@ -629,13 +654,6 @@ def _solve_batched(jac: np.ndarray, rhs: np.ndarray) -> np.ndarray:
         return out
 
 
-def _failure(bad, t, v, closure, resid, shape,
-             what: str = "the molecular equilibrium") -> ConvergenceError:
-    return convergence_failure(bad, t, v, closure, resid, shape, what,
-                               "try molecules='default' or fewer molecules, or a looser "
-                               "tolerance")
-
-
 # ------------------------------------------------------------------------------ the result
 class MolecularEquilibriumState(EquilibriumState):
     """An equilibrium state with molecules.
@@ -655,18 +673,23 @@ class MolecularEquilibriumState(EquilibriumState):
         self.system = system
         self.log_neutral = log_neutral
         self.skipped_molecules = list(skipped_molecules)
-        t = self.temperature.ravel()
-        x = self.log_ne.ravel()
-        tab = system.tables(t, others=False, n_e=np.exp(x))
-        y = log_neutral.reshape(log_neutral.shape[0], -1)
-        ln_m = tab["s"] + system.nu @ y - np.multiply.outer(system.q_mol, x)
-        self._n_mol = np.exp(ln_m).reshape((len(system.molecules),) + self.shape)
-        n_nuc = self.nuclei_density.ravel()
-        ln_at = _packed_moments(*tab["mol"][:2], x)[0]
-        self._atomic_share = {}
-        for k, c in enumerate(system.mol_chains):
-            share = np.exp(y[k] + ln_at[k]) / (n_nuc * c.fraction)
-            self._atomic_share[c.k] = share.reshape(self.shape)
+        ok = self.converged.ravel()
+        n_mol = np.full((len(system.molecules), ok.size), np.nan)
+        shares = np.full((len(system.mol_chains), ok.size), np.nan)
+        if ok.any():        # (failed states stay NaN)
+            t = self.temperature.ravel()[ok]
+            x = self.log_ne.ravel()[ok]
+            tab = system.tables(t, others=False, n_e=np.exp(x))
+            y = log_neutral.reshape(log_neutral.shape[0], -1)[:, ok]
+            ln_m = tab["s"] + system.nu @ y - np.multiply.outer(system.q_mol, x)
+            n_mol[:, ok] = np.exp(ln_m)
+            n_nuc = self.nuclei_density.ravel()[ok]
+            ln_at = _packed_moments(*tab["mol"][:2], x)[0]
+            for k, c in enumerate(system.mol_chains):
+                shares[k, ok] = np.exp(y[k] + ln_at[k]) / (n_nuc * c.fraction)
+        self._n_mol = n_mol.reshape((len(system.molecules),) + self.shape)
+        self._atomic_share = {c.k: shares[k].reshape(self.shape)
+                              for k, c in enumerate(system.mol_chains)}
 
     # -- molecules ---------------------------------------------------------------------------
     @property

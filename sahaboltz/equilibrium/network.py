@@ -199,6 +199,14 @@ class AtomicNetwork:
         np.cumsum(steps, axis=0, out=out[1:])
         return out
 
+    def negative_ion_log_u(self, chain: Chain, t: np.ndarray, n_e: np.ndarray | None
+                           ) -> tuple[np.ndarray, np.ndarray] | None:
+        """(ln U, d ln U / d ln n_e) of the chain's negative ion (U = 1 times the scheme's
+        weight of its one bound state), or None (no negative ion, or no density weighting)."""
+        if chain.charges[0] >= 0 or n_e is None:
+            return None
+        return self.scheme.bound_state_weight(float(chain.chi_ev[0]), t, n_e)
+
     def stage_log_u(self, chain: Chain, t: np.ndarray, n_e: np.ndarray, rows: slice
                     ) -> tuple[np.ndarray, np.ndarray]:
         """(ln U, d ln U / d ln n_e) of the stages ``rows`` of a chain at the flat states (t, n_e)
@@ -214,6 +222,33 @@ class AtomicNetwork:
             out[has] = np.log(u[mrows[has] - r0])
             der[has] = dn[mrows[has] - r0]
         return out, der
+
+    def log_u(self, chain: Chain, t: np.ndarray, n_e: np.ndarray | None = None,
+              debye_length: np.ndarray | None = None) -> np.ndarray:
+        """ln U of every stage of a chain at the flat states (t, n_e), as the solver uses them:
+        with the truncation scheme's n_e (default: its low-density limit) and, for schemes cut
+        at the lowered limit, the Debye-Hueckel lowering of ``debye_length``.  Stages without
+        levels and H- have U = 1.  Shape (chain.n, n)."""
+        n = t.shape[0]
+        ln_u = np.zeros((chain.n, n))
+        neg = self.negative_ion_log_u(chain, t, n_e)
+        if neg is not None:
+            ln_u[0] = neg[0]
+        if chain.model is None:
+            return ln_u
+        has = chain.model_rows >= 0
+        kw = {}
+        if "lowering_ev" in self.scheme.inputs:
+            low = (np.zeros((chain.model.n_species, n)) if debye_length is None else
+                   _lowering_ev(chain.charges[has][:, None], debye_length[None, :]))
+            # keep the ground level in the partition sum while a trial n_e is far too high;
+            # the converged state is checked against chi separately
+            chi_m = chain.model.ionization_energy_ev[:, None]
+            kw["lowering_ev"] = np.minimum(low, np.where(np.isfinite(chi_m), 0.999 * chi_m, 0.0))
+        elif self.scheme.density_dependent:
+            kw["n_e"] = np.full(n, self.LIMIT_DENSITY) if n_e is None else n_e
+        ln_u[has] = np.log(chain.model.evaluate(t, **kw))
+        return ln_u
 
     def log_c(self, chain: Chain, t: np.ndarray, n_e: np.ndarray | None = None,
               debye_length: np.ndarray | None = None) -> np.ndarray:
@@ -235,25 +270,11 @@ class AtomicNetwork:
         -------
         ndarray, shape (chain.n, n)
         """
-        n = t.shape[0]
-        ln_u = np.zeros((chain.n, n))
+        ln_u = self.log_u(chain, t, n_e, debye_length)
         # lowering of each stage's ionization (H-, q = -1, is not lowered)
-        lowering = None if debye_length is None else _lowering_ev(chain.charges[:, None],
+        lowering = None if debye_length is None else _lowering_ev(chain.charges[:-1, None],
                                                                    debye_length[None, :])
-        if chain.model is not None:
-            has = chain.model_rows >= 0
-            kw = {}
-            if "lowering_ev" in self.scheme.inputs:
-                low = np.zeros((chain.model.n_species, n)) if lowering is None else lowering[has]
-                # keep the ground level in the partition sum while a trial n_e is far too high;
-                # the converged state is checked against chi separately
-                chi_m = chain.model.ionization_energy_ev[:, None]
-                kw["lowering_ev"] = np.minimum(low, np.where(np.isfinite(chi_m), 0.999 * chi_m, 0.0))
-            elif self.scheme.density_dependent:
-                kw["n_e"] = np.full(n, self.LIMIT_DENSITY) if n_e is None else n_e
-            ln_u[has] = np.log(chain.model.evaluate(t, **kw))
-        steps = _log_saha_steps(t, chain.chi_ev, ln_u,
-                                None if lowering is None else lowering[:-1])
-        out = np.zeros((chain.n, n))
+        steps = _log_saha_steps(t, chain.chi_ev, ln_u, lowering)
+        out = np.zeros((chain.n, t.shape[0]))
         np.cumsum(steps, axis=0, out=out[1:])
         return out

@@ -18,8 +18,10 @@ from sahaboltz.data.composition import Composition
 from sahaboltz.equilibrium import closures as _closures
 from sahaboltz.equilibrium.atomic import DEFAULT_TOLERANCE, solve_atomic
 from sahaboltz.equilibrium.closures import Closure
+from sahaboltz.equilibrium.failures import check_mode, raise_or_keep
 from sahaboltz.equilibrium.molecular import solve_molecular
 from sahaboltz.equilibrium.network import AtomicNetwork
+from sahaboltz.equilibrium.validity import warn_plain, warn_validity
 from sahaboltz.errors import InputError
 from sahaboltz.kernels import truncation as _truncation
 from sahaboltz.kernels.truncation import TruncationScheme
@@ -71,7 +73,7 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
                       molecules=None, database=None, missing_levels: str = "unit",
                       tolerance: float = DEFAULT_TOLERANCE, max_passes: int = 200,
                       network: AtomicNetwork | None = None, molecule_database=None,
-                      **closure: Any):
+                      errors: str = "raise", **closure: Any):
     """Solve the LTE ionization balance of a mixture at one or many states.
 
     Parameters
@@ -109,6 +111,11 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
         A prepared network (reuse it across calls with the same composition and options).
     molecule_database : MoleculeDatabase, optional
         Molecular data (default: the shipped data).
+    errors : {"raise", "mask"}
+        What a state that cannot be solved does: "raise" (default) raises one
+        ConvergenceError naming every such state (``.indices``) and carrying the partial
+        result (``.state``); "mask" returns the state with ``status`` (converged, unreachable,
+        strongly coupled, not converged) and ``reason`` per state, and NaN values only there.
 
     Returns
     -------
@@ -119,10 +126,13 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
     InputError
         Bad or inconsistent arguments (named in the message).
     ConvergenceError
-        Some states did not converge; the message lists them by index with their values.
+        With ``errors="raise"``, when some states could not be solved.
     """
+    check_mode(errors)
     closure_def, t, v, scheme = checked_inputs(composition, temperature, closure, truncation,
                                                lowering)
+    if not (isinstance(max_passes, (int, np.integer)) and max_passes >= 1):
+        raise InputError(f"max_passes must be a positive whole number, got {max_passes!r}")
     if not (isinstance(tolerance, (int, float)) and 1e-15 <= tolerance < 1e-2):
         raise InputError(f"tolerance must be a number in [1e-15, 1e-2), got {tolerance!r}")
     if network is None:
@@ -131,8 +141,14 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
     elif network.composition is not composition or network.scheme != scheme:
         raise InputError("network was built for another composition or truncation")
     if molecules is not None:
-        return solve_molecular(network, t, v, closure_def, molecules=molecules,
-                               lowering=lowering, tolerance=tolerance, max_passes=max_passes,
-                               molecule_database=molecule_database)
-    return solve_atomic(network, t, v, closure_def, lowering=lowering, tolerance=tolerance,
-                        max_passes=max_passes)
+        state = solve_molecular(network, t, v, closure_def, molecules=molecules,
+                                lowering=lowering, tolerance=tolerance, max_passes=max_passes,
+                                molecule_database=molecule_database)
+        state = raise_or_keep(state, errors, "the molecular equilibrium")
+    else:
+        state = raise_or_keep(solve_atomic(network, t, v, closure_def, lowering=lowering,
+                                           tolerance=tolerance, max_passes=max_passes), errors)
+    warn_validity(state)
+    if scheme.key == "plain" and truncation is not None:
+        warn_plain(state)
+    return state

@@ -16,9 +16,15 @@ import numpy as np
 from sahaboltz.constants import AMU, K_B
 from sahaboltz.equilibrium.network import AtomicNetwork, Chain
 from sahaboltz.errors import InputError, NoDataError
-from sahaboltz.kernels.plasma import _coupling, _debye_length, _lowering_ev, _mcwhirter
+from sahaboltz.kernels.plasma import (_coupling, _debye_length, _degeneracy, _lowering_ev,
+                                      _mcwhirter)
 from sahaboltz.kernels.saha import chain_fractions
 from sahaboltz.quantities import as_positive_array
+
+
+#: the outcome of a solve at one state (``EquilibriumState.status``), by code
+STATUS_NAMES = ("converged", "unreachable", "strongly_coupled", "not_converged")
+CONVERGED, UNREACHABLE, STRONGLY_COUPLED, NOT_CONVERGED = range(len(STATUS_NAMES))
 
 
 @dataclass
@@ -50,11 +56,23 @@ class EquilibriumState:
         Whether Debye-Hueckel lowering was applied.
     report : SolveReport
         Passes per state and final residuals.
+    status : ndarray of int8
+        Per state: 0 converged, 1 unreachable (an electron pressure the gas cannot supply
+        at that temperature), 2 strongly coupled (refused: the Debye-Hueckel lowering reaches
+        an ionization energy), 3 not converged (names in :data:`STATUS_NAMES`).  Every
+        quantity of a state that did not converge is NaN, and only there.
+    reason : ndarray of str
+        Why, per state ("" where converged).
     """
 
     def __init__(self, *, network: AtomicNetwork, temperature, log_ne, nuclei_density, closure,
-                 closure_value, lowering, debye_length, report):
+                 closure_value, lowering, debye_length, report, status=None, reason=None):
         self.network = network
+        shape = np.shape(temperature)
+        self.status = (np.zeros(shape, dtype=np.int8) if status is None
+                       else np.asarray(status, dtype=np.int8).reshape(shape))
+        self.reason = (np.full(shape, "", dtype=object) if reason is None
+                       else np.asarray(reason, dtype=object).reshape(shape))
         self.temperature = temperature
         self.log_ne = log_ne
         self.n_e = np.exp(log_ne)
@@ -70,6 +88,19 @@ class EquilibriumState:
     @property
     def shape(self) -> tuple:
         return self.temperature.shape
+
+    @property
+    def converged(self) -> np.ndarray:
+        """True where the state was solved (``status == 0``)."""
+        return self.status == CONVERGED
+
+    def failures(self) -> dict[tuple, str]:
+        """Every state that was not solved: index -> "status: reason"."""
+        out = {}
+        for i in np.flatnonzero(self.status.ravel() != CONVERGED):
+            idx = tuple(int(j) for j in np.unravel_index(i, self.shape))
+            out[idx] = f"{STATUS_NAMES[self.status.ravel()[i]]}: {self.reason.ravel()[i]}"
+        return out
 
     @property
     def composition(self):
@@ -127,16 +158,21 @@ class EquilibriumState:
     # -- populations -----------------------------------------------------------------------
     def _chain_fractions(self, chain: Chain) -> np.ndarray:
         if chain.k not in self._cache:
-            t = self.temperature.ravel()
-            x = self.log_ne.ravel()
+            ok = self.converged.ravel()
+            t = self.temperature.ravel()[ok]
+            x = self.log_ne.ravel()[ok]
+            out = np.full((chain.n, ok.size), np.nan)
+            if not ok.any():
+                self._cache[chain.k] = out.reshape((chain.n,) + self.shape)
+                return self._cache[chain.k]
             if self.network.ideal and not self.lowering:
                 ut, inv = np.unique(t, return_inverse=True)
                 tab = self.network.log_c(chain, ut)[:, inv]
             else:
-                lam = None if self._debye is None else self._debye.ravel()
+                lam = None if self._debye is None else self._debye.ravel()[ok]
                 tab = self.network.log_c(chain, t, np.exp(x), lam)
-            a = chain_fractions(tab - np.multiply.outer(chain.charges, x))
-            self._cache[chain.k] = a.reshape((chain.n,) + self.shape)
+            out[:, ok] = chain_fractions(tab - np.multiply.outer(chain.charges, x))
+            self._cache[chain.k] = out.reshape((chain.n,) + self.shape)
         return self._cache[chain.k]
 
     def stage_fractions(self, element, negative: bool = False) -> np.ndarray:
@@ -178,6 +214,28 @@ class EquilibriumState:
         """All species, shape (n_species,) + state shape, in :attr:`species_names` order."""
         return np.concatenate([self._chain_fractions(c) * (self.nuclei_density * c.fraction)
                                for c in self.network.chains])
+
+    def partition_function(self, species) -> np.ndarray:
+        """The partition function U of ``species`` that the solve used at every state (the
+        same in the Saha chain and the level populations); NaN where not solved."""
+        i = self.network.species_index(species)
+        chain = self.network.chains[self.network.element_index[i]]
+        ok = self.converged.ravel()
+        out = np.full(ok.size, np.nan)
+        if ok.any():
+            lam = None if self._debye is None else self._debye.ravel()[ok]
+            ln_u = self.network.log_u(chain, self.temperature.ravel()[ok],
+                                      self.n_e.ravel()[ok], lam)
+            out[ok] = np.exp(ln_u[i - chain.offset])
+        return out.reshape(self.shape)
+
+    def lowering_ev(self, species) -> np.ndarray:
+        """The Debye-Hueckel lowering of the ionization energy of ``species`` in the solve
+        [eV] (0 without ``lowering``; H-, which is not lowered, 0 too)."""
+        i = self.network.species_index(species)
+        if not self.lowering:
+            return np.zeros(self.shape)
+        return _lowering_ev(self.network.charges[i], self.debye_length)
 
     def dominant_stage(self, element, negative: bool = True) -> np.ndarray:
         """Charge of the most populated stage of an element at every state (int array)."""
@@ -262,6 +320,11 @@ class EquilibriumState:
     def coupling_parameter(self) -> np.ndarray:
         """Electron coupling Gamma_e = e^2 / (a_e k T), a_e = (3 / (4 pi n_e))^(1/3)."""
         return _coupling(self.temperature, self.n_e)
+
+    @property
+    def degeneracy_parameter(self) -> np.ndarray:
+        """Electron degeneracy n_e lambda_e^3 (<< 1: a classical electron gas, as assumed)."""
+        return _degeneracy(self.temperature, self.n_e)
 
     @property
     def debye_number(self) -> np.ndarray:

@@ -210,6 +210,32 @@ class PartitionModel:
                      "_q_stark", "_r3")
     _SPECIES_ARRAYS = ("_counts", "ionization_energy_ev", "charge", "_emin", "_lng_max", "_bare")
 
+    def with_scheme(self, truncation) -> "PartitionModel":
+        """The same packed levels under another truncation scheme (a view, no re-packing);
+        only for schemes that keep every level (no static selection)."""
+        scheme = _truncation.get(truncation)
+        if type(scheme).select is not _truncation.TruncationScheme.select or (
+                type(self.scheme).select is not _truncation.TruncationScheme.select):
+            raise InputError(f"with_scheme: '{scheme.key}' selects other levels than "
+                             f"'{self.scheme.key}'; build a new PartitionModel")
+        if self.completion and not scheme.bounded:
+            raise InputError(f"with_scheme: completion levels need a bounding scheme, "
+                             f"not '{scheme.key}'")
+        other = copy.copy(self)
+        other.scheme = scheme
+        other.truncation = scheme.key
+        return other
+
+    def top_weight(self, row: int, temperature: np.ndarray, n_e: np.ndarray) -> np.ndarray:
+        """Charged-perturber occupation probability of the highest packed level of species
+        ``row`` at the states (T, n_e): the smallest w of its levels, so U_occupation >=
+        top_weight * U_plain."""
+        from sahaboltz.kernels.occupation import stark_state_factors
+        last = int(self._starts[row] + self._counts[row] - 1)
+        p, a, b = stark_state_factors(np.asarray(temperature, float), np.asarray(n_e, float))
+        s = p * self._q_stark[last]
+        return 1.0 / (1.0 + s * (a * s + b))
+
     def subset(self, start: int, stop: int) -> "PartitionModel":
         """The species ``start:stop`` of this model as a model of their own (a view on the
         packed levels: no copy, no re-packing)."""

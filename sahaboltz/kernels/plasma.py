@@ -4,6 +4,7 @@ parameter and the McWhirter criterion.
     lambda_D = sqrt(k T / (4 pi e^2 (n_e + sum_z z^2 n_z)))     [cm, Gaussian units]
     dchi_z   = (z + 1) e^2 / lambda_D                             [eV]
     Gamma_e  = e^2 / (a_e k T),  a_e = (3 / (4 pi n_e))^(1/3)
+    Theta    = n_e lambda_e^3,   lambda_e = h / sqrt(2 pi m_e k T)   (electron degeneracy)
     n_e     >= 1.6e12 T^(1/2) dE^3                                [cm^-3, T in K, dE in eV]
 
 z is the charge of the species being ionized (0 for a neutral atom): the electron that leaves
@@ -20,11 +21,11 @@ from typing import Any
 
 import numpy as np
 
-from sahaboltz.constants import E_CHARGE, EV, K_B
+from sahaboltz.constants import E_CHARGE, EV, H, K_B, M_E
 from sahaboltz.quantities import as_array, as_positive_array
 
 __all__ = ["MCWHIRTER_COEFFICIENT", "debye_length", "debye_hueckel_lowering",
-           "coupling_parameter", "mcwhirter_density"]
+           "coupling_parameter", "degeneracy_parameter", "mcwhirter_density"]
 
 #: McWhirter (1965) criterion coefficient [cm^-3 K^-1/2 eV^-3]: n_e >= 1.6e12 T^1/2 dE^3
 MCWHIRTER_COEFFICIENT = 1.6e12
@@ -35,7 +36,17 @@ _E2_EV_CM = E_CHARGE**2 / EV
 _FOUR_PI_E2_OVER_K = 4.0 * np.pi * E_CHARGE**2 / K_B
 
 
+# 2 pi m_e k / h^2 [cm^-2 K^-1]
+_TWO_PI_ME_K_H2 = 2.0 * np.pi * M_E * K_B / H**2
+
+
 # -- fast cores --------------------------------------------------------------------------
+def _log_quantum_concentration(t: np.ndarray) -> np.ndarray:
+    """ln (2 pi m_e k T / h^2)^{3/2} = -3 ln lambda_e [cm^-3]: the electrons' quantum
+    concentration (the constant of the Saha equation, and the degeneracy scale)."""
+    return 1.5 * np.log(_TWO_PI_ME_K_H2 * t)
+
+
 def _debye_length(t: np.ndarray, screening_density: np.ndarray) -> np.ndarray:
     """lambda_D [cm] from T [K] and the screening density n_e + sum z^2 n_z [cm^-3]."""
     return np.sqrt(t / (_FOUR_PI_E2_OVER_K * screening_density))
@@ -50,6 +61,12 @@ def _coupling(t: np.ndarray, n_e: np.ndarray) -> np.ndarray:
     """Electron coupling parameter Gamma_e."""
     a = (3.0 / (4.0 * np.pi * n_e)) ** (1.0 / 3.0)
     return E_CHARGE**2 / (a * K_B * t)
+
+
+def _degeneracy(t: np.ndarray, n_e: np.ndarray) -> np.ndarray:
+    """n_e lambda_e^3: the electrons per cube of their thermal wavelength (the Saha
+    equation's own constant: n_e / (2 pi m_e k T / h^2)^{3/2})."""
+    return n_e * np.exp(-_log_quantum_concentration(t))
 
 
 def _mcwhirter(t: np.ndarray, delta_e_ev: np.ndarray) -> np.ndarray:
@@ -112,6 +129,17 @@ def coupling_parameter(temperature: Any, electron_density: Any) -> np.ndarray:
     t = as_positive_array(temperature, "K", "temperature")
     ne = as_positive_array(electron_density, "cm-3", "electron_density")
     return _coupling(t, ne)
+
+
+def degeneracy_parameter(temperature: Any, electron_density: Any) -> np.ndarray:
+    """Electron degeneracy parameter n_e lambda_e^3, lambda_e = h / sqrt(2 pi m_e k T).
+
+    Well below 1 the electrons are a classical (Boltzmann) gas, as the Saha equation
+    assumes; near and above 1 they are degenerate and the ideal-gas model fails.
+    """
+    t = as_positive_array(temperature, "K", "temperature")
+    ne = as_positive_array(electron_density, "cm-3", "electron_density")
+    return _degeneracy(t, ne)
 
 
 def mcwhirter_density(temperature: Any, delta_e_ev: Any) -> np.ndarray:

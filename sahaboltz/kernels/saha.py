@@ -19,11 +19,12 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from sahaboltz.constants import H, K_B, K_B_EV, M_E
+from sahaboltz.constants import K_B, K_B_EV
 from sahaboltz.data.database import default_database
 from sahaboltz.errors import InputError, NoDataError
 from sahaboltz.kernels import truncation as _truncation
 from sahaboltz.kernels.partition import PartitionModel
+from sahaboltz.kernels.plasma import _log_quantum_concentration
 from sahaboltz.quantities import as_array, as_positive_array
 
 __all__ = ["H_MINUS_AFFINITY_EV", "saha_constant", "log_saha_constant", "log_two_saha_constant",
@@ -33,14 +34,10 @@ __all__ = ["H_MINUS_AFFINITY_EV", "saha_constant", "log_saha_constant", "log_two
 H_MINUS_AFFINITY_EV = 0.754195
 
 _LN2 = float(np.log(2.0))
-# 2 pi m_e k / h^2 [cm^-2 K^-1]
-_TWO_PI_ME_K_H2 = 2.0 * np.pi * M_E * K_B / H**2
-
 
 # -- fast cores (plain float arrays, no checks) ----------------------------------------------
-def _log_saha_constant(t: np.ndarray) -> np.ndarray:
-    """ln (2 pi m_e k T / h^2)^{3/2} [cm^-3]."""
-    return 1.5 * np.log(_TWO_PI_ME_K_H2 * t)
+#: ln (2 pi m_e k T / h^2)^{3/2} [cm^-3] (the plasma kernel's quantum concentration)
+_log_saha_constant = _log_quantum_concentration
 
 
 def _log_saha_steps(t: np.ndarray, chi_ev: np.ndarray, ln_u: np.ndarray,

@@ -110,6 +110,12 @@ class TruncationScheme:
     def prepare_pairs(self, model, pst: dict) -> None:
         """For :meth:`PartitionModel.evaluate_pairs`: per-pair state values into ``pst``."""
 
+    def bound_state_weight(self, binding_ev: float, temperature: np.ndarray,
+                           n_e: np.ndarray):
+        """(ln w, d ln w / d ln n_e) of a lone bound state of ``binding_ev`` (a negative ion
+        with U = 1), or None when the scheme does not weight levels by density."""
+        return None
+
     def pair_weights(self, model, lv: np.ndarray, counts: np.ndarray, pairs: slice, pst: dict,
                      want_temperature: bool = True):
         """For :meth:`PartitionModel.evaluate_pairs`: (ln w, d ln w / d ln T or None,
@@ -288,6 +294,21 @@ class OccupationProbability(TruncationScheme):
         for k in range(2):
             full[k][:, wap] = out[k]
         return tuple(full)
+
+    def bound_state_weight(self, binding_ev, temperature, n_e):
+        # the weakly bound electron of a negative ion (H-: 0.754 eV) is given the weight of a
+        # hydrogenic level of the same binding energy, n* = sqrt(R / E_b), Z = 1 (our choice,
+        # see docs/partition_functions.md): 1 in photospheres, dissolved where H is
+        from sahaboltz.kernels.occupation import (RYDBERG_EV, stark_level_factor,
+                                                  stark_state_factors, stark_state_slopes)
+        n_star = np.sqrt(RYDBERG_EV / binding_ev)
+        q = stark_level_factor(np.asarray(n_star), np.asarray(1.0))
+        p_, a_, b_ = stark_state_factors(temperature, n_e)
+        aa, ab = stark_state_slopes(temperature, n_e)
+        sv = p_ * q
+        f = sv * (a_ * sv + b_)
+        d_n = -(sv * (2.0 * sv * a_ + b_) + sv * (sv * aa + ab) / 6.0) / (1.0 + f)
+        return -np.log1p(f), d_n
 
     def prepare_pairs(self, model, pst):
         from sahaboltz.kernels.occupation import stark_state_factors, stark_state_slopes

@@ -1,0 +1,102 @@
+"""Where a solved state leaves the model's ground: the warnings a solve gives.
+
+- :class:`~sahaboltz.errors.ValidityWarning` where the electrons are degenerate
+  (n_e lambda_e^3 > :data:`DEGENERACY_LIMIT`) or the plasma strongly coupled
+  (Gamma_e > :data:`COUPLING_LIMIT`): the ideal-gas Saha-Boltzmann model assumes neither.
+- :class:`~sahaboltz.errors.TruncationWarning` where an explicitly chosen plain level sum
+  misleads: for a species holding a noticeable share of its element, the plain U exceeds the
+  occupation-weighted U at that state's density by more than :data:`PLAIN_EXCESS`.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+
+from sahaboltz.errors import TruncationWarning, ValidityWarning
+from sahaboltz.kernels import truncation as _truncation
+
+#: n_e lambda_e^3 above which the electron gas counts as degenerate
+DEGENERACY_LIMIT = 1.0
+#: Gamma_e above which the plasma counts as strongly coupled
+COUPLING_LIMIT = 1.0
+#: plain U / occupation-weighted U above which the plain sum is said to mislead
+PLAIN_EXCESS = 1.10
+#: species below this share of their element are not checked (they barely matter)
+CHECKED_SHARE = 1e-3
+
+
+def warn_validity(state, stacklevel: int = 3) -> None:
+    """Warn once per solve when some states are degenerate or strongly coupled."""
+    ok = state.converged
+    if not ok.any():
+        return
+    theta = np.where(ok, state.degeneracy_parameter, 0.0)
+    gamma = np.where(ok, state.coupling_parameter, 0.0)
+    parts = []
+    if (theta > DEGENERACY_LIMIT).any():
+        parts.append(f"{int((theta > DEGENERACY_LIMIT).sum())} with degenerate electrons "
+                     f"(n_e lambda_e^3 up to {theta.max():.3g} > {DEGENERACY_LIMIT:g})")
+    if (gamma > COUPLING_LIMIT).any():
+        parts.append(f"{int((gamma > COUPLING_LIMIT).sum())} strongly coupled "
+                     f"(Gamma_e up to {gamma.max():.3g} > {COUPLING_LIMIT:g})")
+    if parts:
+        warnings.warn(ValidityWarning(
+            f"{' and '.join(parts)} of {ok.size} states: the ideal-gas Saha-Boltzmann model "
+            "does not hold there (see 'Validity' in docs/equilibrium.md)"),
+            stacklevel=stacklevel)
+
+
+def plain_excess(state) -> dict[str, int]:
+    """For a state solved with the plain sum: per species, the number of states where its
+    plain U exceeds the occupation-weighted U at that state's n_e by more than
+    :data:`PLAIN_EXCESS` (species holding at least :data:`CHECKED_SHARE` of their element)."""
+    net = state.network
+    if net.model is None:
+        return {}
+    ok = state.converged.ravel()
+    t = state.temperature.ravel()
+    ne = state.n_e.ravel()
+    occ = net.model.with_scheme(_truncation.get("occupation"))
+    # screen: U_occ / U_plain >= w of the species' highest level, so only pairs whose top
+    # level is weighted below 1/PLAIN_EXCESS need the full sums
+    pairs_state, pairs_row, names = [], [], []
+    for c in net.chains:
+        f = state._chain_fractions(c).reshape(c.n, -1)
+        for j, row in enumerate(c.model_rows):
+            if row < 0:
+                continue
+            sel = np.flatnonzero(ok & (f[j] >= CHECKED_SHARE))
+            if not sel.size:
+                continue
+            r = c.model_offset + row
+            w_top = occ.top_weight(r, t[sel], ne[sel])
+            sel = sel[w_top < 1.0 / PLAIN_EXCESS]
+            pairs_state.append(sel)
+            pairs_row.append(np.full(sel.size, r))
+            names.append(np.full(sel.size, c.offset + j))
+    if not pairs_state or not sum(p.size for p in pairs_state):
+        return {}
+    st_idx = np.concatenate(pairs_state)
+    rows = np.concatenate(pairs_row)
+    u_occ = occ.evaluate_pairs(t[st_idx], ne[st_idx], rows, want_temperature=False)[0]
+    u_plain = net.model.evaluate_pairs(t[st_idx], ne[st_idx], rows, want_temperature=False)[0]
+    flagged = u_plain > PLAIN_EXCESS * u_occ
+    which = np.concatenate(names)[flagged]
+    return {net.species_names[i]: int(n) for i, n in zip(*np.unique(which, return_counts=True))}
+
+
+def warn_plain(state, stacklevel: int = 3) -> None:
+    """Warn when an explicit plain sum misleads (see :func:`plain_excess`)."""
+    excess = plain_excess(state)
+    if not excess:
+        return
+    worst = sorted(excess.items(), key=lambda kv: -kv[1])
+    listed = ", ".join(f"{name} ({n})" for name, n in worst[:8])
+    more = f" and {len(worst) - 8} more species" if len(worst) > 8 else ""
+    warnings.warn(TruncationWarning(
+        f"truncation='plain' exceeds the occupation-weighted partition function by more than "
+        f"{100 * (PLAIN_EXCESS - 1):.0f} % at this density for {listed}{more} "
+        "(number of states in brackets): the default truncation='occupation' is the "
+        "physically sound one there"), stacklevel=stacklevel)
