@@ -30,7 +30,8 @@ from sahaboltz.equilibrium.closures import Closure
 from sahaboltz.equilibrium.network import AtomicNetwork
 from sahaboltz.equilibrium.state import (CONVERGED, NOT_CONVERGED, STRONGLY_COUPLED,
                                          UNREACHABLE, EquilibriumState, SolveReport)
-from sahaboltz.kernels.plasma import _debye_length, _lowering_ev
+from sahaboltz.equilibrium.validity import COUPLING_LIMIT
+from sahaboltz.kernels.plasma import _coupling, _debye_length, _lowering_ev
 
 __all__ = ["solve_atomic", "DEFAULT_TOLERANCE"]
 
@@ -94,6 +95,7 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
     x_out = np.empty(n)
     nuc_out = np.empty(n)
     lam_out = np.empty(n) if lowering else None
+    ne_last = np.full(n, np.nan)  # last iterate of the lowering fixed point, where unsettled
     passes = np.zeros(n, dtype=int)
     resid = np.empty(n)
     failed = np.zeros(n, dtype=bool)
@@ -125,7 +127,7 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
                                         None if fixed_n is None else fixed_n[idx],
                                         None if ntot is None else ntot[idx], lowering, tol,
                                         max_passes)
-            x_out[idx], nuc_out[idx], passes[idx], resid[idx], done, lam = out
+            x_out[idx], nuc_out[idx], passes[idx], resid[idx], done, lam, ne_last[idx] = out
             failed[idx] = ~done
             if lowering:
                 lam_out[idx] = lam
@@ -143,6 +145,7 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
         _classify_failures(network, closure, t, v, resid, passes, bad, status, reason)
     if lowering:
         _check_lowering(network, lam_out, ~bad, status, reason)
+        _unsettled_coupling(t, ne_last, status, reason)
     failed = status != CONVERGED
     x_out[failed] = nuc_out[failed] = np.nan
     if lam_out is not None:
@@ -319,6 +322,7 @@ def _solve_nonideal_block(network, t, v, closure, fixed_n, ntot, lowering, tol, 
     resid = np.full(m, np.inf)
     done = np.zeros(m, dtype=bool)
     lam_out = np.full(m, np.nan)
+    ne_last = np.full(m, np.nan)
     x_hi = _x_upper(network, closure, t, v, fixed_n, ntot)
     # start from the weakly non-ideal branch: no lowering, a low density for the occupation
     # probabilities (starting from full ionization can land on a spurious self-sustained
@@ -357,11 +361,13 @@ def _solve_nonideal_block(network, t, v, closure, fixed_n, ntot, lowering, tol, 
         # states whose frozen-correction solve failed cannot be helped by iterating
         keep = ~conv & ok
         resid[act[~ok]] = child.resid[~ok]
+        ne_last[act[~ok]] = ne_th[~ok]
         act = act[keep]
         ne_th, s_th = ne_new[keep], s_new[keep]
     if act.size:
         resid[act] = np.maximum(resid[act], tol * 10)
-    return x, nuc, passes, resid, done, lam_out
+        ne_last[act] = ne_th
+    return x, nuc, passes, resid, done, lam_out, ne_last
 
 
 def _check_lowering(network, lam, ok, status, reason) -> None:
@@ -375,6 +381,21 @@ def _check_lowering(network, lam, ok, status, reason) -> None:
             reason[i] = (f"the Debye-Hueckel lowering reaches the ionization energy of "
                          f"{c.symbol}: the plasma is too strongly coupled for this model "
                          f"(Debye length {lam[i]:.3g} cm)")
+
+
+def _unsettled_coupling(t, ne_last, status, reason) -> None:
+    """Refuse, as strongly coupled, the states whose lowering fixed point did not settle while
+    its last iterate had Gamma_e above the validity limit: next to the strong-coupling edge
+    the Debye-Hueckel correction changes faster than the balance can follow, and the model
+    does not hold there anyway."""
+    idx = np.flatnonzero((status == NOT_CONVERGED) & np.isfinite(ne_last))
+    if not idx.size:
+        return
+    gamma = _coupling(t[idx], ne_last[idx])
+    for i, g in zip(idx[gamma > COUPLING_LIMIT], gamma[gamma > COUPLING_LIMIT]):
+        status[i] = STRONGLY_COUPLED
+        reason[i] = (f"the Debye-Hueckel correction does not settle: its last iterate has "
+                     f"Gamma_e = {g:.3g} > {COUPLING_LIMIT:g}, too strongly coupled for this model")
 
 
 class _ChunkSolver:
