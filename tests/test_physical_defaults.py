@@ -257,3 +257,69 @@ def test_default_physics_converges_over_the_whole_domain():
     assert counts["lowering"][CONVERGED] > 0.9 * n * n
     assert counts["electron_pressure"][NOT_CONVERGED] == 0
     assert counts["electron_pressure"][STRONGLY_COUPLED] == 0
+
+
+# -- the command line -----------------------------------------------------------------------
+def _cli(capsys, *argv):
+    from sahaboltz.faces.cli import main
+
+    code = main(list(argv))
+    out = capsys.readouterr()
+    return code, out.out, out.err
+
+
+def test_state_command_says_what_it_used(capsys):
+    import json
+
+    code, out, err = _cli(capsys, "state", "-T", "12000", "--gas-pressure", "1e5", "--mix",
+                          "solar", "--elements", "H,Na", "--format", "json")
+    assert code == 0 and err == ""
+    doc = json.loads(out)
+    assert doc["meta"]["truncation"] == "occupation"
+    for key in ("coupling_parameter", "degeneracy_parameter"):
+        assert doc["meta"][key] > 0
+    state = solve_equilibrium(solar(), 12000.0, gas_pressure=1e5)
+    na = next(r for r in doc["rows"] if r["species"] == "Na I")
+    assert na["U"] == pytest.approx(float(state.partition_function("Na I")), rel=1e-6)
+
+
+def test_explicit_plain_sum_gives_a_one_line_note(capsys):
+    code, _, err = _cli(capsys, "state", "-T", "12000", "--gas-pressure", "1e5", "--mix",
+                        "solar", "--elements", "Na", "--truncation", "plain")
+    assert code == 0
+    notes = [line for line in err.splitlines() if line.startswith("sahaboltz: note:")]
+    assert len(notes) == 1 and "Na I" in notes[0]
+    code, _, err = _cli(capsys, "partition", "Na I", "-T", "12000", "--n-e", "1e16",
+                        "--truncation", "plain")
+    assert code == 0 and err.startswith("sahaboltz: note:") and "Na I" in err
+
+
+def test_state_lowering_column_follows_debye_hueckel(capsys):
+    import json
+
+    code, out, _ = _cli(capsys, "state", "-T", "20000", "--hydrogen-density", "1e18", "--mix",
+                        "solar", "--elements", "Fe", "--lowering", "--min-fraction", "1e-8",
+                        "--format", "json")
+    assert code == 0
+    doc = json.loads(out)
+    assert doc["meta"]["truncation"] == "lowered with Debye-Hueckel lowering"
+    low = {r["charge"]: r["lowering_eV"] for r in doc["rows"]}
+    # Debye-Hueckel: the lowering of stage q is (q + 1) e^2 / lambda_D (e.g. Griem, Principles
+    # of Plasma Spectroscopy), so it grows in proportion to q + 1
+    for q, value in low.items():
+        assert value == pytest.approx((q + 1) * low[0], rel=1e-12)
+    assert 0.01 < low[0] < 1.0
+
+
+def test_partition_command_picks_occupation_given_a_density(capsys):
+    import json
+
+    code, out, _ = _cli(capsys, "partition", "Na I", "-T", "10000", "--n-e", "1e16",
+                        "--format", "json")
+    doc = json.loads(out)
+    assert doc["meta"]["truncation"] == "occupation"
+    sp = default_database().species("Na I")
+    expect = PartitionModel([sp], "occupation").evaluate(1e4, n_e=1e16)[0]
+    assert doc["rows"][0]["U(Na I)"] == pytest.approx(float(expect), rel=1e-12)
+    code, out, _ = _cli(capsys, "partition", "Na I", "-T", "10000", "--format", "json")
+    assert json.loads(out)["meta"]["truncation"] == "plain"

@@ -387,9 +387,17 @@ class EquilibriumState:
                 "mass_density_g_cm-3": float(self.mass_density[idx]),
                 "nuclei_density_cm-3": float(self.nuclei_density[idx]),
                 "mean_molecular_weight": float(self.mean_molecular_weight[idx]),
-                "mean_charge": float(self.mean_charge[idx])}
+                "mean_charge": float(self.mean_charge[idx]),
+                "truncation": _truncation_label(self),
+                "coupling_parameter": float(self.coupling_parameter[idx]),
+                "degeneracy_parameter": float(self.degeneracy_parameter[idx])}
 
     def __repr__(self) -> str:
         return (f"EquilibriumState({self.composition.name!r}, shape={self.shape}, "
                 f"closure={self.closure}, {self.network.n_species} species)")
 
+
+
+def _truncation_label(state) -> str:
+    """The truncation a solve used, with Debye-Hueckel lowering when it was on."""
+    return state.network.scheme.key + (" with Debye-Hueckel lowering" if state.lowering else "")
