@@ -48,6 +48,10 @@ _LOG_FLOOR = -300.0
 # significance threshold of the windows when U depends on n_e: the low-density-limit tables
 # that place the windows overestimate each U, by up to this margin above the usual e^-40
 _DENSITY_THR = 45.0
+# the low-density-limit solve only starts the density-dependent one: a loose tolerance will do
+_START_TOLERANCE = 1e-6
+# a density-dependent Newton step below this times sqrt(tol) is the last one (see run)
+_FINAL_STEP = 1e-4
 
 
 def solve_atomic(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closure: Closure, *,
@@ -214,11 +218,11 @@ def _solve_density_block(network, t, v, closure, fixed_n, ntot, tables, ut, tol,
     n_e, and the derivative of the charge balance includes them (exact Newton, bracketed).
     """
     start = _ChunkSolver(network, t, v, closure, fixed_n, ntot, tables)
-    start.run(tol, max_passes)
+    start.run(max(tol, _START_TOLERANCE), max_passes)
     x0 = np.where(np.isfinite(start.x), start.x, start.x_hi - 1.0)
     solver = _ChunkSolver(network, t, v, closure, fixed_n, ntot, tables)
     moments = _DensityMoments(network, t, tables, ut)
-    solver.run(tol, max_passes, moments=moments, x0=x0)
+    solver.run(tol, max_passes, moments=moments, x0=x0, final_step=_FINAL_STEP * np.sqrt(tol))
     return solver.x, solver.nuc, start.passes + solver.passes, solver.resid, solver.done
 
 
@@ -276,7 +280,8 @@ class _DensityMoments:
         if npairs:
             st = np.concatenate(pair_state)
             u, _, dlu = self.net.model.evaluate_pairs(t[st], ne[st], np.concatenate(pair_row),
-                                                      want_temperature=False)
+                                                      want_temperature=False,
+                                                      temperature_index=tp[st])
             lu = np.log(u)
         zbar, slope, zabs, z2 = (np.zeros(m) for _ in range(4))
         for c, rows, where, first, inside in plans:
@@ -452,12 +457,15 @@ class _ChunkSolver:
         nref = self.fixed_n if self.fixed_n is not None else self.ntot
         return np.minimum(0.5 * (np.log(nref) + ln_sum), self.x_hi - 1e-9)
 
-    def run(self, tol, max_passes, moments=None, x0=None):
+    def run(self, tol, max_passes, moments=None, x0=None, final_step=None):
         """Safeguarded Newton in x = ln n_e.
 
         ``moments(active, x) -> (Zbar, -dZbar/dx, <|q|>, <q^2>)`` per nucleus; default: from the
         windows over the fixed Saha tables.  ``x0``: starting values (default: the
-        weak-ionization estimate).
+        weak-ionization estimate).  ``final_step``: accept a state after an unsafeguarded
+        Newton step no longer than this, without evaluating it again (for expensive
+        moments: Newton converges quadratically, so the step's own error is of the order of
+        its square).
         """
         m = self.t.size
         fixed_pe = self.fixed_n is None and self.ntot is None
@@ -539,6 +547,19 @@ class _ChunkSolver:
             xn = np.where(np.isfinite(la), xn, np.maximum(xn, xa - _MAX_STEP))
             prev[a] = step[a] = np.abs(xn - xa)
             x[a] = xn
+            if final_step is not None:
+                last = ~outside & (step[a] <= final_step)
+                if self.ntot is not None:
+                    last &= self.ntot[a] > np.exp(xn)
+                fin = a[last]
+                self.done[fin] = True
+                self.x[fin] = xn[last]
+                self.nuc[fin] = (self.fixed_n[fin] if self.fixed_n is not None
+                                 else self.ntot[fin] - np.exp(xn[last]))
+                self.resid[fin] = np.maximum(rel[keep][last] * step[fin], step[fin] ** 2)
+                a = a[~last]
+                if not a.size:
+                    break
             active = a
 
 

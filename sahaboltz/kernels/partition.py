@@ -326,7 +326,8 @@ class PartitionModel:
         return u, u1 / u, u2 / u
 
     def evaluate_pairs(self, temperature: np.ndarray, n_e: np.ndarray, rows: np.ndarray,
-                       n_neutral: np.ndarray | None = None, *, want_temperature: bool = True
+                       n_neutral: np.ndarray | None = None, *, want_temperature: bool = True,
+                       temperature_index: np.ndarray | None = None
                        ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
         """(U, d ln U / d ln T, d ln U / d ln n_e) of one species per state: the flat pairs
         (``temperature[p]``, ``n_e[p]``, species ``rows[p]``), unchecked float arrays.
@@ -334,7 +335,9 @@ class PartitionModel:
         For solvers that need a different set of species at every state: the work is the
         levels of each pair's species alone (pruned as in :meth:`evaluate`), in one
         vectorized pass over all pairs.  ``want_temperature=False`` skips the temperature
-        derivative (None).  Schemes with a per-state lowering are not supported.
+        derivative (None).  ``temperature_index`` may give each pair's position among the
+        distinct temperatures (a caller that knows it spares a sort).  Schemes with a
+        per-state lowering are not supported.
         """
         if "lowering_ev" in self.scheme.inputs:
             raise InputError("evaluate_pairs: a lowering per state is not supported here")
@@ -353,6 +356,17 @@ class PartitionModel:
         if n_neutral is not None:
             pst["nn"] = np.asarray(n_neutral, dtype=float)
         self.scheme.prepare_pairs(self, pst)
+        if temperature_index is None:
+            t_u, tidx = np.unique(t, return_inverse=True)
+        else:
+            tidx = np.asarray(temperature_index, dtype=np.intp)
+            t_u = np.ones(int(tidx.max()) + 1 if tidx.size else 0)
+            t_u[tidx] = t
+        fast = self.scheme.pair_sums(self, tidx, 1.0 / (K_B_EV * t_u), rows, start, count, pst,
+                                     want_temperature)
+        if fast is not None:
+            u, u1, u2 = fast
+            return u, u1 / u if want_temperature else None, u2 / u
         u, u2 = np.zeros(npair), np.zeros(npair)
         u1 = np.zeros(npair) if want_temperature else None
         # blocks of consecutive pairs with about _PAIR_BLOCK level terms each

@@ -123,6 +123,15 @@ class TruncationScheme:
         ``pairs.start + j``; None when every w = 1."""
         return None
 
+    def pair_sums(self, model, tidx: np.ndarray, beta_u: np.ndarray, rows: np.ndarray,
+                  start: np.ndarray, count: np.ndarray, pst: dict,
+                  want_temperature: bool = True):
+        """For :meth:`PartitionModel.evaluate_pairs`: the sums (U, U1, U2) of every pair at
+        once by a compiled loop (:mod:`sahaboltz.kernels.compiled`), or None to let the
+        numpy path use :meth:`pair_weights`.  ``tidx`` indexes each pair's temperature in
+        the distinct ones, whose 1/kT are ``beta_u``."""
+        return None
+
 
 class GroundLevel(TruncationScheme):
     """Only the lowest level: U = g_0, as in textbook estimates."""
@@ -314,6 +323,15 @@ class OccupationProbability(TruncationScheme):
         from sahaboltz.kernels.occupation import stark_state_factors, stark_state_slopes
         pst["stark"] = stark_state_factors(pst["T"], pst["ne"])
         pst["stark_slopes"] = stark_state_slopes(pst["T"], pst["ne"])
+
+    def pair_sums(self, model, tidx, beta_u, rows, start, count, pst, want_temperature=True):
+        from sahaboltz.kernels import compiled
+        if not compiled.available():
+            return None
+        return compiled.occupation_pair_sums(tidx, rows, beta_u, pst["stark"],
+                                             pst["stark_slopes"], pst.get("nn"), start, count,
+                                             model._e, model._lng, model._q_stark, model._r3,
+                                             model.n_species, want_temperature)
 
     def pair_weights(self, model, lv, counts, pairs, pst, want_temperature=True):
         p_, a_, b_ = (np.repeat(v[pairs], counts) for v in pst["stark"])
