@@ -279,9 +279,9 @@ class _DensityMoments:
         lu = dlu = np.zeros(0)
         if npairs:
             st = np.concatenate(pair_state)
-            u, _, dlu = self.net.model.evaluate_pairs(t[st], ne[st], np.concatenate(pair_row),
+            u, _, dlu = self.net.model.evaluate_pairs(t, ne, np.concatenate(pair_row),
                                                       want_temperature=False,
-                                                      temperature_index=tp[st])
+                                                      temperature_index=tp, states=st)
             lu = np.log(u)
         zbar, slope, zabs, z2 = (np.zeros(m) for _ in range(4))
         for c, rows, where, first, inside in plans:

@@ -327,7 +327,8 @@ class PartitionModel:
 
     def evaluate_pairs(self, temperature: np.ndarray, n_e: np.ndarray, rows: np.ndarray,
                        n_neutral: np.ndarray | None = None, *, want_temperature: bool = True,
-                       temperature_index: np.ndarray | None = None
+                       temperature_index: np.ndarray | None = None,
+                       states: np.ndarray | None = None
                        ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
         """(U, d ln U / d ln T, d ln U / d ln n_e) of one species per state: the flat pairs
         (``temperature[p]``, ``n_e[p]``, species ``rows[p]``), unchecked float arrays.
@@ -336,14 +337,27 @@ class PartitionModel:
         levels of each pair's species alone (pruned as in :meth:`evaluate`), in one
         vectorized pass over all pairs.  ``want_temperature=False`` skips the temperature
         derivative (None).  ``temperature_index`` may give each pair's position among the
-        distinct temperatures (a caller that knows it spares a sort).  Schemes with a
-        per-state lowering are not supported.
+        distinct temperatures (a caller that knows it spares a sort).  With ``states``, the
+        state arguments are given once per state and pair ``p`` belongs to state
+        ``states[p]`` (the scheme's state factors are then computed once per state).  Schemes
+        with a per-state lowering are not supported.
         """
         if "lowering_ev" in self.scheme.inputs:
             raise InputError("evaluate_pairs: a lowering per state is not supported here")
         t = np.asarray(temperature, dtype=float)
         rows = np.asarray(rows, dtype=np.intp)
         npair = rows.size
+        pst = {"T": t, "ne": np.asarray(n_e, dtype=float)}
+        if n_neutral is not None:
+            pst["nn"] = np.asarray(n_neutral, dtype=float)
+        self.scheme.prepare_pairs(self, pst)
+        if states is not None:   # from per-state to per-pair values
+            states = np.asarray(states, dtype=np.intp)
+            pst = {k: tuple(a[states] for a in v) if isinstance(v, tuple) else v[states]
+                   for k, v in pst.items()}
+            t = pst["T"]
+            if temperature_index is not None:
+                temperature_index = np.asarray(temperature_index)[states]
         beta = 1.0 / (K_B_EV * t)
         # levels of each pair's species that pass the Boltzmann pruning (a prefix: sorted by E)
         if not hasattr(self, "_pair_keys"):
@@ -352,10 +366,6 @@ class PartitionModel:
         start = self._starts[rows]
         count = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
         count = np.clip(count, 1, self._counts[rows])
-        pst = {"T": t, "ne": np.asarray(n_e, dtype=float)}
-        if n_neutral is not None:
-            pst["nn"] = np.asarray(n_neutral, dtype=float)
-        self.scheme.prepare_pairs(self, pst)
         if temperature_index is None:
             t_u, tidx = np.unique(t, return_inverse=True)
         else:

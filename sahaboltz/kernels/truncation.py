@@ -108,7 +108,8 @@ class TruncationScheme:
         return None
 
     def prepare_pairs(self, model, pst: dict) -> None:
-        """For :meth:`PartitionModel.evaluate_pairs`: per-pair state values into ``pst``."""
+        """For :meth:`PartitionModel.evaluate_pairs`: the scheme's state values into ``pst``
+        (arrays, or tuples of arrays, along ``pst["T"]``: per state or per pair)."""
 
     def bound_state_weight(self, binding_ev: float, temperature: np.ndarray,
                            n_e: np.ndarray):
