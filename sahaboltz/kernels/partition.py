@@ -226,15 +226,14 @@ class PartitionModel:
         other.truncation = scheme.key
         return other
 
-    def top_weight(self, row: int, temperature: np.ndarray, n_e: np.ndarray) -> np.ndarray:
+    def top_weight(self, row: int, p_: np.ndarray, a_: np.ndarray, b_: np.ndarray
+                   ) -> np.ndarray:
         """Charged-perturber occupation probability of the highest packed level of species
-        ``row`` at the states (T, n_e): the smallest w of its levels, so U_occupation >=
-        top_weight * U_plain."""
-        from sahaboltz.kernels.occupation import stark_state_factors
-        last = int(self._starts[row] + self._counts[row] - 1)
-        p, a, b = stark_state_factors(np.asarray(temperature, float), np.asarray(n_e, float))
-        s = p * self._q_stark[last]
-        return 1.0 / (1.0 + s * (a * s + b))
+        ``row`` at states given by their factors (P, A, B) of
+        :func:`~sahaboltz.kernels.occupation.stark_state_factors`: the smallest w of its
+        levels, so U_occupation >= top_weight * U_plain."""
+        s = p_ * self._q_stark[int(self._starts[row] + self._counts[row] - 1)]
+        return 1.0 / (1.0 + s * (a_ * s + b_))
 
     def subset(self, start: int, stop: int) -> "PartitionModel":
         """The species ``start:stop`` of this model as a model of their own (a view on the
