@@ -16,6 +16,7 @@ import numpy as np
 from sahaboltz.constants import AMU, K_B
 from sahaboltz.equilibrium.network import AtomicNetwork, Chain
 from sahaboltz.errors import InputError, NoDataError
+from sahaboltz.kernels import truncation as _truncation
 from sahaboltz.kernels.plasma import (_coupling, _debye_length, _degeneracy, _lowering_ev,
                                       _mcwhirter)
 from sahaboltz.kernels.saha import chain_fractions
@@ -388,16 +389,10 @@ class EquilibriumState:
                 "nuclei_density_cm-3": float(self.nuclei_density[idx]),
                 "mean_molecular_weight": float(self.mean_molecular_weight[idx]),
                 "mean_charge": float(self.mean_charge[idx]),
-                "truncation": _truncation_label(self),
+                "truncation": _truncation.used(self.network.scheme, self.lowering),
                 "coupling_parameter": float(self.coupling_parameter[idx]),
                 "degeneracy_parameter": float(self.degeneracy_parameter[idx])}
 
     def __repr__(self) -> str:
         return (f"EquilibriumState({self.composition.name!r}, shape={self.shape}, "
                 f"closure={self.closure}, {self.network.n_species} species)")
-
-
-
-def _truncation_label(state) -> str:
-    """The truncation a solve used, with Debye-Hueckel lowering when it was on."""
-    return state.network.scheme.key + (" with Debye-Hueckel lowering" if state.lowering else "")

@@ -442,6 +442,11 @@ def label(truncation: Any) -> str:
     return get(truncation).label
 
 
+def used(scheme: Any, lowering: bool) -> str:
+    """What a solve used, as outputs name it: the scheme's key, and the lowering if on."""
+    return get(scheme).key + (" with Debye-Hueckel lowering" if lowering else "")
+
+
 def resolve(truncation: Any, lowering: bool = False, density: bool = True) -> TruncationScheme:
     """The scheme to use for the options ``truncation`` (None: the default), ``lowering``
     (Debye-Hueckel lowering of the ionization energies) and whether a density is known.
