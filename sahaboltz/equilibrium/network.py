@@ -246,7 +246,15 @@ class AtomicNetwork:
             chi_m = chain.model.ionization_energy_ev[:, None]
             kw["lowering_ev"] = np.minimum(low, np.where(np.isfinite(chi_m), 0.999 * chi_m, 0.0))
         elif self.scheme.density_dependent:
-            kw["n_e"] = np.full(n, self.LIMIT_DENSITY) if n_e is None else n_e
+            # every (stage, state) pair through the pair sums (compiled where available)
+            ne = np.full(n, self.LIMIT_DENSITY) if n_e is None else np.asarray(n_e, float)
+            k = chain.model.n_species
+            _, tinv = np.unique(t, return_inverse=True)
+            u = chain.model.evaluate_pairs(t, ne, np.repeat(np.arange(k), n),
+                                           want_temperature=False, temperature_index=tinv,
+                                           states=np.tile(np.arange(n), k))[0]
+            ln_u[has] = np.log(u.reshape(k, n))
+            return ln_u
         ln_u[has] = np.log(chain.model.evaluate(t, **kw))
         return ln_u
 

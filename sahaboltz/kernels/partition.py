@@ -241,6 +241,7 @@ class PartitionModel:
         if not 0 <= start < stop <= self.n_species:
             raise InputError(f"subset {start}:{stop} is outside the {self.n_species} species")
         sub = copy.copy(self)
+        sub.__dict__.pop("_pair_keys", None)   # the parent's search keys index its own levels
         l0 = int(self._starts[start])
         l1 = int(self._starts[stop - 1] + self._counts[stop - 1])
         for name in self._LEVEL_ARRAYS:
