@@ -45,10 +45,30 @@ def test_round_trip_at_grid_points(tmp_path):
         for charge in range(fr.shape[0]):
             name = f"fraction_{el}_{_roman(charge + 1)}"
             np.testing.assert_allclose(tab[name], fr[charge], rtol=1e-8, atol=1e-300)
+    # number densities of every species, H- included, are the solver's
+    for sp in ("H-", "H I", "He II", "Fe II"):
+        np.testing.assert_allclose(tab[f"number_density_{sp.replace(' ', '_')}"],
+                                   state.number_density(sp), rtol=1e-8, atol=1e-300)
+    assert tab.quantity_attrs("fraction_H-")["charge"] == -1
+    np.testing.assert_allclose(tab["partition_Fe_I"], state.partition_function("Fe I"), rtol=1e-9)
     pops, energy = state.level_populations("Fe II")
     np.testing.assert_allclose(tab["population_Fe_II_L2"], pops[2], rtol=1e-8)
-    assert tab.quantity_attrs("population_Fe_II_L2")["energy_ev"] == pytest.approx(energy[2])
+    lev = tab.quantity_attrs("population_Fe_II_L2")
+    assert lev["level_energy"] == pytest.approx(energy[2]) and lev["level_species"] == "Fe II"
+    assert lev["level_g"] > 0 and lev["level_index"] == 2
     assert "level_data_digest" in tab.attrs and "solver_version" in tab.attrs
+    # a state and a table look alike in xarray: same variables, species coordinate, units
+    pytest.importorskip("xarray")
+    pytest.importorskip("h5netcdf")
+    sds = state.to_xarray(dims=("temperature", spec.pressure_quantity))
+    with tab.to_xarray() as tds:
+        sel = dict(species=["H-", "He II", "Fe II"])
+        np.testing.assert_allclose(sds["number_density"].sel(sel).values,
+                                   tds["number_density"].sel(sel).values, rtol=1e-8, atol=1e-300)
+        assert list(sds["charge"].sel(sel).values) == list(tds["charge"].sel(sel).values) \
+            == [-1, 1, 1]
+        assert sds["number_density"].attrs["units"] == tds["number_density"].attrs["units"]
+    tab.close()
 
 
 def _roman(n):

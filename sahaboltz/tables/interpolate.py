@@ -22,7 +22,9 @@ import numpy as np
 
 from sahaboltz.errors import InputError, TableError
 from sahaboltz.quantities import as_positive_array
-from sahaboltz.tables.hdf5 import _decode, _open, check_table
+from sahaboltz.tables.hdf5 import (FORMAT_VERSION, _decode, _decode_str, _open, check_table,
+                                   format_error)
+from sahaboltz.tables.layout import STACKED, row_names
 from sahaboltz.tables.spec import PRESSURE_QUANTITIES
 
 _LOG_FLOOR = float(np.log(np.finfo(float).tiny))
@@ -32,13 +34,23 @@ METHODS = ("cubic", "linear")
 OUTSIDE = ("raise", "clip", "nan")
 
 
+def optional(module: str, what: str):
+    """Import an optional package, or say how to get it."""
+    import importlib
+    try:
+        return importlib.import_module(module)
+    except ImportError:
+        raise InputError(f"{what} needs the {module} package: pip install {module}") from None
+
+
 class PopulationTable:
-    """A population table opened for reading and interpolation.
+    """A population table opened for reading and interpolation (a context manager).
 
     Parameters
     ----------
     path : str or Path
-        A table written by :func:`~sahaboltz.tables.build.build_table`.
+        A table written by :func:`~sahaboltz.tables.build.build_table` (format 2; a format-1
+        file raises :class:`~sahaboltz.errors.TableError` saying it must be rebuilt).
     check : bool
         Run the quick integrity check on open (default True).
 
@@ -50,24 +62,38 @@ class PopulationTable:
         Pressure-like axis in the cgs unit of :attr:`pressure_quantity`.
     pressure_quantity : str
         ``gas_pressure``, ``electron_pressure``, ``mass_density`` or ``hydrogen_density``.
+    variables : dict
+        Stored variable -> its row labels (None for a scalar field), e.g.
+        ``{"electron_density": None, "fraction": ["H-", "H I", ...]}``.
     quantities : list of str
-        Names of the stored datasets.
+        Names of the single quantities: scalar fields and one name per row of a stacked
+        variable (``fraction_Fe_II``, ``number_density_H-``, ``number_density_CO``,
+        ``population_Fe_II_L3``, ``partition_Fe_I``, ``molecular_fraction_C``).
     attrs : dict
         Root attributes (provenance), JSON ones decoded.
     """
 
     def __init__(self, path: str | Path, *, check: bool = True):
         self.path = Path(path)
+        self._file = None
         if check:
             check_table(self.path)
-        with _open(self.path) as f:
-            self.attrs = {k: _decode(v) for k, v in f.attrs.items()}
-            self.pressure_quantity = str(self.attrs["pressure_quantity"])
-            self.temperature = f["temperature"][()]
-            self.pressure = f[self.pressure_quantity][()]
-            self.quantities = list(self.attrs["quantities"])
-        self._qset = set(self.quantities)
-        self._qattrs: dict[str, dict] = {}  # read on demand: opening thousands takes seconds
+        f = self._h5()
+        self.attrs = {k: _decode(v) for k, v in f.attrs.items()}
+        if self.attrs.get("format_version") != FORMAT_VERSION:
+            self.close()
+            raise format_error(self.path, self.attrs.get("format_version"))
+        self.pressure_quantity = str(self.attrs["pressure_quantity"])
+        self.temperature = f["temperature"][()]
+        self.pressure = f[self.pressure_quantity][()]
+        self.variables: dict[str, list | None] = {}
+        for var in self.attrs["variables"]:
+            st = STACKED.get(var)
+            self.variables[var] = (None if st is None else
+                                   [_decode_str(x) for x in f[st.dim][()]])
+        self._index = row_names(self.variables)
+        self.quantities = list(self._index)
+        self._qattrs: dict[str, dict] = {}
         self.pressure_unit = PRESSURE_QUANTITIES[self.pressure_quantity]
         self._data: dict[str, np.ndarray] = {}
         self._prepared: dict[str, tuple[np.ndarray, bool, np.ndarray | None]] = {}
@@ -75,28 +101,67 @@ class PopulationTable:
         self._lp = np.log(self.pressure)
         self._axes = (_Axis(self._lt), _Axis(self._lp))
 
+    # -- file handle and context manager ------------------------------------------------------
+    def _h5(self):
+        if self._file is None:
+            self._file = _open(self.path)
+        return self._file
+
+    def close(self) -> None:
+        """Close the file (the arrays already read stay usable)."""
+        if self._file is not None:
+            self._file.close()
+            self._file = None
+
+    def __enter__(self) -> "PopulationTable":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def __del__(self):
+        try:
+            self.close()
+        except Exception:  # noqa: BLE001 - interpreter shutdown
+            pass
+
     def __repr__(self) -> str:
         return (f"PopulationTable({str(self.path)!r}: {len(self.temperature)} x "
-                f"{len(self.pressure)}, {len(self.quantities)} quantities)")
+                f"{len(self.pressure)}, {len(self.variables)} variables, "
+                f"{len(self.quantities)} quantities)")
 
     def __contains__(self, name: str) -> bool:
-        return name in self._qset
+        return name in self._index or name in self.variables
 
     def units(self, name: str) -> str:
         """The ``units`` attribute of a quantity."""
         return str(self.quantity_attrs(name).get("units", ""))
 
     def quantity_attrs(self, name: str) -> dict[str, Any]:
-        """Attributes of a quantity's dataset (units, long_name, species ...)."""
-        self._known(name)
+        """Attributes of a quantity: its variable's (units, long_name) and, for a row, its
+        label and the coordinates of that row (charge, element, level energy, g ...)."""
+        if name in self.variables:
+            var, row = name, None
+        else:
+            self._known(name)
+            var, row = self._index[name]
         if name not in self._qattrs:
-            with _open(self.path) as f:
-                self._qattrs[name] = {k: _decode(v) for k, v in f[name].attrs.items()
-                                      if k != "DIMENSION_LIST"}
+            f = self._h5()
+            d = f[var]
+            a = {k: _decode(v) for k, v in d.attrs.items()
+                 if k not in ("DIMENSION_LIST", "REFERENCE_LIST")}
+            if row is not None:
+                st = STACKED[var]
+                a["variable"], a[st.dim] = var, self.variables[var][row]
+                for c in str(a.get("coordinates", "")).split():
+                    a[c] = _decode(f[c][row]) if not isinstance(f[c][row], bytes) \
+                        else _decode_str(f[c][row])
+                a.pop("coordinates", None)
+            self._qattrs[name] = a
         return dict(self._qattrs[name])
 
     def _known(self, name: str) -> None:
-        if name not in self._qset:
+        if name not in self._index:
             close = [q for q in self.quantities if name.lower() in q.lower()][:8]
             hint = f" (did you mean {', '.join(close)}?)" if close else ""
             raise InputError(f"table has no quantity {name!r}{hint}; it holds "
@@ -104,16 +169,43 @@ class PopulationTable:
                              f"{' ...' if len(self.quantities) > 12 else ''}")
 
     def __getitem__(self, name: str) -> np.ndarray:
-        """The stored grid of ``name``, shape (nT, nP)."""
+        """The stored grid of a quantity, shape (nT, nP); of a whole stacked variable
+        (``"fraction"``), shape (rows, nT, nP)."""
+        if name in self.variables and self.variables[name] is not None:
+            return self._read(name, slice(None))
         self._known(name)
         if name not in self._data:
-            with _open(self.path) as f:
-                try:
-                    self._data[name] = f[name][()]
-                except OSError as exc:
-                    raise TableError(f"{self.path}: dataset {name} is damaged ({exc}); delete "
-                                     f"the file and build the table again") from None
+            var, row = self._index[name]
+            self._data[name] = self._read(var, () if row is None else row)
         return self._data[name]
+
+    def _read(self, var: str, sel) -> np.ndarray:
+        try:
+            return self._h5()[var][sel]
+        except OSError as exc:
+            raise TableError(f"{self.path}: variable {var} is damaged ({exc}); delete "
+                             f"the file and build the table again") from None
+
+    # -- other views ---------------------------------------------------------------------------
+    def to_xarray(self):
+        """The table as an :class:`xarray.Dataset` (read lazily by xarray's ``h5netcdf``
+        engine; every coordinate, unit and long name comes from the file itself)."""
+        xr = optional("xarray", "to_xarray()")
+        optional("h5netcdf", "to_xarray()")
+        return xr.open_dataset(self.path, engine="h5netcdf")
+
+    def to_dataframe(self, names: str | Sequence[str] | None = None):
+        """Quantities as a :class:`pandas.DataFrame`, one row per grid state (index:
+        temperature and the pressure-like quantity); default: the scalar fields."""
+        pd = optional("pandas", "to_dataframe()")
+        if names is None:
+            names = [v for v, labs in self.variables.items() if labs is None]
+        elif isinstance(names, str):
+            names = [names]
+        t, p = np.meshgrid(self.temperature, self.pressure, indexing="ij")
+        index = pd.MultiIndex.from_arrays([t.ravel(), p.ravel()],
+                                          names=["temperature", self.pressure_quantity])
+        return pd.DataFrame({n: self[n].ravel() for n in names}, index=index)
 
     def _prepare(self, name: str) -> tuple[np.ndarray, bool, np.ndarray | None]:
         if name not in self._prepared:
