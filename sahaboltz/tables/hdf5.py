@@ -31,11 +31,10 @@ import numpy as np
 
 from sahaboltz._version import __version__
 from sahaboltz.errors import TableError
-from sahaboltz.tables.layout import AUX, DIM_LONG, STACKED, field_attrs
+from sahaboltz.tables.layout import (AUX, DIM_LONG, FORMAT_NAME, FORMAT_VERSION, STACKED,
+                                     field_attrs)
 from sahaboltz.tables.spec import PRESSURE_QUANTITIES, TableSpec
 
-FORMAT_NAME = "sahaboltz population table"
-FORMAT_VERSION = 2
 #: largest HDF5 chunk (= build block) in elements: 1 MB of float64
 MAX_CHUNK_ELEMENTS = 131072
 #: a stacked variable's chunk holds this many elements at least (rows x block states), so
@@ -338,17 +337,6 @@ def check_table(path: str | Path, *, key: str | None = None, full: bool = False)
         except (KeyError, OSError, ValueError, RuntimeError) as exc:
             raise TableError(f"{path} is damaged: {exc}. Delete it and build the table again.") \
                 from None
-
-
-def file_digest(path: str | Path, block: int = 1 << 22) -> str:
-    """CRC-32 of every byte of a file and its size, as ``"crc32:<hex>:<size>"`` (reads the
-    file once, about 1 GB/s; damage, not tampering, is what it is for)."""
-    crc, size = 0, 0
-    with open(path, "rb") as fh:
-        while chunk := fh.read(block):
-            crc = zlib.crc32(chunk, crc)
-            size += len(chunk)
-    return f"crc32:{crc:08x}:{size}"
 
 
 def _decode_str(v) -> str:

@@ -21,7 +21,6 @@ from typing import Any, Sequence
 import numpy as np
 
 from sahaboltz.errors import InputError, TableError
-from sahaboltz.quantities import as_positive_array
 from sahaboltz.tables.hdf5 import (FORMAT_VERSION, _decode, _decode_str, _open, check_table,
                                    format_error)
 from sahaboltz.tables.layout import STACKED, row_names
@@ -237,6 +236,8 @@ class PopulationTable:
         ndarray or dict of ndarray
             Broadcast shape of the inputs; a dict when ``names`` is a sequence.
         """
+        from sahaboltz.quantities import as_positive_array  # astropy: imported when used
+
         if method not in METHODS:
             raise InputError(f"method must be one of {METHODS}, got {method!r}")
         if outside not in OUTSIDE:

@@ -20,6 +20,10 @@ import numpy as np
 from sahaboltz.errors import TableError
 from sahaboltz.tables.spec import SCALAR_OUTPUTS
 
+FORMAT_NAME = "sahaboltz population table"
+#: the table format written and read; part of the cache key (a new layout gets new keys)
+FORMAT_VERSION = 2
+
 
 @dataclass(frozen=True)
 class Stacked:
