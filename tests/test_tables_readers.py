@@ -128,3 +128,18 @@ def test_docs_show_both_programs():
                   re.finditer(r"^```(c|fortran)\n(.*?)^```", text, re.S | re.M))
     assert blocks.get("c") == (READERS / "read_table.c").read_text()
     assert blocks.get("fortran") == (READERS / "read_table.f90").read_text()
+
+
+def test_ncdump_lists_the_table(table):
+    """netCDF-4's own tool reads names, dimensions, units and the string coordinate."""
+    if not shutil.which("ncdump"):
+        pytest.skip("ncdump (netCDF tools, e.g. the netcdf-bin package) is not installed")
+    head = subprocess.run(["ncdump", "-h", str(table)], capture_output=True, text=True,
+                          timeout=60)
+    assert head.returncode == 0, head.stderr
+    assert "double fraction(species, temperature, gas_pressure)" in head.stdout
+    assert 'temperature:units = "K"' in head.stdout
+    assert ':Conventions = "CF-1.8"' in head.stdout
+    data = subprocess.run(["ncdump", "-v", "species,charge", str(table)], capture_output=True,
+                          text=True, timeout=60)
+    assert 'species = "H I", "H II"' in data.stdout and "charge = 0, 1" in data.stdout

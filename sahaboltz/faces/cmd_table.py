@@ -82,7 +82,9 @@ def register(subparsers) -> None:
     q.add_argument("--points", metavar="CSV", help="CSV file with two columns T,P (header optional)")
     q.add_argument("-q", "--quantities", action="append", default=[], metavar="NAME,..",
                    help="quantities to interpolate (default: the scalar ones)")
-    q.add_argument("--method", choices=("cubic", "linear"), default="cubic")
+    q.add_argument("--method", choices=("quintic", "cubic", "linear"), default="quintic",
+                   help="Lagrange stencils: 6 x 4 points in (ln T, ln P) (default), 4 x 4, "
+                        "or bilinear")
     q.add_argument("--outside", choices=("raise", "clip", "nan"), default="raise",
                    help="points outside the grid: error (default), clamp, or NaN")
     add_format_option(q)

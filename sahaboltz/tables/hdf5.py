@@ -22,6 +22,7 @@ from __future__ import annotations
 import datetime as _dt
 import json
 import os
+import time
 import zlib
 from pathlib import Path
 from typing import Any, Mapping
@@ -97,10 +98,9 @@ def encode_field(arr: np.ndarray, block_shape: tuple[int, int], chunk_shape: tup
 
 
 def _str_array(values) -> np.ndarray:
-    """Fixed-length UTF-8 strings: C and Fortran read them as plain character arrays, and
-    xarray decodes them to text by the ``_Encoding`` attribute set beside them."""
-    enc = [str(v).encode() for v in values]
-    return np.array(enc, dtype=f"S{max(1, max((len(e) for e in enc), default=1))}")
+    """Variable-length UTF-8 strings: netCDF-4's own string type (``ncdump`` and xarray read
+    them as text; fixed-length strings netCDF shows as NIL)."""
+    return np.array([str(v) for v in values], dtype=h5py.string_dtype())
 
 
 def _text(value: str) -> np.bytes_:
@@ -118,9 +118,11 @@ class TableWriter:
 
     def __init__(self, path: str | Path, spec: TableSpec, provenance: Mapping[str, Any],
                  block_shape: tuple[int, int]):
+        t0 = time.perf_counter()
         self.path = Path(path)
         self.spec = spec
         self.file = h5py.File(self.path, "w", libver=("earliest", "v110"))
+        self.seconds = {"create": 0.0, "write": 0.0}  # file and variables; storing chunks
         if block_shape[0] * block_shape[1] > MAX_CHUNK_ELEMENTS:
             raise TableError(f"block {block_shape} is larger than the largest chunk "
                              f"({MAX_CHUNK_ELEMENTS} states)")
@@ -147,13 +149,12 @@ class TableWriter:
         punit = PRESSURE_QUANTITIES[spec.pressure.name]
         self._p = self._scale(spec.pressure.name, spec.pressure.array, punit,
                               spec.pressure.name.replace("_", " "))
+        self.seconds["create"] += time.perf_counter() - t0
 
     def _scale(self, name, values, unit, long_name):
         d = self.file.create_dataset(name, data=values)
         if unit:
             d.attrs["units"] = _text(unit)
-        if d.dtype.kind == "S":
-            d.attrs["_Encoding"] = _text("utf-8")
         d.attrs["long_name"] = _text(long_name)
         d.make_scale(name)
         return d
@@ -172,8 +173,6 @@ class TableWriter:
             d = f.create_dataset(name, data=_str_array(v) if v.dtype.kind in "OUS" else v)
             if unit:
                 d.attrs["units"] = _text(unit)
-            if d.dtype.kind == "S":
-                d.attrs["_Encoding"] = _text("utf-8")
             d.attrs["long_name"] = _text(long_name)
             d.dims[0].attach_scale(scales[dim])
             aux_of.setdefault(dim, []).append(name)
@@ -204,11 +203,14 @@ class TableWriter:
         """Store the block ``(i0, i1, j0, j1)``: ``values`` as made by the workers
         (:func:`sahaboltz.tables.build.run_block`): ``fields`` (arrays, or their chunks
         already encoded), ``labels`` and ``aux``."""
+        t0 = time.perf_counter()
         i0, i1, j0, j1 = block
         fields = {k: v for k, v in values["fields"].items()
                   if k not in (self.spec.temperature.name, self.spec.pressure.name)}
         if not self._datasets:
             self._create(list(fields), values["labels"], values["aux"])
+            self.seconds["create"] += time.perf_counter() - t0
+            t0 = time.perf_counter()
         elif set(fields) != set(self._datasets) or \
                 {k: [str(x) for x in v] for k, v in values["labels"].items()} != self._labels:
             raise TableError(f"compute function returned different quantities for block {block}: "
@@ -227,12 +229,15 @@ class TableWriter:
                     dsid.write_direct_chunk((g * k, i0, j0), raw)
             else:
                 dsid.write_direct_chunk((i0, j0), chunks[0])
+        self.seconds["write"] += time.perf_counter() - t0
 
     def finish(self, extra: Mapping[str, Any] | None = None) -> None:
         """Write the closing attributes, flush to disk and close."""
         f = self.file
         for k, v in (extra or {}).items():
             f.attrs[k] = v
+        f.attrs["create_seconds"] = round(self.seconds["create"], 4)
+        f.attrs["write_seconds"] = round(self.seconds["write"], 4)
         f.attrs["variables"] = json.dumps(list(self._datasets))
         f.attrs["complete"] = 1
         f.flush()

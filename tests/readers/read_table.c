@@ -36,23 +36,25 @@ static double *axis(hid_t file, const char *name, hsize_t *n)
     return v;
 }
 
-/* the row of a label ("Fe II") in a string coordinate ("species"), -1 if absent */
+/* the row of a label ("Fe II") in a string coordinate ("species"), -1 if absent;
+   the labels are variable-length strings, netCDF-4's string type */
 static long find_row(hid_t file, const char *coord, const char *label)
 {
     hid_t d = H5Dopen2(file, coord, H5P_DEFAULT);
     hid_t s = H5Dget_space(d);
     hsize_t n;
     H5Sget_simple_extent_dims(s, &n, NULL);
-    hid_t type = H5Tcopy(H5T_C_S1);
-    H5Tset_size(type, TEXT);
-    H5Tset_strpad(type, H5T_STR_NULLTERM);
-    char *names = calloc(n, TEXT);
+    hid_t ftype = H5Dget_type(d);                 /* read them as stored (UTF-8) */
+    hid_t type = H5Tget_native_type(ftype, H5T_DIR_DEFAULT);
+    char **names = malloc(n * sizeof *names);
     H5Dread(d, type, H5S_ALL, H5S_ALL, H5P_DEFAULT, names);
     long row = -1;
     for (hsize_t k = 0; k < n && row < 0; k++)
-        if (strcmp(names + k * TEXT, label) == 0) row = (long)k;
+        if (strcmp(names[k], label) == 0) row = (long)k;
+    H5Dvlen_reclaim(type, s, H5P_DEFAULT, names);
     free(names);
     H5Tclose(type);
+    H5Tclose(ftype);
     H5Sclose(s);
     H5Dclose(d);
     return row;

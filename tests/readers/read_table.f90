@@ -5,6 +5,7 @@
 ! Fortran is column-major: the (rows, nT, nP) variable appears as (nP, nT, rows).
 program read_table
   use hdf5
+  use iso_c_binding
   implicit none
   integer, parameter :: text = 256
   character(len=text) :: fname, var, coord, label, pq, units
@@ -77,25 +78,33 @@ contains
   end subroutine axis
 
   integer function find_row(name, want)     ! 0-based row of a label, -1 if absent
-    character(len=*), intent(in) :: name, want
-    integer(hid_t) :: dset, space, mtype
+    character(len=*), intent(in) :: name, want   ! labels: variable-length C strings
+    integer(hid_t) :: dset, space, ftype, mtype
     integer(hsize_t) :: dims(1), maxdims(1), k
-    character(len=text), allocatable :: labels(:)
+    type(c_ptr), allocatable, target :: labels(:)
+    type(c_ptr) :: buf
+    character(len=text, kind=c_char), pointer :: s
+    integer :: n
     call h5dopen_f(file, name, dset, err)
     call h5dget_space_f(dset, space, err)
     call h5sget_simple_extent_dims_f(space, dims, maxdims, err)
     allocate (labels(dims(1)))
-    call h5tcopy_f(H5T_FORTRAN_S1, mtype, err)
-    call h5tset_size_f(mtype, int(text, size_t), err)
-    call h5dread_f(dset, mtype, labels, dims, err)
+    call h5dget_type_f(dset, ftype, err)             ! read them as stored (UTF-8)
+    call h5tget_native_type_f(ftype, H5T_DIR_ASCEND_F, mtype, err)
+    buf = c_loc(labels(1))
+    call h5dread_f(dset, mtype, buf, err)
     find_row = -1
     do k = 1, dims(1)
-       if (trim(labels(k)) == want) then
+       call c_f_pointer(labels(k), s)
+       n = index(s, c_null_char) - 1
+       if (s(1:n) == want) then
           find_row = int(k) - 1
           exit
        end if
     end do
+    call h5dvlen_reclaim_f(mtype, space, H5P_DEFAULT_F, buf, err)
     call h5tclose_f(mtype, err)
+    call h5tclose_f(ftype, err)
     call h5sclose_f(space, err)
     call h5dclose_f(dset, err)
   end function find_row
