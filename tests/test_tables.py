@@ -541,3 +541,24 @@ def test_killed_parallel_build_leaves_no_workers_or_table(cache_env, tmp_path):
         time.sleep(0.1)
     assert not any(_alive(w) for w in workers)
     assert list(d.glob("*.h5")) == []
+
+
+def test_level_data_digest_is_remembered_by_file_stamps(tmp_path, monkeypatch):
+    """The key's level-data digest is data_digest's, remembered by file names, sizes and
+    times (in the process and in the cache directory) and recomputed when a file changes."""
+    from sahaboltz.data.database import data_digest
+    root = tmp_path / "levels"
+    (root / "atoms").mkdir(parents=True)
+    (root / "atoms" / "h_i.txt").write_text("# a level file\n0.0 2\n")
+    (root / "abundances.txt").write_text("H 12.0\n")
+    monkeypatch.setenv("SAHABOLTZ_LEVEL_DATA", str(root))
+    monkeypatch.setenv(cache.CACHE_ENV, str(tmp_path / "cache"))
+    monkeypatch.setattr(cache, "_DIGESTS", {})
+    first = cache.level_data_digest()
+    assert first == data_digest(root)
+    assert (tmp_path / "cache" / cache.DIGEST_MEMO).exists()
+    monkeypatch.setattr(cache, "_DIGESTS", {})  # a new process: the memo file answers
+    assert cache.level_data_digest() == first
+    (root / "abundances.txt").write_text("H 12.00\n")  # changed: size and time differ
+    changed = cache.level_data_digest()
+    assert changed != first and changed == data_digest(root)
