@@ -562,3 +562,30 @@ def test_level_data_digest_is_remembered_by_file_stamps(tmp_path, monkeypatch):
     (root / "abundances.txt").write_text("H 12.00\n")  # changed: size and time differ
     changed = cache.level_data_digest()
     assert changed != first and changed == data_digest(root)
+
+
+def _zero_below_10000(spec, t, p):
+    out = hydrogen_saha(t, p)
+    for name in ("fraction_H_I", "fraction_H_II"):
+        out[name] = np.where(t > 10000.0, out[name], 0.0)
+    return out
+
+
+def test_chunks_of_zeros_are_not_stored_and_read_as_zeros(tmp_path):
+    """A chunk that holds only zeros is left unwritten; every reader gets the fill value 0."""
+    spec = small_spec()
+    path = build_table(spec, tmp_path / "z.h5", compute=_zero_below_10000, workers=1,
+                       chunk_states=100, progress=False)
+    check_table(path, full=True)
+    t, p = np.meshgrid(spec.temperature.array, spec.pressure.array, indexing="ij")
+    want = _zero_below_10000(None, t, p)["fraction_H_II"]
+    with h5py.File(path, "r") as f:
+        d = f["fraction"]
+        assert 0 < d.id.get_num_chunks() < len(list(d.iter_chunks()))
+        assert d.fillvalue == 0.0
+    with open_table(path) as tab:
+        assert np.array_equal(tab["fraction_H_II"], want)
+    xr = pytest.importorskip("xarray")
+    pytest.importorskip("h5netcdf")
+    with xr.open_dataset(path, engine="h5netcdf") as ds:  # zeros, not missing values
+        assert np.array_equal(ds["fraction"].sel(species="H II").values, want)

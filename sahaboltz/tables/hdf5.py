@@ -85,16 +85,24 @@ def rows_per_chunk(n_rows: int, block_states: int) -> int:
 
 
 def encode_field(arr: np.ndarray, block_shape: tuple[int, int], chunk_shape: tuple[int, int],
-                 stacked: bool) -> list[bytes]:
+                 stacked: bool) -> list[bytes | None]:
     """The chunks of one variable over one block (``block_shape`` states; smaller than
-    ``chunk_shape`` at the grid edge): one, or one per group of rows of a stacked variable."""
+    ``chunk_shape`` at the grid edge): one, or one per group of rows of a stacked variable.
+
+    A chunk of zeros only is None: it is not written, and HDF5 reads an unwritten chunk as the
+    variable's fill value, 0.  High stages of heavy elements are exactly 0 (underflow) over
+    much of a grid, so this skips most of the compression of a solar table.
+    """
     bt, bp = block_shape
     if not stacked:
-        return [encode_chunk(arr.reshape(bt, bp), chunk_shape)]
+        a = arr.reshape(bt, bp)
+        return [encode_chunk(a, chunk_shape) if a.any() else None]
     n = arr.shape[0]
     k = rows_per_chunk(n, chunk_shape[0] * chunk_shape[1])
     a = arr.reshape(n, bt, bp)
-    return [encode_chunk(a[r:r + k], (k,) + tuple(chunk_shape)) for r in range(0, n, k)]
+    nonzero = np.add.reduceat(np.any(a, axis=(1, 2)), np.arange(0, n, k)) > 0
+    return [encode_chunk(a[r:r + k], (k,) + tuple(chunk_shape)) if nz else None
+            for r, nz in zip(range(0, n, k), nonzero)]
 
 
 def _str_array(values) -> np.ndarray:
@@ -187,7 +195,7 @@ class TableWriter:
                 shape, chunks = self.spec.shape, self.chunks
             d = f.create_dataset(name, shape=shape, dtype="<f8", chunks=chunks,
                                  compression="gzip", compression_opts=GZIP_LEVEL, shuffle=True,
-                                 fletcher32=True)
+                                 fletcher32=True, fillvalue=0.0)  # unwritten chunks: zeros
             for k_, v_ in field_attrs(name).items():
                 d.attrs[k_] = _text(v_)
             axes = [self._t, self._p]
@@ -226,8 +234,9 @@ class TableWriter:
             if stacked:
                 k = self._rows[name]
                 for g, raw in enumerate(chunks):
-                    dsid.write_direct_chunk((g * k, i0, j0), raw)
-            else:
+                    if raw is not None:
+                        dsid.write_direct_chunk((g * k, i0, j0), raw)
+            elif chunks[0] is not None:
                 dsid.write_direct_chunk((i0, j0), chunks[0])
         self.seconds["write"] += time.perf_counter() - t0
 
