@@ -2,7 +2,9 @@
 
 A grid of N_T x N_P (T, P_gas) states (default 200 x 200, T = 1,000 K - 1e6 K and
 P_gas = 1e-4 - 1e10 dyn cm^-2, log spaced), solar composition (Asplund et al. 2009), every
-element with data, every ionization stage, H- included, plain partition functions.
+element with data, every ionization stage, H- included, plain partition functions (the
+reference's physics); first, the default physics (occupation probabilities) is timed against
+the plain sums on the same grid, as a ratio.
 
 The reference solves one state at a time with scipy.optimize.brentq on ln n_e, with the same
 physics: the same Saha chains (the same ln-population tables C_q(T), handed to it precomputed
@@ -23,6 +25,7 @@ from __future__ import annotations
 
 import argparse
 import time
+import warnings
 
 import numpy as np
 from scipy.optimize import brentq
@@ -30,6 +33,7 @@ from scipy.optimize import brentq
 from sahaboltz.constants import K_B
 from sahaboltz.data.composition import solar
 from sahaboltz.equilibrium import AtomicNetwork, solve_equilibrium
+from sahaboltz.errors import TruncationWarning
 
 
 def reference_solver(network: AtomicNetwork):
@@ -104,6 +108,7 @@ def main(argv=None) -> None:
     ap.add_argument("--np", dest="npr", type=int, default=200)
     ap.add_argument("--subset", type=int, default=400, help="states solved by the reference")
     ap.add_argument("--tmax", type=float, default=1e6)
+    ap.add_argument("--repeat", type=int, default=3, help="repeats of the plain/default pair")
     args = ap.parse_args(argv)
 
     temps = np.geomspace(1e3, args.tmax, args.nt)
@@ -112,7 +117,7 @@ def main(argv=None) -> None:
     comp = solar()
 
     t0 = time.perf_counter()
-    network = AtomicNetwork(comp)
+    network = AtomicNetwork(comp, truncation="plain")
     t_net = time.perf_counter() - t0
     print(f"grid: {args.nt} x {args.npr} states; {len(comp)} elements, {network.n_species} "
           f"species (all stages, H-); {len(network.unit_partition)} stages without levels "
@@ -120,8 +125,43 @@ def main(argv=None) -> None:
     print(f"network set-up (database, partition-function models): {t_net:.2f} s "
           "(shared, not counted below)")
 
+    # the default physics (occupation probabilities, density-dependent U) against the plain
+    # sums, in this process, alternating, best of --repeat
+    default_net = AtomicNetwork(comp)
+    solve_equilibrium(comp, tt[:2, :2], gas_pressure=pp[:2, :2], network=default_net)  # compile
+    # the check behind the warning that an explicit plain sum misleads is timed on its own
+    from sahaboltz.equilibrium import solver as _solver
+    from sahaboltz.equilibrium.validity import plain_excess
+    warn_plain, _solver.warn_plain = _solver.warn_plain, lambda state, stacklevel=3: None
+    times = {"plain": [], "default": []}
+    for _ in range(args.repeat):
+        for name, net in (("plain", network), ("default", default_net)):
+            t0 = time.perf_counter()
+            st = solve_equilibrium(comp, tt, gas_pressure=pp, network=net,
+                                   truncation=net.truncation)
+            times[name].append(time.perf_counter() - t0)
+            if name == "default":
+                default_state = st
+            else:
+                st_plain = st
+    t0 = time.perf_counter()
+    plain_excess(st_plain)
+    t_check = time.perf_counter() - t0
+    _solver.warn_plain = warn_plain
+    ratio = min(times["default"]) / min(times["plain"])
+    print(f"default physics (occupation probabilities): best {min(times['default']):.2f} s, "
+          f"median {np.median(times['default']):.2f} s; plain sums: best "
+          f"{min(times['plain']):.2f} s, median {np.median(times['plain']):.2f} s; "
+          f"ratio {ratio:.2f} (best) {np.median(times['default']) / np.median(times['plain']):.2f}"
+          f" (median); passes: mean {default_state.report.mean_passes:.2f}, "
+          f"max {int(default_state.report.passes.max())}")
+    print(f"  (the check of an explicit plain sum against the weighted one, not in the plain "
+          f"time above: {t_check:.2f} s)")
+
     t0, c0 = time.perf_counter(), time.process_time()
-    state = solve_equilibrium(comp, tt, gas_pressure=pp, network=network)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", TruncationWarning)
+        state = solve_equilibrium(comp, tt, gas_pressure=pp, network=network, truncation="plain")
     t_vec, c_vec = time.perf_counter() - t0, time.process_time() - c0
     print(f"vectorized solver: {t_vec:.2f} s wall, {c_vec:.2f} s CPU for {tt.size} states "
           f"({c_vec / tt.size * 1e6:.1f} us CPU per state)")

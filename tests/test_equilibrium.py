@@ -26,6 +26,7 @@ def _phi_h(t):
     return (2.0 / partition_function("H I", t) * lam * boltz).to(u.cm**-3).value
 
 
+@pytest.mark.filterwarnings("ignore::sahaboltz.errors.TruncationWarning")
 def test_pure_hydrogen_closed_form():
     t = np.geomspace(3000.0, 1e5, 40)[:, None]
     nh = np.geomspace(1e6, 1e22, 30)[None, :]

@@ -30,7 +30,8 @@ from sahaboltz.equilibrium.closures import Closure
 from sahaboltz.equilibrium.network import AtomicNetwork
 from sahaboltz.equilibrium.state import (CONVERGED, NOT_CONVERGED, STRONGLY_COUPLED,
                                          UNREACHABLE, EquilibriumState, SolveReport)
-from sahaboltz.kernels.plasma import _debye_length, _lowering_ev
+from sahaboltz.equilibrium.validity import COUPLING_LIMIT
+from sahaboltz.kernels.plasma import _coupling, _debye_length, _lowering_ev
 
 __all__ = ["solve_atomic", "DEFAULT_TOLERANCE"]
 
@@ -47,6 +48,10 @@ _LOG_FLOOR = -300.0
 # significance threshold of the windows when U depends on n_e: the low-density-limit tables
 # that place the windows overestimate each U, by up to this margin above the usual e^-40
 _DENSITY_THR = 45.0
+# the low-density-limit solve only starts the density-dependent one: a loose tolerance will do
+_START_TOLERANCE = 1e-6
+# a density-dependent Newton step below this times sqrt(tol) is the last one (see run)
+_FINAL_STEP = 1e-4
 
 
 def solve_atomic(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closure: Closure, *,
@@ -94,6 +99,7 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
     x_out = np.empty(n)
     nuc_out = np.empty(n)
     lam_out = np.empty(n) if lowering else None
+    ne_last = np.full(n, np.nan)  # last iterate of the lowering fixed point, where unsettled
     passes = np.zeros(n, dtype=int)
     resid = np.empty(n)
     failed = np.zeros(n, dtype=bool)
@@ -125,7 +131,7 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
                                         None if fixed_n is None else fixed_n[idx],
                                         None if ntot is None else ntot[idx], lowering, tol,
                                         max_passes)
-            x_out[idx], nuc_out[idx], passes[idx], resid[idx], done, lam = out
+            x_out[idx], nuc_out[idx], passes[idx], resid[idx], done, lam, ne_last[idx] = out
             failed[idx] = ~done
             if lowering:
                 lam_out[idx] = lam
@@ -143,6 +149,7 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
         _classify_failures(network, closure, t, v, resid, passes, bad, status, reason)
     if lowering:
         _check_lowering(network, lam_out, ~bad, status, reason)
+        _unsettled_coupling(t, ne_last, status, reason)
     failed = status != CONVERGED
     x_out[failed] = nuc_out[failed] = np.nan
     if lam_out is not None:
@@ -211,11 +218,11 @@ def _solve_density_block(network, t, v, closure, fixed_n, ntot, tables, ut, tol,
     n_e, and the derivative of the charge balance includes them (exact Newton, bracketed).
     """
     start = _ChunkSolver(network, t, v, closure, fixed_n, ntot, tables)
-    start.run(tol, max_passes)
+    start.run(max(tol, _START_TOLERANCE), max_passes)
     x0 = np.where(np.isfinite(start.x), start.x, start.x_hi - 1.0)
     solver = _ChunkSolver(network, t, v, closure, fixed_n, ntot, tables)
     moments = _DensityMoments(network, t, tables, ut)
-    solver.run(tol, max_passes, moments=moments, x0=x0)
+    solver.run(tol, max_passes, moments=moments, x0=x0, final_step=_FINAL_STEP * np.sqrt(tol))
     return solver.x, solver.nuc, start.passes + solver.passes, solver.resid, solver.done
 
 
@@ -272,8 +279,9 @@ class _DensityMoments:
         lu = dlu = np.zeros(0)
         if npairs:
             st = np.concatenate(pair_state)
-            u, _, dlu = self.net.model.evaluate_pairs(t[st], ne[st], np.concatenate(pair_row),
-                                                      want_temperature=False)
+            u, _, dlu = self.net.model.evaluate_pairs(t, ne, np.concatenate(pair_row),
+                                                      want_temperature=False,
+                                                      temperature_index=tp, states=st)
             lu = np.log(u)
         zbar, slope, zabs, z2 = (np.zeros(m) for _ in range(4))
         for c, rows, where, first, inside in plans:
@@ -319,6 +327,7 @@ def _solve_nonideal_block(network, t, v, closure, fixed_n, ntot, lowering, tol, 
     resid = np.full(m, np.inf)
     done = np.zeros(m, dtype=bool)
     lam_out = np.full(m, np.nan)
+    ne_last = np.full(m, np.nan)
     x_hi = _x_upper(network, closure, t, v, fixed_n, ntot)
     # start from the weakly non-ideal branch: no lowering, a low density for the occupation
     # probabilities (starting from full ionization can land on a spurious self-sustained
@@ -357,11 +366,13 @@ def _solve_nonideal_block(network, t, v, closure, fixed_n, ntot, lowering, tol, 
         # states whose frozen-correction solve failed cannot be helped by iterating
         keep = ~conv & ok
         resid[act[~ok]] = child.resid[~ok]
+        ne_last[act[~ok]] = ne_th[~ok]
         act = act[keep]
         ne_th, s_th = ne_new[keep], s_new[keep]
     if act.size:
         resid[act] = np.maximum(resid[act], tol * 10)
-    return x, nuc, passes, resid, done, lam_out
+        ne_last[act] = ne_th
+    return x, nuc, passes, resid, done, lam_out, ne_last
 
 
 def _check_lowering(network, lam, ok, status, reason) -> None:
@@ -375,6 +386,21 @@ def _check_lowering(network, lam, ok, status, reason) -> None:
             reason[i] = (f"the Debye-Hueckel lowering reaches the ionization energy of "
                          f"{c.symbol}: the plasma is too strongly coupled for this model "
                          f"(Debye length {lam[i]:.3g} cm)")
+
+
+def _unsettled_coupling(t, ne_last, status, reason) -> None:
+    """Refuse, as strongly coupled, the states whose lowering fixed point did not settle while
+    its last iterate had Gamma_e above the validity limit: next to the strong-coupling edge
+    the Debye-Hueckel correction changes faster than the balance can follow, and the model
+    does not hold there anyway."""
+    idx = np.flatnonzero((status == NOT_CONVERGED) & np.isfinite(ne_last))
+    if not idx.size:
+        return
+    gamma = _coupling(t[idx], ne_last[idx])
+    for i, g in zip(idx[gamma > COUPLING_LIMIT], gamma[gamma > COUPLING_LIMIT]):
+        status[i] = STRONGLY_COUPLED
+        reason[i] = (f"the Debye-Hueckel correction does not settle: its last iterate has "
+                     f"Gamma_e = {g:.3g} > {COUPLING_LIMIT:g}, too strongly coupled for this model")
 
 
 class _ChunkSolver:
@@ -431,12 +457,15 @@ class _ChunkSolver:
         nref = self.fixed_n if self.fixed_n is not None else self.ntot
         return np.minimum(0.5 * (np.log(nref) + ln_sum), self.x_hi - 1e-9)
 
-    def run(self, tol, max_passes, moments=None, x0=None):
+    def run(self, tol, max_passes, moments=None, x0=None, final_step=None):
         """Safeguarded Newton in x = ln n_e.
 
         ``moments(active, x) -> (Zbar, -dZbar/dx, <|q|>, <q^2>)`` per nucleus; default: from the
         windows over the fixed Saha tables.  ``x0``: starting values (default: the
-        weak-ionization estimate).
+        weak-ionization estimate).  ``final_step``: accept a state after an unsafeguarded
+        Newton step no longer than this, without evaluating it again (for expensive
+        moments: Newton converges quadratically, so the step's own error is of the order of
+        its square).
         """
         m = self.t.size
         fixed_pe = self.fixed_n is None and self.ntot is None
@@ -518,6 +547,19 @@ class _ChunkSolver:
             xn = np.where(np.isfinite(la), xn, np.maximum(xn, xa - _MAX_STEP))
             prev[a] = step[a] = np.abs(xn - xa)
             x[a] = xn
+            if final_step is not None:
+                last = ~outside & (step[a] <= final_step)
+                if self.ntot is not None:
+                    last &= self.ntot[a] > np.exp(xn)
+                fin = a[last]
+                self.done[fin] = True
+                self.x[fin] = xn[last]
+                self.nuc[fin] = (self.fixed_n[fin] if self.fixed_n is not None
+                                 else self.ntot[fin] - np.exp(xn[last]))
+                self.resid[fin] = np.maximum(rel[keep][last] * step[fin], step[fin] ** 2)
+                a = a[~last]
+                if not a.size:
+                    break
             active = a
 
 

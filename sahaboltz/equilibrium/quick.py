@@ -183,7 +183,8 @@ def stage_table(state: EquilibriumState, elements: Iterable | None = None, index
     Returns
     -------
     list of dict
-        Keys: element, species, charge, fraction, number_density_cm-3, dominant.
+        Keys: element, species, charge, fraction, number_density_cm-3, U (the partition
+        function of the solve), dominant; with lowering also lowering_eV.
     """
     if state.shape and index is None:
         raise InputError(f"stage_table: the state has shape {state.shape}; give index=")
@@ -201,7 +202,11 @@ def stage_table(state: EquilibriumState, elements: Iterable | None = None, index
             if f[j] < min_fraction and j != top:
                 continue
             name = chain.names[int(np.flatnonzero(chain.charges == q[j])[0])]
-            rows.append({"element": chain.symbol, "species": name, "charge": int(q[j]),
-                         "fraction": float(f[j]), "number_density_cm-3": float(dens[j]),
-                         "dominant": j == top})
+            row = {"element": chain.symbol, "species": name, "charge": int(q[j]),
+                   "fraction": float(f[j]), "number_density_cm-3": float(dens[j]),
+                   "U": float(state.partition_function(name)[idx])}
+            if state.lowering:
+                row["lowering_eV"] = float(state.lowering_ev(name)[idx])
+            row["dominant"] = j == top
+            rows.append(row)
     return rows

@@ -16,6 +16,7 @@ import numpy as np
 from sahaboltz.constants import AMU, K_B
 from sahaboltz.equilibrium.network import AtomicNetwork, Chain
 from sahaboltz.errors import InputError, NoDataError
+from sahaboltz.kernels import truncation as _truncation
 from sahaboltz.kernels.plasma import (_coupling, _debye_length, _degeneracy, _lowering_ev,
                                       _mcwhirter)
 from sahaboltz.kernels.saha import chain_fractions
@@ -387,7 +388,10 @@ class EquilibriumState:
                 "mass_density_g_cm-3": float(self.mass_density[idx]),
                 "nuclei_density_cm-3": float(self.nuclei_density[idx]),
                 "mean_molecular_weight": float(self.mean_molecular_weight[idx]),
-                "mean_charge": float(self.mean_charge[idx])}
+                "mean_charge": float(self.mean_charge[idx]),
+                "truncation": _truncation.used(self.network.scheme, self.lowering),
+                "coupling_parameter": float(self.coupling_parameter[idx]),
+                "degeneracy_parameter": float(self.degeneracy_parameter[idx])}
 
     def to_xarray(self, dims=None):
         """The state as an :class:`xarray.Dataset`: bulk fields, and ``fraction`` and
@@ -399,4 +403,3 @@ class EquilibriumState:
     def __repr__(self) -> str:
         return (f"EquilibriumState({self.composition.name!r}, shape={self.shape}, "
                 f"closure={self.closure}, {self.network.n_species} species)")
-

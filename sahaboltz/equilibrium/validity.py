@@ -16,6 +16,7 @@ import numpy as np
 
 from sahaboltz.errors import TruncationWarning, ValidityWarning
 from sahaboltz.kernels import truncation as _truncation
+from sahaboltz.kernels.occupation import stark_state_factors
 
 #: n_e lambda_e^3 above which the electron gas counts as degenerate
 DEGENERACY_LIMIT = 1.0
@@ -61,6 +62,7 @@ def plain_excess(state) -> dict[str, int]:
     occ = net.model.with_scheme(_truncation.get("occupation"))
     # screen: U_occ / U_plain >= w of the species' highest level, so only pairs whose top
     # level is weighted below 1/PLAIN_EXCESS need the full sums
+    stark = stark_state_factors(t, np.where(ok, ne, 1.0))
     pairs_state, pairs_row, names = [], [], []
     for c in net.chains:
         f = state._chain_fractions(c).reshape(c.n, -1)
@@ -71,7 +73,7 @@ def plain_excess(state) -> dict[str, int]:
             if not sel.size:
                 continue
             r = c.model_offset + row
-            w_top = occ.top_weight(r, t[sel], ne[sel])
+            w_top = occ.top_weight(r, *(v[sel] for v in stark))
             sel = sel[w_top < 1.0 / PLAIN_EXCESS]
             pairs_state.append(sel)
             pairs_row.append(np.full(sel.size, r))
@@ -80,8 +82,11 @@ def plain_excess(state) -> dict[str, int]:
         return {}
     st_idx = np.concatenate(pairs_state)
     rows = np.concatenate(pairs_row)
-    u_occ = occ.evaluate_pairs(t[st_idx], ne[st_idx], rows, want_temperature=False)[0]
-    u_plain = net.model.evaluate_pairs(t[st_idx], ne[st_idx], rows, want_temperature=False)[0]
+    u_occ = occ.evaluate_pairs(t, ne, rows, want_temperature=False, states=st_idx)[0]
+    # the plain sums through the same (compiled) pair sums: at n_e = 1e-30 cm^-3 every
+    # weight is 1 to within 1e-40
+    u_plain = occ.evaluate_pairs(t, np.full(t.size, 1e-30), rows, want_temperature=False,
+                                 states=st_idx)[0]
     flagged = u_plain > PLAIN_EXCESS * u_occ
     which = np.concatenate(names)[flagged]
     return {net.species_names[i]: int(n) for i, n in zip(*np.unique(which, return_counts=True))}

@@ -10,9 +10,10 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+import warnings
 
 from sahaboltz._version import __version__
-from sahaboltz.errors import SahaboltzError
+from sahaboltz.errors import SahaboltzError, SahaboltzWarning
 
 #: modules that add subcommands, in the order they appear in ``--help``
 COMMAND_MODULES = [
@@ -49,11 +50,25 @@ def build_parser(argv: list[str] | None = None) -> argparse.ArgumentParser:
     return parser
 
 
+def _notes(showwarning):
+    """A ``warnings.showwarning`` that prints the package's own warnings (validity, a
+    misleading truncation) as one line each on stderr and leaves the others as they are."""
+    def show(message, category, filename, lineno, file=None, line=None):
+        if issubclass(category, SahaboltzWarning):
+            text = " ".join(str(message).split())
+            print(f"sahaboltz: note: {text}", file=sys.stderr)
+        else:
+            showwarning(message, category, filename, lineno, file, line)
+    return show
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser(sys.argv[1:] if argv is None else argv)
     args = parser.parse_args(argv)
     try:
-        return int(args.func(args) or 0)
+        with warnings.catch_warnings():
+            warnings.showwarning = _notes(warnings.showwarning)
+            return int(args.func(args) or 0)
     except SahaboltzError as exc:
         print(f"sahaboltz: error: {exc}", file=sys.stderr)
         return 2

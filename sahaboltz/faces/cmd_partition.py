@@ -10,12 +10,13 @@ from sahaboltz.faces.output import add_format_option, emit
 from sahaboltz.faces.state_options import truncation_option
 from sahaboltz.kernels import truncation as registry
 from sahaboltz.kernels.boltzmann import level_populations, select_levels
-from sahaboltz.kernels.partition import PartitionModel
+from sahaboltz.kernels.partition import PartitionModel, default_truncation
 
 
 def _add_truncation_options(p) -> None:
-    p.add_argument("--truncation", type=truncation_option, default="plain", metavar="SCHEME",
-                   help=f"how the level sum is truncated (default plain): "
+    p.add_argument("--truncation", type=truncation_option, default=None, metavar="SCHEME",
+                   help="how the level sum is truncated (default: occupation with --n-e, "
+                        "lowered with --lowering, plain at a temperature alone): "
                         f"{registry.choices_help()}")
     p.add_argument("--completion", action="store_true",
                    help="add hydrogenic Rydberg levels of the parent above the highest "
@@ -80,6 +81,30 @@ def _temperatures(args) -> np.ndarray:
     raise InputError("give temperatures with -T/--temperature or --range START STOP N")
 
 
+def _scheme(args) -> str:
+    """The truncation to use: the one asked for, else the best for what is given."""
+    return default_truncation(args.truncation, args.n_e, args.lowering).key
+
+
+def _warn_plain(args, species, t, u) -> None:
+    """An explicit plain sum next to a given n_e: say where it exceeds the weighted one."""
+    if args.truncation != "plain" or args.n_e is None:
+        return
+    import warnings
+
+    from sahaboltz.equilibrium.validity import PLAIN_EXCESS
+    from sahaboltz.errors import TruncationWarning
+
+    occ = PartitionModel(species, "occupation").evaluate(t, args.n_e, None, args.n_neutral)
+    over = [f"{sp.name} (by {100 * (r - 1):.0f} %)" for sp, r in
+            zip(species, (u / occ).max(axis=1)) if r > PLAIN_EXCESS]
+    if over:
+        warnings.warn(TruncationWarning(
+            f"truncation='plain' exceeds the occupation-weighted partition function at "
+            f"n_e = {args.n_e:g} cm-3 for {', '.join(over)}: the default with --n-e "
+            "(occupation) is the physically sound one"))
+
+
 def _lowering(args, n_species: int):
     if args.lowering is None:
         return None
@@ -90,9 +115,10 @@ def run_partition(args) -> int:
     db = default_database()
     species = [db.species(name) for name in args.species]
     t = _temperatures(args)
-    model = PartitionModel(species, args.truncation, args.completion)
+    model = PartitionModel(species, _scheme(args), args.completion)
     u, dlnu = model.evaluate_with_derivative(t, args.n_e, _lowering(args, len(species)),
                                              args.n_neutral)
+    _warn_plain(args, species, t, u)
     rows = []
     for k, temp in enumerate(t):
         row = {"T_K": float(temp)}
@@ -101,7 +127,7 @@ def run_partition(args) -> int:
             if args.derivative:
                 row[f"dlnU/dlnT({sp.name})"] = float(dlnu[i, k])
         rows.append(row)
-    meta = {"truncation": args.truncation, "completion": args.completion}
+    meta = {"truncation": model.truncation, "completion": args.completion}
     if args.n_e is not None:
         meta["n_e_cm-3"] = args.n_e
     if args.lowering is not None:
@@ -118,11 +144,13 @@ def run_populations(args) -> int:
                 if v is not None}
     sel = select_levels(sp, **criteria) if criteria else np.flatnonzero(sp.bound)
     low = None if args.lowering is None else args.lowering
-    pops = level_populations(sp, args.temperature, truncation=args.truncation,
+    scheme = _scheme(args)
+    pops = level_populations(sp, args.temperature, truncation=scheme,
                              completion=args.completion, n_e=args.n_e, lowering_ev=low,
                              n_neutral=args.n_neutral)
-    model = PartitionModel([sp], args.truncation, args.completion)
+    model = PartitionModel([sp], scheme, args.completion)
     u = float(model.evaluate(args.temperature, args.n_e, _lowering(args, 1), args.n_neutral)[0])
+    _warn_plain(args, [sp], np.atleast_1d(float(args.temperature)), np.atleast_2d(u))
     lv = sp.levels
     ground = pops[0] if pops[0] > 0 else np.nan
     rows = []
@@ -131,7 +159,7 @@ def run_populations(args) -> int:
                      "term": str(lv.term[i]), "J": str(lv.j[i]), "g": float(lv.g[i]),
                      "energy_eV": float(lv.energy_ev[i]), "fraction": float(pops[i]),
                      "n/n_ground": float(pops[i] / ground)})
-    meta = {"T_K": args.temperature, "U": u, "truncation": args.truncation,
+    meta = {"T_K": args.temperature, "U": u, "truncation": scheme,
             "selected_fraction": float(pops[sel].sum())}
     if args.n_e is not None:
         meta["n_e_cm-3"] = args.n_e

@@ -99,8 +99,15 @@ def run_half(args) -> int:
     emit(rows, args.format,
          title=f"half-ionization temperatures of {args.element} at {which} = {value:g} dyn cm^-2",
          meta={"searched_K": f"{args.tmin:g} - {args.tmax:g}",
+               "truncation": _truncation_used(args.lowering),
                "transitions_found": len(rows)})
     return 0
+
+
+def _truncation_used(lowering: bool) -> str:
+    from sahaboltz.kernels import truncation
+
+    return truncation.used(truncation.resolve(None, lowering), lowering)
 
 
 def _emit_budget(state, elements, args) -> int:

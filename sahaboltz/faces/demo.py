@@ -61,7 +61,7 @@ def star_spec(quick: bool = False):
         "pressure": {"quantity": "gas_pressure", "scale": "log", "min": 1e2, "max": 1e6,
                      "num": 9 if quick else 41},
         "composition": {"name": "solar", "metallicity": STAR["metallicity"]},
-        "physics": {"truncation": "plain", "lowering": False},
+        "physics": {"lowering": False},       # default truncation: occupation probabilities
         "outputs": {"stage_fractions": list(STAR_FRACTIONS)},
     })
 
@@ -76,8 +76,7 @@ def arc_spec(quick: bool = False):
         "pressure": {"quantity": "gas_pressure", "scale": "values",
                      "values": [0.5 * ATM, ATM, 2.0 * ATM]},
         "composition": {"abundances": {"Ar": 1.0}},
-        "physics": {"truncation": "lowered" if ARC["lowering"] else "plain",
-                    "lowering": ARC["lowering"]},
+        "physics": {"lowering": ARC["lowering"]},   # lowered cut with lowering, else occupation
         "outputs": {"stage_fractions": ["Ar"], "partition_functions": ["Ar I", "Ar II"]},
     })
 

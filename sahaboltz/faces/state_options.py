@@ -60,8 +60,9 @@ def add_mixture_options(p) -> None:
     p.add_argument("--lowering", action="store_true",
                    help="Debye-Hueckel lowering of the ionization energies (self-consistent)")
     p.add_argument("--truncation", type=truncation_option, default=None, metavar="SCHEME",
-                   help="partition-function truncation (default: lowered with --lowering, "
-                        f"else plain): {_truncation.choices_help()}")
+                   help="partition-function truncation (default: occupation "
+                        "probabilities; lowered with --lowering): "
+                        f"{_truncation.choices_help()}")
     p.add_argument("--no-h-minus", action="store_true", help="leave H- out")
     p.add_argument("--molecules", choices=("none", "default", "all"), default="none",
                    help="diatomic molecules in the equilibrium (Barklem & Collet 2016 data; "

@@ -226,15 +226,14 @@ class PartitionModel:
         other.truncation = scheme.key
         return other
 
-    def top_weight(self, row: int, temperature: np.ndarray, n_e: np.ndarray) -> np.ndarray:
+    def top_weight(self, row: int, p_: np.ndarray, a_: np.ndarray, b_: np.ndarray
+                   ) -> np.ndarray:
         """Charged-perturber occupation probability of the highest packed level of species
-        ``row`` at the states (T, n_e): the smallest w of its levels, so U_occupation >=
-        top_weight * U_plain."""
-        from sahaboltz.kernels.occupation import stark_state_factors
-        last = int(self._starts[row] + self._counts[row] - 1)
-        p, a, b = stark_state_factors(np.asarray(temperature, float), np.asarray(n_e, float))
-        s = p * self._q_stark[last]
-        return 1.0 / (1.0 + s * (a * s + b))
+        ``row`` at states given by their factors (P, A, B) of
+        :func:`~sahaboltz.kernels.occupation.stark_state_factors`: the smallest w of its
+        levels, so U_occupation >= top_weight * U_plain."""
+        s = p_ * self._q_stark[int(self._starts[row] + self._counts[row] - 1)]
+        return 1.0 / (1.0 + s * (a_ * s + b_))
 
     def subset(self, start: int, stop: int) -> "PartitionModel":
         """The species ``start:stop`` of this model as a model of their own (a view on the
@@ -326,7 +325,9 @@ class PartitionModel:
         return u, u1 / u, u2 / u
 
     def evaluate_pairs(self, temperature: np.ndarray, n_e: np.ndarray, rows: np.ndarray,
-                       n_neutral: np.ndarray | None = None, *, want_temperature: bool = True
+                       n_neutral: np.ndarray | None = None, *, want_temperature: bool = True,
+                       temperature_index: np.ndarray | None = None,
+                       states: np.ndarray | None = None
                        ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
         """(U, d ln U / d ln T, d ln U / d ln n_e) of one species per state: the flat pairs
         (``temperature[p]``, ``n_e[p]``, species ``rows[p]``), unchecked float arrays.
@@ -334,13 +335,28 @@ class PartitionModel:
         For solvers that need a different set of species at every state: the work is the
         levels of each pair's species alone (pruned as in :meth:`evaluate`), in one
         vectorized pass over all pairs.  ``want_temperature=False`` skips the temperature
-        derivative (None).  Schemes with a per-state lowering are not supported.
+        derivative (None).  ``temperature_index`` may give each pair's position among the
+        distinct temperatures (a caller that knows it spares a sort).  With ``states``, the
+        state arguments are given once per state and pair ``p`` belongs to state
+        ``states[p]`` (the scheme's state factors are then computed once per state).  Schemes
+        with a per-state lowering are not supported.
         """
         if "lowering_ev" in self.scheme.inputs:
             raise InputError("evaluate_pairs: a lowering per state is not supported here")
         t = np.asarray(temperature, dtype=float)
         rows = np.asarray(rows, dtype=np.intp)
         npair = rows.size
+        pst = {"T": t, "ne": np.asarray(n_e, dtype=float)}
+        if n_neutral is not None:
+            pst["nn"] = np.asarray(n_neutral, dtype=float)
+        self.scheme.prepare_pairs(self, pst)
+        if states is not None:   # from per-state to per-pair values
+            states = np.asarray(states, dtype=np.intp)
+            pst = {k: tuple(a[states] for a in v) if isinstance(v, tuple) else v[states]
+                   for k, v in pst.items()}
+            t = pst["T"]
+            if temperature_index is not None:
+                temperature_index = np.asarray(temperature_index)[states]
         beta = 1.0 / (K_B_EV * t)
         # levels of each pair's species that pass the Boltzmann pruning (a prefix: sorted by E)
         if not hasattr(self, "_pair_keys"):
@@ -349,10 +365,17 @@ class PartitionModel:
         start = self._starts[rows]
         count = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
         count = np.clip(count, 1, self._counts[rows])
-        pst = {"T": t, "ne": np.asarray(n_e, dtype=float)}
-        if n_neutral is not None:
-            pst["nn"] = np.asarray(n_neutral, dtype=float)
-        self.scheme.prepare_pairs(self, pst)
+        if temperature_index is None:
+            t_u, tidx = np.unique(t, return_inverse=True)
+        else:
+            tidx = np.asarray(temperature_index, dtype=np.intp)
+            t_u = np.ones(int(tidx.max()) + 1 if tidx.size else 0)
+            t_u[tidx] = t
+        fast = self.scheme.pair_sums(self, tidx, 1.0 / (K_B_EV * t_u), rows, start, count, pst,
+                                     want_temperature)
+        if fast is not None:
+            u, u1, u2 = fast
+            return u, u1 / u if want_temperature else None, u2 / u
         u, u2 = np.zeros(npair), np.zeros(npair)
         u1 = np.zeros(npair) if want_temperature else None
         # blocks of consecutive pairs with about _PAIR_BLOCK level terms each

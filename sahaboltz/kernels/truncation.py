@@ -108,7 +108,8 @@ class TruncationScheme:
         return None
 
     def prepare_pairs(self, model, pst: dict) -> None:
-        """For :meth:`PartitionModel.evaluate_pairs`: per-pair state values into ``pst``."""
+        """For :meth:`PartitionModel.evaluate_pairs`: the scheme's state values into ``pst``
+        (arrays, or tuples of arrays, along ``pst["T"]``: per state or per pair)."""
 
     def bound_state_weight(self, binding_ev: float, temperature: np.ndarray,
                            n_e: np.ndarray):
@@ -121,6 +122,15 @@ class TruncationScheme:
         """For :meth:`PartitionModel.evaluate_pairs`: (ln w, d ln w / d ln T or None,
         d ln w / d ln n_e) of the flat level terms ``lv``, ``counts[j]`` of them for each pair
         ``pairs.start + j``; None when every w = 1."""
+        return None
+
+    def pair_sums(self, model, tidx: np.ndarray, beta_u: np.ndarray, rows: np.ndarray,
+                  start: np.ndarray, count: np.ndarray, pst: dict,
+                  want_temperature: bool = True):
+        """For :meth:`PartitionModel.evaluate_pairs`: the sums (U, U1, U2) of every pair at
+        once by a compiled loop (:mod:`sahaboltz.kernels.compiled`), or None to let the
+        numpy path use :meth:`pair_weights`.  ``tidx`` indexes each pair's temperature in
+        the distinct ones, whose 1/kT are ``beta_u``."""
         return None
 
 
@@ -315,6 +325,15 @@ class OccupationProbability(TruncationScheme):
         pst["stark"] = stark_state_factors(pst["T"], pst["ne"])
         pst["stark_slopes"] = stark_state_slopes(pst["T"], pst["ne"])
 
+    def pair_sums(self, model, tidx, beta_u, rows, start, count, pst, want_temperature=True):
+        from sahaboltz.kernels import compiled
+        if not compiled.available():
+            return None
+        return compiled.occupation_pair_sums(tidx, rows, beta_u, pst["stark"],
+                                             pst["stark_slopes"], pst.get("nn"), start, count,
+                                             model._e, model._lng, model._q_stark, model._r3,
+                                             model.n_species, want_temperature)
+
     def pair_weights(self, model, lv, counts, pairs, pst, want_temperature=True):
         p_, a_, b_ = (np.repeat(v[pairs], counts) for v in pst["stark"])
         aa, ab = (np.repeat(v[pairs], counts) for v in pst["stark_slopes"])
@@ -421,6 +440,11 @@ def get(truncation: Any) -> TruncationScheme:
 def label(truncation: Any) -> str:
     """The plot/notes phrase of a scheme."""
     return get(truncation).label
+
+
+def used(scheme: Any, lowering: bool) -> str:
+    """What a solve used, as outputs name it: the scheme's key, and the lowering if on."""
+    return get(scheme).key + (" with Debye-Hueckel lowering" if lowering else "")
 
 
 def resolve(truncation: Any, lowering: bool = False, density: bool = True) -> TruncationScheme:

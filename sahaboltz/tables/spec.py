@@ -71,7 +71,7 @@ name = "solar"              # Asplund et al. (2009); optional metallicity = -0.5
 # He = 0.085
 
 [physics]
-truncation = "plain"        # {truncations}  (default "lowered" with lowering)
+truncation = "occupation"   # {truncations}  (default "lowered" with lowering)
 lowering = false            # Debye-Hueckel ionization-potential lowering
 completion = false          # hydrogenic completion of the level lists (not with "plain")
 h_minus = true              # include H-

@@ -1,0 +1,123 @@
+"""Compiled inner loops (numba), with the pure-numpy code as the reference and fallback.
+
+The occupation-weighted level sums of the density-dependent solve evaluate one species per
+state at every Newton pass: a few thousand level terms per state, each with a logarithm, an
+exponential and a dozen multiplications.  In numpy every one of those is a pass over a
+temporary array (and the per-pair gathers np.repeat); a compiled loop keeps each term in
+registers and is about ten times faster.  The formulas are those of
+:meth:`sahaboltz.kernels.truncation.OccupationProbability.pair_weights` (the fit of
+:mod:`sahaboltz.kernels.occupation`); tests/test_compiled.py checks both paths agree.
+
+numba is optional: without it (or with SAHABOLTZ_NO_NUMBA=1 in the environment) the numpy
+path runs, with the same results to rounding.
+"""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+
+try:  # pragma: no cover - depends on the installation
+    if os.environ.get("SAHABOLTZ_NO_NUMBA"):
+        raise ImportError("disabled by SAHABOLTZ_NO_NUMBA")
+    import numba
+except ImportError:  # pragma: no cover
+    numba = None
+
+__all__ = ["available", "occupation_pair_sums"]
+
+
+def available() -> bool:
+    """Whether the compiled kernels are in use."""
+    return numba is not None and not os.environ.get("SAHABOLTZ_NO_NUMBA")
+
+
+def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, count, e, lng,
+                          q, r3, n_rows, want_temperature, u, u1, u2):
+    """Per pair k: U = sum_l g_l w_l exp(-beta E_l) over levels start[k] .. start[k]+count[k],
+    U1 = sum term (beta E + d ln w / d ln T), U2 = sum term d ln w / d ln n_e.
+
+    w = exp(-nn4 r3) / (1 + s (A s + B)) with s = P Q_l (charged perturbers, the state
+    factors P, A, B and their slopes aa = a dA/da, ab = a dB/da; neutral hard spheres
+    with nn4 = 4 pi n_neutral / 3).  The Boltzmann factors g exp(-beta E) depend on the
+    temperature and the level alone: they are computed once for each (temperature
+    ``tidx[k]``, species ``rows[k]``) that occurs, so the loop over the pairs needs no
+    exponential at all.
+    """
+    npair = tidx.size
+    slot = np.full(beta_u.size * n_rows, -1, dtype=np.int64)
+    offset = np.empty(npair, dtype=np.int64)
+    total = 0
+    for k in range(npair):
+        key = tidx[k] * n_rows + rows[k]
+        if slot[key] < 0:
+            slot[key] = total
+            total += count[k]
+        offset[k] = slot[key]
+    table = np.empty(total)
+    filled = np.zeros(beta_u.size * n_rows, dtype=np.bool_)
+    for k in range(npair):
+        key = tidx[k] * n_rows + rows[k]
+        if not filled[key]:
+            filled[key] = True
+            bk = beta_u[tidx[k]]
+            o = offset[k]
+            for j in range(count[k]):
+                lv = start[k] + j
+                table[o + j] = np.exp(lng[lv] - bk * e[lv])
+    for k in range(npair):
+        bk = beta_u[tidx[k]]
+        pk, ak, bbk, aak, abk, nk = p_[k], a_[k], b_[k], aa[k], ab[k], nn4[k]
+        o = offset[k] - start[k]
+        lo, hi = start[k], start[k] + count[k]
+        su = 0.0
+        s1 = 0.0
+        s2 = 0.0
+        if nk == 0.0 and not want_temperature:
+            # the solver's case: a loop without branches, which the compiler vectorizes
+            for lv in range(lo, hi):
+                sv = pk * q[lv]
+                inv = 1.0 / (1.0 + sv * (ak * sv + bbk))
+                term = table[o + lv] * inv
+                su += term
+                s2 -= term * inv * sv * (sv * (2.0 * ak + aak / 6.0) + bbk + abk / 6.0)
+        else:
+            for lv in range(lo, hi):
+                sv = pk * q[lv]
+                inv = 1.0 / (1.0 + sv * (ak * sv + bbk))
+                term = table[o + lv] * inv * np.exp(-nk * r3[lv])
+                su += term
+                da = sv * (sv * aak + abk)
+                s2 -= term * ((sv * (2.0 * sv * ak + bbk) + da / 6.0) * inv)
+                s1 += term * (bk * e[lv] + 0.5 * da * inv)
+        u[k] = su
+        u1[k] = s1
+        u2[k] = s2
+
+
+if numba is not None:  # pragma: no branch
+    _occupation_pair_sums_jit = numba.njit(
+        cache=True, nogil=True, fastmath={"reassoc", "contract", "arcp", "nsz"})(
+        _occupation_pair_sums)
+
+
+def occupation_pair_sums(tidx, rows, beta_u, stark, slopes, nn, start, count, e, lng, q, r3,
+                         n_rows: int, want_temperature: bool):
+    """(U, U1, U2) of the pairs (see :func:`_occupation_pair_sums`), compiled.
+
+    ``tidx`` indexes the distinct temperatures' ``beta_u`` = 1/kT [eV^-1]; ``rows`` the
+    species of each pair among ``n_rows``; ``stark`` = (P, A, B) and ``slopes`` =
+    (a dA/da, a dB/da) per pair (:func:`~sahaboltz.kernels.occupation.stark_state_factors`,
+    ``stark_state_slopes``); ``nn`` the neutral-perturber density per pair or None.
+    """
+    n = tidx.size
+    u, u1, u2 = np.empty(n), np.empty(n), np.empty(n)
+    nn4 = np.zeros(n) if nn is None else (4.0 * np.pi / 3.0) * np.asarray(nn, dtype=float)
+    f64 = [np.ascontiguousarray(v, dtype=float) for v in (beta_u, *stark, *slopes)]
+    _occupation_pair_sums_jit(np.ascontiguousarray(tidx, dtype=np.int64),
+                              np.ascontiguousarray(rows, dtype=np.int64), *f64, nn4,
+                              np.ascontiguousarray(start, dtype=np.int64),
+                              np.ascontiguousarray(count, dtype=np.int64), e, lng, q, r3,
+                              int(n_rows), bool(want_temperature), u, u1, u2)
+    return u, u1, u2

@@ -1,0 +1,67 @@
+"""The compiled occupation-weighted level sums against the numpy path they replace.
+
+Both evaluate the same published fit (Hubeny, Hummer & Lanz 1994, see
+sahaboltz/kernels/occupation.py); the numpy path is the reference here, and the level sums
+of a whole model (PartitionModel.evaluate, numpy only) are the second, independent one.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from sahaboltz.data.database import default_database
+from sahaboltz.kernels import compiled
+from sahaboltz.kernels.partition import PartitionModel
+
+pytestmark = pytest.mark.skipif(not compiled.available(), reason="numba is not installed")
+
+NAMES = ("H I", "He I", "C II", "O I", "Na I", "Ca I", "Fe I", "Fe II")
+
+
+@pytest.fixture(scope="module")
+def model():
+    db = default_database()
+    return PartitionModel([db.species(n) for n in NAMES], "occupation")
+
+
+def _pairs(seed=3, n=3000):
+    rng = np.random.default_rng(seed)
+    t_u = np.geomspace(2500.0, 2e5, 40)
+    ti = rng.integers(0, t_u.size, n)
+    return t_u[ti], 10.0 ** rng.uniform(6, 24, n), rng.integers(0, len(NAMES), n), ti
+
+
+@pytest.mark.parametrize("neutral", [False, True])
+def test_compiled_pair_sums_equal_the_numpy_path(model, monkeypatch, neutral):
+    t, ne, rows, ti = _pairs()
+    nn = 1e-3 * ne if neutral else None
+    fast = model.evaluate_pairs(t, ne, rows, nn, temperature_index=ti)
+    fast_sorted = model.evaluate_pairs(t, ne, rows, nn)   # its own temperature index
+    monkeypatch.setattr(compiled, "available", lambda: False)
+    slow = model.evaluate_pairs(t, ne, rows, nn)
+    for a, b, c in zip(fast, fast_sorted, slow):
+        np.testing.assert_allclose(a, c, rtol=1e-12, atol=1e-14)
+        np.testing.assert_array_equal(a, b)
+
+
+def test_compiled_pair_sums_equal_whole_model_sums(model):
+    t, ne, rows, ti = _pairs(seed=5, n=400)
+    u, dlt, dln = model.evaluate_pairs(t, ne, rows, temperature_index=ti)
+    full_u, full_t, full_n = model.evaluate_derivatives(t, ne)
+    pick = (rows, np.arange(t.size))
+    np.testing.assert_allclose(u, full_u[pick], rtol=1e-12)
+    np.testing.assert_allclose(dlt, full_t[pick], rtol=1e-10, atol=1e-12)
+    np.testing.assert_allclose(dln, full_n[pick], rtol=1e-10, atol=1e-12)
+
+
+def test_solver_gives_the_same_state_on_both_paths(monkeypatch):
+    from sahaboltz.data.composition import solar
+    from sahaboltz.equilibrium import solve_equilibrium
+
+    t = np.array([4000.0, 9000.0, 2e4, 1e5])
+    p = np.array([1e6, 1e5, 1e3, 1e8])
+    fast = solve_equilibrium(solar(), t, gas_pressure=p)
+    monkeypatch.setattr(compiled, "available", lambda: False)
+    slow = solve_equilibrium(solar(), t, gas_pressure=p)
+    np.testing.assert_allclose(fast.n_e, slow.n_e, rtol=1e-10)
