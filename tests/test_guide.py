@@ -2,9 +2,9 @@
 line of a ```sh block that starts with ``sahaboltz`` (through the CLI entry point), in an
 empty directory with a private table cache; a ```toml block whose first line is
 ``# NAME.toml: ...`` is written to NAME.toml when it is reached.  The C and Fortran examples
-cannot be compiled here (no HDF5 development files are assumed), so their dataset paths are
-checked against the table the guide builds; the guide's links to other documents must
-resolve."""
+are the reader programs of tests/readers (compiled and run by tests/test_tables_readers.py);
+here their arguments are checked against the table the guide builds.  The guide's links to
+other documents must resolve."""
 
 from __future__ import annotations
 
@@ -91,26 +91,30 @@ def test_guide_examples_run(tmp_path, monkeypatch):
     path = Path(built.split()[-1])
     with h5py.File(path, "r") as f:
         assert f["temperature"].size == 31 and f["gas_pressure"].size == 9
-        assert "partition_Fe_II" in f and "fraction_Ca_II" in f and "fraction_O_I" not in f
+        assert "Fe II" in list(f["partition_species"].asstr()[:])
+        species = list(f["species"].asstr()[:])
+        assert "Ca II" in species and "O I" not in species
 
 
-def test_c_and_fortran_examples_name_real_datasets(tmp_path, monkeypatch):
-    """The datasets the C/Fortran examples open exist in the table the guide builds."""
+def test_c_and_fortran_examples_read_the_guides_table(tmp_path, monkeypatch):
+    """The C/Fortran examples are the programs tests/test_tables_readers.py compiles and runs,
+    and what the guide runs them on exists in the table the guide builds."""
+    readers = Path(__file__).resolve().parent / "readers"
+    for kind, name in (("c", "read_table.c"), ("fortran", "read_table.f90")):
+        (text,) = [t for k, t in blocks(kind)]
+        assert text == (readers / name).read_text(), f"the guide's {kind} example is not {name}"
     monkeypatch.chdir(tmp_path)
     build = [ln for _, t in blocks("sh") for ln in commands(t) if " -o first.h5" in ln]
     assert len(build) == 1
     run_command(build[0])
+    runs = re.findall(r"\./read_table (\S+) (\w+) (\w+) \"([^\"]+)\"", GUIDE.read_text())
+    assert runs
     with h5py.File(tmp_path / "first.h5", "r") as f:
-        for kind in ("c", "fortran"):
-            (text,) = [t for k, t in blocks(kind)]
-            assert '"first.h5"' in text
-            paths = set(re.findall(r'"(/[A-Za-z_]+)"', text))
-            assert "/temperature" in paths and "/fraction_Fe_II" in paths
-            for p in paths:
-                assert p in f, f"{kind} example opens {p}, which the table does not have"
-                assert f[p].dtype.kind == "f" and f[p].dtype.itemsize == 8
-            # the layout the text describes: (nT, nP), temperature first
-            assert f["fraction_Fe_II"].shape == (f["temperature"].size, f["gas_pressure"].size)
+        for file, var, coord, label in runs:
+            assert file == "first.h5" and var in f and coord in f
+            assert label in list(f[coord].asstr()[:])
+            # the layout the text describes: (rows, nT, nP), temperature before pressure
+            assert f[var].shape == (f[coord].size, f["temperature"].size, f["gas_pressure"].size)
 
 
 def test_guide_links_resolve():

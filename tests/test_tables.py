@@ -97,10 +97,13 @@ def test_build_matches_closed_form_at_grid_points(tmp_path):
                        chunk_states=97, progress=False)  # many odd-sized blocks on 2 processes
     t, p = np.meshgrid(spec.temperature.array, spec.pressure.array, indexing="ij")
     ref = hydrogen_saha(t, p)
-    with h5py.File(path, "r") as f:
+    with open_table(path) as tab:
         for name in ("fraction_H_I", "fraction_H_II", "electron_density", "mass_density"):
-            np.testing.assert_allclose(f[name][()], ref[name], rtol=1e-13)
-        assert "gas_pressure" not in json.loads(f.attrs["quantities"])  # it is the axis
+            np.testing.assert_allclose(tab[name], ref[name], rtol=1e-13)
+    with h5py.File(path, "r") as f:
+        assert "gas_pressure" not in json.loads(f.attrs["variables"])  # it is the axis
+        # the stage fractions are one variable with a species dimension
+        np.testing.assert_allclose(f["fraction"][1], ref["fraction_H_II"], rtol=1e-13)
     # no temporary file left next to the table
     assert [x.name for x in tmp_path.iterdir()] == ["h.h5"]
 
@@ -110,16 +113,23 @@ def test_layout_is_self_describing(tmp_path):
     path = build_table(spec, tmp_path / "h.h5", compute=hydrogen_compute, workers=1,
                        progress=False, provenance={"level_data_digest": "abc"})
     with h5py.File(path, "r") as f:
-        assert f["temperature"].attrs["units"] == "K"
-        assert f["gas_pressure"].attrs["units"] == "dyn cm-2"
-        d = f["fraction_H_II"]
-        assert [dim[0].name for dim in d.dims] == ["/temperature", "/gas_pressure"]
-        assert d.dims[0][0].is_scale and d.dims[1][0].is_scale
-        assert d.attrs["units"] == "1" and d.attrs["species"] == "H II"
-        assert f["electron_density"].attrs["units"] == "cm-3"
+        assert f["temperature"].attrs["units"] == b"K"
+        assert f["gas_pressure"].attrs["units"] == b"dyn cm-2"
+        d = f["fraction"]
+        assert [dim[0].name for dim in d.dims] == ["/species", "/temperature", "/gas_pressure"]
+        assert all(dim[0].is_scale for dim in d.dims)
+        assert d.attrs["units"] == b"1" and [s.decode() for s in f["species"][()]] == ["H I", "H II"]
+        assert list(f["charge"][()]) == [0, 1] and d.attrs["coordinates"].split()[0] == b"charge"
+        assert f["electron_density"].dims[0][0].name == "/temperature"
+        assert f["electron_density"].attrs["units"] == b"cm-3"
         for k in ("package_version", "created", "spec", "composition", "physics",
-                  "level_data_digest", "format_version"):
+                  "level_data_digest", "format_version", "Conventions"):
             assert k in f.attrs
+        assert int(f.attrs["format_version"]) == 2
+        # every chunk carries HDF5's Fletcher-32 checksum (the filter, readable everywhere)
+        plist = d.id.get_create_plist()
+        assert h5py.h5z.FILTER_FLETCHER32 in [plist.get_filter(i)[0]
+                                              for i in range(plist.get_nfilters())]
         assert int(f.attrs["complete"]) == 1
         assert TableSpec.from_json(f.attrs["spec"]).canonical() == spec.canonical()
 
@@ -130,11 +140,23 @@ def test_xarray_reads_table_without_custom_code(tmp_path):
     spec = small_spec()
     path = build_table(spec, tmp_path / "h.h5", compute=hydrogen_compute, workers=1, progress=False)
     with xr.open_dataset(path, engine="h5netcdf") as ds:
-        assert ds["fraction_H_II"].dims == ("temperature", "gas_pressure")
+        assert ds["fraction"].dims == ("species", "temperature", "gas_pressure")
         t0, p0 = spec.temperature.values[17], spec.pressure.values[9]
-        got = float(ds["fraction_H_II"].sel(temperature=t0, gas_pressure=p0))
+        got = float(ds["fraction"].sel(species="H II", temperature=t0, gas_pressure=p0))
         assert got == pytest.approx(float(hydrogen_saha(t0, p0)["fraction_H_II"]), rel=1e-13)
         assert ds["electron_density"].attrs["units"] == "cm-3"
+        assert ds["gas_pressure"].attrs["units"] == "dyn cm-2"
+        assert int(ds["charge"].sel(species="H II")) == 1  # a coordinate, from the CF attribute
+        assert "charge" in ds.coords
+    # the reader's own views give the same
+    with open_table(path) as tab:
+        ds = tab.to_xarray()
+        assert float(ds["fraction"].sel(species="H II", temperature=t0, gas_pressure=p0)) == got
+        ds.close()
+        df = tab.to_dataframe(["electron_density", "fraction_H_II"])
+        assert df.index.names == ["temperature", "gas_pressure"] and len(df) == spec.size
+        assert df.loc[(t0, p0), "fraction_H_II"] == got
+    assert tab._file is None  # the context manager closed the file
 
 
 def test_failing_compute_leaves_no_file(tmp_path):
@@ -200,7 +222,7 @@ def test_flipped_bytes_in_data_are_caught_by_checksums(tmp_path):
     spec = small_spec()
     path = build_table(spec, tmp_path / "h.h5", compute=hydrogen_compute, workers=1, progress=False)
     with h5py.File(path, "r") as f:
-        info = f["fraction_H_II"].id.get_chunk_info(0)
+        info = f["fraction"].id.get_chunk_info(0)
     with open(path, "r+b") as fh:
         fh.seek(info.byte_offset + info.size // 2)
         chunk = fh.read(8)
@@ -208,6 +230,70 @@ def test_flipped_bytes_in_data_are_caught_by_checksums(tmp_path):
         fh.write(bytes(b ^ 0xFF for b in chunk))
     with pytest.raises(TableError):
         check_table(path, full=True)
+    # any reader of that chunk gets an error (Fletcher-32), not numbers
+    with open_table(path, check=False) as tab, pytest.raises(TableError, match="damaged"):
+        tab["fraction_H_II"]
+
+
+def test_our_chunk_checksum_is_hdf5s(tmp_path):
+    """Chunks the workers encode carry the checksum HDF5's own Fletcher-32 filter writes."""
+    from sahaboltz.tables.hdf5 import encode_chunk
+    rng = np.random.default_rng(3)
+    for shape in [(1, 1), (3, 7), (40, 25), (2, 16, 33)]:
+        a = rng.lognormal(size=shape)
+        a[a < 0.5] = 0.0
+        with h5py.File(tmp_path / "ref.h5", "w") as f:
+            d = f.create_dataset("a", data=a, chunks=shape, compression="gzip",
+                                 compression_opts=1, shuffle=True, fletcher32=True)
+            ref = d.id.read_direct_chunk((0,) * a.ndim)[1]
+        ours = encode_chunk(a, shape)
+        assert ours[-4:] == ref[-4:] and ours == ref
+
+
+def _zero_middle(path: Path, nbytes: int = 4096) -> None:
+    size = path.stat().st_size
+    with open(path, "r+b") as fh:
+        fh.seek(size // 2 - nbytes // 2)
+        fh.write(b"\0" * nbytes)
+
+
+def test_zeroed_bytes_in_a_cached_table_are_caught_and_rebuilt(cache_env):
+    """4 KB of zeros in the middle of a cached file: the next hit warns and rebuilds."""
+    d, marker = cache_env
+    spec = small_spec(nt=120, npres=60)
+    path = cache.get_table(spec, compute=hydrogen_compute, workers=1, progress=False)
+    good = path.read_bytes()
+    assert cache.get_table(spec, compute=hydrogen_compute, workers=1, progress=False) == path
+    _zero_middle(path)
+    assert path.read_bytes() != good
+    n = len(calls(marker))
+    with pytest.warns(cache.TableCacheWarning, match="damaged"):
+        again = cache.get_table(spec, compute=hydrogen_compute, workers=1, progress=False)
+    assert again == path and len(calls(marker)) > n
+    check_table(path, full=True)
+    with open_table(path) as tab:
+        t, p = np.meshgrid(spec.temperature.array, spec.pressure.array, indexing="ij")
+        np.testing.assert_allclose(tab["fraction_H_II"], hydrogen_saha(t, p)["fraction_H_II"],
+                                   rtol=1e-13)
+
+
+def test_format_1_file_says_rebuild(tmp_path):
+    path = tmp_path / "old.h5"
+    with h5py.File(path, "w") as f:  # the root attributes of a format-1 table
+        f.attrs["format_name"] = "sahaboltz population table"
+        f.attrs["format_version"] = 1
+        f.attrs["complete"] = 1
+    with pytest.raises(TableError, match="format-1 table.*Build it again"):
+        open_table(path)
+    with pytest.raises(TableError, match="format-1"):
+        open_table(path, check=False)
+
+
+def test_format_version_is_part_of_the_key(monkeypatch):
+    from sahaboltz.tables import hdf5
+    a = cache.table_key(small_spec(), hydrogen_compute)
+    monkeypatch.setattr(cache, "FORMAT_VERSION", hdf5.FORMAT_VERSION + 1)
+    assert cache.table_key(small_spec(), hydrogen_compute) != a
 
 
 def _subprocess_env(tmp_path, **extra):
@@ -395,7 +481,8 @@ def test_cli_build_inspect_query_cache(cache_env, tmp_path, capsys):
 
     rc, out = run_cli(["table", "inspect", row["key"], "--verify", "--format", "json"], capsys)
     doc = json.loads(out)
-    assert {r["quantity"] for r in doc["rows"]} >= {"fraction_H_II", "electron_density"}
+    assert {r["variable"] for r in doc["rows"]} >= {"fraction", "electron_density"}
+    assert [r["rows"] for r in doc["rows"] if r["variable"] == "fraction"] == [2]
 
     rc, out = run_cli(["table", "query", row["path"], "--at", "10000,100", "--at", "6000,1e4",
                        "-q", "fraction_H_II", "--format", "csv"], capsys)
@@ -454,3 +541,51 @@ def test_killed_parallel_build_leaves_no_workers_or_table(cache_env, tmp_path):
         time.sleep(0.1)
     assert not any(_alive(w) for w in workers)
     assert list(d.glob("*.h5")) == []
+
+
+def test_level_data_digest_is_remembered_by_file_stamps(tmp_path, monkeypatch):
+    """The key's level-data digest is data_digest's, remembered by file names, sizes and
+    times (in the process and in the cache directory) and recomputed when a file changes."""
+    from sahaboltz.data.database import data_digest
+    root = tmp_path / "levels"
+    (root / "atoms").mkdir(parents=True)
+    (root / "atoms" / "h_i.txt").write_text("# a level file\n0.0 2\n")
+    (root / "abundances.txt").write_text("H 12.0\n")
+    monkeypatch.setenv("SAHABOLTZ_LEVEL_DATA", str(root))
+    monkeypatch.setenv(cache.CACHE_ENV, str(tmp_path / "cache"))
+    monkeypatch.setattr(cache, "_DIGESTS", {})
+    first = cache.level_data_digest()
+    assert first == data_digest(root)
+    assert (tmp_path / "cache" / cache.DIGEST_MEMO).exists()
+    monkeypatch.setattr(cache, "_DIGESTS", {})  # a new process: the memo file answers
+    assert cache.level_data_digest() == first
+    (root / "abundances.txt").write_text("H 12.00\n")  # changed: size and time differ
+    changed = cache.level_data_digest()
+    assert changed != first and changed == data_digest(root)
+
+
+def _zero_below_10000(spec, t, p):
+    out = hydrogen_saha(t, p)
+    for name in ("fraction_H_I", "fraction_H_II"):
+        out[name] = np.where(t > 10000.0, out[name], 0.0)
+    return out
+
+
+def test_chunks_of_zeros_are_not_stored_and_read_as_zeros(tmp_path):
+    """A chunk that holds only zeros is left unwritten; every reader gets the fill value 0."""
+    spec = small_spec()
+    path = build_table(spec, tmp_path / "z.h5", compute=_zero_below_10000, workers=1,
+                       chunk_states=100, progress=False)
+    check_table(path, full=True)
+    t, p = np.meshgrid(spec.temperature.array, spec.pressure.array, indexing="ij")
+    want = _zero_below_10000(None, t, p)["fraction_H_II"]
+    with h5py.File(path, "r") as f:
+        d = f["fraction"]
+        assert 0 < d.id.get_num_chunks() < len(list(d.iter_chunks()))
+        assert d.fillvalue == 0.0
+    with open_table(path) as tab:
+        assert np.array_equal(tab["fraction_H_II"], want)
+    xr = pytest.importorskip("xarray")
+    pytest.importorskip("h5netcdf")
+    with xr.open_dataset(path, engine="h5netcdf") as ds:  # zeros, not missing values
+        assert np.array_equal(ds["fraction"].sel(species="H II").values, want)

@@ -7,6 +7,7 @@ import pytest
 from sahaboltz.data.composition import Composition
 from sahaboltz.equilibrium import solve_equilibrium
 from sahaboltz.faces.cli import main
+from sahaboltz.tables.interpolate import open_table
 
 
 def _build(tmp_path, capsys, *opts):
@@ -21,8 +22,8 @@ def test_mass_fraction_mix_with_lowering(tmp_path, capsys, monkeypatch):
     monkeypatch.setenv("SAHABOLTZ_CACHE_DIR", str(tmp_path / "cache"))
     path = _build(tmp_path, capsys, "--temperature", "9000,15000", "--pressure", "1.013e6,2e6",
                   "--mix", "Ar:1", "--by", "mass", "--lowering")
-    with h5py.File(path) as f:
-        frac = f["fraction_Ar_II"][:, 0]
+    with open_table(path) as tab:
+        frac = tab["fraction_Ar_II"][:, 0]
     # the same state solved directly: argon with lowering (truncation at the lowered limit)
     direct = solve_equilibrium(Composition.from_number({"Ar": 1}), [9000.0, 15000.0],
                                gas_pressure=1.013e6, lowering=True).fraction("Ar II")
@@ -33,14 +34,23 @@ def test_molecules_are_stored_per_element(tmp_path, capsys, monkeypatch):
     monkeypatch.setenv("SAHABOLTZ_CACHE_DIR", str(tmp_path / "cache"))
     path = _build(tmp_path, capsys, "--temperature", "2500,5000", "--pressure", "1e6,2e6",
                   "--molecules", "default", "--fractions", "H,C,O")
-    with h5py.File(path) as f:
-        mol_h = f["molecular_fraction_H"][:, 0]
-        assert f["molecular_fraction_C"].attrs["units"] == "1"
-        h1 = f["fraction_H_I"][:, 0]
+    with open_table(path) as tab:
+        mol_h = tab["molecular_fraction_H"][:, 0]
+        assert tab.units("molecular_fraction_C") == "1"
+        h1 = tab["fraction_H_I"][:, 0]
+        assert "number_density_H2" in tab and "number_density_CO" in tab
+        assert tab.units("number_density_CO") == "cm-3"
+        n_h2, n_hm = tab["number_density_H2"][:, 0], tab["number_density_H-"][:, 0]
+        n_h = tab["number_density_H_I"][:, 0] / h1  # hydrogen nuclei
+    with h5py.File(path) as f:  # molecules: one variable with a molecule coordinate
+        assert f["molecule_number_density"].dims[0][0].name == "/molecule"
     # cool dense gas: hydrogen mostly molecular (A&A 363, 1065 (2000), sect. 1); hot: atomic
     assert mol_h[0] > 0.5 and mol_h[1] < 0.05
     # stage fractions are shares of all of the element's nuclei, molecules included
     assert h1[0] == pytest.approx(1 - mol_h[0], abs=1e-6)
+    # the H2 density is (nearly all of) the bound hydrogen nuclei, halved; H- is a trace
+    assert 2 * n_h2[0] == pytest.approx(mol_h[0] * n_h[0], rel=0.05)
+    assert 0 < n_hm[0] < 1e-6 * n_h[0]
 
 
 def test_spec_file_and_options_together_is_an_error(tmp_path, capsys):

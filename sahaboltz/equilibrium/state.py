@@ -393,6 +393,13 @@ class EquilibriumState:
                 "coupling_parameter": float(self.coupling_parameter[idx]),
                 "degeneracy_parameter": float(self.degeneracy_parameter[idx])}
 
+    def to_xarray(self, dims=None):
+        """The state as an :class:`xarray.Dataset`: bulk fields, and ``fraction`` and
+        ``number_density`` with a ``species`` coordinate (see
+        :func:`sahaboltz.equilibrium.export.state_to_xarray`)."""
+        from sahaboltz.equilibrium.export import state_to_xarray
+        return state_to_xarray(self, dims)
+
     def __repr__(self) -> str:
         return (f"EquilibriumState({self.composition.name!r}, shape={self.shape}, "
                 f"closure={self.closure}, {self.network.n_species} species)")

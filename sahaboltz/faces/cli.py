@@ -27,14 +27,25 @@ COMMAND_MODULES = [
 ]
 
 
-def build_parser() -> argparse.ArgumentParser:
+def _modules_for(argv: list[str]) -> list[str]:
+    """The command modules to load: only the one named first (a command line answers faster
+    when it imports only what it needs), or all of them for help and unknown commands."""
+    if argv and not argv[0].startswith("-"):
+        mine = [m for m in COMMAND_MODULES if m.rsplit("_", 1)[-1] == argv[0]]
+        if mine:
+            return mine
+    return COMMAND_MODULES
+
+
+def build_parser(argv: list[str] | None = None) -> argparse.ArgumentParser:
+    """The parser of every command, or (given the command line) of the one it names."""
     parser = argparse.ArgumentParser(
         prog="sahaboltz",
         description="LTE ionization and excitation equilibrium (Saha-Boltzmann) of gas mixtures.")
     parser.add_argument("--version", action="version", version=f"sahaboltz {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
-    for name in COMMAND_MODULES:
+    for name in COMMAND_MODULES if argv is None else _modules_for(argv):
         importlib.import_module(name).register(sub)
     return parser
 
@@ -52,7 +63,7 @@ def _notes(showwarning):
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
+    parser = build_parser(sys.argv[1:] if argv is None else argv)
     args = parser.parse_args(argv)
     try:
         with warnings.catch_warnings():

@@ -68,7 +68,7 @@ def register(subparsers) -> None:
     add_format_option(b)
     b.set_defaults(func=_build)
 
-    i = sub.add_parser("inspect", help="provenance and quantities of a table")
+    i = sub.add_parser("inspect", help="provenance and variables of a table")
     i.add_argument("table", help="table file, or a cache key (prefix)")
     i.add_argument("--verify", action="store_true", help="read every chunk (checksums)")
     add_format_option(i)
@@ -82,7 +82,9 @@ def register(subparsers) -> None:
     q.add_argument("--points", metavar="CSV", help="CSV file with two columns T,P (header optional)")
     q.add_argument("-q", "--quantities", action="append", default=[], metavar="NAME,..",
                    help="quantities to interpolate (default: the scalar ones)")
-    q.add_argument("--method", choices=("cubic", "linear"), default="cubic")
+    q.add_argument("--method", choices=("quintic", "cubic", "linear"), default="quintic",
+                   help="Lagrange stencils: 6 x 4 points in (ln T, ln P) (default), 4 x 4, "
+                        "or bilinear")
     q.add_argument("--outside", choices=("raise", "clip", "nan"), default="raise",
                    help="points outside the grid: error (default), clamp, or NaN")
     add_format_option(q)
@@ -205,9 +207,16 @@ def _inspect(args) -> int:
     info[tab.pressure_quantity] = (f"{tab.pressure[0]:g}..{tab.pressure[-1]:g} "
                                    f"{tab.pressure_unit} ({tab.pressure.size})")
     if args.verify:
-        info["verified"] = "all chunks read, checksums ok"
-    rows = [{"quantity": n, "units": tab.units(n),
-             "long_name": tab.quantity_attrs(n).get("long_name", "")} for n in tab.quantities]
+        info["verified"] = "all chunks read, Fletcher-32 checksums ok"
+    info["format_version"] = meta.get("format_version")
+    rows = []
+    for var, labels in tab.variables.items():  # one row per variable, not per species
+        a = tab.quantity_attrs(var)
+        rows.append({"variable": var, "rows": "" if labels is None else len(labels),
+                     "first": "" if not labels else labels[0],
+                     "last": "" if not labels else labels[-1],
+                     "units": a.get("units", ""), "long_name": a.get("long_name", "")})
+    tab.close()
     emit(rows, args.format, title=str(path), meta=info)
     return 0
 

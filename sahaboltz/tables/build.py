@@ -3,9 +3,9 @@
 The grid is cut into rectangular blocks of at most ``chunk_states`` states.  Each block is handed
 to a *compute function* ``compute(spec, T, P) -> {name: array}`` (flat 1-D arrays of the block's
 states in, same-length arrays out) in a worker process, which also compresses the results into
-HDF5 chunks (one chunk per block); the parent only stores those bytes into a temporary HDF5
-file as they arrive.  At most two blocks per worker are in flight, so memory is
-bounded by the chunk size, not the grid size.  Only a finished, flushed file is renamed into
+HDF5 chunks (one chunk per block and group of rows of a stacked variable); the parent only
+stores those bytes into a temporary HDF5 file as they arrive.  At most two blocks per worker
+are in flight (compressed), so memory is bounded by the block size, not the grid size.  Only a finished, flushed file is renamed into
 place (``os.replace``), so a build that fails or is killed never leaves a half table at ``path``.
 """
 
@@ -23,15 +23,17 @@ from typing import Any, Callable, Iterator, Mapping
 import numpy as np
 
 from sahaboltz.errors import InputError, TableError
-from sahaboltz.tables.hdf5 import MAX_CHUNK_ELEMENTS, TableWriter, encode_chunk
+from sahaboltz.tables.hdf5 import MAX_CHUNK_ELEMENTS, TableWriter, encode_field
+from sahaboltz.tables.layout import STACKED, stack
 from sahaboltz.tables.spec import TableSpec
 
 ComputeFn = Callable[[TableSpec, np.ndarray, np.ndarray], Mapping[str, np.ndarray]]
 
 #: default largest number of states per block
 DEFAULT_CHUNK_STATES = 16384
-#: default bound on the results of all blocks in flight [MB]; shrinks blocks for many outputs
-DEFAULT_MEMORY_MB = 256.0
+#: default bound on the raw outputs of the blocks being computed, one per worker [MB];
+#: shrinks blocks for many outputs
+DEFAULT_MEMORY_MB = 512.0
 #: states in the probe block that finds the output names and their size per state
 PROBE_STATES = 16
 
@@ -56,25 +58,19 @@ def block_states(spec: TableSpec, block: Block) -> tuple[np.ndarray, np.ndarray]
     return t.ravel(), p.ravel()
 
 
-def _run_block(compute: ComputeFn, spec: TableSpec, block: Block,
-               chunk_shape: tuple[int, int] | None = None):
-    """Compute one block; with ``chunk_shape``, return its HDF5 chunks encoded (as bytes)."""
+def run_block(compute: ComputeFn, spec: TableSpec, block: Block,
+              chunk_shape: tuple[int, int] | None = None) -> tuple:
+    """Compute one block and stack its outputs into the table's variables
+    (:func:`sahaboltz.tables.layout.stack`); with ``chunk_shape``, as finished HDF5 chunks."""
     t, p = block_states(spec, block)
-    out = dict(compute(spec, t, p))
-    n = t.size
-    for name, arr in out.items():
-        if name == "_attrs":
-            continue
-        arr = np.asarray(arr, dtype=float)
-        if arr.shape != (n,):
-            raise TableError(f"compute function returned {name} with shape {arr.shape}; "
-                             f"expected ({n},) for a block of {n} states")
+    fields, labels, aux = stack(compute(spec, t, p), t.size)
+    shape = (block[1] - block[0], block[3] - block[2])
+    for name, arr in fields.items():
         if not np.all(np.isfinite(arr)):
             raise TableError(f"compute function returned non-finite {name} in block {block}")
         if chunk_shape is not None:
-            arr = encode_chunk(arr.reshape(block[1] - block[0], block[3] - block[2]), chunk_shape)
-        out[name] = arr
-    return block, out
+            fields[name] = encode_field(arr, shape, chunk_shape, name in STACKED)
+    return block, {"fields": fields, "labels": labels, "aux": aux}
 
 
 def _worker_init() -> None:
@@ -133,7 +129,7 @@ def _results(compute: ComputeFn, spec: TableSpec, todo: list[Block], workers: in
              chunk_shape: tuple[int, int]) -> Iterator[tuple[Block, dict]]:
     if workers <= 1 or len(todo) <= 1:
         for b in todo:
-            yield _run_block(compute, spec, b, chunk_shape)
+            yield run_block(compute, spec, b, chunk_shape)
         return
     with _pool(workers) as pool:
         pending: set = set()
@@ -144,7 +140,7 @@ def _results(compute: ComputeFn, spec: TableSpec, todo: list[Block], workers: in
                     b = next(queue, None)
                     if b is None:
                         break
-                    pending.add(pool.submit(_run_block, compute, spec, b, chunk_shape))
+                    pending.add(pool.submit(run_block, compute, spec, b, chunk_shape))
                 if not pending:
                     return
                 finished, pending = wait(pending, return_when=FIRST_COMPLETED)
@@ -180,8 +176,8 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
     chunk_states : int
         Largest number of states per block.
     memory_mb : float
-        Bound on the output arrays of all blocks in flight (two per worker).  A probe of
-        a few states measures the output size per state; blocks are made small enough.
+        Bound on the raw output arrays of the blocks being computed (one per worker).  A
+        probe of a few states measures the output size per state; blocks are made small enough.
     progress : bool, optional
         Show a progress bar on stderr; default: when stderr is a terminal.
     provenance : mapping, optional
@@ -196,11 +192,11 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
     compute = compute or default_compute()
     workers = workers or os.cpu_count() or 1
     # probe: output bytes per state (a solar mixture with all stage fractions has thousands)
-    _, sample = _run_block(compute, spec, (0, 1, 0, min(spec.shape[1], PROBE_STATES)))
-    per_state = sum(np.asarray(a).nbytes for k, a in sample.items() if k != "_attrs") / \
+    _, sample = run_block(compute, spec, (0, 1, 0, min(spec.shape[1], PROBE_STATES)))
+    per_state = sum(a.nbytes for a in sample["fields"].values()) / \
         min(spec.shape[1], PROBE_STATES)
-    in_flight = 2 * workers if workers > 1 else 1
-    fit = int(memory_mb * 1e6 / (in_flight * max(per_state, 1.0)))
+    # raw outputs exist only in the block a worker computes; what travels is compressed
+    fit = int(memory_mb * 1e6 / (max(workers, 1) * max(per_state, 1.0)))
     todo = blocks(spec.shape, max(1, min(chunk_states, fit, MAX_CHUNK_ELEMENTS)))
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = temp_path_for(path)

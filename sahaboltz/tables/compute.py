@@ -2,7 +2,7 @@
 
 :func:`solver_compute` has the signature every compute function has,
 ``compute(spec, T, P) -> {dataset name: 1-D array}``; :mod:`sahaboltz.tables.build` runs it in
-worker processes.  Names follow :func:`sahaboltz.tables.spec.dataset_name`.
+worker processes.  What it returns is described in :mod:`sahaboltz.tables.layout`.
 """
 
 from __future__ import annotations
@@ -13,7 +13,7 @@ import numpy as np
 
 from sahaboltz.data.elements import atomic_number, spectroscopic_name
 from sahaboltz.errors import InputError
-from sahaboltz.tables.spec import TableSpec, dataset_name
+from sahaboltz.tables.spec import TableSpec
 
 _SOLAR_NAMES = {"solar": "asplund2009", "asplund2009": "asplund2009"}
 
@@ -73,74 +73,83 @@ def solve_block(spec: TableSpec, T: np.ndarray, P: np.ndarray):
     return state
 
 
-def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, np.ndarray]:
-    """Compute function backed by :func:`sahaboltz.equilibrium.solve_equilibrium`."""
+def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, Any]:
+    """Compute function backed by :func:`sahaboltz.equilibrium.solve_equilibrium`.
+
+    Returns the stacked variables of format 2 directly (``fraction`` and ``number_density``
+    over every species of the chosen elements, H- included; molecules; levels; partition
+    functions) with their ``_labels`` and ``_coords``.  Each element's populations are formed
+    once, from the solved n_e, and both the fractions and the densities come from them.
+    """
     state = solve_block(spec, T, P)
+    n = T.size
     out: dict[str, Any] = {}
+    labels: dict[str, list] = {}
+    coords: dict[str, list] = {}
     scalars = {"electron_density": "n_e", "electron_pressure": "electron_pressure",
                "gas_pressure": "gas_pressure", "mass_density": "mass_density",
                "mean_molecular_weight": "mean_molecular_weight", "mean_charge": "mean_charge"}
     for name in spec.outputs.quantities:
-        out[name] = np.asarray(getattr(state, scalars[name]), dtype=float).reshape(T.shape)
-    comp = state.composition if hasattr(state, "composition") else composition_of(spec)
+        out[name] = np.asarray(getattr(state, scalars[name]), dtype=float).reshape(n)
+    comp = state.composition
     sf = spec.outputs.stage_fractions
     elements = comp.symbols if sf == "all" else list(sf)
+    fracs, dens, species = [], [], []
     for el in elements:
         if el not in comp:
             raise InputError(f"stage fractions of {el} asked for, but {el} is not in the "
                              f"composition ({', '.join(comp.symbols)})")
-        fr = np.asarray(state.stage_fractions(el), dtype=float)
+        fr = np.asarray(state.stage_fractions(el, negative=True), dtype=float).reshape(-1, n)
         z = atomic_number(el)
-        for charge in range(fr.shape[0]):
-            out[dataset_name("fraction", spectroscopic_name(z, charge))] = fr[charge].reshape(T.shape)
-        if hasattr(state, "molecular_fraction"):  # solved with molecules
-            out[dataset_name("molecular_fraction", el)] = np.asarray(
-                state.molecular_fraction(el), dtype=float).reshape(T.shape)
-    attrs: dict[str, dict] = {}
-    if spec.outputs.partition_functions or spec.outputs.levels:
-        _species_outputs(spec, state, T, out, attrs)
-    if attrs:
-        out["_attrs"] = attrs
+        species += [spectroscopic_name(z, int(q)) for q in state.stage_charges(el, negative=True)]
+        fracs.append(fr)
+        dens.append(fr * np.asarray(state.element_density(el), dtype=float).reshape(n))
+    if species:
+        labels["species"] = species
+        out["fraction"] = np.concatenate(fracs)
+        out["number_density"] = np.concatenate(dens)
+    if hasattr(state, "molecule_densities"):  # solved with molecules
+        if state.molecule_names:
+            labels["molecule"] = list(state.molecule_names)
+            out["molecule_number_density"] = np.asarray(
+                state.molecule_densities(), dtype=float).reshape(-1, n)
+        if elements:
+            labels["element"] = list(elements)
+            out["molecular_fraction"] = np.stack([np.asarray(
+                state.molecular_fraction(el), dtype=float).reshape(n) for el in elements])
+    if spec.outputs.partition_functions:
+        names = list(spec.outputs.partition_functions)
+        labels["partition_species"] = names
+        out["partition_function"] = np.stack([np.asarray(
+            state.partition_function(sp), dtype=float).reshape(n) for sp in names])
+    if spec.outputs.levels:
+        _level_outputs(spec, state, n, out, labels, coords)
+    out["_labels"] = labels
+    out["_coords"] = coords
     return out
 
 
-def _partition(species, spec: TableSpec, state, T):
-    """U of one species with the truncation the solver used for this state."""
-    from sahaboltz.kernels.partition import PartitionModel
-    from sahaboltz.kernels.plasma import _lowering_ev
-
-    phys = spec.physics
-    pm = PartitionModel([species], truncation=phys["truncation"],
-                        completion=bool(phys["completion"]))
-    n_e = np.asarray(state.n_e, dtype=float).reshape(T.shape)
-    kw: dict[str, Any] = {"n_e": n_e}
-    if "lowering_ev" in pm.scheme.inputs:
-        lam = np.asarray(state.debye_length, dtype=float).reshape(T.shape)
-        kw["lowering_ev"] = _lowering_ev(species.charge, lam)[None, :]
-    return np.asarray(pm.evaluate(T, **kw), dtype=float)[0]
-
-
-def _species_outputs(spec, state, T, out, attrs) -> None:
+def _level_outputs(spec, state, n, out, labels, coords) -> None:
     from sahaboltz.data.database import default_database
 
     db = default_database()
-    for name in spec.outputs.partition_functions:
-        sp = db.species(name)
-        out[dataset_name("partition", sp.name)] = _partition(sp, spec, state, T)
+    rows, names, energies, weights = [], [], [], []
     for name, indices in spec.outputs.levels:
         pops, energy = state.level_populations(name)
         pops = np.asarray(pops, dtype=float).reshape(len(energy), -1)
         if max(indices) >= len(energy):
             raise InputError(f"{name} has {len(energy)} levels in its partition function "
                              f"(indices 0..{len(energy) - 1}); asked for level {max(indices)}")
-        sp = db.species(name)
-        g = sp.bound_g
+        g = db.species(name).bound_g
         for i in indices:
-            dn = dataset_name("population", name, i)
-            out[dn] = pops[i].reshape(T.shape)
-            attrs[dn] = {"energy_ev": float(energy[i])}
-            if i < g.size:
-                attrs[dn]["g"] = float(g[i])
+            rows.append(pops[i].reshape(n))
+            names.append(f"{name}:{i}")
+            energies.append(float(energy[i]))
+            weights.append(float(g[i]) if i < g.size else float("nan"))
+    labels["level"] = names
+    coords["level_energy"] = np.array(energies)
+    coords["level_g"] = np.array(weights)
+    out["level_number_density"] = np.stack(rows)
 
 
 __all__ = ["solver_compute", "composition_of", "composition_digest_doc"]

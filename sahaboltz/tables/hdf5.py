@@ -1,15 +1,20 @@
-"""The HDF5 layout of a population table: writing blocks, reading metadata, checking a file.
+"""The HDF5 layout of a population table (format 2): writing blocks, reading, checking a file.
 
 Layout (documented in docs/table_format.md):
 
-- ``/temperature`` (nT,) [K] and ``/<pressure quantity>`` (nP,) are dimension scales;
-- one 2-D dataset ``(temperature, <pressure quantity>)`` per stored quantity, with ``units``,
-  ``long_name`` and (for species quantities) ``species``/``element``/``charge`` attributes;
-- provenance in root attributes; ``complete = 1`` and the ``quantities`` list are written last.
+- ``/temperature`` (nT,) [K] and ``/<pressure quantity>`` (nP,) are dimension scales, and so
+  are the label coordinates ``/species``, ``/molecule``, ``/element``, ``/level``,
+  ``/partition_species`` of the stacked variables (strings);
+- scalar fields are 2-D ``(temperature, <pressure quantity>)``; stacked ones are 3-D
+  ``(label, temperature, <pressure quantity>)`` (one variable for all species, ...);
+- auxiliary coordinates (``charge``, ``atomic_number``, ``level_energy``, ``level_g`` ...)
+  are listed in each variable's CF ``coordinates`` attribute;
+- provenance in root attributes; ``complete = 1`` and the ``variables`` list are written last.
 
-Files are plain HDF5 that h5py, xarray (engine ``h5netcdf``), C and Fortran read without custom
-code.  Chunks are deflate streams (with the shuffle filter); zlib's Adler-32 checksum makes a
-damaged chunk fail loudly on read.
+Files are plain netCDF-4/HDF5 that h5py, xarray (engine ``h5netcdf``), C and Fortran read
+without custom code.  Every chunk goes through shuffle, deflate and the Fletcher-32 checksum
+filter (all built into HDF5), so any reader gets an error from a damaged chunk, never wrong
+numbers.
 """
 
 from __future__ import annotations
@@ -17,7 +22,7 @@ from __future__ import annotations
 import datetime as _dt
 import json
 import os
-import re
+import time
 import zlib
 from pathlib import Path
 from typing import Any, Mapping
@@ -27,158 +32,222 @@ import numpy as np
 
 from sahaboltz._version import __version__
 from sahaboltz.errors import TableError
-from sahaboltz.tables.spec import PRESSURE_QUANTITIES, SCALAR_OUTPUTS, TableSpec
+from sahaboltz.tables.layout import (AUX, DIM_LONG, FORMAT_NAME, FORMAT_VERSION, STACKED,
+                                     field_attrs)
+from sahaboltz.tables.spec import PRESSURE_QUANTITIES, TableSpec
 
-FORMAT_NAME = "sahaboltz population table"
-FORMAT_VERSION = 1
 #: largest HDF5 chunk (= build block) in elements: 1 MB of float64
 MAX_CHUNK_ELEMENTS = 131072
+#: a stacked variable's chunk holds this many elements at least (rows x block states), so
+#: that a build writes few, large chunks; reading one row decompresses at most its chunk
+MIN_CHUNK_ELEMENTS = 32768
 GZIP_LEVEL = 1
 
 
-def encode_chunk(block: np.ndarray, chunk_shape: tuple[int, int]) -> bytes:
-    """One HDF5 chunk as the dataset's filters (shuffle, then deflate) would write it.
+def fletcher32(data: bytes) -> bytes:
+    """HDF5's Fletcher-32 checksum of ``data`` as its filter appends it (4 bytes).
+
+    HDF5 sums 16-bit big-endian words with an end-around carry folded every 360 words; the
+    folds keep the sums modulo 65535, and a sum that is a nonzero multiple of 65535 ends as
+    65535, so the closed form below equals it (checked against HDF5 in the tests).
+    """
+    w = np.frombuffer(data if len(data) % 2 == 0 else data + b"\0", dtype=">u2").astype(np.uint64)
+    s1 = int(w.sum())
+    s2 = int(np.dot(np.arange(w.size, 0, -1, dtype=np.uint64), w)) if w.size else 0
+    c1, c2 = s1 % 65535, s2 % 65535
+    c1 = 65535 if (c1 == 0 and s1) else c1
+    c2 = 65535 if (c2 == 0 and s2) else c2
+    return ((c2 << 16) | c1).to_bytes(4, "little")
+
+
+def encode_chunk(block: np.ndarray, chunk_shape: tuple[int, ...]) -> bytes:
+    """One HDF5 chunk as the dataset's filters (shuffle, deflate, Fletcher-32) write it.
 
     Workers encode their blocks so that compression runs in parallel and the writing process
     only stores bytes (``write_direct_chunk``).  A block at the grid edge is padded with zeros
-    to the chunk shape (HDF5 ignores the part outside the dataset).  The zlib stream carries an
-    Adler-32 checksum, so a damaged chunk fails to decompress instead of reading as numbers.
+    to the chunk shape (HDF5 ignores the part outside the dataset).
     """
     a = np.asarray(block, dtype="<f8")
     if a.shape != tuple(chunk_shape):
         full = np.zeros(chunk_shape, dtype="<f8")
-        full[:a.shape[0], :a.shape[1]] = a
+        full[tuple(slice(0, k) for k in a.shape)] = a
         a = full
     shuffled = np.ascontiguousarray(a).view(np.uint8).reshape(-1, 8).T.tobytes()
-    return zlib.compress(shuffled, GZIP_LEVEL)
-
-_SPECIES_RE = re.compile(r"^(fraction|population|partition)_([A-Z][a-z]?)_([IVXLCDM]+)(?:_L(\d+))?$")
-_LONG = {"fraction": "fraction of element {el} in stage {sp}",
-         "population": "number density of level {lev} of {sp}",
-         "partition": "partition function of {sp}"}
-_UNITS = {"fraction": "1", "population": "cm-3", "partition": "1"}
+    packed = zlib.compress(shuffled, GZIP_LEVEL)
+    return packed + fletcher32(packed)
 
 
-_MOLECULAR_RE = re.compile(r"^molecular_fraction_([A-Z][a-z]?)$")
+def rows_per_chunk(n_rows: int, block_states: int) -> int:
+    """Rows of a stacked variable per chunk for blocks of ``block_states`` states."""
+    want = -(-MIN_CHUNK_ELEMENTS // max(1, block_states))
+    fit = max(1, MAX_CHUNK_ELEMENTS // max(1, block_states))
+    return max(1, min(n_rows, want, fit))
 
 
-def quantity_attrs(name: str) -> dict[str, Any]:
-    """Attributes (units, long_name, species ...) implied by a dataset name."""
-    if name in SCALAR_OUTPUTS:
-        unit, desc = SCALAR_OUTPUTS[name]
-        return {"units": unit, "long_name": desc}
-    m = _MOLECULAR_RE.match(name)
-    if m:
-        return {"units": "1", "long_name": f"fraction of the {m.group(1)} nuclei bound in molecules",
-                "element": m.group(1)}
-    m = _SPECIES_RE.match(name)
-    if not m:
-        return {"units": "unknown", "long_name": name}
-    kind, el, stage, lev = m.groups()
-    sp = f"{el} {stage}"
-    attrs = {"units": _UNITS[kind], "long_name": _LONG[kind].format(el=el, sp=sp, lev=lev),
-             "species": sp, "element": el}
-    if lev is not None:
-        attrs["level_index"] = int(lev)
-    return attrs
+def encode_field(arr: np.ndarray, block_shape: tuple[int, int], chunk_shape: tuple[int, int],
+                 stacked: bool) -> list[bytes | None]:
+    """The chunks of one variable over one block (``block_shape`` states; smaller than
+    ``chunk_shape`` at the grid edge): one, or one per group of rows of a stacked variable.
+
+    A chunk of zeros only is None: it is not written, and HDF5 reads an unwritten chunk as the
+    variable's fill value, 0.  High stages of heavy elements are exactly 0 (underflow) over
+    much of a grid, so this skips most of the compression of a solar table.
+    """
+    bt, bp = block_shape
+    if not stacked:
+        a = arr.reshape(bt, bp)
+        return [encode_chunk(a, chunk_shape) if a.any() else None]
+    n = arr.shape[0]
+    k = rows_per_chunk(n, chunk_shape[0] * chunk_shape[1])
+    a = arr.reshape(n, bt, bp)
+    nonzero = np.add.reduceat(np.any(a, axis=(1, 2)), np.arange(0, n, k)) > 0
+    return [encode_chunk(a[r:r + k], (k,) + tuple(chunk_shape)) if nz else None
+            for r, nz in zip(range(0, n, k), nonzero)]
+
+
+def _str_array(values) -> np.ndarray:
+    """Variable-length UTF-8 strings: netCDF-4's own string type (``ncdump`` and xarray read
+    them as text; fixed-length strings netCDF shows as NIL)."""
+    return np.array([str(v) for v in values], dtype=h5py.string_dtype())
+
+
+def _text(value: str) -> np.bytes_:
+    """A fixed-length string attribute (what C and Fortran read most simply)."""
+    return np.bytes_(str(value).encode())
 
 
 class TableWriter:
     """Write one table file block by block.  Use :func:`sahaboltz.tables.build.build_table`.
 
-    Datasets are created from the first block written (names and dtypes come from the compute
-    function).  :meth:`finish` writes the closing attributes; a file without them is incomplete.
+    Variables are created from the first block written (names, labels and coordinates come
+    from the compute function).  :meth:`finish` writes the closing attributes; a file without
+    them is incomplete.
     """
 
     def __init__(self, path: str | Path, spec: TableSpec, provenance: Mapping[str, Any],
                  block_shape: tuple[int, int]):
+        t0 = time.perf_counter()
         self.path = Path(path)
         self.spec = spec
         self.file = h5py.File(self.path, "w", libver=("earliest", "v110"))
-        self._names: list[str] = []
-        self._refs: list = []
-        self._extra_attrs: dict[str, dict] = {}
+        self.seconds = {"create": 0.0, "write": 0.0}  # file and variables; storing chunks
         if block_shape[0] * block_shape[1] > MAX_CHUNK_ELEMENTS:
             raise TableError(f"block {block_shape} is larger than the largest chunk "
                              f"({MAX_CHUNK_ELEMENTS} states)")
-        self.chunks = tuple(block_shape)  # one HDF5 chunk per build block
+        self.chunks = tuple(block_shape)  # one HDF5 chunk per build block (and row group)
         self._datasets: dict[str, h5py.Dataset] = {}
+        self._labels: dict[str, list] = {}
+        self._rows: dict[str, int] = {}
         f = self.file
-        f.attrs["format_name"] = FORMAT_NAME
-        f.attrs["format_version"] = FORMAT_VERSION
-        f.attrs["title"] = f"LTE populations: {spec.describe()}"
-        f.attrs["package_version"] = __version__
+        f.attrs["Conventions"] = _text("CF-1.8")
+        f.attrs["format_name"] = _text(FORMAT_NAME)
+        f.attrs["format_version"] = np.int32(FORMAT_VERSION)
+        f.attrs["title"] = _text(f"LTE populations: {spec.describe()}")
+        f.attrs["source"] = _text(f"sahaboltz {__version__}")
+        f.attrs["package_version"] = _text(__version__)
         f.attrs["created"] = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
-        f.attrs["pressure_quantity"] = spec.pressure.name
+        f.attrs["pressure_quantity"] = _text(spec.pressure.name)
         f.attrs["composition"] = json.dumps(spec.composition, sort_keys=True)
         f.attrs["physics"] = json.dumps(spec.physics, sort_keys=True)
         f.attrs["outputs"] = json.dumps(spec.outputs.to_mapping(), sort_keys=True)
         f.attrs["spec"] = spec.canonical()
         for k, v in provenance.items():
             f.attrs[k] = v if isinstance(v, (str, int, float)) else json.dumps(v, sort_keys=True)
-        self._t = self._axis(spec.temperature.name, spec.temperature.array, "K", "temperature")
+        self._t = self._scale(spec.temperature.name, spec.temperature.array, "K", "temperature")
         punit = PRESSURE_QUANTITIES[spec.pressure.name]
-        self._p = self._axis(spec.pressure.name, spec.pressure.array, punit,
-                             spec.pressure.name.replace("_", " "))
+        self._p = self._scale(spec.pressure.name, spec.pressure.array, punit,
+                              spec.pressure.name.replace("_", " "))
+        self.seconds["create"] += time.perf_counter() - t0
 
-    def _axis(self, name, values, unit, long_name):
+    def _scale(self, name, values, unit, long_name):
         d = self.file.create_dataset(name, data=values)
-        d.attrs["units"] = unit
-        d.attrs["long_name"] = long_name
+        if unit:
+            d.attrs["units"] = _text(unit)
+        d.attrs["long_name"] = _text(long_name)
         d.make_scale(name)
         return d
 
-    def _create(self, name: str) -> h5py.Dataset:
-        d = self.file.create_dataset(name, shape=self.spec.shape, dtype="<f8", chunks=self.chunks,
-                                     compression="gzip", compression_opts=GZIP_LEVEL, shuffle=True)
-        # dimension scales, attached the way H5DSattach_scale does, but with each scale's
-        # REFERENCE_LIST written once in finish(): attaching one by one is quadratic in the
-        # number of datasets (thousands for a solar mixture)
-        dl = np.empty(2, dtype=object)
-        dl[0] = np.array([self._t.ref], dtype=h5py.ref_dtype)
-        dl[1] = np.array([self._p.ref], dtype=h5py.ref_dtype)
-        d.attrs.create("DIMENSION_LIST", dl, dtype=h5py.vlen_dtype(h5py.ref_dtype))
-        self._refs.append(d.ref)
-        for k, v in {**quantity_attrs(name), **self._extra_attrs.get(name, {})}.items():
-            d.attrs[k] = v
-        self._names.append(name)
-        self._datasets[name] = d
-        return d
+    def _create(self, fields, labels: Mapping[str, list], aux: Mapping[str, np.ndarray]) -> None:
+        f = self.file
+        scales = {dim: self._scale(dim, _str_array(labs), "", DIM_LONG.get(dim, dim))
+                  for dim, labs in labels.items()}
+        self._labels = {dim: [str(x) for x in labs] for dim, labs in labels.items()}
+        aux_of: dict[str, list[str]] = {}
+        for name, values in aux.items():
+            dim, unit, long_name = AUX.get(name, (None, "", name))
+            if dim not in scales:
+                raise TableError(f"coordinate {name} belongs to no stored dimension")
+            v = np.asarray(values)
+            d = f.create_dataset(name, data=_str_array(v) if v.dtype.kind in "OUS" else v)
+            if unit:
+                d.attrs["units"] = _text(unit)
+            d.attrs["long_name"] = _text(long_name)
+            d.dims[0].attach_scale(scales[dim])
+            aux_of.setdefault(dim, []).append(name)
+        for name in fields:
+            var = STACKED.get(name)
+            if var is not None:
+                nrow = len(self._labels[var.dim])
+                k = rows_per_chunk(nrow, self.chunks[0] * self.chunks[1])
+                shape, chunks = (nrow,) + self.spec.shape, (k,) + self.chunks
+                self._rows[name] = k
+            else:
+                shape, chunks = self.spec.shape, self.chunks
+            d = f.create_dataset(name, shape=shape, dtype="<f8", chunks=chunks,
+                                 compression="gzip", compression_opts=GZIP_LEVEL, shuffle=True,
+                                 fletcher32=True, fillvalue=0.0)  # unwritten chunks: zeros
+            for k_, v_ in field_attrs(name).items():
+                d.attrs[k_] = _text(v_)
+            axes = [self._t, self._p]
+            if var is not None:
+                axes.insert(0, scales[var.dim])
+                if aux_of.get(var.dim):
+                    d.attrs["coordinates"] = _text(" ".join(aux_of[var.dim]))
+            for i, sc in enumerate(axes):  # a dozen variables: attaching one by one is cheap
+                d.dims[i].attach_scale(sc)
+            self._datasets[name] = d
 
     def write_block(self, block: tuple[int, int, int, int], values: Mapping[str, Any]):
-        """Store the block ``(i0, i1, j0, j1)``: per name an array of the block's states, or
-        its chunk already encoded by :func:`encode_chunk` (done in the workers)."""
+        """Store the block ``(i0, i1, j0, j1)``: ``values`` as made by the workers
+        (:func:`sahaboltz.tables.build.run_block`): ``fields`` (arrays, or their chunks
+        already encoded), ``labels`` and ``aux``."""
+        t0 = time.perf_counter()
         i0, i1, j0, j1 = block
-        # the quantity that is the pressure axis is stored once, as the coordinate
-        values = {k: v for k, v in values.items()
+        fields = {k: v for k, v in values["fields"].items()
                   if k not in (self.spec.temperature.name, self.spec.pressure.name)}
-        self._extra_attrs.update(values.pop("_attrs", {}) or {})
-        if not self._names:
-            for name in values:
-                self._create(name)
-        elif set(values) != set(self._names):
+        if not self._datasets:
+            self._create(list(fields), values["labels"], values["aux"])
+            self.seconds["create"] += time.perf_counter() - t0
+            t0 = time.perf_counter()
+        elif set(fields) != set(self._datasets) or \
+                {k: [str(x) for x in v] for k, v in values["labels"].items()} != self._labels:
             raise TableError(f"compute function returned different quantities for block {block}: "
-                             f"{sorted(set(values) ^ set(self._names))}")
+                             f"{sorted(set(fields) ^ set(self._datasets))}")
         if (i0 % self.chunks[0]) or (j0 % self.chunks[1]):
             raise TableError(f"block {block} is not aligned with the chunks {self.chunks}")
-        for name, v in values.items():
-            raw = v if isinstance(v, bytes) else encode_chunk(
-                np.asarray(v, dtype=float).reshape(i1 - i0, j1 - j0), self.chunks)
-            self._datasets[name].id.write_direct_chunk((i0, j0), raw)
+        for name, chunks in fields.items():
+            stacked = name in STACKED
+            if not isinstance(chunks, list):
+                chunks = encode_field(np.asarray(chunks, dtype=float), (i1 - i0, j1 - j0),
+                                      self.chunks, stacked)
+            dsid = self._datasets[name].id
+            if stacked:
+                k = self._rows[name]
+                for g, raw in enumerate(chunks):
+                    if raw is not None:
+                        dsid.write_direct_chunk((g * k, i0, j0), raw)
+            elif chunks[0] is not None:
+                dsid.write_direct_chunk((i0, j0), chunks[0])
+        self.seconds["write"] += time.perf_counter() - t0
 
     def finish(self, extra: Mapping[str, Any] | None = None) -> None:
         """Write the closing attributes, flush to disk and close."""
         f = self.file
         for k, v in (extra or {}).items():
             f.attrs[k] = v
-        rl_type = np.dtype([("dataset", h5py.ref_dtype), ("dimension", np.int32)])
-        for scale, dim in ((self._t, 0), (self._p, 1)):
-            if self._refs:
-                rl = np.empty(len(self._refs), dtype=rl_type)
-                rl["dataset"] = self._refs
-                rl["dimension"] = dim
-                scale.attrs.create("REFERENCE_LIST", rl, dtype=rl_type)
-        f.attrs["quantities"] = json.dumps(self._names)
+        f.attrs["create_seconds"] = round(self.seconds["create"], 4)
+        f.attrs["write_seconds"] = round(self.seconds["write"], 4)
+        f.attrs["variables"] = json.dumps(list(self._datasets))
         f.attrs["complete"] = 1
         f.flush()
         fd = f.id.get_vfd_handle()
@@ -227,39 +296,56 @@ def _open(path: Path) -> h5py.File:
                          f"Delete it and build the table again.") from None
 
 
-def check_table(path: str | Path, *, key: str | None = None, full: bool = False) -> None:
-    """Raise :class:`TableError` unless ``path`` is a complete table (with cache key ``key``).
+def format_error(path: Path, version) -> TableError:
+    """The error for a file of another format version."""
+    if version == 1:
+        return TableError(f"{path} is a format-1 table (one dataset per quantity); this "
+                          f"version reads format {FORMAT_VERSION} only. Build it again: "
+                          f"'sahaboltz table build' with the same spec (cached format-1 "
+                          f"tables are rebuilt automatically).")
+    return TableError(f"{path} has table format version {version!r}; this sahaboltz reads "
+                      f"format {FORMAT_VERSION}. Build the table again.")
 
-    The quick check (fast enough for every cache hit) opens the file -- HDF5 itself notices a
-    truncated file --, checks the closing attributes, that every listed dataset exists, and the
-    shape and last chunk of the last one written.  ``full=True`` reads every chunk of every
-    dataset, so damaged bytes anywhere are found (deflate checksums).
+
+def check_table(path: str | Path, *, key: str | None = None, full: bool = False) -> None:
+    """Raise :class:`TableError` unless ``path`` is a complete format-2 table (with cache key
+    ``key``).
+
+    The quick check opens the file -- HDF5 itself notices a truncated file --, checks the
+    format, the closing attributes, that every listed variable exists with the grid's shape,
+    and reads the last chunk written.  It cannot see damage elsewhere: the cache adds a digest
+    of the whole file (:func:`file_digest`), and ``full=True`` reads every chunk of every
+    variable (each is checked against its Fletcher-32 checksum and by deflate).
     """
     path = Path(path)
     with _open(path) as f:
         try:
             if _decode(f.attrs.get("format_name")) != FORMAT_NAME:
                 raise TableError(f"{path} is not a sahaboltz population table")
+            version = _decode(f.attrs.get("format_version"))
+            if version != FORMAT_VERSION:
+                raise format_error(path, version)
             if int(f.attrs.get("complete", 0)) != 1:
                 raise TableError(f"{path} is incomplete (the build did not finish)")
             if key is not None and _decode(f.attrs.get("cache_key")) != key:
                 raise TableError(f"{path} holds a different table (cache key mismatch)")
-            names = json.loads(_decode_str(f.attrs["quantities"]))
+            names = json.loads(_decode_str(f.attrs["variables"]))
             pq = _decode_str(f.attrs["pressure_quantity"])
             shape = (f["temperature"].shape[0], f[pq].shape[0])
-            missing = set(names) - set(f.keys())  # one listing; opening each is ~0.5 ms
+            missing = set(names) - set(f.keys())
             if missing:
-                raise TableError(f"{path} is damaged: {len(missing)} listed dataset(s) missing, "
+                raise TableError(f"{path} is damaged: {len(missing)} listed variable(s) missing, "
                                  f"e.g. {sorted(missing)[0]}")
-            for name in (names if full else names[-1:]):
+            for name in names:
                 d = f[name]
-                if d.shape != shape:
-                    raise TableError(f"{path}: dataset {name} has shape {d.shape}, expected {shape}")
+                if d.shape[-2:] != shape:
+                    raise TableError(f"{path}: variable {name} has shape {d.shape}, expected "
+                                     f"(..., {shape[0]}, {shape[1]})")
                 if full:
                     for sl in d.iter_chunks():
                         d[sl]
-                else:
-                    d[-1, -1]  # the last chunk written: decompress and checksum it
+            if not full and names:
+                f[names[-1]][(-1,) * f[names[-1]].ndim]  # the last chunk written
         except TableError:
             raise
         except (KeyError, OSError, ValueError, RuntimeError) as exc:

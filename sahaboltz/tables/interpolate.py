@@ -2,11 +2,13 @@
 
 Interpolation runs in ln T and ln P (the Saha and Boltzmann factors are smooth there), and on
 ln q for quantities that are never negative (densities, pressures, fractions, partition
-functions); other quantities are interpolated as they are.  The default ``method="cubic"`` is a
-tensor product of 4-point Lagrange polynomials (error ~ h^4); where the 4 x 4 stencil spans more
-than ``e^50`` in a logged quantity (a value that underflowed to zero next to finite ones) it
-falls back to bilinear interpolation of the log, which cannot overshoot.  ``method="linear"`` is
-bilinear everywhere.  Zeros are logged as the smallest normal float; results below it come back as
+functions); other quantities are interpolated as they are.  The default ``method="quintic"`` is
+a tensor product of Lagrange polynomials through 6 points in ln T (error ~ h^6; stage fractions
+vary fastest along T, and the one-sided stencils of the outermost temperature cells still
+meet 1e-3 on the default grid, which 4 points do not) and 4 points in ln P; ``"cubic"`` is
+4 x 4.  Where a stencil spans more than ``e^50`` in a logged quantity (a value that underflowed
+to zero next to finite ones) they fall back to bilinear interpolation of the log, which cannot
+overshoot.  ``method="linear"`` is bilinear everywhere.  Zeros are logged as the smallest normal float; results below it come back as
 exactly 0.
 
 Points outside the grid raise :class:`~sahaboltz.errors.InputError` by default; ``outside="clip"``
@@ -21,24 +23,36 @@ from typing import Any, Sequence
 import numpy as np
 
 from sahaboltz.errors import InputError, TableError
-from sahaboltz.quantities import as_positive_array
-from sahaboltz.tables.hdf5 import _decode, _open, check_table
+from sahaboltz.tables.hdf5 import (FORMAT_VERSION, _decode, _decode_str, _open, check_table,
+                                   format_error)
+from sahaboltz.tables.layout import STACKED, row_names
 from sahaboltz.tables.spec import PRESSURE_QUANTITIES
 
 _LOG_FLOOR = float(np.log(np.finfo(float).tiny))
 _SPAN_LIMIT = 50.0  # ln units; a wider stencil means an underflow edge -> bilinear there
 _BATCH = 16384  # points per vectorized pass; bounds temporary memory
-METHODS = ("cubic", "linear")
+#: method -> stencil width (points) along (ln T, ln P)
+METHODS = {"quintic": (6, 4), "cubic": (4, 4), "linear": (2, 2)}
 OUTSIDE = ("raise", "clip", "nan")
 
 
+def optional(module: str, what: str):
+    """Import an optional package, or say how to get it."""
+    import importlib
+    try:
+        return importlib.import_module(module)
+    except ImportError:
+        raise InputError(f"{what} needs the {module} package: pip install {module}") from None
+
+
 class PopulationTable:
-    """A population table opened for reading and interpolation.
+    """A population table opened for reading and interpolation (a context manager).
 
     Parameters
     ----------
     path : str or Path
-        A table written by :func:`~sahaboltz.tables.build.build_table`.
+        A table written by :func:`~sahaboltz.tables.build.build_table` (format 2; a format-1
+        file raises :class:`~sahaboltz.errors.TableError` saying it must be rebuilt).
     check : bool
         Run the quick integrity check on open (default True).
 
@@ -50,24 +64,38 @@ class PopulationTable:
         Pressure-like axis in the cgs unit of :attr:`pressure_quantity`.
     pressure_quantity : str
         ``gas_pressure``, ``electron_pressure``, ``mass_density`` or ``hydrogen_density``.
+    variables : dict
+        Stored variable -> its row labels (None for a scalar field), e.g.
+        ``{"electron_density": None, "fraction": ["H-", "H I", ...]}``.
     quantities : list of str
-        Names of the stored datasets.
+        Names of the single quantities: scalar fields and one name per row of a stacked
+        variable (``fraction_Fe_II``, ``number_density_H-``, ``number_density_CO``,
+        ``population_Fe_II_L3``, ``partition_Fe_I``, ``molecular_fraction_C``).
     attrs : dict
         Root attributes (provenance), JSON ones decoded.
     """
 
     def __init__(self, path: str | Path, *, check: bool = True):
         self.path = Path(path)
+        self._file = None
         if check:
             check_table(self.path)
-        with _open(self.path) as f:
-            self.attrs = {k: _decode(v) for k, v in f.attrs.items()}
-            self.pressure_quantity = str(self.attrs["pressure_quantity"])
-            self.temperature = f["temperature"][()]
-            self.pressure = f[self.pressure_quantity][()]
-            self.quantities = list(self.attrs["quantities"])
-        self._qset = set(self.quantities)
-        self._qattrs: dict[str, dict] = {}  # read on demand: opening thousands takes seconds
+        f = self._h5()
+        self.attrs = {k: _decode(v) for k, v in f.attrs.items()}
+        if self.attrs.get("format_version") != FORMAT_VERSION:
+            self.close()
+            raise format_error(self.path, self.attrs.get("format_version"))
+        self.pressure_quantity = str(self.attrs["pressure_quantity"])
+        self.temperature = f["temperature"][()]
+        self.pressure = f[self.pressure_quantity][()]
+        self.variables: dict[str, list | None] = {}
+        for var in self.attrs["variables"]:
+            st = STACKED.get(var)
+            self.variables[var] = (None if st is None else
+                                   [_decode_str(x) for x in f[st.dim][()]])
+        self._index = row_names(self.variables)
+        self.quantities = list(self._index)
+        self._qattrs: dict[str, dict] = {}
         self.pressure_unit = PRESSURE_QUANTITIES[self.pressure_quantity]
         self._data: dict[str, np.ndarray] = {}
         self._prepared: dict[str, tuple[np.ndarray, bool, np.ndarray | None]] = {}
@@ -75,28 +103,67 @@ class PopulationTable:
         self._lp = np.log(self.pressure)
         self._axes = (_Axis(self._lt), _Axis(self._lp))
 
+    # -- file handle and context manager ------------------------------------------------------
+    def _h5(self):
+        if self._file is None:
+            self._file = _open(self.path)
+        return self._file
+
+    def close(self) -> None:
+        """Close the file (the arrays already read stay usable)."""
+        if self._file is not None:
+            self._file.close()
+            self._file = None
+
+    def __enter__(self) -> "PopulationTable":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def __del__(self):
+        try:
+            self.close()
+        except Exception:  # noqa: BLE001 - interpreter shutdown
+            pass
+
     def __repr__(self) -> str:
         return (f"PopulationTable({str(self.path)!r}: {len(self.temperature)} x "
-                f"{len(self.pressure)}, {len(self.quantities)} quantities)")
+                f"{len(self.pressure)}, {len(self.variables)} variables, "
+                f"{len(self.quantities)} quantities)")
 
     def __contains__(self, name: str) -> bool:
-        return name in self._qset
+        return name in self._index or name in self.variables
 
     def units(self, name: str) -> str:
         """The ``units`` attribute of a quantity."""
         return str(self.quantity_attrs(name).get("units", ""))
 
     def quantity_attrs(self, name: str) -> dict[str, Any]:
-        """Attributes of a quantity's dataset (units, long_name, species ...)."""
-        self._known(name)
+        """Attributes of a quantity: its variable's (units, long_name) and, for a row, its
+        label and the coordinates of that row (charge, element, level energy, g ...)."""
+        if name in self.variables:
+            var, row = name, None
+        else:
+            self._known(name)
+            var, row = self._index[name]
         if name not in self._qattrs:
-            with _open(self.path) as f:
-                self._qattrs[name] = {k: _decode(v) for k, v in f[name].attrs.items()
-                                      if k != "DIMENSION_LIST"}
+            f = self._h5()
+            d = f[var]
+            a = {k: _decode(v) for k, v in d.attrs.items()
+                 if k not in ("DIMENSION_LIST", "REFERENCE_LIST")}
+            if row is not None:
+                st = STACKED[var]
+                a["variable"], a[st.dim] = var, self.variables[var][row]
+                for c in str(a.get("coordinates", "")).split():
+                    a[c] = _decode(f[c][row]) if not isinstance(f[c][row], bytes) \
+                        else _decode_str(f[c][row])
+                a.pop("coordinates", None)
+            self._qattrs[name] = a
         return dict(self._qattrs[name])
 
     def _known(self, name: str) -> None:
-        if name not in self._qset:
+        if name not in self._index:
             close = [q for q in self.quantities if name.lower() in q.lower()][:8]
             hint = f" (did you mean {', '.join(close)}?)" if close else ""
             raise InputError(f"table has no quantity {name!r}{hint}; it holds "
@@ -104,28 +171,58 @@ class PopulationTable:
                              f"{' ...' if len(self.quantities) > 12 else ''}")
 
     def __getitem__(self, name: str) -> np.ndarray:
-        """The stored grid of ``name``, shape (nT, nP)."""
+        """The stored grid of a quantity, shape (nT, nP); of a whole stacked variable
+        (``"fraction"``), shape (rows, nT, nP)."""
+        if name in self.variables and self.variables[name] is not None:
+            return self._read(name, slice(None))
         self._known(name)
         if name not in self._data:
-            with _open(self.path) as f:
-                try:
-                    self._data[name] = f[name][()]
-                except OSError as exc:
-                    raise TableError(f"{self.path}: dataset {name} is damaged ({exc}); delete "
-                                     f"the file and build the table again") from None
+            var, row = self._index[name]
+            self._data[name] = self._read(var, () if row is None else row)
         return self._data[name]
 
-    def _prepare(self, name: str) -> tuple[np.ndarray, bool, np.ndarray | None]:
+    def _read(self, var: str, sel) -> np.ndarray:
+        try:
+            return self._h5()[var][sel]
+        except OSError as exc:
+            raise TableError(f"{self.path}: variable {var} is damaged ({exc}); delete "
+                             f"the file and build the table again") from None
+
+    # -- other views ---------------------------------------------------------------------------
+    def to_xarray(self):
+        """The table as an :class:`xarray.Dataset` (read lazily by xarray's ``h5netcdf``
+        engine; every coordinate, unit and long name comes from the file itself)."""
+        xr = optional("xarray", "to_xarray()")
+        optional("h5netcdf", "to_xarray()")
+        return xr.open_dataset(self.path, engine="h5netcdf")
+
+    def to_dataframe(self, names: str | Sequence[str] | None = None):
+        """Quantities as a :class:`pandas.DataFrame`, one row per grid state (index:
+        temperature and the pressure-like quantity); default: the scalar fields."""
+        pd = optional("pandas", "to_dataframe()")
+        if names is None:
+            names = [v for v, labs in self.variables.items() if labs is None]
+        elif isinstance(names, str):
+            names = [names]
+        t, p = np.meshgrid(self.temperature, self.pressure, indexing="ij")
+        index = pd.MultiIndex.from_arrays([t.ravel(), p.ravel()],
+                                          names=["temperature", self.pressure_quantity])
+        return pd.DataFrame({n: self[n].ravel() for n in names}, index=index)
+
+    def _prepare(self, name: str, widths: tuple[int, int]
+                 ) -> tuple[np.ndarray, bool, np.ndarray | None]:
         if name not in self._prepared:
             v = self[name]
             logged = bool(np.all(v >= 0))
             g = np.log(np.maximum(v, np.finfo(float).tiny)) if logged else v.astype(float)
-            wide = _wide_windows(g) if logged else None
-            self._prepared[name] = (np.ascontiguousarray(g).ravel(), logged, wide)
-        return self._prepared[name]
+            self._prepared[name] = (g, logged, {})
+        g, logged, wide = self._prepared[name]
+        if logged and widths not in wide:
+            wide[widths] = _wide_windows(g, *widths)
+        return np.ascontiguousarray(g).ravel(), logged, wide.get(widths)
 
     def interpolate(self, names: str | Sequence[str], temperature, pressure, *,
-                    method: str = "cubic", outside: str = "raise"):
+                    method: str = "quintic", outside: str = "raise"):
         """Interpolate stored quantities at the points ``(temperature, pressure)``.
 
         Parameters
@@ -136,7 +233,8 @@ class PopulationTable:
             Temperatures [K].
         pressure : float, array_like or Quantity
             Values of the table's pressure-like quantity, in its cgs unit (:attr:`pressure_unit`).
-        method : {"cubic", "linear"}
+        method : {"quintic", "cubic", "linear"}
+            Lagrange stencils of 6 points in ln T and 4 in ln P (default), 4 x 4, or bilinear.
         outside : {"raise", "clip", "nan"}
             What to do with points outside the grid.
 
@@ -145,6 +243,8 @@ class PopulationTable:
         ndarray or dict of ndarray
             Broadcast shape of the inputs; a dict when ``names`` is a sequence.
         """
+        from sahaboltz.quantities import as_positive_array  # astropy: imported when used
+
         if method not in METHODS:
             raise InputError(f"method must be one of {METHODS}, got {method!r}")
         if outside not in OUTSIDE:
@@ -162,11 +262,13 @@ class PopulationTable:
         lt = np.clip(lt, self._lt[0], self._lt[-1])
         lp = np.clip(lp, self._lp[0], self._lp[-1])
         out = {n: np.empty(lt.size) for n in names}
-        prepared = [self._prepare(n) for n in names]
+        wt = min(METHODS[method][0], self.temperature.size)
+        wp = min(METHODS[method][1], self.pressure.size)
+        prepared = [self._prepare(n, (wt, wp)) for n in names]
         for s in range(0, lt.size, _BATCH):
             sl = slice(s, s + _BATCH)
-            st = _Stencil(self._axes[0], lt[sl], method)
-            sp = _Stencil(self._axes[1], lp[sl], method)
+            st = _Stencil(self._axes[0], lt[sl], wt)
+            sp = _Stencil(self._axes[1], lp[sl], wp)
             for n, (g, logged, wide) in zip(names, prepared):
                 out[n][sl] = _evaluate(g, len(self._lp), st, sp, logged, wide)
         for n in names:
@@ -197,20 +299,23 @@ class _Axis:
 
     def __init__(self, x: np.ndarray):
         self.x = x
-        n = x.size
         step = np.diff(x)
         # uniform (log-spaced) axes find cells by arithmetic instead of a binary search
         self.uniform = bool(np.all(np.abs(step - step.mean()) <= 1e-9 * np.abs(step.mean())))
         self.step = float(step.mean())
-        if n >= 4:
-            # inverse Lagrange denominators 1 / prod_{m != k} (x_k - x_m), per stencil start
-            win = np.lib.stride_tricks.sliding_window_view(x, 4)
+        self._inv: dict[int, np.ndarray] = {}
+
+    def inv_denominator(self, w: int) -> np.ndarray:
+        """Per stencil start, 1 / prod_{m != k} (x_k - x_m) of the ``w`` nodes."""
+        if w not in self._inv:
+            win = np.lib.stride_tricks.sliding_window_view(self.x, w)
             inv = np.ones_like(win)
-            for k in range(4):
-                for m in range(4):
+            for k in range(w):
+                for m in range(w):
                     if m != k:
                         inv[:, k] /= win[:, k] - win[:, m]
-            self.inv_denominator = inv
+            self._inv[w] = inv
+        return self._inv[w]
 
     def cells(self, q: np.ndarray) -> np.ndarray:
         n = self.x.size
@@ -225,41 +330,41 @@ class _Axis:
 
 
 class _Stencil:
-    """Interpolation nodes and weights along one axis for a batch of points."""
+    """Interpolation nodes and Lagrange weights (``width`` points) along one axis for a batch
+    of points; the cell of each point is central in its stencil except at the axis ends."""
 
-    def __init__(self, axis: _Axis, q: np.ndarray, method: str):
+    def __init__(self, axis: _Axis, q: np.ndarray, width: int):
         x = axis.x
         n = x.size
         cell = axis.cells(q)
         self.cell = cell
         self.frac = (q - x[cell]) / (x[cell + 1] - x[cell])
-        if method == "cubic" and n >= 4:
-            start = np.clip(cell - 1, 0, n - 4)
-            d0, d1, d2, d3 = (q - x[start + k] for k in range(4))
-            inv = axis.inv_denominator[start]
-            p01, p23 = d0 * d1, d2 * d3
-            w = np.empty((q.size, 4))
-            w[:, 0] = d1 * p23 * inv[:, 0]
-            w[:, 1] = d0 * p23 * inv[:, 1]
-            w[:, 2] = p01 * d3 * inv[:, 2]
-            w[:, 3] = p01 * d2 * inv[:, 3]
-            self.start, self.weights, self.width = start, w, 4
+        if width > 2:
+            start = np.clip(cell - (width // 2 - 1), 0, n - width)
+            d = q[:, None] - x[start[:, None] + np.arange(width)]  # (N, w)
+            # prod_{m != k} d_m without dividing: products before and after k
+            before = np.ones_like(d)
+            after = np.ones_like(d)
+            for k in range(1, width):
+                before[:, k] = before[:, k - 1] * d[:, k - 1]
+                after[:, width - 1 - k] = after[:, width - k] * d[:, width - k]
+            self.start, self.weights = start, before * after * axis.inv_denominator(width)[start]
         else:
             self.start = cell
             self.weights = np.stack([1 - self.frac, self.frac], axis=1)
-            self.width = 2
+        self.width = self.weights.shape[1]
         self.offset = cell - self.start  # position of the cell inside the stencil
 
 
-def _wide_windows(g2d: np.ndarray) -> np.ndarray | None:
-    """Per 4 x 4 stencil start: does the logged quantity span more than the limit there?"""
-    if g2d.shape[0] < 4 or g2d.shape[1] < 4 or np.ptp(g2d) <= _SPAN_LIMIT:
+def _wide_windows(g2d: np.ndarray, wt: int, wp: int) -> np.ndarray | None:
+    """Per wt x wp stencil start: does the logged quantity span more than the limit there?"""
+    if wt * wp <= 4 or g2d.shape[0] < wt or g2d.shape[1] < wp or np.ptp(g2d) <= _SPAN_LIMIT:
         return None
     # separable sliding max/min: along P, then along T
-    wp = np.lib.stride_tricks.sliding_window_view(g2d, 4, axis=1)
-    hi, lo = wp.max(axis=-1), wp.min(axis=-1)
-    hi = np.lib.stride_tricks.sliding_window_view(hi, 4, axis=0).max(axis=-1)
-    lo = np.lib.stride_tricks.sliding_window_view(lo, 4, axis=0).min(axis=-1)
+    win = np.lib.stride_tricks.sliding_window_view(g2d, wp, axis=1)
+    hi, lo = win.max(axis=-1), win.min(axis=-1)
+    hi = np.lib.stride_tricks.sliding_window_view(hi, wt, axis=0).max(axis=-1)
+    lo = np.lib.stride_tricks.sliding_window_view(lo, wt, axis=0).min(axis=-1)
     wide = (hi - lo) > _SPAN_LIMIT
     return wide if wide.any() else None
 

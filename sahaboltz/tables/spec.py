@@ -16,7 +16,6 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
-import astropy.units as u
 import numpy as np
 
 from sahaboltz.data.elements import SYMBOLS, atomic_number, parse_species, spectroscopic_name
@@ -145,10 +144,12 @@ class Axis:
             vals = (np.geomspace(lo, hi, num) if scale == "log" else np.linspace(lo, hi, num))
             vals[0], vals[-1] = lo, hi  # exact end points
         in_unit = m.get("unit", unit)
-        try:
-            vals = (vals * u.Unit(in_unit)).to_value(unit)
-        except (ValueError, u.UnitConversionError) as exc:
-            raise InputError(f"{name} axis: cannot use unit {in_unit!r} ({exc})") from None
+        if in_unit != unit:  # astropy only when converting: it takes ~0.5 s to import
+            import astropy.units as u
+            try:
+                vals = (vals * u.Unit(in_unit)).to_value(unit)
+            except (ValueError, u.UnitConversionError) as exc:
+                raise InputError(f"{name} axis: cannot use unit {in_unit!r} ({exc})") from None
         return cls(name, unit, tuple(float(x) for x in vals), scale)
 
 
