@@ -4,7 +4,7 @@ import h5py
 import numpy as np
 import pytest
 
-from sahaboltz.data.composition import Composition
+from sahaboltz.data.composition import Composition, solar
 from sahaboltz.equilibrium import solve_equilibrium
 from sahaboltz.faces.cli import main
 from sahaboltz.tables.interpolate import open_table
@@ -59,3 +59,27 @@ def test_spec_file_and_options_together_is_an_error(tmp_path, capsys):
     spec.write_text(capsys.readouterr().out)
     code = main(["table", "build", str(spec), "--mix", "Ar:1", "--no-progress"])
     assert code == 2 and "not both" in capsys.readouterr().err
+
+
+def test_states_that_cannot_be_solved_are_flagged_not_fatal(tmp_path, capsys, monkeypatch):
+    # at 2,000 K a solar gas supplies at most P_e ~ 0.016 dyn cm^-2 (H- takes the electrons
+    # beyond that; tests/test_physical_defaults.py checks the edge): the 1e4 states are
+    # unreachable, the others are solved as usual
+    monkeypatch.setenv("SAHABOLTZ_CACHE_DIR", str(tmp_path / "cache"))
+    out = tmp_path / "pe.h5"
+    code = main(["table", "build", "--temperature", "2000,9000", "--pressure", "1e-3,1e4",
+                 "--pressure-quantity", "electron_pressure", "--fractions", "H,Fe",
+                 "--no-progress", "-o", str(out)])
+    cap = capsys.readouterr()
+    assert code == 0
+    assert "1 of 4 states could not be solved" in cap.err
+    with open_table(out) as tab:
+        status = tab["status"]
+        frac = tab["fraction_Fe_I"]
+    np.testing.assert_array_equal(status, [[0, 1], [0, 0]])
+    assert np.isnan(frac[0, 1]) and np.isfinite(frac[status == 0]).all()
+    with h5py.File(out) as f:
+        assert f["status"].attrs["flag_meanings"].split()[1] == b"unreachable"
+    direct = solve_equilibrium(solar(), [2000.0, 9000.0],
+                               electron_pressure=1e-3).fraction("Fe I")
+    np.testing.assert_allclose(frac[:, 0], direct, rtol=1e-9)

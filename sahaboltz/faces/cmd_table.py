@@ -176,7 +176,11 @@ def _build(args) -> int:
     t0 = time.perf_counter()
     res = obtain_table(spec, output=args.output, compute=_load_compute(args.compute),
                        rebuild=args.rebuild, **opts)
+    if res.failed_states:
+        print(f"sahaboltz: note: {res.failed_states} of {spec.size} states could not be solved "
+              "(their fields are NaN; the 'status' field says why)", file=sys.stderr)
     emit([{"key": res.key[:16], "status": res.status,
+           "failed_states": res.failed_states if res.failed_states is not None else "",
            "grid": f"{spec.shape[0]}x{spec.shape[1]}",
            "seconds": round(time.perf_counter() - t0, 3), "path": str(res.path)}], args.format)
     return 0

@@ -65,12 +65,14 @@ def run_block(compute: ComputeFn, spec: TableSpec, block: Block,
     t, p = block_states(spec, block)
     fields, labels, aux = stack(compute(spec, t, p), t.size)
     shape = (block[1] - block[0], block[3] - block[2])
+    # a state the solver could not solve is NaN in every field, and says why in "status"
+    failed = fields["status"] != 0 if "status" in fields else np.zeros(t.size, bool)
     for name, arr in fields.items():
-        if not np.all(np.isfinite(arr)):
+        if not np.all(np.isfinite(arr[..., ~failed])):
             raise TableError(f"compute function returned non-finite {name} in block {block}")
         if chunk_shape is not None:
             fields[name] = encode_field(arr, shape, chunk_shape, name in STACKED)
-    return block, {"fields": fields, "labels": labels, "aux": aux}
+    return block, {"fields": fields, "labels": labels, "aux": aux, "failed": int(failed.sum())}
 
 
 def _worker_init() -> None:
@@ -204,13 +206,16 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
     writer = None
     bar = Progress(spec.size, progress)
     t0 = time.perf_counter()
+    failed = 0
     try:
         chunk_shape = (first[1] - first[0], first[3] - first[2])
         writer = TableWriter(tmp, spec, dict(provenance or {}), chunk_shape)
         for block, values in _results(compute, spec, todo, workers, chunk_shape):
             writer.write_block(block, values)
+            failed += values.get("failed", 0)
             bar.update((block[1] - block[0]) * (block[3] - block[2]))
-        writer.finish({"build_seconds": round(time.perf_counter() - t0, 3)})
+        writer.finish({"build_seconds": round(time.perf_counter() - t0, 3),
+                       "failed_states": failed})
         os.replace(tmp, path)
     except BaseException:
         if writer is not None:

@@ -242,6 +242,13 @@ class TableResult:
     path: Path
     key: str
     status: str
+    #: states the solver could not solve (status field != 0), counted when built here
+    failed_states: int | None = None
+
+
+def _failed_states(path) -> int:
+    from sahaboltz.tables.hdf5 import read_metadata
+    return int(read_metadata(path).get("failed_states", 0))
 
 
 def obtain_table(spec: TableSpec, *, output: str | Path | None = None,
@@ -258,7 +265,7 @@ def obtain_table(spec: TableSpec, *, output: str | Path | None = None,
     if output is not None:
         from sahaboltz.tables.build import build_table
         path = build_table(spec, output, compute=compute, provenance=prov, **build_options)
-        return TableResult(Path(path), key, "built")
+        return TableResult(Path(path), key, "built", _failed_states(path))
     d = Path(directory) if directory is not None else cache_dir()
     d.mkdir(parents=True, exist_ok=True)
     final = d / f"{key}.h5"
@@ -280,9 +287,10 @@ def obtain_table(spec: TableSpec, *, output: str | Path | None = None,
         digest_path(final).unlink(missing_ok=True)
         from sahaboltz.tables.build import build_table  # not needed for a cache hit
         build_table(spec, final, compute=compute, provenance=prov, **build_options)
+        failed = _failed_states(final)
         record_digest(final)
         _fsync_dir(d)
-    return TableResult(final, key, "built")
+    return TableResult(final, key, "built", failed)
 
 
 def get_table(spec: TableSpec, *, compute=None,

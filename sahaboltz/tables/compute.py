@@ -58,7 +58,7 @@ def solve_block(spec: TableSpec, T: np.ndarray, P: np.ndarray):
     phys = spec.physics
     kwargs = {spec.pressure.name: P, "truncation": phys["truncation"],
               "lowering": bool(phys["lowering"]), "completion": bool(phys["completion"]),
-              "h_minus": bool(phys["h_minus"])}
+              "h_minus": bool(phys["h_minus"]), "errors": "mask"}
     if phys["molecules"] != "none":
         kwargs["molecules"] = phys["molecules"]
     key = _network_key(spec)
@@ -88,7 +88,8 @@ def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, A
     coords: dict[str, list] = {}
     scalars = {"electron_density": "n_e", "electron_pressure": "electron_pressure",
                "gas_pressure": "gas_pressure", "mass_density": "mass_density",
-               "mean_molecular_weight": "mean_molecular_weight", "mean_charge": "mean_charge"}
+               "mean_molecular_weight": "mean_molecular_weight", "mean_charge": "mean_charge",
+               "status": "status"}
     for name in spec.outputs.quantities:
         out[name] = np.asarray(getattr(state, scalars[name]), dtype=float).reshape(n)
     comp = state.composition

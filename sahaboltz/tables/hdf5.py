@@ -197,7 +197,7 @@ class TableWriter:
                                  compression="gzip", compression_opts=GZIP_LEVEL, shuffle=True,
                                  fletcher32=True, fillvalue=0.0)  # unwritten chunks: zeros
             for k_, v_ in field_attrs(name).items():
-                d.attrs[k_] = _text(v_)
+                d.attrs[k_] = v_ if isinstance(v_, np.ndarray) else _text(v_)
             axes = [self._t, self._p]
             if var is not None:
                 axes.insert(0, scales[var.dim])

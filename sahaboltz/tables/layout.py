@@ -192,5 +192,9 @@ def field_attrs(name: str) -> dict[str, Any]:
         return {"units": v.units, "long_name": v.long_name}
     if name in SCALAR_OUTPUTS:
         unit, desc = SCALAR_OUTPUTS[name]
-        return {"units": unit, "long_name": desc}
+        out = {"units": unit, "long_name": desc}
+        if name == "status":  # CF flags, so that netCDF tools name the codes
+            out["flag_values"] = np.arange(4.0)
+            out["flag_meanings"] = "converged unreachable strongly_coupled not_converged"
+        return out
     return {"units": "unknown", "long_name": name}

@@ -39,6 +39,8 @@ SCALAR_OUTPUTS = {
     "mass_density": ("g cm-3", "mass density"),
     "mean_molecular_weight": ("1", "mean mass per free particle in atomic mass units"),
     "mean_charge": ("1", "free electrons per heavy particle"),
+    "status": ("1", "solver outcome of the state: 0 converged, 1 unreachable, "
+                    "2 strongly coupled, 3 not converged (its other fields are NaN)"),
 }
 
 AXIS_SCALES = ("log", "linear", "values")
