@@ -31,7 +31,7 @@ def test_units_of_kp_and_kn():
     # dyn cm^-2 per particle gained, then cm^-3: Delta n = 2 (H2O = 2H + O), 2 (H3O+ + e- =
     # 3H + O), 1 (O- = O + e-)
     assert list(fc.delta_n) == [2.0, 2.0, 1.0]
-    np.testing.assert_allclose(fc.ln_kp(t) - fc.ln_kp0(t), fc.delta_n[:, None] * np.log(1e6))
+    np.testing.assert_allclose(fc.ln_kp(t) - fc.ln_kp0(t), np.outer(fc.delta_n, [1, 1]) * np.log(1e6))
     np.testing.assert_allclose(fc.ln_kp(t) - fc.ln_kn(t), fc.delta_n[:, None] * np.log(K_B * t))
 
 
