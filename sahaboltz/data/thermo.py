@@ -169,6 +169,10 @@ class ThermoDatabase:
             raise UnknownSpeciesError(f"no atomic species {name} in {self.path.name}")
         return s
 
+    def has_atom(self, z: int) -> bool:
+        s = self._species.get(SYMBOLS[z])
+        return s is not None and s.n_atoms == 1
+
     def electron(self) -> ThermoSpecies:
         return self.species(ELECTRON)
 

@@ -46,20 +46,26 @@ import numpy as np
 
 from sahaboltz.data.composition import Composition
 from sahaboltz.data.elements import SYMBOLS
-from sahaboltz.data.molecules import Molecule, MoleculeDatabase, default_molecule_database
+from sahaboltz.data.molecule_import import parse_formula
+from sahaboltz.data.molecules import MoleculeDatabase, default_molecule_database
+from sahaboltz.data.thermo import ThermoDatabase, ThermoSpecies, default_thermo_database
+from sahaboltz.data.thermo_import import ELECTRON
 from sahaboltz.equilibrium.atomic import solve_atomic
 from sahaboltz.equilibrium.closures import Closure
 from sahaboltz.equilibrium.network import AtomicNetwork
 from sahaboltz.equilibrium.state import (CONVERGED, NOT_CONVERGED, EquilibriumState,
                                          SolveReport)
 from sahaboltz.errors import InputError, UnknownSpeciesError
-from sahaboltz.kernels.molecular import EquilibriumConstants
+from sahaboltz.kernels.molecular import MoleculeConstants
 
-#: the short default set: the diatomics that take a noticeable share of an abundant element in
-#: cool stellar atmospheres (H, C, N, O, and the main metal hydrides and oxides)
+#: the short set "abundant": the diatomics that take a noticeable share of an abundant element
+#: in cool stellar atmospheres (H, C, N, O, and the main metal hydrides and oxides)
 DEFAULT_MOLECULES = ("H2", "H2+", "CH", "NH", "OH", "C2", "CN", "CO", "N2", "NO", "O2", "SiO",
                      "SiS", "CS", "SO", "HS", "MgH", "SiH", "CaH", "FeH", "AlH", "TiO", "AlO")
-MOLECULE_SETS = ("default", "all", "none")
+#: named molecule sets: "default" (the physically best set: every species of the data, each
+#: where its data reach), "all" (the same species), "diatomics" (Barklem & Collet only),
+#: "abundant" (DEFAULT_MOLECULES), "none"
+MOLECULE_SETS = ("default", "all", "diatomics", "abundant", "none")
 #: lowest temperature the molecular solver accepts [K] (the issue's supported range starts
 #: at 1000 K; below ~500 K solar-mixture densities span more than float64's range)
 T_MIN = 500.0
@@ -74,22 +80,47 @@ _MAX_REFREEZE = 20        # solves with the density-dependent partition function
 
 
 # ------------------------------------------------------------------------------ molecule sets
+def _key(counts: dict[str, int], charge: int) -> tuple:
+    return tuple(sorted(counts.items())), charge
+
+
+def polyatomic_candidates(thermo: ThermoDatabase) -> list[ThermoSpecies]:
+    """The gas species of the NASA polynomials that the molecular equilibrium can add: every
+    molecule and molecular ion, and the negative atomic ions except H- (which the atomic
+    network holds); not the atoms, positive atomic ions and the electron (the atomic network's)."""
+    out = []
+    for s in thermo:
+        if s.name == ELECTRON or s.is_condensed:
+            continue
+        if not all(thermo.has_atom(z) for z in s.elements):
+            continue        # no constant without the atoms' G (Mo oxides: no Mo gas in the data)
+        if s.n_atoms >= 2 or (s.charge < 0 and s.elements != (1,)):
+            out.append(s)
+    return out
+
+
 def select_molecules(composition: Composition, molecules: Any, network: AtomicNetwork,
-                     database: MoleculeDatabase | None = None) -> tuple[list[Molecule], list[str]]:
+                     database: MoleculeDatabase | None = None,
+                     thermo: ThermoDatabase | None = None) -> tuple[list, list[str]]:
     """Resolve the ``molecules=`` option into records; also return the skipped names and why.
 
-    ``"default"``: :data:`DEFAULT_MOLECULES` whose elements are all in the mixture;
-    ``"all"``: every molecule of the data made of the mixture's elements; a list of names:
-    exactly those (an error if one is unknown or needs an element or ion the mixture lacks);
-    ``"none"`` or an empty list: no molecules; ``True``/``False`` mean ``"default"``/``"none"``.
-    Processes that involve an atomic negative ion
-    other than H- (C-, O-, Si-, S-) are skipped in the sets, because the atomic network has no
-    such ions (no electron affinities in our data); naming one explicitly is an error.
+    ``"default"`` and ``"all"``: every Barklem & Collet diatomic made of the mixture's elements,
+    and every species of the NASA polynomials (:func:`polyatomic_candidates`) that is not
+    already one of those diatomics (Barklem & Collet stays where both have a molecule: its
+    tables reach 10,000 K); each species takes part where its data reach (see
+    :meth:`MolecularEquilibriumState.left_out`).  ``"diatomics"``: the Barklem & Collet
+    molecules only; ``"abundant"``: :data:`DEFAULT_MOLECULES`; a list of names: exactly those
+    (Barklem & Collet first, then the NASA gas species; an error if one is unknown or needs an
+    element or ion the mixture lacks); ``"none"`` or an empty list: no molecules;
+    ``True``/``False`` mean ``"default"``/``"none"``.  Barklem & Collet processes that involve
+    an atomic negative ion other than H- (C-, O-, Si-, S-) cannot be used, because the atomic
+    network has no such ions; in the full sets the NASA species of the same formula replaces
+    such a diatomic (it is formed from neutral atoms and electrons), in "diatomics" it is skipped.
     """
     db = database or default_molecule_database()
     present = set(int(z) for z in composition.Z)
 
-    def usable(m: Molecule) -> str | None:
+    def usable(m) -> str | None:
         missing = [SYMBOLS[z] for z in m.elements if z not in present]
         if missing:
             return f"element(s) {', '.join(missing)} not in the mixture"
@@ -111,23 +142,43 @@ def select_molecules(composition: Composition, molecules: Any, network: AtomicNe
                              f"such as ['H2', 'CO'], got {molecules!r}")
         if molecules == "none":
             return [], skipped
-        pool = [db[n] for n in DEFAULT_MOLECULES] if molecules == "default" else db.all_molecules()
-        out = []
+        pool = ([db[n] for n in DEFAULT_MOLECULES] if molecules == "abundant"
+                else db.all_molecules())
+        out, unusable = [], {}
         for m in pool:
             why = usable(m)
             if why is None:
                 out.append(m)
             elif not why.startswith("element"):
-                skipped.append(f"{m.name}: {why}")
-        return out, skipped
+                unusable[_key(*parse_formula(m.name))] = f"{m.name}: {why}"
+        if molecules in ("default", "all"):
+            have = {_key(*parse_formula(m.name)) for m in out}
+            thermo = thermo or default_thermo_database()
+            for s in polyatomic_candidates(thermo):
+                k = _key({SYMBOLS[z]: c for z, c in s.composition.items()}, s.charge)
+                if k in have or usable(s) is not None:
+                    continue
+                unusable.pop(k, None)        # the NASA species replaces an unusable diatomic
+                out.append(s)
+        return out, skipped + list(unusable.values())
     try:
         names = list(molecules)
     except TypeError:
-        raise InputError(f"molecules must be 'default', 'all', 'none' or a list of names, got "
+        raise InputError(f"molecules must be one of {MOLECULE_SETS} or a list of names, got "
                          f"{molecules!r}") from None
     out, seen = [], set()
     for n in names:
-        m = db.molecule(n)
+        try:
+            m = db.molecule(n)
+        except UnknownSpeciesError as exc:
+            thermo = thermo or default_thermo_database()
+            if n not in thermo:
+                raise UnknownSpeciesError(f"{exc}; nor is {n!r} a gas species of the NASA "
+                                          "polynomials") from None
+            m = thermo.species(n)
+            if m not in polyatomic_candidates(thermo):
+                raise InputError(f"{m.name} is an atom, a positive atomic ion, H- or the "
+                                 "electron: the atomic network holds it, not molecules=")
         why = usable(m)
         if why is not None:
             raise InputError(f"molecule {m.name}: {why}; remove it from molecules= or add the "
@@ -235,16 +286,17 @@ def solve_molecular(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closur
         closure_value=v.copy(), lowering=False, debye_length=None,
         report=SolveReport(out["passes"].reshape(shape), out["resid"].reshape(shape)),
         status=status, reason=reason,
-        system=system, log_neutral=out["y"].reshape((-1,) + shape), skipped_molecules=skipped)
+        system=system, log_neutral=out["y"].reshape((-1,) + shape), skipped_molecules=skipped,
+        absent=system.constants.absent(tf).reshape((-1,) + shape))
 
 
 class MolecularSystem:
     """The unknowns, T-only tables and residual/Jacobian of the molecular equilibrium."""
 
-    def __init__(self, network: AtomicNetwork, molecules: Sequence[Molecule]):
+    def __init__(self, network: AtomicNetwork, molecules: Sequence):
         self.network = network
         self.molecules = list(molecules)
-        self.constants = EquilibriumConstants(self.molecules, above_range="absent")
+        self.constants = MoleculeConstants(self.molecules, above_range="absent")
         zs = sorted({z for m in self.molecules for z in m.component_Z})
         self.mol_chains = [network.chain_of(z) for z in zs]          # elements in M, by Z
         self.other_chains = [c for c in network.chains if c.Z not in set(zs)]
@@ -254,6 +306,9 @@ class MolecularSystem:
         for i, m in enumerate(self.molecules):
             for z in m.component_Z:
                 self.nu[i, pos[z]] += 1.0
+        w = np.einsum("ik,ij->ikj", self.nu, self.nu).reshape(nm, nk * nk)
+        self._pairs = np.flatnonzero(w.any(axis=0))
+        self._pair_weights = w[:, self._pairs]
         self.q_mol = np.array([float(m.charge) for m in self.molecules])
         self.alpha = np.array([c.fraction for c in self.mol_chains])
         # component stages: (chain position, row of the stage in that chain)
@@ -263,6 +318,15 @@ class MolecularSystem:
     @property
     def names(self) -> list[str]:
         return [m.name for m in self.molecules]
+
+    def gram(self, n_m: np.ndarray) -> np.ndarray:
+        """sum_i nu_ik n_im nu_ij for every state m, shape (m, nk, nk).  Only the element pairs
+        that share a molecule are nonzero: one matrix product over those pairs (a batched
+        (nk x nm)(nm x nk) product is ten times slower for hundreds of molecules)."""
+        nk = self.nu.shape[1]
+        out = np.zeros((n_m.shape[1], nk * nk))
+        out[:, self._pairs] = n_m.T @ self._pair_weights
+        return out.reshape(-1, nk, nk)
 
     # -- temperature-only tables -------------------------------------------------------------
     def tables(self, t: np.ndarray, x0: np.ndarray | None = None, others: bool = True,
@@ -362,8 +426,7 @@ class MolecularSystem:
         jac = np.zeros((m, r.shape[0], n_unk))
         # d/dy
         # sum_i nu_ik nu_ij n_i / T_k
-        jac[:, :nk, :nk] = (np.einsum("ik,im,ij->mkj", self.nu, n_m, self.nu, optimize=True)
-                            / tot.T[:, :, None])
+        jac[:, :nk, :nk] = self.gram(n_m) / tot.T[:, :, None]
         idx = np.arange(nk)
         jac[:, idx, idx] += (at / tot).T
         dpos_y = (at * qp).T + (n_m.T @ (self.nu * q_pos_m[:, None]))
@@ -539,7 +602,7 @@ class MolecularSystem:
                                                     at[:, keep], tot[:, keep], ba[:, keep],
                                                     s_[:, keep], qa[:, keep], la[:, keep])
             grad = tot - ba                                            # (nk, ma)
-            hess = np.einsum("ik,im,ij->mkj", self.nu, n_m, self.nu, optimize=True)
+            hess = self.gram(n_m)
             hess += at.T[:, :, None] * eye[None]
             dsc = 1.0 / np.sqrt(np.einsum("mkk->mk", hess))
             hs = hess * dsc[:, :, None] * dsc[:, None, :]
@@ -668,9 +731,11 @@ class MolecularEquilibriumState(EquilibriumState):
     """
 
     def __init__(self, *, system: MolecularSystem, log_neutral: np.ndarray,
-                 skipped_molecules: list[str], **kw):
+                 skipped_molecules: list[str], absent: np.ndarray | None = None, **kw):
         super().__init__(**kw)
         self.system = system
+        self._absent = (np.zeros((len(system.molecules),) + self.shape, dtype=bool)
+                        if absent is None else absent)
         self.log_neutral = log_neutral
         self.skipped_molecules = list(skipped_molecules)
         ok = self.converged.ravel()
@@ -701,15 +766,34 @@ class MolecularEquilibriumState(EquilibriumState):
         return self._n_mol
 
     def molecule_density(self, name: str) -> np.ndarray:
-        """Number density of one molecule [cm^-3] (``"CO"``, ``"H2"``, ``"CO+"``)."""
-        db = default_molecule_database()
-        mol = db.molecule(name)
-        try:
-            i = self.system.names.index(mol.name)
-        except ValueError:
-            raise UnknownSpeciesError(f"{mol.name} is not among the molecules of this solve "
-                                      f"({', '.join(self.system.names)})") from None
-        return self._n_mol[i]
+        """Number density of one molecule [cm^-3] (``"CO"``, ``"H2"``, ``"CO+"``, ``"H2O"``;
+        element order free)."""
+        names = self.system.names
+        text = str(name).strip()
+        if text not in names:
+            try:
+                key = _key(*parse_formula(text))
+            except ValueError:
+                key = None
+            # the first molecule of that formula and charge (isomers: the unlabelled one)
+            match = [n for n in names if key is not None and "/" not in n
+                     and _key(*parse_formula(n)) == key]
+            if not match:
+                raise UnknownSpeciesError(f"{text} is not among the {len(names)} molecules of "
+                                          f"this solve (e.g. {', '.join(names[:8])})")
+            text = match[0]
+        return self._n_mol[names.index(text)]
+
+    def left_out(self, index=None) -> list[str]:
+        """Molecules of the chosen set that are absent at a state (``index``; default: at any
+        state) because its temperature is outside their data (the NASA polynomials end at
+        5000 or 6000 K, Barklem & Collet at 10,000 K)."""
+        a = self._absent.reshape(len(self.system.molecules), *self.shape)
+        a = a[(slice(None),) + (index if isinstance(index, tuple) else (index,))] \
+            if index is not None else a.reshape(len(self.system.molecules), -1).any(axis=1)
+        if a.ndim > 1:
+            a = a.reshape(a.shape[0], -1).any(axis=1)
+        return [n for n, gone in zip(self.system.names, a) if gone]
 
     def number_density(self, species) -> np.ndarray:
         """Number density [cm^-3] of an atomic species ("Fe II", "H-") or, by its exact name,
@@ -781,6 +865,11 @@ class MolecularEquilibriumState(EquilibriumState):
                 out[f"molecular_fraction_{el}"] = float(self.molecular_fraction(el)[idx])
             except UnknownSpeciesError:
                 pass
+        out["molecules"] = len(self.system.molecules)
+        gone = self.left_out(index)
+        if gone:
+            out["molecules_left_out"] = (f"{len(gone)} outside their data's temperature range"
+                                         f" ({', '.join(gone[:6])}{' ...' if len(gone) > 6 else ''})")
         return out
 
     def __repr__(self) -> str:
