@@ -45,11 +45,11 @@ from typing import Any, Sequence
 import numpy as np
 
 from sahaboltz.data.composition import Composition
-from sahaboltz.data.elements import SYMBOLS
+from sahaboltz.data.elements import SYMBOLS, Z_OF
 from sahaboltz.data.molecule_import import parse_formula
 from sahaboltz.data.molecules import MoleculeDatabase, default_molecule_database
 from sahaboltz.data.thermo import ThermoDatabase, ThermoSpecies, default_thermo_database
-from sahaboltz.data.thermo_import import ELECTRON
+from sahaboltz.data.thermo_import import ELECTRON, formula_counts
 from sahaboltz.equilibrium.atomic import solve_atomic
 from sahaboltz.equilibrium.closures import Closure
 from sahaboltz.equilibrium.network import AtomicNetwork
@@ -82,6 +82,17 @@ _MAX_REFREEZE = 20        # solves with the density-dependent partition function
 # ------------------------------------------------------------------------------ molecule sets
 def _key(counts: dict[str, int], charge: int) -> tuple:
     return tuple(sorted(counts.items())), charge
+
+
+def _query_key(text: str):
+    """(sorted (Z, count), charge) of a formula such as "OH2", "Fe(OH)2" or "H3O+"; None if it
+    is not one."""
+    base, sign = (text[:-1], text[-1]) if text.endswith(("+", "-")) else (text, "")
+    try:
+        counts = formula_counts(base)
+    except ValueError:
+        return None
+    return tuple(sorted((Z_OF[k], v) for k, v in counts.items())), {"": 0, "+": 1, "-": -1}[sign]
 
 
 def polyatomic_candidates(thermo: ThermoDatabase) -> list[ThermoSpecies]:
@@ -771,13 +782,11 @@ class MolecularEquilibriumState(EquilibriumState):
         names = self.system.names
         text = str(name).strip()
         if text not in names:
-            try:
-                key = _key(*parse_formula(text))
-            except ValueError:
-                key = None
-            # the first molecule of that formula and charge (isomers: the unlabelled one)
-            match = [n for n in names if key is not None and "/" not in n
-                     and _key(*parse_formula(n)) == key]
+            key = _query_key(text)
+            match = [m.name for m in self.system.molecules
+                     if key is not None and (tuple(sorted(m.composition.items())), m.charge) == key]
+            # of several isomers the one without a label, else the first (C2H2/acetylene)
+            match.sort(key=lambda n: "/" in n)
             if not match:
                 raise UnknownSpeciesError(f"{text} is not among the {len(names)} molecules of "
                                           f"this solve (e.g. {', '.join(names[:8])})")
