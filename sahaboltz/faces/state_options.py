@@ -27,6 +27,7 @@ import numpy as np
 
 from sahaboltz.data.composition import Composition, solar
 from sahaboltz.equilibrium.closures import CLOSURES
+from sahaboltz.equilibrium.molecular import MOLECULE_SETS
 from sahaboltz.errors import InputError
 from sahaboltz.kernels import truncation as _truncation
 
@@ -63,10 +64,12 @@ def add_mixture_options(p) -> None:
                    help="partition-function truncation (default: lowered with --lowering, "
                         f"else plain): {_truncation.choices_help()}")
     p.add_argument("--no-h-minus", action="store_true", help="leave H- out")
-    p.add_argument("--molecules", choices=("none", "default", "all"), default="none",
-                   help="diatomic molecules in the equilibrium (Barklem & Collet 2016 data; "
-                        "1,000-10,000 K): 'default' the abundant ones, 'all' every one of the "
-                        "mixture's elements (default none)")
+    p.add_argument("--molecules", choices=MOLECULE_SETS, default="none",
+                   help="molecules in the equilibrium: 'default' (= 'all') the Barklem & Collet "
+                        "2016 diatomics (to 10,000 K) and the polyatomic species and molecular "
+                        "ions of the NASA polynomials (to 5,000-6,000 K; left out above and "
+                        "reported), 'diatomics' the Barklem & Collet ones, 'abundant' 23 common "
+                        "diatomics (default none); docs/molecules.md")
 
 
 def parse_mix(text: str, by: str = "number", metallicity: float = 0.0,
