@@ -57,6 +57,7 @@ from sahaboltz.equilibrium.state import (CONVERGED, NOT_CONVERGED, EquilibriumSt
                                          SolveReport)
 from sahaboltz.errors import InputError, UnknownSpeciesError
 from sahaboltz.kernels.molecular import MoleculeConstants
+from sahaboltz.kernels.thermo import CondensateConstants
 
 #: the short set "abundant": the diatomics that take a noticeable share of an abundant element
 #: in cool stellar atmospheres (H, C, N, O, and the main metal hydrides and oxides)
@@ -829,6 +830,31 @@ class MolecularEquilibriumState(EquilibriumState):
             if cnt:
                 out[m.name] = cnt * self._n_mol[i] / total
         return out
+
+    def log_supersaturation(self, compound: str) -> np.ndarray:
+        """ln S of a condensed compound in this gas: S = prod n_A^nu / K_n, with n_A the free
+        neutral atoms and K_n the saturation constant of the compound's most stable phase in
+        the NASA data (:class:`~sahaboltz.kernels.thermo.CondensateConstants`).  S > 1: the gas
+        is supersaturated, the compound would condense.  The gas is not depleted here (no
+        condensation equilibrium), so the temperature where S = 1 is the compound's
+        appearance (onset) temperature only while none of its elements has condensed in
+        another compound before.  NaN where no phase of the compound has data."""
+        cdb = default_thermo_database(condensed=True)
+        phases = [sp for sp in cdb if sp.formula == str(compound).strip()]
+        if not phases:
+            raise UnknownSpeciesError(f"no condensed phase of {compound!r} in the NASA data")
+        pos = {c.Z: k for k, c in enumerate(self.system.mol_chains)}
+        missing = [SYMBOLS[z] for z in phases[0].composition if z not in pos]
+        if missing:
+            raise InputError(f"{compound}: element(s) {', '.join(missing)} are in no molecule "
+                             "of this solve (their free atoms are not unknowns of it)")
+        ln_k = CondensateConstants([phases]).ln_kn(self.temperature.ravel())[0]
+        ln_a = np.zeros(self.temperature.size)
+        y = self.log_neutral.reshape(self.log_neutral.shape[0], -1)
+        for z, cnt in phases[0].composition.items():
+            ln_a = ln_a + cnt * y[pos[z]]
+        out = np.where(np.isfinite(ln_k), ln_a - np.where(np.isfinite(ln_k), ln_k, 0.0), np.nan)
+        return out.reshape(self.shape)
 
     # -- overrides: atoms scaled to the part of each element not in molecules ---------------
     def _chain_fractions(self, chain):

@@ -105,7 +105,7 @@ class FormationConstants:
 
     def __init__(self, species: Sequence[ThermoSpecies | str], database: ThermoDatabase | None = None):
         db = database or default_thermo_database()
-        self.species = [db.species(s) for s in species]
+        self.species = [s if isinstance(s, ThermoSpecies) else db.species(s) for s in species]
         zs = sorted({z for s in self.species for z in s.composition})
         self._atoms = [db.atom(z) for z in zs]
         self._table = GibbsTable(self.species + self._atoms + [db.electron()])
@@ -115,7 +115,9 @@ class FormationConstants:
             for z, c in s.composition.items():
                 self._nu[i, pos[z]] = c
         self._q = np.array([float(s.charge) for s in self.species])
-        self.delta_n = self._nu.sum(axis=1) - self._q - 1.0
+        # gas particles gained; a condensed phase is not a gas particle (its activity is 1)
+        self.delta_n = (self._nu.sum(axis=1) - self._q
+                        - np.array([0.0 if s.is_condensed else 1.0 for s in self.species]))
         n = len(self.species)
         lo, hi = self._table.t_min, self._table.t_max
         # a species exists where it and all its atoms (and the electron, for ions) have data
@@ -160,3 +162,54 @@ class FormationConstants:
         t = as_positive_array(temperature, "K", "temperature")
         sh = (-1,) + (1,) * t.ndim
         return self.ln_kp(t) - self.delta_n.reshape(sh) * np.log(K_B * t)
+
+
+class CondensateConstants:
+    """Saturation constants of condensed compounds, each the most stable of its phases.
+
+    For a compound C (solid or liquid, activity 1) made of nu_A atoms of each element,
+    ``ln_kn`` is ln K_n = ln prod n_A^nu at saturation [cm^-3 per atom], from
+    "C(condensed) = sum nu_A A(gas)" (:class:`FormationConstants` with Delta n = sum nu_A).  Of
+    the phases of one compound (Fe(a), Fe(c), Fe(d), Fe(L)) whose data hold at T, the one with
+    the smallest constant is the stable one; the gas is saturated with respect to C where
+    sum nu_A ln n_A = ln K_n.  +inf where no phase of C has data at T.
+
+    Parameters
+    ----------
+    compounds : sequence of sequences of ThermoSpecies
+        The phases of each compound (same composition).
+    """
+
+    def __init__(self, compounds: Sequence[Sequence[ThermoSpecies]]):
+        self.compounds = [list(c) for c in compounds]
+        self.phases = [p for c in self.compounds for p in c]
+        self._owner = np.array([i for i, c in enumerate(self.compounds) for _ in c], dtype=int)
+        self._fc = FormationConstants(self.phases) if self.phases else None
+
+    def __len__(self) -> int:
+        return len(self.compounds)
+
+    def _all(self, t: np.ndarray) -> np.ndarray:
+        return self._fc.ln_kn(t).reshape(len(self.phases), -1)
+
+    def ln_kn(self, temperature: Any) -> np.ndarray:
+        """(n_compounds,) + T.shape: ln K_n of the stable phase (+inf: no data)."""
+        t = as_positive_array(temperature, "K", "temperature")
+        out = np.full((len(self.compounds), t.size), np.inf)
+        if self.phases:
+            np.minimum.at(out, self._owner, self._all(t))
+        return out.reshape((len(self.compounds),) + t.shape)
+
+    def stable_phase(self, temperature: Any) -> np.ndarray:
+        """(n_compounds,) + T.shape: index into ``phases`` of each compound's stable phase
+        (-1 where none has data)."""
+        t = as_positive_array(temperature, "K", "temperature")
+        out = np.full((len(self.compounds), t.size), -1, dtype=int)
+        if self.phases:
+            k = self._all(t)
+            for i, c in enumerate(self.compounds):
+                rows = np.flatnonzero(self._owner == i)
+                sub = k[rows]
+                best = np.argmin(sub, axis=0)
+                out[i] = np.where(np.isfinite(sub.min(axis=0)), rows[best], -1)
+        return out.reshape((len(self.compounds),) + t.shape)
