@@ -70,6 +70,10 @@ def add_mixture_options(p) -> None:
                         "ions of the NASA polynomials (to 5,000-6,000 K; left out above and "
                         "reported), 'diatomics' the Barklem & Collet ones, 'abundant' 23 common "
                         "diatomics (default none); docs/molecules.md")
+    p.add_argument("--condensates", action="store_true",
+                   help="with --molecules: gas-condensate equilibrium (corundum, iron, "
+                        "forsterite, enstatite, spinel, ... from the NASA polynomials); the "
+                        "condensed elements leave the gas")
 
 
 def parse_mix(text: str, by: str = "number", metallicity: float = 0.0,
@@ -132,6 +136,8 @@ def solver_options(args: argparse.Namespace) -> dict[str, Any]:
             "h_minus": not args.no_h_minus}
     if getattr(args, "molecules", "none") != "none":
         opts["molecules"] = args.molecules
+    if getattr(args, "condensates", False):
+        opts["condensates"] = True
     return opts
 
 
