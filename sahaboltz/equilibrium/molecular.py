@@ -1149,10 +1149,11 @@ class MolecularEquilibriumState(EquilibriumState):
         """ln S of a condensed compound in this gas: S = prod n_A^nu / K_n, with n_A the free
         neutral atoms and K_n the saturation constant of the compound's most stable phase in
         the NASA data (:class:`~sahaboltz.kernels.thermo.CondensateConstants`).  S > 1: the gas
-        is supersaturated, the compound would condense.  The gas is not depleted here (no
-        condensation equilibrium), so the temperature where S = 1 is the compound's
-        appearance (onset) temperature only while none of its elements has condensed in
-        another compound before.  NaN where no phase of the compound has data."""
+        is supersaturated, the compound would condense.  In a solve without ``condensates=``
+        the gas is not depleted, so the temperature where S = 1 is the compound's appearance
+        (onset) temperature while none of its elements has condensed in another compound
+        before; with condensates, ln S ~ 0 for the condensed ones.  NaN where no phase of the
+        compound has data."""
         cdb = default_thermo_database(condensed=True)
         phases = [sp for sp in cdb if sp.formula == str(compound).strip()]
         if not phases:
