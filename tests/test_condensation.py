@@ -13,7 +13,7 @@ P_LODDERS = 100.0        # 1e-4 bar in dyn cm^-2
 
 @pytest.fixture(scope="module")
 def sequence():
-    t = np.arange(1250.0, 1751.0, 10.0)
+    t = np.arange(1250.0, 1751.0, 25.0)
     return t, solve_equilibrium(solar(), t, gas_pressure=P_LODDERS, molecules="default",
                                 condensates=True)
 
@@ -43,13 +43,13 @@ def test_phases_appear_in_the_condensation_sequence(sequence):
 
 
 def test_no_jump_in_the_gas_where_corundum_appears():
-    t = np.linspace(1655.0, 1675.0, 41)              # corundum appears near 1662 K
+    t = np.linspace(1656.0, 1668.0, 13)              # corundum appears near 1662 K
     st = solve_equilibrium(solar(), t, gas_pressure=P_LODDERS, molecules="default",
                            condensates=True)
     f = st.condensed_fraction("Al")
     assert f[0] > 0 and f[-1] == 0
     for q in (np.log(st.n_e), np.log(st.number_density("Al I")), np.log(st.molecule_density("AlOH"))):
-        assert np.abs(np.diff(q)).max() < 0.1          # 0.5 K steps: smooth, no step
+        assert np.abs(np.diff(q)).max() < 0.1          # 1 K steps: smooth, no step
 
 
 def test_condensed_elements_leave_the_gas_and_its_electron_balance():
@@ -92,8 +92,8 @@ def test_conservation_and_neutrality_with_condensates(mixture):
         le = dict(zip(base.symbols, base.log_eps))
         le["C"] = le["O"] + np.log10(1.2)
         comp = Composition.from_log_eps(le)
-    t = np.linspace(1000.0, 3000.0, 4)[:, None]
-    p = np.geomspace(1e-2, 1e8, 4)[None, :]
+    t = np.array([1000.0, 1600.0])[:, None]          # (hotter: nothing condenses)
+    p = np.geomspace(1e-2, 1e8, 3)[None, :]
     st = solve_equilibrium(comp, t, gas_pressure=p, molecules="default", condensates=True)
     assert st.converged.all()
     assert st.conservation_residual().max() <= 1e-12
