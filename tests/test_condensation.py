@@ -43,7 +43,7 @@ def test_phases_appear_in_the_condensation_sequence(sequence):
 
 
 def test_no_jump_in_the_gas_where_corundum_appears():
-    t = np.linspace(1656.0, 1668.0, 13)              # corundum appears near 1662 K
+    t = np.linspace(1656.0, 1668.0, 13)              # corundum appears near 1660 K
     st = solve_equilibrium(solar(), t, gas_pressure=P_LODDERS, molecules="default",
                            condensates=True)
     f = st.condensed_fraction("Al")
