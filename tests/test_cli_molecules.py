@@ -22,3 +22,17 @@ def test_state_budget_with_molecules(capsys):
 def test_budget_without_molecules_is_a_clear_error(capsys):
     code = main(["state", "-T", "2500", "--gas-pressure", "1e6", "--budget"])
     assert code == 2 and "--molecules" in capsys.readouterr().err
+
+
+def test_state_budget_puts_oxygen_in_water_with_the_default_set(capsys):
+    # the case of issue 17: 3000 K, 1e6 dyn cm^-2; with diatomics only, OH took 35 % of the
+    # oxygen; with the polyatomic species H2O takes more than OH (common practice: water is
+    # the main oxygen carrier after CO in M-dwarf atmospheres)
+    share = {}
+    for mset in ("diatomics", "default"):
+        main(["state", "-T", "3000", "--gas-pressure", "1e6", "--molecules", mset, "--budget",
+              "--elements", "O", "--format", "json"])
+        doc = json.loads(capsys.readouterr().out)
+        share[mset] = {r["in"]: r["fraction"] for r in doc["rows"]}
+    assert "H2O" not in share["diatomics"] and share["diatomics"]["OH"] > 0.3
+    assert share["default"]["H2O"] > 3 * share["default"]["OH"]

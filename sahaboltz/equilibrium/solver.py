@@ -73,7 +73,7 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
                       molecules=None, database=None, missing_levels: str = "unit",
                       tolerance: float = DEFAULT_TOLERANCE, max_passes: int = 200,
                       network: AtomicNetwork | None = None, molecule_database=None,
-                      errors: str = "raise", **closure: Any):
+                      errors: str = "raise", condensates=False, **closure: Any):
     """Solve the LTE ionization balance of a mixture at one or many states.
 
     Parameters
@@ -98,8 +98,11 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
         Hydrogenic completion of the level lists (needs a bounding truncation).
     h_minus : bool
         Include H- (default True when hydrogen is present).
-    molecules : {"default", "all", "none"} or list of names, optional
+    molecules : {"default", "all", "diatomics", "abundant", "none"} or list of names, optional
         Solve with molecules (:mod:`sahaboltz.equilibrium.molecular`); None: atoms only.
+    condensates : bool, "default", "all" or list of formulas, optional
+        With molecules: gas-condensate equilibrium (corundum, iron, forsterite ...; see
+        docs/molecules.md); default False.
     database : SpeciesDatabase, optional
     missing_levels : {"unit", "error"}
         Stages without level lists: U = 1 (listed in ``state.unit_partition``) or an error.
@@ -140,10 +143,13 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
                                 missing_levels)
     elif network.composition is not composition or network.scheme != scheme:
         raise InputError("network was built for another composition or truncation")
+    if molecules is None and not (condensates is None or condensates is False
+                                  or (isinstance(condensates, str) and condensates == "none")):
+        raise InputError("condensates need molecules in the gas: add molecules='default'")
     if molecules is not None:
         state = solve_molecular(network, t, v, closure_def, molecules=molecules,
                                 lowering=lowering, tolerance=tolerance, max_passes=max_passes,
-                                molecule_database=molecule_database)
+                                molecule_database=molecule_database, condensates=condensates)
         state = raise_or_keep(state, errors, "the molecular equilibrium")
     else:
         state = raise_or_keep(solve_atomic(network, t, v, closure_def, lowering=lowering,

@@ -27,6 +27,7 @@ import numpy as np
 
 from sahaboltz.data.composition import Composition, solar
 from sahaboltz.equilibrium.closures import CLOSURES
+from sahaboltz.equilibrium.molecular import MOLECULE_SETS
 from sahaboltz.errors import InputError
 from sahaboltz.kernels import truncation as _truncation
 
@@ -64,10 +65,16 @@ def add_mixture_options(p) -> None:
                         "probabilities; lowered with --lowering): "
                         f"{_truncation.choices_help()}")
     p.add_argument("--no-h-minus", action="store_true", help="leave H- out")
-    p.add_argument("--molecules", choices=("none", "default", "all"), default="none",
-                   help="diatomic molecules in the equilibrium (Barklem & Collet 2016 data; "
-                        "1,000-10,000 K): 'default' the abundant ones, 'all' every one of the "
-                        "mixture's elements (default none)")
+    p.add_argument("--molecules", choices=MOLECULE_SETS, default="none",
+                   help="molecules in the equilibrium: 'default' (= 'all') the Barklem & Collet "
+                        "2016 diatomics (to 10,000 K) and the polyatomic species and molecular "
+                        "ions of the NASA polynomials (to 5,000-6,000 K; left out above and "
+                        "reported), 'diatomics' the Barklem & Collet ones, 'abundant' 23 common "
+                        "diatomics (default none); docs/molecules.md")
+    p.add_argument("--condensates", action="store_true",
+                   help="with --molecules: gas-condensate equilibrium (corundum, iron, "
+                        "forsterite, enstatite, spinel, ... from the NASA polynomials); the "
+                        "condensed elements leave the gas")
 
 
 def parse_mix(text: str, by: str = "number", metallicity: float = 0.0,
@@ -130,6 +137,8 @@ def solver_options(args: argparse.Namespace) -> dict[str, Any]:
             "h_minus": not args.no_h_minus}
     if getattr(args, "molecules", "none") != "none":
         opts["molecules"] = args.molecules
+    if getattr(args, "condensates", False):
+        opts["condensates"] = True
     return opts
 
 

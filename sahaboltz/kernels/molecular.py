@@ -56,7 +56,9 @@ from scipy.interpolate import CubicSpline, PchipInterpolator
 
 from sahaboltz.constants import K_B, K_B_EV
 from sahaboltz.data.molecules import Molecule, MoleculeDatabase, default_molecule_database
+from sahaboltz.data.thermo import ThermoSpecies
 from sahaboltz.errors import InputError
+from sahaboltz.kernels.thermo import FormationConstants
 from sahaboltz.quantities import as_positive_array
 
 ABOVE_RANGE_POLICIES = ("absent", "extrapolate", "error")
@@ -219,3 +221,46 @@ def equilibrium_constant(molecule: str | Molecule, temperature: Any, *, form: st
     if form == "density":
         return model.kn(temperature)[0]
     raise InputError(f"form must be 'pressure' or 'density', got {form!r}")
+
+
+class MoleculeConstants:
+    """ln K_n of a mixed list of molecules: Barklem & Collet diatomics (their two-body process,
+    :class:`EquilibriumConstants`) and species of the NASA polynomials (formation from the
+    neutral atoms and electrons, :class:`sahaboltz.kernels.thermo.FormationConstants`).
+
+    Both kinds give ln n_M = sum over the process's atomic species of ln n - q_e ln n_e
+    - ln K_n, with the stage factors of ion components added by the caller; +inf outside a
+    molecule's data (the molecule is absent there, see :meth:`absent`).
+    """
+
+    def __init__(self, molecules: Sequence[Any], above_range: str = "absent"):
+        self.molecules = list(molecules)
+        self._bc = [i for i, m in enumerate(self.molecules) if isinstance(m, Molecule)]
+        self._th = [i for i, m in enumerate(self.molecules) if isinstance(m, ThermoSpecies)]
+        if len(self._bc) + len(self._th) != len(self.molecules):
+            raise InputError("molecules must be Molecule or ThermoSpecies records")
+        self.diatomic = EquilibriumConstants([self.molecules[i] for i in self._bc],
+                                             above_range=above_range) if self._bc else None
+        self.formation = (FormationConstants([self.molecules[i] for i in self._th])
+                          if self._th else None)
+        self.t_max = np.full(len(self.molecules), np.inf)
+        if self.diatomic is not None:
+            self.t_max[self._bc] = self.diatomic.t_max
+        if self.formation is not None:
+            self.t_max[self._th] = self.formation.t_max
+
+    def __len__(self) -> int:
+        return len(self.molecules)
+
+    def ln_kn(self, temperature: Any) -> np.ndarray:
+        t = as_positive_array(temperature, "K", "temperature")
+        out = np.empty((len(self.molecules),) + t.shape)
+        if self.diatomic is not None:
+            out[self._bc] = self.diatomic.ln_kn(t)
+        if self.formation is not None:
+            out[self._th] = self.formation.ln_kn(t)
+        return out
+
+    def absent(self, temperature: Any) -> np.ndarray:
+        """True where a molecule has no constant (outside its data): (n,) + T.shape."""
+        return np.isinf(self.ln_kn(temperature))
