@@ -77,7 +77,7 @@ truncation = "occupation"   # {truncations}  (default "lowered" with lowering)
 lowering = false            # Debye-Hueckel ionization-potential lowering
 completion = false          # hydrogenic completion of the level lists (not with "plain")
 h_minus = true              # include H-
-molecules = "none"                 # or "default" (abundant diatomics), "all"
+molecules = "none"          # or "default" (every molecule of the data), "diatomics", "abundant"
 
 [outputs]
 quantities = ["electron_density", "electron_pressure", "gas_pressure", "mass_density",
@@ -243,7 +243,7 @@ class TableSpec:
     physics : dict
         ``truncation`` (a name of :mod:`sahaboltz.kernels.truncation`), ``lowering``,
         ``completion``, ``h_minus``,
-        ``molecules`` ("none", "default" or "all"), handed to the solver.
+        ``molecules`` (a molecule set of the solver: "none", "default", "diatomics" ...).
     outputs : Outputs
         The quantities to store.
     """
@@ -378,14 +378,19 @@ def _physics(p: Mapping[str, Any]) -> dict:
 
 
 def _molecule_set(value: Any) -> str:
-    """The molecule set of the solver's ``molecules=`` option: "none", "default" or "all"
-    (``true`` / ``false`` in a spec file mean "default" / "none")."""
+    """The molecule set of the solver's ``molecules=`` option, one of
+    :data:`sahaboltz.equilibrium.molecular.MOLECULE_SETS` (``true`` / ``false`` in a spec file
+    mean "default" / "none")."""
     if value is True or value is False:
         return "default" if value else "none"
-    if value in ("none", "default", "all"):
+    if value in ("none", "default"):
         return value
-    raise InputError(f"physics.molecules must be true, false, 'none', 'default' or 'all', "
-                     f"got {value!r}")
+    # the other names only when a spec gives one (a cache hit needs no molecule code)
+    from sahaboltz.equilibrium.molecular import MOLECULE_SETS
+    if value in MOLECULE_SETS:
+        return value
+    raise InputError(f"physics.molecules must be true, false or one of "
+                     f"{', '.join(repr(m) for m in MOLECULE_SETS)}, got {value!r}")
 
 
 def axis_from_text(name: str, unit: str, text: str, scale: str = "log") -> Axis:
