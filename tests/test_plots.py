@@ -56,6 +56,8 @@ COMMANDS = {
                           "3000:20000:30", "--gas-pressure", "1e2,1e5"],
     "levels": ["levels", "Ar II", "--mix", "Ar:1", "--temperature", "12000,16000",
                "--gas-pressure", "1.01325e6", "--max-energy", "25"],
+    "budget": ["budget", "O", "--temperature", "1500:4500:7", "--gas-pressure", "1e6",
+               "--molecules", "diatomics"],
 }
 
 
@@ -205,3 +207,19 @@ def test_partition_plot_ratio_panel_for_truncations():
     # occupation probabilities only remove weight: U_occ <= U_plain, and -> equal at low T
     assert np.all(ratio <= 1.0 + 1e-12) and ratio[0] == pytest.approx(1.0, abs=1e-5)
     assert ratio[-1] < 0.99
+
+
+def test_element_budget_accounts_for_every_nucleus():
+    from sahaboltz.data.composition import solar
+    from sahaboltz.equilibrium import solve_equilibrium
+    from sahaboltz.faces.plots import element_budget
+
+    t = np.array([1300.0, 1700.0, 3000.0])
+    state = solve_equilibrium(solar(), t, gas_pressure=100.0, molecules="default",
+                              condensates=True)
+    names, f = element_budget(state, "Al")
+    np.testing.assert_allclose(f.sum(axis=0), 1.0, rtol=1e-9)
+    # corundum (or spinel) holds the aluminium at 1,300 K and 1e-4 bar, none is condensed at
+    # 3,000 K (Lodders 2003, ApJ 591, 1220: Al condenses near 1,650 K there; from memory)
+    condensed = sum(f[i] for i, n in enumerate(names) if "condensed" in n)
+    assert condensed[0] > 0.99 and condensed[2] == 0.0

@@ -83,3 +83,20 @@ def test_states_that_cannot_be_solved_are_flagged_not_fatal(tmp_path, capsys, mo
     direct = solve_equilibrium(solar(), [2000.0, 9000.0],
                                electron_pressure=1e-3).fraction("Fe I")
     np.testing.assert_allclose(frac[:, 0], direct, rtol=1e-9)
+
+
+def test_condensed_fractions_are_stored_per_element(tmp_path, capsys, monkeypatch):
+    # below about 1,650 K at 1e-4 bar (100 dyn cm^-2) corundum takes the aluminium
+    # (Lodders 2003, ApJ 591, 1220: 50 % condensation of Al near 1650 K at 1e-4 bar, from
+    # memory; tests/test_condensation.py checks the temperature itself)
+    monkeypatch.setenv("SAHABOLTZ_CACHE_DIR", str(tmp_path / "cache"))
+    path = _build(tmp_path, capsys, "--temperature", "1400,2000", "--pressure", "100,200",
+                  "--molecules", "default", "--condensates", "--fractions", "Al,O")
+    with open_table(path) as tab:
+        al = tab["condensed_fraction_Al"][:, 0]
+        assert tab.units("condensed_fraction_Al") == "1"
+        al_atoms = tab["fraction_Al_I"][:, 0] + tab["fraction_Al_II"][:, 0]
+        al_mol = tab["molecular_fraction_Al"][:, 0]
+    assert al[0] > 0.99 and al[1] == 0.0
+    # every nucleus is somewhere: atoms and ions, molecules, condensates
+    np.testing.assert_allclose(al_atoms + al_mol + al, 1.0, rtol=1e-9)

@@ -44,6 +44,18 @@ def register(subparsers) -> None:
     _state(s)
     _finish(s, _stages)
 
+    b = sub.add_parser("budget", help="where an element's nuclei are (atoms, ions, molecules, "
+                                      "condensates) against temperature")
+    b.add_argument("element", help="element symbol, e.g. O")
+    _temperature(b, "1000:6000:126", "linear")
+    add_closure_options(b, default=("gas_pressure", "1e6"))
+    b.add_argument("--linear", action="store_true", help="linear fraction axis (default log)")
+    b.add_argument("--min-fraction", type=float, default=1e-3, metavar="F",
+                   help="leave out parts that never reach F (default 1e-3)")
+    _state(b)
+    b.set_defaults(molecules="default")
+    _finish(b, _budget)
+
     d = sub.add_parser("dominant", help="map of the dominant stage of an element over T and P")
     d.add_argument("element", help="element symbol, e.g. Fe")
     _temperature(d, "2000:50000:90", "log")
@@ -132,6 +144,22 @@ def _stages(args) -> int:
                                pressure_quantity=closure, log=args.log,
                                min_fraction=args.min_fraction, **solver_options(args))
     return _write(args, fig, f"stages_{_safe(args.element)}", "stage fractions", t0)
+
+
+def _budget(args) -> int:
+    from sahaboltz.faces.plots import element_budget_plot
+
+    t0 = time.perf_counter()
+    closure, value = _one_closure(args)
+    opts = solver_options(args)
+    fig = element_budget_plot(args.element, parse_values(args.temperature, "--temperature",
+                                                         scale="linear"), value,
+                              composition=composition_from_args(args),
+                              pressure_quantity=closure, log=not args.linear,
+                              min_fraction=args.min_fraction,
+                              molecules=opts.pop("molecules", "none"),
+                              condensates=opts.pop("condensates", False), **opts)
+    return _write(args, fig, f"budget_{_safe(args.element)}", "element budget", t0)
 
 
 def _dominant(args) -> int:

@@ -135,6 +135,7 @@ def _spec_from_args(args):
     grid_opts = (args.temperature, args.pressure, args.levels, args.partition)
     physics_opts = (args.mix != "solar", args.metallicity, args.alpha, args.lowering,
                     args.truncation, args.completion, args.no_h_minus, args.molecules != "none",
+                    args.condensates,
                     args.fractions != "all")
     if args.spec:
         if any(grid_opts) or any(physics_opts):
@@ -145,7 +146,8 @@ def _spec_from_args(args):
                              temperature_scale=args.temperature_scale,
                              pressure_scale=args.pressure_scale,
                              truncation=args.truncation, lowering=args.lowering,
-                             molecules=args.molecules, completion=args.completion,
+                             molecules=args.molecules, condensates=args.condensates,
+                             completion=args.completion,
                              h_minus=not args.no_h_minus, fractions=args.fractions,
                              levels=args.levels, partition_functions=args.partition)
     return replace(spec, composition=_composition_doc(args))

@@ -601,6 +601,60 @@ def stage_fractions_plot(element: str, temperature: Any, pressure: Any, *, compo
                                 log=log, min_fraction=min_fraction)
 
 
+def element_budget(state, element: str, min_fraction: float = 0.0
+                   ) -> tuple[list[str], np.ndarray]:
+    """Where an element's nuclei are at every state of a 1-D solve: (names, fractions) with
+    the neutral atom, the ions together (H- included), each molecule and each condensate,
+    fractions of all its nuclei (they add up to 1).  Parts that never reach
+    ``min_fraction`` are left out."""
+    fr = np.asarray(state.stage_fractions(element, negative=True), dtype=float)
+    q = np.asarray(state.stage_charges(element, negative=True))
+    sym = spectroscopic_name(atomic_number(element), 0).split()[0]
+    names, rows = [f"{sym} I (atoms)", f"{sym} ions"], [fr[q == 0].sum(axis=0),
+                                                          fr[q != 0].sum(axis=0)]
+    if hasattr(state, "element_budget"):
+        for where, share in state.element_budget(element).items():
+            if where != "atoms":
+                names.append(where)
+                rows.append(np.asarray(share, dtype=float))
+    f = np.array(rows)
+    keep = [i for i in range(len(names)) if np.nanmax(f[i]) >= min_fraction]
+    return [names[i] for i in keep], f[keep]
+
+
+def element_budget_plot(element: str, temperature: Any, pressure: Any, *, composition=None,
+                        pressure_quantity: str = "gas_pressure", molecules="default",
+                        condensates: bool = False, truncation: str | None = None,
+                        lowering: bool = False, h_minus: bool = True, log: bool = True,
+                        min_fraction: float = 1e-3) -> Figure:
+    """Where the nuclei of ``element`` are (atoms, ions, each molecule, condensed) against
+    temperature at one fixed pressure: the element's budget in cool gas."""
+    from sahaboltz.equilibrium import solve_equilibrium
+
+    comp = _default_composition(composition)
+    t = _sorted_temperature(temperature)
+    pv = _scalar(pressure, pressure_quantity, CLOSURE_UNITS.get(pressure_quantity, ""))
+    if pressure_quantity not in CLOSURE_UNITS:
+        raise InputError(f"pressure_quantity must be one of {', '.join(CLOSURE_UNITS)}, "
+                         f"got {pressure_quantity!r}")
+    opts = {"molecules": molecules} if molecules not in (None, "none") else {}
+    if condensates:
+        opts["condensates"] = True
+    state = solve_equilibrium(comp, t, **{pressure_quantity: pv}, truncation=truncation,
+                              lowering=lowering, h_minus=h_minus, **opts)
+    names, f = element_budget(state, element, min_fraction)
+    el = names[0].split()[0]
+    title = (f"Where the {el} is, at {CLOSURE_SYMBOLS[pressure_quantity]} = "
+             f"{format_value(pv, CLOSURE_UNITS[pressure_quantity])}")
+    note = describe_state(comp, closure=pressure_quantity, value=pv, truncation=truncation,
+                          lowering=lowering, h_minus=h_minus)
+    note += f"; molecules: {molecules}" + ("; with condensates" if condensates else "")
+    fig = draw_stage_fractions(t, f, names, title=title, note=note, log=log,
+                               min_fraction=min_fraction)
+    fig.axes[0].set_ylabel(f"fraction of the {el} nuclei")
+    return fig
+
+
 def dominant_stage_plot(element: str, temperature: Any, pressure: Any, *, composition=None,
                         pressure_quantity: str = "gas_pressure", truncation: str | None = None,
                         lowering: bool = False, h_minus: bool = True) -> Figure:

@@ -61,6 +61,8 @@ def solve_block(spec: TableSpec, T: np.ndarray, P: np.ndarray):
               "h_minus": bool(phys["h_minus"]), "errors": "mask"}
     if phys["molecules"] != "none":
         kwargs["molecules"] = phys["molecules"]
+    if phys.get("condensates"):
+        kwargs["condensates"] = True
     key = _network_key(spec)
     if key in _NETWORKS and phys["molecules"] == "none":
         comp, network = _NETWORKS[key]
@@ -118,6 +120,9 @@ def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, A
             labels["element"] = list(elements)
             out["molecular_fraction"] = np.stack([np.asarray(
                 state.molecular_fraction(el), dtype=float).reshape(n) for el in elements])
+            if spec.physics.get("condensates"):
+                out["condensed_fraction"] = np.stack([np.asarray(
+                    state.condensed_fraction(el), dtype=float).reshape(n) for el in elements])
     if spec.outputs.partition_functions:
         names = list(spec.outputs.partition_functions)
         labels["partition_species"] = names

@@ -46,6 +46,8 @@ STACKED = {v.name: v for v in (
             "number_density"),
     Stacked("molecular_fraction", "element", "1",
             "fraction of the element's nuclei bound in molecules", "molecular_fraction"),
+    Stacked("condensed_fraction", "element", "1",
+            "fraction of the element's nuclei in condensed phases", "condensed_fraction"),
     Stacked("level_number_density", "level", "cm-3", "number density of the level",
             "population"),
     Stacked("partition_function", "partition_species", "1", "partition function",

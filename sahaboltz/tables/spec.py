@@ -78,6 +78,7 @@ lowering = false            # Debye-Hueckel ionization-potential lowering
 completion = false          # hydrogenic completion of the level lists (not with "plain")
 h_minus = true              # include H-
 molecules = "none"          # or "default" (every molecule of the data), "diatomics", "abundant"
+condensates = false         # with molecules: gas-condensate equilibrium (condensed_fraction)
 
 [outputs]
 quantities = ["electron_density", "electron_pressure", "gas_pressure", "mass_density",
@@ -362,7 +363,7 @@ def normalize_composition(c: Any) -> dict:
 
 
 def _physics(p: Mapping[str, Any]) -> dict:
-    known = {"truncation", "lowering", "molecules", "completion", "h_minus"}
+    known = {"truncation", "lowering", "molecules", "condensates", "completion", "h_minus"}
     extra = set(p) - known
     if extra:
         raise InputError(f"physics: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
@@ -371,9 +372,12 @@ def _physics(p: Mapping[str, Any]) -> dict:
         trunc = _truncation.resolve(p.get("truncation") or None, lowering).key
     except InputError as exc:
         raise InputError(f"physics.truncation: {exc}") from None
-    return {"truncation": trunc, "lowering": lowering,
-            "molecules": _molecule_set(p.get("molecules", False)),
-            "completion": bool(p.get("completion", False)),
+    molecules = _molecule_set(p.get("molecules", False))
+    condensates = bool(p.get("condensates", False))
+    if condensates and molecules == "none":
+        raise InputError("physics.condensates needs molecules (e.g. molecules = \"default\")")
+    return {"truncation": trunc, "lowering": lowering, "molecules": molecules,
+            "condensates": condensates, "completion": bool(p.get("completion", False)),
             "h_minus": bool(p.get("h_minus", True))}
 
 
@@ -415,8 +419,8 @@ def spec_from_options(temperature: str | None = None, pressure: str | None = Non
                       pressure_quantity: str = "gas_pressure", temperature_scale: str = "log",
                       pressure_scale: str = "log", composition: str | None = None,
                       truncation: str | None = None, lowering: bool = False,
-                      molecules: bool | str = False, completion: bool = False,
-                      h_minus: bool = True,
+                      molecules: bool | str = False, condensates: bool = False,
+                      completion: bool = False, h_minus: bool = True,
                       fractions: str | Sequence[str] = "all", levels: Sequence[str] = (),
                       partition_functions: Sequence[str] = (),
                       quantities: Sequence[str] | None = None) -> TableSpec:
@@ -449,6 +453,7 @@ def spec_from_options(temperature: str | None = None, pressure: str | None = Non
         out["quantities"] = list(quantities)
     return TableSpec(t_axis, p_axis, normalize_composition(comp),
                      _physics({"truncation": truncation, "lowering": lowering,
-                               "molecules": molecules, "completion": completion,
+                               "molecules": molecules, "condensates": condensates,
+                               "completion": completion,
                                "h_minus": h_minus}),
                      Outputs.from_mapping(out))
