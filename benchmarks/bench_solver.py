@@ -107,6 +107,8 @@ def main(argv=None) -> None:
     ap.add_argument("--subset", type=int, default=400, help="states solved by the reference")
     ap.add_argument("--tmax", type=float, default=1e6)
     ap.add_argument("--repeat", type=int, default=3, help="repeats of the plain/default pair")
+    ap.add_argument("--numpy-path", action="store_true",
+                    help="also time the default physics without the compiled pair sums")
     args = ap.parse_args(argv)
 
     temps = np.geomspace(1e3, args.tmax, args.nt)
@@ -131,16 +133,23 @@ def main(argv=None) -> None:
     from sahaboltz.equilibrium import solver as _solver
     from sahaboltz.equilibrium.validity import plain_excess
     warn_plain, _solver.warn_plain = _solver.warn_plain, lambda state, stacklevel=3: None
-    times = {"plain": [], "default": []}
+    from sahaboltz.kernels import compiled
+    available = compiled.available
+    runs = [("plain", network), ("default", default_net)]
+    if args.numpy_path:
+        runs.append(("default, numpy path", default_net))
+    times = {name: [] for name, _ in runs}
     for _ in range(args.repeat):
-        for name, net in (("plain", network), ("default", default_net)):
+        for name, net in runs:
+            compiled.available = (lambda: False) if "numpy" in name else available
             t0 = time.perf_counter()
             st = solve_equilibrium(comp, tt, gas_pressure=pp, network=net,
                                    truncation=net.truncation)
             times[name].append(time.perf_counter() - t0)
+            compiled.available = available
             if name == "default":
                 default_state = st
-            else:
+            elif name == "plain":
                 st_plain = st
     t0 = time.perf_counter()
     plain_excess(st_plain)
@@ -152,6 +161,10 @@ def main(argv=None) -> None:
           f"ratio {ratio:.2f} (best) {np.median(times['default']) / np.median(times['plain']):.2f}"
           f" (median); passes: mean {default_state.report.mean_passes:.2f}, "
           f"max {int(default_state.report.passes.max())}")
+    if args.numpy_path:
+        print(f"  default physics on the numpy path (no compiled pair sums): best "
+              f"{min(times['default, numpy path']):.2f} s, ratio to plain "
+              f"{min(times['default, numpy path']) / min(times['plain']):.2f}")
     print(f"  (the check of an explicit plain sum against the weighted one, not in the plain "
           f"time above: {t_check:.2f} s)")
 
