@@ -46,7 +46,7 @@ SERIES_ORDER = 12
 # a series stops at a term below this fraction of the sum
 _NEGLIGIBLE = 1e-17
 # a stage whose share of the mean charge stays below e^-_LN_SHARE is left out of the sums
-_LN_SHARE = 39.0
+_LN_SHARE = 34.0
 # margin of that test when U depends on n_e: judged with the low-density-limit U (the largest)
 _DENSITY_MARGIN = 5.0
 # Boltzmann pruning of the level sums, as in PartitionModel.evaluate_pairs
@@ -120,7 +120,7 @@ def _fill_top(tl, row, lv_start, qs, term, suf, cnt, pool_base):
 
 
 def _log_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start, lv_count, e, lng,
-           lng_max, qs, term, pre, suf, cnt_t, filled, pool_base, stride):
+           lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride):
     """(ln U, d ln U / d ln n_e) of species ``row`` at one state.
 
     A level's weight is w = 1 / (1 + B s + A s^2), s = P q.  For s <= s_lo it is summed as
@@ -132,29 +132,28 @@ def _log_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start, lv_count, e,
         _fill(tl, row, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, cnt_t,
               pool_base, stride)
         filled[key] = 1
+        jpos[2 * key] = 0
+        jpos[2 * key + 1] = 0
     s = lv_start[row]
     cnt = cnt_t[key]
     b = tl * pool_base + s + row
     m1 = SERIES_ORDER + 1
-    # the levels with s <= s_lo: [0, j0); with s >= s_hi: [j1, cnt)
+    # the levels with s <= s_lo: [0, j0); with s >= s_hi: [j1, cnt).  Walked from where the
+    # previous state of this temperature left them (the states come in density order).
     q_lo = s_lo / p_
     q_hi = s_hi / p_
-    lo, hi = 0, cnt
-    while lo < hi:
-        mid = (lo + hi) // 2
-        if qs[s + mid] <= q_lo:
-            lo = mid + 1
-        else:
-            hi = mid
-    j0 = lo
-    hi = cnt
-    while lo < hi:
-        mid = (lo + hi) // 2
-        if qs[s + mid] < q_hi:
-            lo = mid + 1
-        else:
-            hi = mid
-    j1 = lo
+    j0 = jpos[2 * key]
+    while j0 < cnt and qs[s + j0] <= q_lo:
+        j0 += 1
+    while j0 > 0 and qs[s + j0 - 1] > q_lo:
+        j0 -= 1
+    j1 = max(jpos[2 * key + 1], j0)
+    while j1 < cnt and qs[s + j1] < q_hi:
+        j1 += 1
+    while j1 > j0 and qs[s + j1 - 1] >= q_hi:
+        j1 -= 1
+    jpos[2 * key] = j0
+    jpos[2 * key + 1] = j1
     # series in s: coefficients t_m of 1 / (1 + bt q + at q^2), t_0 = 1, t_1 = -bt,
     # t_m = -bt t_(m-1) - at t_(m-2), and their derivatives in ln n_e (P is proportional
     # to n_e; d A / d ln n_e = aa / 6, d B / d ln n_e = ab / 6)
@@ -235,7 +234,8 @@ def _series_limits(a_, b_):
 
 def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n,
              ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
-             lng_max, qs, term, pre, suf, cnt_t, filled, pool_base, stride, scratch_a, scratch_d):
+             lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
+             scratch_a, scratch_d):
     """(Zbar, -dZbar/dx, sum alpha <|q|>, sum alpha <q^2>) at x for one state.
 
     ``zref`` is the mean charge the balance needs at x (n_e / N): a stage of element k below
@@ -313,7 +313,7 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
                     av = ctab[ti, i] + lu_first[ti, k]
                 elif m >= 0:
                     lu, d = _log_u(tl, m, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start,
-                                   lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
+                                   lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t, jpos,
                                    filled, pool_base, stride)
                     av += lu
                 elif q < 0.0:      # a negative ion: one bound state with its own weight
@@ -362,7 +362,8 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
 
 def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, density, ctab,
             bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
-            hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t, filled,
+            hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
+            jpos, filled,
             pool_base, stride, scratch_a, scratch_d, out_x, out_nuc, out_passes, out_resid,
             out_done):
     """Safeguarded Newton for state ``i`` from x (see _ChunkSolver.run, the same rules)."""
@@ -377,7 +378,7 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
         zbar, var, zabs, _z2 = _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr,
                                         ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
                                         hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs,
-                                        term, pre, suf, cnt_t, filled, pool_base, stride,
+                                        term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
                                         scratch_a, scratch_d)
         out_passes[i] += 1
         if kind == FIXED_ELECTRONS:     # n_e is given: one evaluation decides
@@ -441,7 +442,8 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
 def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_passes,
                   final_step, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac,
                   ch_lnaz, ch_whole, q_flat, mrow, hm_q, lv_start, lv_count, e, lng, lng_max, qs,
-                  term, pre, suf, cnt_t, filled, n_group, out_x, out_nuc, out_passes, out_resid,
+                  term, pre, suf, cnt_t, jpos, filled, n_group, out_x, out_nuc,
+                  out_passes, out_resid,
                   out_done):
     """Solve the states ``order`` (sorted by temperature); ``tpos`` their temperature index.
 
@@ -478,7 +480,8 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
         first_tol = start_tol if density else tol
         _newton(i, x, lo, hi, kind, nref[i], first_tol, max_passes, 0.0, t, tl, ti, False,
                 ctab, ctab, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
-                mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
+                mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
+                cnt_t, jpos,
                 filled, pool_base, stride, scratch_a, scratch_d, out_x, out_nuc, out_passes,
                 out_resid, out_done)
         if not density:
@@ -493,7 +496,8 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
         out_nuc[i] = np.nan
         _newton(i, x, lo, hi, kind, nref[i], tol, max_passes, final_step, t, tl, ti, True,
                 ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
-                mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
+                mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
+                cnt_t, jpos,
                 filled, pool_base, stride, scratch_a, scratch_d, out_x, out_nuc, out_passes,
                 out_resid, out_done)
         out_passes[i] += start_passes
@@ -501,14 +505,17 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
 
 if numba is not None:  # pragma: no branch
     _jit = numba.njit(cache=True, nogil=True, error_model="numpy")
+    # the level sums may be reordered (vectorized): no NaN or inf arises in them
+    _sums = numba.njit(cache=True, nogil=True, error_model="numpy",
+                       fastmath={"reassoc", "contract", "arcp", "nsz"})
     _state_factors = _jit(stark_state_factors)
     _state_slopes = _jit(stark_state_slopes)
-    _weight = _jit(_weight)
-    _fill = _jit(_fill)
-    _fill_top = _jit(_fill_top)
+    _weight = _sums(_weight)
+    _fill = _sums(_fill)
+    _fill_top = _sums(_fill_top)
     _series_limits = _jit(_series_limits)
     _unweighted = _jit(_unweighted)
-    _log_u = _jit(_log_u)
+    _log_u = _sums(_log_u)
     _moments = _jit(_moments)
     _newton = _jit(_newton)
     _solve_states_jit = _jit(_solve_states)
@@ -562,7 +569,8 @@ class CompiledSolver:
         self.n_group = max(1, (6 << 20) // (base * (2 * m1 + 1))) if self.density else 0
         g = self.n_group
         self.pool = (np.empty(g * base), np.empty(g * base * m1), np.empty(g * base * m1),
-                     np.zeros(g * rows, dtype=np.int64), np.zeros(g * rows, dtype=np.int8))
+                     np.zeros(g * rows, dtype=np.int64), np.zeros(2 * g * rows, dtype=np.int64),
+                     np.zeros(g * rows, dtype=np.int8))
 
     def run(self, tpos, kind, nref, x0, x_hi, tol, start_tol, max_passes, final_step):
         """(x, nuc, passes, resid, done) of the states with temperature indices ``tpos``."""
