@@ -51,7 +51,8 @@ _LOG_FLOOR = -300.0
 _DENSITY_THR = 45.0
 # the low-density-limit solve only starts the density-dependent one: a loose tolerance will do
 _START_TOLERANCE = 1e-6
-# a density-dependent Newton step below this times sqrt(tol) is the last one (see run)
+# a Newton step below this times sqrt(tol) is the last one (see run): its error is of the
+# order of its square
 _FINAL_STEP = 1e-4
 
 
@@ -136,7 +137,7 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
                   _weak_start(network, c_unique, tinv[idx], fn, nt, x_hi))
             out = fast.run(tinv[idx], kind, nref, x0, x_hi, tol,
                            max(tol, _START_TOLERANCE) if density else tol, max_passes,
-                           _FINAL_STEP * np.sqrt(tol) if density else 0.0)
+                           _FINAL_STEP * np.sqrt(tol))
             x_out[idx], nuc_out[idx], passes[idx], resid[idx], done = out
             failed[idx] = ~done
             continue
@@ -161,7 +162,7 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
         sub = _ChunkSolver(network, t[idx], v[idx], closure,
                            None if fixed_n is None else fixed_n[idx],
                            None if ntot is None else ntot[idx], (c_unique, intervals, tinv[idx]))
-        sub.run(tol, max_passes)
+        sub.run(tol, max_passes, final_step=_FINAL_STEP * np.sqrt(tol))
         x_out[idx], nuc_out[idx], passes[idx], resid[idx] = sub.x, sub.nuc, sub.passes, sub.resid
         failed[idx] = ~sub.done
     bad = failed | ~np.isfinite(x_out) | ~np.isfinite(nuc_out) | ~(nuc_out > 0)

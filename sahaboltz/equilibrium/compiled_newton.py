@@ -235,7 +235,7 @@ def _series_limits(a_, b_):
 def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n,
              ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
              lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
-             scratch_a, scratch_d):
+             scratch_a, scratch_d, wpos):
     """(Zbar, -dZbar/dx, sum alpha <|q|>, sum alpha <q^2>) at x for one state.
 
     ``zref`` is the mean charge the balance needs at x (n_e / N): a stage of element k below
@@ -253,6 +253,7 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
         p_, a_, b_ = _state_factors(t, ne)
         aa, ab = _state_slopes(t, ne)
         s_lo, s_hi = _series_limits(a_, b_)
+    ln_zref = np.log(zref) if zref > 0.0 else -np.inf
     for k in range(ch_off.size):
         o = ch_off[k]
         n = ch_n[k]
@@ -261,22 +262,36 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
             hi = n - 1
         else:
             # the intervals are non-increasing in the stage: the stages with xl > x come first,
-            # those with xr < x last
-            a, b = 0, n
-            while a < b:
-                mid = (a + b) // 2
-                if xl[ti, o + mid] > x:
-                    a = mid + 1
-                else:
-                    b = mid
-            lo = a
-            a, b = 0, n
-            while a < b:
-                mid = (a + b) // 2
-                if xr[ti, o + mid] >= x:
-                    a = mid + 1
-                else:
-                    b = mid
+            # those with xr < x last; both counts by binary search at a state's first pass,
+            # then walked from the last pass (Newton steps rarely move them)
+            lo = wpos[2 * k]
+            a = wpos[2 * k + 1]
+            if lo < 0:
+                lo, b = 0, n
+                while lo < b:
+                    mid = (lo + b) // 2
+                    if xl[ti, o + mid] > x:
+                        lo = mid + 1
+                    else:
+                        b = mid
+                a, b = 0, n
+                while a < b:
+                    mid = (a + b) // 2
+                    if xr[ti, o + mid] >= x:
+                        a = mid + 1
+                    else:
+                        b = mid
+            else:
+                while lo > 0 and xl[ti, o + lo - 1] <= x:
+                    lo -= 1
+                while lo < n and xl[ti, o + lo] > x:
+                    lo += 1
+                while a > 0 and xr[ti, o + a - 1] < x:
+                    a -= 1
+                while a < n and xr[ti, o + a] >= x:
+                    a += 1
+            wpos[2 * k] = lo
+            wpos[2 * k + 1] = a
             # and one stage beyond (each end when U depends on n_e, as the numpy engine):
             # in an almost neutral gas the first ion carries the charge however small its
             # share of the element
@@ -285,7 +300,7 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
                 lo = max(lo - 1, 0)
             if hi < lo:
                 hi = lo
-        thr = ch_lnaz[k] - np.log(zref) + _LN_SHARE if zref > 0.0 else np.inf
+        thr = ch_lnaz[k] - ln_zref + _LN_SHARE
         if density:
             # which stages to sum, judged with the low-density-limit tables
             a0max = -np.inf
@@ -364,7 +379,7 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
             bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
             hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
             jpos, filled,
-            pool_base, stride, scratch_a, scratch_d, out_x, out_nuc, out_passes, out_resid,
+            pool_base, stride, scratch_a, scratch_d, wpos, out_x, out_nuc, out_passes, out_resid,
             out_done):
     """Safeguarded Newton for state ``i`` from x (see _ChunkSolver.run, the same rules)."""
     prev = np.inf
@@ -379,7 +394,7 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
                                         ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
                                         hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs,
                                         term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
-                                        scratch_a, scratch_d)
+                                        scratch_a, scratch_d, wpos)
         out_passes[i] += 1
         if kind == FIXED_ELECTRONS:     # n_e is given: one evaluation decides
             out_x[i] = x
@@ -457,6 +472,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
     nstage = q_flat.size
     scratch_a = np.empty(nstage)
     scratch_d = np.empty(nstage)
+    wpos = np.empty(2 * ch_off.size, dtype=np.int64)
     group = -1
     t_first = tpos[order[0]] if order.size else 0
     for j in range(order.size):
@@ -477,12 +493,14 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
         out_passes[i] = 0
         out_done[i] = False
         out_nuc[i] = np.nan
+        wpos[:] = -1
         first_tol = start_tol if density else tol
-        _newton(i, x, lo, hi, kind, nref[i], first_tol, max_passes, 0.0, t, tl, ti, False,
+        first_step = 0.0 if density else final_step
+        _newton(i, x, lo, hi, kind, nref[i], first_tol, max_passes, first_step, t, tl, ti, False,
                 ctab, ctab, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
-                filled, pool_base, stride, scratch_a, scratch_d, out_x, out_nuc, out_passes,
+                filled, pool_base, stride, scratch_a, scratch_d, wpos, out_x, out_nuc, out_passes,
                 out_resid, out_done)
         if not density:
             continue
@@ -498,7 +516,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
                 ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
-                filled, pool_base, stride, scratch_a, scratch_d, out_x, out_nuc, out_passes,
+                filled, pool_base, stride, scratch_a, scratch_d, wpos, out_x, out_nuc, out_passes,
                 out_resid, out_done)
         out_passes[i] += start_passes
 
