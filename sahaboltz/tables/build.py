@@ -187,6 +187,23 @@ def _claim(path: Path, resume: bool) -> tuple[Path, int | None]:
     return temp_path_for(path), None
 
 
+def _discard_record(path: Path) -> None:
+    """Remove the record of an interrupted build of ``path`` now built, unless a build is
+    writing it."""
+    tmp = resume_path_for(path)
+    try:
+        fd = os.open(tmp, os.O_RDWR)
+    except OSError:
+        return
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        tmp.unlink(missing_ok=True)
+    except BlockingIOError:
+        pass
+    finally:
+        os.close(fd)
+
+
 def _check_compositions(spec: TableSpec) -> None:
     """Resolve every slice of a composition axis: an abundance left negative, or an element
     to scale that is absent, is an error before any work starts."""
@@ -309,6 +326,8 @@ def _build(spec, path, compute, runner, chunk_states, memory_mb, progress, prove
             extra["resumed_blocks"] = stats["resumed"]
         writer.finish(extra)
         os.replace(tmp, path)
+        if fd is None:  # built without the record (resume=False, or it was busy)
+            _discard_record(path)
     except BaseException as exc:
         keep = fd is not None and runner.resumable(exc)
         if writer is not None:

@@ -315,12 +315,11 @@ class TableWriter:
                 dsid.write_direct_chunk(at, chunks[0])
         self.seconds["write"] += time.perf_counter() - t0
 
-    def mark_done(self, index: int, elapsed: float, failed: int = 0, every: float = 1.0) -> None:
+    def mark_done(self, index: int, elapsed: float, failed: int = 0, every: float = 0.0) -> None:
         """Record block ``index`` (of the build's block list) as stored, with ``failed``
-        states that could not be solved.  The record reaches
-        the file at the next flush -- at most ``every`` seconds later -- together with
-        everything written before it; a block stored but not yet recorded is computed again
-        by a resumed build."""
+        states that could not be solved.  The record reaches the file at the next flush
+        (now, or at most ``every`` seconds later), together with everything written before
+        it; a block stored but not yet recorded is computed again by a resumed build."""
         self.file[PROGRESS][index] = 1 + int(failed)
         if time.monotonic() - self._flushed >= every:
             self.checkpoint(elapsed)
