@@ -145,7 +145,7 @@ def main(argv=None) -> int:
     print(f"\nfile: {file_bytes / 1e6:.2f} MB, {per_state_b / 1e3:.1f} kB per state; the "
           f"writer stored it in {write_s:.3f} s ({file_bytes / max(write_s, 1e-9) / 1e6:.0f} "
           f"MB/s)")
-    name, cores, wall, cpu, rss = rows[-1]
+    name, cores, wall, cpu, rss = next((r for r in rows if r[0].startswith("Dask")), rows[-1])
     core_s = cpu / spec.size  # a dedicated core per worker: its CPU time is its wall time
     print(f"\nprojection from '{name}': {1e3 * core_s:.2f} CPU ms per state "
           f"({3600 / core_s:.3g} states per core-hour), {args.project:.0e} states")

@@ -8,6 +8,7 @@ from __future__ import annotations
 import os
 import signal
 import socket
+import sys
 import threading
 import time
 
@@ -190,3 +191,12 @@ def test_cli_build_on_the_cluster(client, tmp_path, capsys):
         tt, pp = np.meshgrid(t, p, indexing="ij")
         np.testing.assert_allclose(f["electron_density"][()],
                                    hydrogen_saha(tt, pp)["electron_density"], rtol=1e-13)
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="glibc's mallopt")
+def test_malloc_thresholds_are_set_back_only_under_the_nannys_variable(monkeypatch):
+    from sahaboltz.tables.cluster import tune_malloc
+    monkeypatch.delenv("MALLOC_TRIM_THRESHOLD_", raising=False)
+    assert tune_malloc() is False
+    monkeypatch.setenv("MALLOC_TRIM_THRESHOLD_", "65536")  # what the nanny sets
+    assert tune_malloc() is True  # glibc's mallopt accepts the 32 MiB threshold

@@ -173,3 +173,30 @@ def cache_env(tmp_path, monkeypatch):
     marker = tmp_path / "marker.txt"
     monkeypatch.setenv("SBT_TEST_MARKER", str(marker))
     return d, marker
+
+
+_NO_DASK = """
+import sys
+sys.modules["dask"] = sys.modules["distributed"] = None   # as if not installed
+from sahaboltz.errors import InputError
+from sahaboltz.tables.build import build_table
+from table_helpers import hydrogen_compute
+from test_tables import small_spec
+build_table(small_spec(nt=8, npres=10), sys.argv[1], compute=hydrogen_compute, workers=2,
+            chunk_states=20, progress=False)
+try:
+    build_table(small_spec(nt=8, npres=10), sys.argv[1] + ".2", compute=hydrogen_compute,
+                scheduler="tcp://127.0.0.1:8786", progress=False)
+except InputError as exc:
+    print(exc)
+"""
+
+
+def test_local_process_pool_needs_no_dask(tmp_path):
+    env = _subprocess_env(tmp_path)
+    out = subprocess.run([sys.executable, "-c", _NO_DASK, str(tmp_path / "t.h5")], env=env,
+                         cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    check_table(tmp_path / "t.h5", full=True)
+    assert "pip install 'sahaboltz[dask]'" in out.stdout
+    assert not (tmp_path / "t.h5.2").exists()

@@ -10,12 +10,21 @@ its tasks to the scheduler, which runs them again elsewhere; the table is the sa
 Every worker checks once that it runs the same package version, solver version and level
 data as the build expects (the table's provenance), so a table is never made of blocks of
 two versions.  Dask is imported only here, and only when a cluster build is asked for.
+
+Dask's nanny starts workers with ``MALLOC_TRIM_THRESHOLD_=65536``, which also fixes glibc's
+mmap threshold at 128 kB: every temporary array of the solver (megabytes) is then mapped
+and unmapped again, and a block costs about 1.5 times the CPU time it costs elsewhere
+(benchmarks/bench_scaling.py).  A worker's first block sets glibc's thresholds back to what
+glibc itself would reach (:func:`tune_malloc`).
 """
 
 from __future__ import annotations
 
+import ctypes
+import os
 import re
 import socket
+import sys
 from pathlib import Path
 from typing import Any, Iterator, Mapping
 
@@ -91,6 +100,24 @@ def connect(address: str, timeout: float = 10.0):
 
 _IDENTITY: dict[str, str] = {}  # per worker process: what it runs
 
+#: glibc's largest dynamic mmap threshold on 64-bit systems (32 MiB); trim at twice it
+_MMAP_THRESHOLD = 32 * 1024 * 1024
+
+
+def tune_malloc() -> bool:
+    """Undo the fixed 128 kB mmap threshold that ``MALLOC_TRIM_THRESHOLD_`` (set by Dask's
+    nanny) implies under glibc: large temporaries come from the heap again, as without it.
+    Returns whether the thresholds were set (Linux with glibc, the variable set)."""
+    if not sys.platform.startswith("linux") or not os.environ.get("MALLOC_TRIM_THRESHOLD_"):
+        return False
+    try:
+        libc = ctypes.CDLL("libc.so.6")
+        m_trim_threshold, m_mmap_threshold = -1, -3  # glibc <malloc.h>
+        return bool(libc.mallopt(m_mmap_threshold, _MMAP_THRESHOLD) and
+                    libc.mallopt(m_trim_threshold, 2 * _MMAP_THRESHOLD))
+    except (OSError, AttributeError):
+        return False
+
 
 def worker_identity(keys) -> dict[str, str]:
     """Package version, solver version and level-data digest of this process (the digest is
@@ -98,6 +125,7 @@ def worker_identity(keys) -> dict[str, str]:
     if "package_version" not in _IDENTITY:
         from sahaboltz.equilibrium import SOLVER_VERSION
         _IDENTITY.update(package_version=__version__, solver_version=SOLVER_VERSION)
+        tune_malloc()  # once per worker process
     if "level_data_digest" in keys and "level_data_digest" not in _IDENTITY:
         from sahaboltz.data.database import data_digest
         from sahaboltz.data.paths import level_data_dir
@@ -206,4 +234,4 @@ class DaskRunner:
                 pass
 
 
-__all__ = ["DaskRunner", "check_address", "connect", "remote_block"]
+__all__ = ["DaskRunner", "check_address", "connect", "remote_block", "tune_malloc"]
