@@ -14,8 +14,9 @@ every worker, as they are for all but the first blocks of a long build; local po
 are forked from this process and inherit them).  Reported per configuration: wall time,
 states/s, states/s per core (states/s / cores in use), core-seconds per state, and the
 largest resident memory of a worker (ru_maxrss), and the CPU time per state (this process
-and its pool workers, or the Dask workers and this writing process; steadier than wall time
-on a machine shared with other work).  The file size per state is that of the
+and its pool workers, or the Dask workers -- the writer and the LocalCluster's scheduler, in
+this process, are printed apart; steadier than wall time on a machine shared with other
+work).  The file size per state is that of the
 table built.  The projection assumes the CPU time per state stays what the cluster measured
 (blocks are independent); the single writer must then take the file at size/time, which is
 printed beside it (its own measured rate: ``write_seconds`` of the tables built).
@@ -116,16 +117,19 @@ def main(argv=None) -> int:
             try:
                 _build(warm, tmp / "warm.h5", client=client, chunk_states=args.block)
                 client.run(_warm_worker, warm)
-                c0 = sum(client.run(_worker_cpu).values()) + _cpu()
+                w0, c0 = sum(client.run(_worker_cpu).values()), _cpu()
                 wall, st = _build(spec, tmp / "dask.h5", client=client,
                                   chunk_states=args.block)
-                cpu = sum(client.run(_worker_cpu).values()) + _cpu() - c0  # workers + writer
+                cpu = sum(client.run(_worker_cpu).values()) - w0  # the workers
+                here = _cpu() - c0  # this process: the writer, and the LocalCluster's scheduler
                 rss = max(client.run(lambda: resource.getrusage(
                     resource.RUSAGE_SELF).ru_maxrss / 1024.0).values())
             finally:
                 client.close()
                 cluster.close()
             rows.append(("Dask LocalCluster, 2 workers x 1 thread", 2, wall, cpu, rss))
+            print(f"Dask: the writer and the scheduler (this process) used "
+                  f"{1e3 * here / spec.size:.2f} CPU ms per state besides the workers'")
             path = tmp / "dask.h5"
         else:
             raise SystemExit(f"unknown part {part!r}")
@@ -140,7 +144,7 @@ def main(argv=None) -> int:
               f"{1e3 * cpu / spec.size:12.2f} {spec.size / cpu:12.1f} {rss:6.0f}")
     print("(states/s/core: wall-clock rate over the cores in use; on a machine shared with "
           "other work the CPU time per state -- this process and its workers, or the Dask "
-          "workers and this writer -- is the steadier figure)")
+          "workers -- is the steadier figure)")
     per_state_b = file_bytes / spec.size
     print(f"\nfile: {file_bytes / 1e6:.2f} MB, {per_state_b / 1e3:.1f} kB per state; the "
           f"writer stored it in {write_s:.3f} s ({file_bytes / max(write_s, 1e-9) / 1e6:.0f} "

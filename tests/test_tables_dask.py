@@ -155,13 +155,19 @@ def _free_port() -> int:
         return s.getsockname()[1]
 
 
-def test_unreachable_scheduler_names_the_address_and_writes_nothing(tmp_path):
+def test_unreachable_scheduler_names_the_address_and_writes_nothing(tmp_path, monkeypatch):
     address = f"tcp://127.0.0.1:{_free_port()}"
     out = tmp_path / "out"
     with pytest.raises(TableError, match=f"cannot reach the Dask scheduler at {address}"):
         build_table(small_spec(), out / "t.h5", compute=hydrogen_compute, scheduler=address,
                     connect_timeout=1.0, progress=False)
     assert not out.exists()
+    # through the cache: not even its lock file
+    monkeypatch.setenv(cache.CACHE_ENV, str(tmp_path / "cache"))
+    with pytest.raises(TableError, match=f"cannot reach the Dask scheduler at {address}"):
+        cache.get_table(small_spec(), compute=hydrogen_compute, scheduler=address,
+                        connect_timeout=1.0, progress=False)
+    assert [p.name for p in (tmp_path / "cache").iterdir()] == []
 
 
 @pytest.mark.parametrize("address", ["tcp://", "localhost", "tcp://host:99999",

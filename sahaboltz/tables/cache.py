@@ -274,7 +274,7 @@ def obtain_table(spec: TableSpec, *, output: str | Path | None = None,
         with contextlib.suppress(TableError, OSError):
             check_cached(final, key)
             return TableResult(final, key, "cached")  # fast path: no lock for a hit
-    with key_lock(d, key):
+    with _cluster(build_options), key_lock(d, key):
         if final.exists():
             if not rebuild:
                 try:
@@ -293,6 +293,25 @@ def obtain_table(spec: TableSpec, *, output: str | Path | None = None,
         record_digest(final)
         _fsync_dir(d)
     return TableResult(final, key, "built", failed)
+
+
+@contextlib.contextmanager
+def _cluster(build_options: dict) -> Iterator[None]:
+    """With ``scheduler=`` in ``build_options``: connect before the cache's lock is taken (an
+    unreachable scheduler leaves nothing behind, not even a lock file) and hand the build the
+    client, closed afterwards."""
+    address = build_options.get("scheduler")
+    if address is None or build_options.get("client") is not None:
+        yield
+        return
+    from sahaboltz.tables.cluster import connect
+    client = connect(address, build_options.get("connect_timeout", 10.0))
+    build_options["client"] = client
+    del build_options["scheduler"]
+    try:
+        yield
+    finally:
+        client.close()
 
 
 def get_table(spec: TableSpec, *, compute=None,
