@@ -287,6 +287,7 @@ def _build(spec, path, compute, runner, chunk_states, memory_mb, progress, prove
     writer = None
     bar = None
     t0 = time.perf_counter()
+    before = 0.0  # seconds of earlier runs of a resumed build
     try:
         state = None
         if fd is not None and os.fstat(fd).st_size > 0:
@@ -333,9 +334,10 @@ def _build(spec, path, compute, runner, chunk_states, memory_mb, progress, prove
         if writer is not None:
             if keep:
                 try:
-                    writer.checkpoint(writer.elapsed_before() + time.perf_counter() - t0)
-                finally:
+                    writer.checkpoint(before + time.perf_counter() - t0)
                     writer.close()
+                except Exception:  # noqa: BLE001 - the interruption is what to report
+                    writer.abort()
             else:
                 writer.abort()
         if not keep or writer is None:
