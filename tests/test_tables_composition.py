@@ -150,6 +150,12 @@ def test_interpolation_in_the_composition_axis(fe_table):
         with pytest.raises(InputError, match="abundance_Fe = 1.5"):
             tab.interpolate("electron_density", t, p, 1.5)
         assert np.isnan(tab.interpolate("electron_density", t, p, 1.5, outside="nan"))
+        ds = tab.to_xarray()  # xarray (h5netcdf) names the third dimension from the file
+        assert ds["fraction"].dims == ("species", "abundance_Fe", "temperature", "gas_pressure")
+        assert ds["abundance_Fe"].attrs["units"] == "dex"
+        np.testing.assert_array_equal(ds["fraction"].sel(species="Fe II", abundance_Fe=0.5),
+                                      tab["fraction_Fe_II"][2])
+        ds.close()
         df = tab.to_dataframe(["electron_density"])
         assert df.index.names == ["abundance_Fe", "temperature", "gas_pressure"]
         assert len(df) == 4 * 6 * 4

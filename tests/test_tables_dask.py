@@ -206,3 +206,44 @@ def test_malloc_thresholds_are_set_back_only_under_the_nannys_variable(monkeypat
     assert tune_malloc() is False
     monkeypatch.setenv("MALLOC_TRIM_THRESHOLD_", "65536")  # what the nanny sets
     assert tune_malloc() is True  # glibc's mallopt accepts the 32 MiB threshold
+
+
+_DASK_BUILDER = """
+import sys
+from sahaboltz.tables.build import build_table
+from table_helpers import slow_hydrogen_compute
+from test_tables import small_spec
+build_table(small_spec(), sys.argv[1], compute=slow_hydrogen_compute, scheduler=sys.argv[2],
+            chunk_states=100, progress=False)
+"""
+
+
+def test_killed_dask_build_resumes(client, tmp_path, monkeypatch):
+    import subprocess
+
+    from test_tables import _kill_when, _subprocess_env
+
+    marker = tmp_path / "marker.txt"
+    client.register_plugin(_Environ({"SBT_TEST_MARKER": str(marker), "SBT_TEST_SLEEP": "0.3"}),
+                           name="sbt-env")
+    target = tmp_path / "t.h5"
+    proc = subprocess.Popen([sys.executable, "-c", _DASK_BUILDER, str(target),
+                             client.scheduler.address], env=_subprocess_env(tmp_path),
+                            cwd=tmp_path)
+    try:
+        _kill_when(proc, lambda: len(calls(marker)) >= 6)  # the probe and 5 of 10 blocks
+    finally:
+        client.register_plugin(_Environ({"SBT_TEST_MARKER": "", "SBT_TEST_SLEEP": "0.15"}),
+                               name="sbt-env")
+    assert not target.exists()
+    done = int(np.count_nonzero(record(resume_path_for(target))))
+    assert 1 <= done < 10
+    stats: dict = {}
+    monkeypatch.setenv("SBT_TEST_SLEEP", "0")
+    build_table(small_spec(), target, compute=slow_hydrogen_compute, workers=1,
+                chunk_states=100, progress=False, stats=stats)  # locally, from the cluster's
+    assert stats["resumed"] == done and stats["computed"] == 10 - done
+    whole = tmp_path / "whole.h5"
+    build_table(small_spec(), whole, compute=hydrogen_compute, workers=1, chunk_states=100,
+                progress=False)
+    assert_same_datasets(target, whole)

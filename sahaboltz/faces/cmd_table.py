@@ -214,9 +214,13 @@ def _build(args) -> int:
         opts["scheduler"] = args.scheduler
     if args.chunk_states:
         opts["chunk_states"] = args.chunk_states
+    stats: dict = {}
     t0 = time.perf_counter()
     res = obtain_table(spec, output=args.output, compute=_load_compute(args.compute),
-                       rebuild=args.rebuild, **opts)
+                       rebuild=args.rebuild, stats=stats, **opts)
+    if stats.get("resumed"):
+        print(f"sahaboltz: note: resumed an interrupted build: {stats['resumed']} of "
+              f"{stats['blocks']} blocks were stored already", file=sys.stderr)
     if res.failed_states:
         print(f"sahaboltz: note: {res.failed_states} of {spec.size} states could not be solved "
               "(their fields are NaN; the 'status' field says why)", file=sys.stderr)

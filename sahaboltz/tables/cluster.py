@@ -192,7 +192,7 @@ class DaskRunner:
                 chunk_shape: tuple[int, ...]) -> Iterator[tuple[Block, dict]]:
         distributed = _distributed()
         queue = iter(todo)
-        pending = distributed.as_completed()
+        pending = distributed.as_completed(loop=self.client.loop)  # not the default client
         live = set()
 
         def submit(n: int) -> None:
