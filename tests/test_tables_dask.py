@@ -247,3 +247,12 @@ def test_killed_dask_build_resumes(client, tmp_path, monkeypatch):
     build_table(small_spec(), whole, compute=hydrogen_compute, workers=1, chunk_states=100,
                 progress=False)
     assert_same_datasets(target, whole)
+
+
+def test_worker_with_other_level_data_is_refused(client, tmp_path):
+    # the build's provenance names level data the workers do not have
+    prov = {"level_data_digest": "0" * 64, "solver_version": "any"}
+    with pytest.raises(TableError, match="has level_data_digest .* the build expects '0000"):
+        build_table(small_spec(nt=4, npres=5), tmp_path / "t.h5", compute=hydrogen_compute,
+                    client=client, provenance=prov, progress=False)
+    assert list(tmp_path.iterdir()) == []
