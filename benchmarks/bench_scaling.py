@@ -16,8 +16,8 @@ states/s, states/s per core (states/s / cores in use), core-seconds per state, a
 largest resident memory of a worker (ru_maxrss), and the CPU time per state (this process
 and its pool workers, or the Dask workers -- the writer and the LocalCluster's scheduler, in
 this process, are printed apart; steadier than wall time on a machine shared with other
-work).  The file size per state is that of the
-table built.  The projection assumes the CPU time per state stays what the cluster measured
+work).  The Dask workers run without Dask's statistical profiler unless ``--profile``.
+The file size per state is that of the table built.  The projection assumes the CPU time per state stays what the cluster measured
 (blocks are independent); the single writer must then take the file at size/time, which is
 printed beside it (its own measured rate: ``write_seconds`` of the tables built).
 """
@@ -85,6 +85,8 @@ def main(argv=None) -> int:
     ap.add_argument("--only", default="local1,local2,dask")
     ap.add_argument("--project", type=float, default=1e8, help="states of the projected build")
     ap.add_argument("--cores", default="2,64,256,1024,4096", help="core counts to project to")
+    ap.add_argument("--profile", action="store_true",
+                    help="keep the Dask workers' profiler on (Dask's default)")
     args = ap.parse_args(argv)
     import h5py
 
@@ -109,7 +111,11 @@ def main(argv=None) -> int:
             rows.append((f"local pool, {w} process{'es' if w > 1 else ''}", w, wall, cpu, rss))
             path = tmp / f"{part}.h5"
         elif part == "dask":
+            import dask
             import distributed
+            # as docs/scaling.md recommends: without the workers' statistical profiler, which
+            # samples every thread every 10 ms (about 12% more CPU per block, measured)
+            dask.config.set({"distributed.worker.profile.enabled": args.profile})
             cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1,
                                                processes=True, dashboard_address=None,
                                                silence_logs=40)

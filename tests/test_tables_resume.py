@@ -6,7 +6,6 @@ finished tables are also checked against it."""
 
 from __future__ import annotations
 
-import os
 import signal
 import subprocess
 import sys
