@@ -9,8 +9,9 @@ version (or, for an injected compute function, its name and ``provenance``).  A 
   ``~/.cache/sahaboltz/tables``.
 - Builds hold an exclusive ``fcntl.flock`` on ``<key>.lock``, so concurrent builders of one spec
   compute it once; the others wait and then read the finished file.
-- Files appear only complete (temporary file + ``os.replace``); stale temporaries of killed
-  builds are removed by the next builder of that key and by :func:`clear`.
+- Files appear only complete (temporary file + ``os.replace``); the next builder of a key
+  resumes from the temporary file of a killed build (``.<key>.h5.resume.tmp``, which records
+  the blocks stored) and removes other stale temporaries; :func:`clear` removes them all.
 - Every table has a digest of all its bytes beside it (``<key>.h5.sum``, written by the
   builder).  A hit checks the file's structure (:func:`~sahaboltz.tables.hdf5.check_table`)
   and its bytes against the digest; the last successful comparison is remembered by the file's
@@ -273,7 +274,7 @@ def obtain_table(spec: TableSpec, *, output: str | Path | None = None,
         with contextlib.suppress(TableError, OSError):
             check_cached(final, key)
             return TableResult(final, key, "cached")  # fast path: no lock for a hit
-    with key_lock(d, key):
+    with _cluster(build_options), key_lock(d, key):
         if final.exists():
             if not rebuild:
                 try:
@@ -282,15 +283,35 @@ def obtain_table(spec: TableSpec, *, output: str | Path | None = None,
                 except (TableError, OSError) as exc:
                     warnings.warn(f"cached table {final.name} is damaged and will be rebuilt: "
                                   f"{exc}", TableCacheWarning, stacklevel=2)
+        from sahaboltz.tables.build import build_table, resume_path_for  # not for a hit
         for tmp in _stale_temps(d, key):  # left by a killed builder; we hold the lock
-            tmp.unlink(missing_ok=True)
+            if tmp != resume_path_for(final):  # the record a build resumes from stays
+                tmp.unlink(missing_ok=True)
         digest_path(final).unlink(missing_ok=True)
-        from sahaboltz.tables.build import build_table  # not needed for a cache hit
         build_table(spec, final, compute=compute, provenance=prov, **build_options)
         failed = _failed_states(final)
         record_digest(final)
         _fsync_dir(d)
     return TableResult(final, key, "built", failed)
+
+
+@contextlib.contextmanager
+def _cluster(build_options: dict) -> Iterator[None]:
+    """With ``scheduler=`` in ``build_options``: connect before the cache's lock is taken (an
+    unreachable scheduler leaves nothing behind, not even a lock file) and hand the build the
+    client, closed afterwards."""
+    address = build_options.get("scheduler")
+    if address is None or build_options.get("client") is not None:
+        yield
+        return
+    from sahaboltz.tables.cluster import connect
+    client = connect(address, build_options.get("connect_timeout", 10.0))
+    build_options["client"] = client
+    del build_options["scheduler"]
+    try:
+        yield
+    finally:
+        client.close()
 
 
 def get_table(spec: TableSpec, *, compute=None,
@@ -308,7 +329,8 @@ def get_table(spec: TableSpec, *, compute=None,
     rebuild : bool
         Build again even if a valid table exists.
     **build_options
-        ``workers``, ``chunk_states``, ``progress`` for the build.
+        ``workers``, ``chunk_states``, ``progress``, ``client`` / ``scheduler`` (a Dask
+        cluster), ``resume`` ... for the build (:func:`~sahaboltz.tables.build.build_table`).
 
     Warns
     -----
