@@ -159,3 +159,66 @@ def parse_quantity(text: Any, unit: str, name: str, *, default_unit: str | None 
 
 def _prefix(name: str) -> str:
     return f"{name}: " if name else ""
+
+
+def parse_range_text(text: str, name: str, unit: str | None = None
+                     ) -> tuple[float, float, int] | None:
+    """``"MIN:MAX:NUM"`` -> (min, max, num) in ``unit`` (a unit may follow each number or NUM
+    alone: "1:10:5 atm"); None when ``text`` is not a range."""
+    text = str(text).strip()
+    if ":" not in text:
+        return None
+    parts = text.split(":")
+    if len(parts) != 3:
+        raise InputError(f"{name}: give MIN:MAX:NUM (e.g. 3000:12000:40) or comma-separated "
+                         f"values, got {text!r}")
+    num_text, tail = split_number_unit(parts[2])
+    try:
+        num = int(num_text)
+    except ValueError:
+        raise InputError(f"{name}: NUM of MIN:MAX:NUM must be a whole number, "
+                         f"got {parts[2].strip()!r}") from None
+    lo, hi = (_one_value(x, name, unit, tail) for x in parts[:2])
+    if not (0 < lo < hi) or num < 2:
+        raise InputError(f"{name}: need 0 < MIN < MAX and NUM >= 2, got {text!r}")
+    return lo, hi, num
+
+
+def parse_values_text(text: str, name: str, *, scale: str = "log", unit: str | None = None
+                      ) -> np.ndarray:
+    """Values from ``MIN:MAX:NUM`` (log-spaced unless ``scale='linear'``) or ``V1,V2,..``.
+
+    With ``unit`` (the documented cgs unit) every value may carry a unit ("1 atm",
+    "5000 K:12000 K:40"); a unit written once at the end ("1e2,1e4,1e6 Pa", "1:10:5 atm")
+    applies to the bare numbers before it.  ``name`` (the option, e.g. ``--gas-pressure``)
+    starts every error message.
+    """
+    rng = parse_range_text(text, name, unit)
+    if rng is not None:
+        lo, hi, num = rng
+        if scale not in ("log", "linear"):
+            raise InputError(f"{name}: the spacing must be 'log' or 'linear', got {scale!r}")
+        vals = np.geomspace(lo, hi, num) if scale == "log" else np.linspace(lo, hi, num)
+        vals[0], vals[-1] = lo, hi
+        return vals
+    items = [x.strip() for x in str(text).split(",") if x.strip()]
+    if not items:
+        raise InputError(f"{name}: give MIN:MAX:NUM or comma-separated values, got {text!r}")
+    tail = split_number_unit(items[-1])[1] if unit else ""
+    vals = np.array([_one_value(x, name, unit, tail) for x in items])
+    if np.any(vals <= 0):
+        raise InputError(f"{name}: values must be positive, got {text!r}")
+    return vals
+
+
+def _one_value(text: str, name: str, unit: str | None, default_unit: str) -> float:
+    if unit is None:
+        try:
+            v = float(text)
+        except ValueError:
+            raise InputError(f"{name}: give MIN:MAX:NUM or comma-separated numbers, "
+                             f"got {text!r}") from None
+        if not np.isfinite(v):
+            raise InputError(f"{name}: values must be finite, got {text!r}")
+        return v
+    return parse_quantity(text, unit, name, default_unit=default_unit or None)

@@ -39,12 +39,13 @@ def register(subparsers) -> None:
     b = sub.add_parser("build", help="build a table from a spec file or options")
     b.add_argument("spec", nargs="?", help="spec file (.toml or .json); or give the options below")
     g = b.add_argument_group("grid (when no spec file is given)")
-    g.add_argument("--temperature", metavar="MIN:MAX:NUM|V1,V2,..",
-                   help="temperature axis [K] (default 2000:50000, 100 per decade)")
+    g.add_argument("-T", "--temperature", metavar="MIN:MAX:NUM|V1,V2,..",
+                   help="temperature axis [K, or with a unit] (default 2000:50000, 100 per "
+                        "decade)")
     g.add_argument("--temperature-scale", choices=("log", "linear"), default="log")
     g.add_argument("--pressure", metavar="MIN:MAX:NUM|V1,V2,..",
-                   help="pressure-like axis in cgs (default gas pressure 1e-2:1e8 dyn cm-2, "
-                        "10 per decade)")
+                   help="pressure-like axis in cgs or with a unit, e.g. '1e2:1e6:9' or "
+                        "'1e1:1e5:9 Pa' (default gas pressure 1e-2:1e8 dyn cm-2, 10 per decade)")
     g.add_argument("--pressure-quantity", default="gas_pressure",
                    choices=tuple(CLOSURES))
     g.add_argument("--pressure-scale", choices=("log", "linear"), default="log")

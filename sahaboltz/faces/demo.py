@@ -240,8 +240,9 @@ def _plots(out: Path, tab, arc_tab, stage_info, arc_stages, j_atm, track_tau, ar
     fig = P.draw_dominant_map(
         t, p, dom, "Fe", fractions=fr, charges=charges,
         title=f"Dominant stage of iron in the photosphere of {star}",
-        note=describe_state(comp, closure="gas_pressure", value=p) + "; track: grey T(tau) "
-             "with the invented P_gas = 1.5e5 tau^0.65 dyn cm^-2, tau = 1e-3..10" + source,
+        note=describe_state(comp, closure="gas_pressure", value=p, tex=True)
+             + "; track: grey $T(\\tau)$ with the invented $P_\\mathrm{gas} = 1.5\\times10^5\\,"
+               "\\tau^{0.65}$ dyn cm$^{-2}$, $\\tau$ = 1e-3..10" + source,
         track=(grey_temperature(track_tau), track_pressure(track_tau),
                "photosphere, tau = 0.001-10"),
         marks=[(float(grey_temperature(x)), float(track_pressure(x)), f"tau = {x:g}")
@@ -254,9 +255,9 @@ def _plots(out: Path, tab, arc_tab, stage_info, arc_stages, j_atm, track_tau, ar
         names, charges, fr = stage_info[el]
         fig = P.draw_stage_fractions(
             t, fr[:, :, j], names, log=False,
-            title=f"Ionization of {el} in {STAR['name']} at P_gas = "
-                  f"{format_value(p[j], 'dyn cm-2')} (near tau = 1)",
-            note=describe_state(comp, closure="gas_pressure", value=p[j]) + source)
+            title=f"Ionization of {el} in {STAR['name']} at $P_\\mathrm{{gas}}$ = "
+                  f"{format_value(p[j], 'dyn cm-2', tex=True)} (near $\\tau$ = 1)",
+            note=describe_state(comp, closure="gas_pressure", value=p[j], tex=True) + source)
         written.append(P.save_figure(fig, out / f"korva_stages_{el}.png"))
 
     # 3. electron pressure against T at a few gas pressures of the table
@@ -267,13 +268,13 @@ def _plots(out: Path, tab, arc_tab, stage_info, arc_stages, j_atm, track_tau, ar
               for c in cols]
     fig = P.draw_electron_pressure(t, curves, title=f"Electron pressure in {star}",
                                    note=describe_state(comp, closure="gas_pressure",
-                                                       value=p[cols]) + source)
+                                                       value=p[cols], tex=True) + source)
     written.append(P.save_figure(fig, out / "korva_electron_pressure.png"))
 
     # 4. the argon arc at 1 atm
     ar_names, _, ar_fr = arc_stages
     argon_note = describe_state(_argon(), closure="gas_pressure", value=arc_tab.pressure[j_atm],
-                                lowering=ARC["lowering"])
+                                lowering=ARC["lowering"], tex=True)
     fig = P.draw_stage_fractions(
         arc_tab.temperature, ar_fr[:, :, j_atm], ar_names,
         title=f"{ARC['name']}: invented argon arc at 1 atm",

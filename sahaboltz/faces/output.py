@@ -15,9 +15,9 @@ from typing import Any, Iterable, Sequence
 
 FORMATS = ("table", "csv", "json")
 #: significant digits of the numbers in CSV and JSON: the solver's results are good to about
-#: 1e-10 relative, so 12 digits keep all of it and drop the noise of the last binary digits
+#: 1e-10 relative, so 15 digits keep all of it and drop the noise of the last binary digits
 #: (1e5 written as 1e5, not 99999.99999999999)
-DIGITS = 12
+DIGITS = 15
 
 
 def add_format_option(parser) -> None:

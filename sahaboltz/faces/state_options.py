@@ -31,7 +31,7 @@ from sahaboltz.equilibrium.molecular import MOLECULE_SETS
 from sahaboltz.data.elements import SYMBOLS, atomic_number
 from sahaboltz.errors import InputError, UnknownSpeciesError
 from sahaboltz.kernels import truncation as _truncation
-from sahaboltz.quantities import parse_quantity, split_number_unit
+from sahaboltz.quantities import parse_quantity, parse_values_text
 
 #: pressure-like closures and their cgs unit (the solver's keyword names), from the registry
 CLOSURE_UNITS = {name: c.unit for name, c in CLOSURES.items()}
@@ -160,54 +160,9 @@ def solver_options(args: argparse.Namespace) -> dict[str, Any]:
 
 def parse_values(text: str, name: str, *, scale: str = "log", unit: str | None = None
                  ) -> np.ndarray:
-    """Values from ``MIN:MAX:NUM`` (log-spaced unless ``scale='linear'``) or ``V1,V2,..``.
-
-    With ``unit`` (the documented cgs unit) every value may carry a unit ("1 atm",
-    "5000 K:12000 K:40"); a unit written once at the end ("1e2,1e4,1e6 Pa", "1:10:5 atm")
-    applies to the bare numbers before it.  ``name`` (the option, e.g. ``--gas-pressure``)
-    starts every error message.
-    """
-    text = str(text).strip()
-    if ":" in text:
-        parts = text.split(":")
-        if len(parts) != 3:
-            raise InputError(f"{name}: give MIN:MAX:NUM (e.g. 3000:12000:40) or comma-separated "
-                             f"values, got {text!r}")
-        num_text, tail = split_number_unit(parts[2])
-        try:
-            num = int(num_text)
-        except ValueError:
-            raise InputError(f"{name}: NUM of MIN:MAX:NUM must be a whole number, "
-                             f"got {parts[2].strip()!r}") from None
-        lo, hi = (_value(x, name, unit, tail) for x in parts[:2])
-        if not (0 < lo < hi) or num < 2:
-            raise InputError(f"{name}: need 0 < MIN < MAX and NUM >= 2, got {text!r}")
-        if scale not in ("log", "linear"):
-            raise InputError(f"{name}: the spacing must be 'log' or 'linear', got {scale!r}")
-        vals = np.geomspace(lo, hi, num) if scale == "log" else np.linspace(lo, hi, num)
-        vals[0], vals[-1] = lo, hi
-        return vals
-    items = [x.strip() for x in text.split(",") if x.strip()]
-    if not items:
-        raise InputError(f"{name}: give MIN:MAX:NUM or comma-separated values, got {text!r}")
-    tail = split_number_unit(items[-1])[1] if unit else ""
-    vals = np.array([_value(x, name, unit, tail) for x in items])
-    if np.any(vals <= 0):
-        raise InputError(f"{name}: values must be positive, got {text!r}")
-    return vals
-
-
-def _value(text: str, name: str, unit: str | None, default_unit: str) -> float:
-    if unit is None:
-        try:
-            v = float(text)
-        except ValueError:
-            raise InputError(f"{name}: give MIN:MAX:NUM or comma-separated numbers, "
-                             f"got {text!r}") from None
-        if not np.isfinite(v):
-            raise InputError(f"{name}: values must be finite, got {text!r}")
-        return v
-    return parse_quantity(text, unit, name, default_unit=default_unit or None)
+    """Values from ``MIN:MAX:NUM`` (log-spaced unless ``scale='linear'``) or ``V1,V2,..``;
+    with ``unit``, each may carry a unit (:func:`sahaboltz.quantities.parse_values_text`)."""
+    return parse_values_text(text, name, scale=scale, unit=unit)
 
 
 def quantity_option(unit: str, *, positive: bool = True, minimum: float | None = None):

@@ -23,6 +23,7 @@ from typing import Any, Callable, Iterator, Mapping
 import numpy as np
 
 from sahaboltz.errors import InputError, TableError
+from sahaboltz.tables.files import describe, ensure_directory
 from sahaboltz.tables.hdf5 import MAX_CHUNK_ELEMENTS, TableWriter, encode_field
 from sahaboltz.tables.layout import STACKED, stack
 from sahaboltz.tables.spec import TableSpec
@@ -76,13 +77,27 @@ def run_block(compute: ComputeFn, spec: TableSpec, block: Block,
 
 
 def _worker_init() -> None:
-    """Let a worker die with the build: a killed parent must not leave workers behind."""
+    """Let a worker die with the build: a killed parent must not leave workers behind; and
+    leave Ctrl-C to the parent (which stops the workers), so that an interrupted build
+    prints one line instead of a traceback from every worker."""
+    import signal
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     try:  # Linux: prctl(PR_SET_PDEATHSIG, SIGKILL)
         import ctypes
-        import signal
         ctypes.CDLL("libc.so.6", use_errno=True).prctl(1, int(signal.SIGKILL))
     except (OSError, AttributeError):
         pass
+
+
+def _stop_workers(pool: ProcessPoolExecutor) -> None:
+    """End the workers of an interrupted build now (not after their running blocks)."""
+    procs = list(getattr(pool, "_processes", {}).values())  # the executor's own processes
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in procs:
+        if proc.is_alive():
+            proc.terminate()
+    for proc in procs:
+        proc.join(timeout=5)
 
 
 def default_compute() -> ComputeFn:
@@ -133,7 +148,8 @@ def _results(compute: ComputeFn, spec: TableSpec, todo: list[Block], workers: in
         for b in todo:
             yield run_block(compute, spec, b, chunk_shape)
         return
-    with _pool(workers) as pool:
+    pool = _pool(workers)
+    with pool:
         pending: set = set()
         queue = iter(todo)
         try:
@@ -148,6 +164,9 @@ def _results(compute: ComputeFn, spec: TableSpec, todo: list[Block], workers: in
                 finished, pending = wait(pending, return_when=FIRST_COMPLETED)
                 for fut in finished:
                     yield fut.result()
+        except BaseException:  # Ctrl-C, a failed block, a closed generator: stop at once
+            _stop_workers(pool)
+            raise
         finally:
             for fut in pending:
                 fut.cancel()
@@ -200,7 +219,10 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
     # raw outputs exist only in the block a worker computes; what travels is compressed
     fit = int(memory_mb * 1e6 / (max(workers, 1) * max(per_state, 1.0)))
     todo = blocks(spec.shape, max(1, min(chunk_states, fit, MAX_CHUNK_ELEMENTS)))
-    path.parent.mkdir(parents=True, exist_ok=True)
+    if path.is_dir():
+        raise InputError(f"{path} is a directory: give the table's file name (e.g. "
+                         f"{path / 'table.h5'})")
+    ensure_directory(path.parent, "the directory of the table")
     tmp = temp_path_for(path)
     first = todo[0]
     writer = None
@@ -209,7 +231,11 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
     failed = 0
     try:
         chunk_shape = (first[1] - first[0], first[3] - first[2])
-        writer = TableWriter(tmp, spec, dict(provenance or {}), chunk_shape)
+        try:
+            writer = TableWriter(tmp, spec, dict(provenance or {}), chunk_shape)
+        except OSError as exc:
+            raise TableError(f"cannot write the table {path}: "
+                             f"{describe(exc) if exc.errno else exc}") from None
         for block, values in _results(compute, spec, todo, workers, chunk_shape):
             writer.write_block(block, values)
             failed += values.get("failed", 0)
