@@ -1,4 +1,4 @@
-"""``sahaboltz plot``: pictures of LTE equilibria, written as PNG or PDF (by file suffix).
+"""sahaboltz plot: pictures of LTE equilibria, written as PNG or PDF (by file suffix).
 
     sahaboltz plot stages Fe --temperature 3000:12000:200 --gas-pressure 1e5 -o fe.png
     sahaboltz plot dominant Fe --temperature 3000:30000:80 --gas-pressure 1e-2:1e6:33 -o fe.pdf

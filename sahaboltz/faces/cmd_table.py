@@ -1,4 +1,4 @@
-"""``sahaboltz table``: build, inspect and query population tables; manage the table cache.
+"""sahaboltz table: build, inspect and query population tables; manage the table cache.
 
     sahaboltz table template > grid.toml          # an annotated spec file to edit
     sahaboltz table build grid.toml               # build (or find) it in the cache

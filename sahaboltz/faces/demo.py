@@ -95,6 +95,9 @@ class DemoResult:
     track_electron_pressure_range: tuple[float, float]
     plots: list[Path] = field(default_factory=list)
     cache_dir: Path | None = None
+    #: what the cache did for each table: "built", "cached" or "waited" (another process
+    #: built it while this one waited for it)
+    statuses: dict[str, str] = field(default_factory=dict)
 
 
 def _table(spec, workers):
@@ -102,7 +105,7 @@ def _table(spec, workers):
 
     t0 = time.perf_counter()
     res = obtain_table(spec, workers=workers, progress=False)
-    return res.path, res.status != "built", time.perf_counter() - t0
+    return res.path, res.status, time.perf_counter() - t0
 
 
 def _stage_rows(tab, element: str) -> tuple[list[str], np.ndarray]:
@@ -148,8 +151,9 @@ def run_demo(out_dir: str | Path = "sahaboltz-demo", *, quick: bool = False,
 
     t_start = time.perf_counter()
     seconds: dict[str, float] = {}
-    star_path, star_hit, seconds["star_table"] = _table(star_spec(quick), workers)
-    arc_path, arc_hit, seconds["arc_table"] = _table(arc_spec(quick), workers)
+    star_path, star_status, seconds["star_table"] = _table(star_spec(quick), workers)
+    arc_path, arc_status, seconds["arc_table"] = _table(arc_spec(quick), workers)
+    star_hit, arc_hit = star_status != "built", arc_status != "built"
 
     # -- the star: read the table back at a few depths ------------------------------------
     t0 = time.perf_counter()
@@ -206,7 +210,8 @@ def run_demo(out_dir: str | Path = "sahaboltz-demo", *, quick: bool = False,
     seconds["arc_read"] = time.perf_counter() - t0
 
     result = DemoResult(star_table=star_path, arc_table=arc_path,
-                        cache_hits={"star": star_hit, "arc": arc_hit}, seconds=seconds,
+                        cache_hits={"star": star_hit, "arc": arc_hit},
+                        statuses={"star": star_status, "arc": arc_status}, seconds=seconds,
                         depths=depths, arc=arc_rows,
                         electron_pressure_range=(float(pe.min()), float(pe.max())),
                         track_electron_pressure_range=(float(pe_track.min()),
