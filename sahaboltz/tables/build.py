@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import multiprocessing
 import os
-import sys
 import time
 import uuid
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -26,6 +25,7 @@ from sahaboltz.errors import InputError, TableError
 from sahaboltz.tables.files import describe, ensure_directory
 from sahaboltz.tables.hdf5 import MAX_CHUNK_ELEMENTS, TableWriter, encode_field
 from sahaboltz.tables.layout import STACKED, stack
+from sahaboltz.tables.progress import Progress
 from sahaboltz.tables.spec import TableSpec
 
 ComputeFn = Callable[[TableSpec, np.ndarray, np.ndarray], Mapping[str, np.ndarray]]
@@ -106,35 +106,6 @@ def default_compute() -> ComputeFn:
     return solver_compute
 
 
-class Progress:
-    """A one-line progress bar on stderr (shown when stderr is a terminal, or when forced)."""
-
-    def __init__(self, total: int, enabled: bool | None = None, stream=None, label: str = "states"):
-        self.stream = stream or sys.stderr
-        self.enabled = self.stream.isatty() if enabled is None else enabled
-        self.total, self.done, self.label = total, 0, label
-        self.start = time.perf_counter()
-        self._last = 0.0
-
-    def update(self, n: int) -> None:
-        self.done += n
-        now = time.perf_counter()
-        if self.enabled and (now - self._last > 0.2 or self.done >= self.total):
-            self._last = now
-            frac = self.done / self.total if self.total else 1.0
-            el = now - self.start
-            eta = el / frac - el if frac > 0 else float("nan")
-            bar = "#" * int(30 * frac)
-            self.stream.write(f"\r[{bar:<30}] {100 * frac:5.1f}% {self.done}/{self.total} "
-                              f"{self.label}  {el:6.1f} s, eta {eta:5.1f} s")
-            self.stream.flush()
-
-    def close(self) -> None:
-        if self.enabled:
-            self.stream.write("\n")
-            self.stream.flush()
-
-
 def _pool(workers: int) -> ProcessPoolExecutor:
     # fork shares the already-loaded level data with the workers; fall back where it is absent
     methods = multiprocessing.get_all_start_methods()
@@ -200,7 +171,8 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
         Bound on the raw output arrays of the blocks being computed (one per worker).  A
         probe of a few states measures the output size per state; blocks are made small enough.
     progress : bool, optional
-        Show a progress bar on stderr; default: when stderr is a terminal.
+        True: a tqdm progress bar; False: none; None (default): a bar in a terminal or a
+        notebook, else a log line on stderr every 10 s (:mod:`sahaboltz.tables.progress`).
     provenance : mapping, optional
         Extra root attributes (cache key, level-data digest, solver version ...).
 

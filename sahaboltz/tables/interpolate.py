@@ -127,6 +127,23 @@ class PopulationTable:
         except Exception:  # noqa: BLE001 - interpreter shutdown
             pass
 
+    def _repr_html_(self) -> str:
+        from sahaboltz._html import html_table
+
+        t, p = self.temperature, self.pressure
+        rows = [("file", str(self.path)),
+                ("title", str(self.attrs.get("title", ""))),
+                ("grid", f"{t.size} x {p.size}"),
+                ("temperature", f"{t[0]:.4g} .. {t[-1]:.4g} K"),
+                (self.pressure_quantity, f"{p[0]:.4g} .. {p[-1]:.4g} {self.pressure_unit}"),
+                ("composition", str(self.attrs.get("composition", ""))),
+                ("physics", str(self.attrs.get("physics", ""))),
+                ("variables", ", ".join(self.variables)),
+                ("quantities", f"{len(self.quantities)} (e.g. "
+                               f"{', '.join(self.quantities[:4])})")]
+        return html_table("PopulationTable", rows,
+                          "table.interpolate(name, T, P); table.to_xarray()")
+
     def __repr__(self) -> str:
         return (f"PopulationTable({str(self.path)!r}: {len(self.temperature)} x "
                 f"{len(self.pressure)}, {len(self.variables)} variables, "
