@@ -25,7 +25,8 @@ sum over lines of sigma_line^2 (sum of the weights of the pairs using the line)^
 scaled by the Birge ratio sqrt(chi^2 / dof) when the pairs scatter more than their errors
 allow, and the T and chi parts (common to every pair) added as their weighted means.  A pair
 whose ln n_e lies more than ``threshold`` (3) of its own line errors from the mean is flagged
-as an outlier (a blended or self-absorbed line shows up in every pair it is in).
+as an outlier and left out of the mean (starting from the weighted median and clipping until
+the set of outliers settles; a blended or self-absorbed line shows up in every pair it is in).
 """
 
 from __future__ import annotations
@@ -114,10 +115,25 @@ class RatioDensity(LogNormalDensity):
         if not np.all(s_own > 0):
             raise InputError("combined n_e: every pair needs a non-zero intensity error "
                              "(intensity_error) to be weighted")
-        w = 1.0 / s_own**2
-        mean = float(np.sum(w * y) / w.sum())
-        resid = (y - mean) / s_own
-        n = y.size
+        w_all = 1.0 / s_own**2
+        # a robust start (the weighted median), then clip: pairs more than `threshold` of
+        # their own errors away are outliers and leave the mean, until the set settles
+        order = np.argsort(y)
+        cum = np.cumsum(w_all[order])
+        mean = float(y[order][np.searchsorted(cum, 0.5 * cum[-1])])
+        out = np.zeros(y.size, dtype=bool)
+        for _ in range(20):
+            new = np.abs(y - mean) / s_own > threshold
+            if new.all():
+                new[:] = False
+            keep = ~new
+            mean = float(np.sum(w_all[keep] * y[keep]) / w_all[keep].sum())
+            if np.array_equal(new, out):
+                break
+            out = new
+        w = np.where(out, 0.0, w_all)
+        resid = np.where(out, 0.0, (y - mean) / s_own)
+        n = int((~out).sum())
         # the line part with the lines the pairs share (the budget's own part per line)
         var_lines = 0.0
         for side, budget in ((self.neutral, "neutral_lines"), (self.ion, "ion_lines")):
@@ -138,8 +154,8 @@ class RatioDensity(LogNormalDensity):
         return CombinedDensity(electron_density=float(np.exp(mean)), ln_ne_error=s_tot,
                                ln_error_lines=float(np.sqrt(var_lines) * birge),
                                ln_error_temperature=s_t, ln_error_ionization_energy=s_chi,
-                               pairs=n, chi2=chi2, dof=dof, birge_ratio=float(birge),
-                               outlier=np.abs(resid) > threshold, threshold=threshold)
+                               pairs=y.size, chi2=chi2, dof=dof, birge_ratio=float(birge),
+                               outlier=out, threshold=threshold)
 
 
 @dataclass
@@ -148,7 +164,8 @@ class CombinedDensity(LogNormalDensity):
 
     ``electron_density`` [cm^-3] with ``ln_ne_error`` = sigma(ln n_e) (and its parts from the
     lines, T and chi), ``electron_density_bounds``; ``outlier`` marks the pairs more than
-    ``threshold`` of their own errors from the mean; ``birge_ratio`` = max(1, sqrt(chi2/dof)).
+    ``threshold`` of their own errors from the mean (left out of it); ``pairs`` counts all of
+    them; ``birge_ratio`` = max(1, sqrt(chi2/dof)) of the pairs kept.
     """
 
     electron_density: float

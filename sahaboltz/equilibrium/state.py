@@ -445,7 +445,10 @@ class EquilibriumState:
                 ("truncation", _truncation.used(self.network.scheme, self.lowering)),
                 ("converged", f"{int(self.converged.sum())} of {self.converged.size}")]
         if not self.shape:
-            for el in list(self.composition.symbols)[:12]:
+            symbols = list(self.composition.symbols)
+            common = [e for e in ("H", "He", "C", "N", "O", "Na", "Mg", "Si", "Ca", "Fe")
+                      if e in symbols]
+            for el in (common if len(symbols) > 12 else symbols):
                 chain = self.network.chain_of(el)
                 q = int(self.dominant_stage(el))
                 f = float(np.max(self.stage_fractions(el)))

@@ -97,6 +97,14 @@ def read_structure(path: str | Path, *, temperature_column: str | None = None,
         raise InputError(f"--from {path}: no rows (only comments or blank lines)")
     delimiter = "," if "," in lines[0][1] else None
     header = _split(lines[0][1], delimiter)
+    if delimiter is None:  # "T [K]" in a whitespace header is one column: its unit follows
+        merged: list[str] = []
+        for tok in header:
+            if merged and tok[:1] in "[(":
+                merged[-1] += " " + tok
+            else:
+                merged.append(tok)
+        header = merged
     if _numeric(header):
         raise InputError(f"--from {path}, line {lines[0][0]}: the first line must name the "
                          f"columns (e.g. 'T [K], P_gas [dyn cm-2]')")
