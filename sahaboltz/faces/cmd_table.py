@@ -14,6 +14,7 @@ import argparse
 import csv
 from dataclasses import replace
 import importlib
+import os
 import sys
 import time
 from pathlib import Path
@@ -194,6 +195,9 @@ def _resolve(text: str) -> Path:
     p = Path(text)
     if p.exists():
         return p
+    if "/" in text or os.sep in text or p.suffix:
+        raise InputError(f"no table file {text} (and not a cache key: "
+                         "see 'sahaboltz table cache list')")
     return cache.find(text)
 
 

@@ -358,7 +358,8 @@ def entries(directory: str | Path | None = None) -> list[dict[str, Any]]:
 def find(key_prefix: str, directory: str | Path | None = None) -> Path:
     """The cached table whose key starts with ``key_prefix``."""
     d = Path(directory) if directory is not None else cache_dir()
-    hits = sorted(d.glob(f"{key_prefix}*.h5")) if key_prefix else []
+    plain = key_prefix and all(c in "0123456789abcdef" for c in key_prefix.lower())
+    hits = sorted(d.glob(f"{key_prefix.lower()}*.h5")) if plain else []
     if not hits:
         raise InputError(f"no cached table with key starting {key_prefix!r}; "
                          f"see 'sahaboltz table cache list'")
