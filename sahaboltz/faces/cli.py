@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import re
 import sys
 import warnings
 
@@ -104,6 +105,26 @@ def _notes(showwarning):
     return show
 
 
+#: Python argument spellings in the package's messages -> the command line's options (the
+#: messages name Python arguments; a command reports them as the options that set them)
+_PYTHON_TO_CLI = [
+    (re.compile(r"\bPass outside='clip' to clamp onto the edge or outside='nan' for NaN "
+                r"there"), "Give --outside clip to clamp onto the edge or --outside nan for "
+                           "NaN there"),
+    (re.compile(r"\b(outside|truncation|molecules)='([^']*)'"), r"--\1 \2"),
+    (re.compile(r"\blowering=True\b"), "--lowering"),
+    (re.compile(r"\(species=\.\.\.\)"), "(--species)"),
+    (re.compile(r"\belectron_density=\b"), "--electron-density "),
+]
+
+
+def cli_wording(message: str) -> str:
+    """A message of the Python API in the command line's words (its options)."""
+    for pattern, repl in _PYTHON_TO_CLI:
+        message = pattern.sub(repl, message)
+    return message
+
+
 def _os_message(exc: OSError) -> str:
     """'cannot write /x/y: Not a directory' from an OSError, naming the path."""
     where = exc.filename if exc.filename is not None else ""
@@ -128,7 +149,7 @@ def main(argv: list[str] | None = None) -> int:
             warnings.showwarning = _notes(warnings.showwarning)
             return int(args.func(args) or 0)
     except SahaboltzError as exc:
-        print(f"sahaboltz: error: {exc}", file=sys.stderr)
+        print(f"sahaboltz: error: {cli_wording(str(exc))}", file=sys.stderr)
         return EXIT_ERROR
     except KeyboardInterrupt:
         print("sahaboltz: interrupted", file=sys.stderr)
