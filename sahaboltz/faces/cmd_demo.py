@@ -14,6 +14,7 @@ from __future__ import annotations
 import argparse
 
 from sahaboltz.faces.output import add_format_option, emit
+from sahaboltz.faces.state_options import number_option
 
 
 def register(subparsers) -> None:
@@ -25,7 +26,7 @@ def register(subparsers) -> None:
                    help="directory for the plots (default ./sahaboltz-demo)")
     p.add_argument("--quick", action="store_true", help="reduced grids (seconds; for tests)")
     p.add_argument("--no-plots", action="store_true", help="skip the plots")
-    p.add_argument("--workers", type=int, default=None,
+    p.add_argument("--workers", type=number_option(integer=True, minimum=1), default=None,
                    help="worker processes for the table builds (default: all cores)")
     add_format_option(p)
     p.set_defaults(func=_run)

@@ -8,6 +8,8 @@ docs/diagnostics.md.  Plots are drawn headless (matplotlib Agg canvas, no displa
 
 from __future__ import annotations
 
+import argparse
+
 import numpy as np
 
 from sahaboltz.errors import InputError
@@ -50,8 +52,9 @@ def register(sub) -> None:
     s.add_argument("--electron-density-error", type=quantity_option("cm-3", positive=False,
                                                                     minimum=0.0),
                    default=0.0, metavar="CM-3", help="1-sigma uncertainty of --electron-density")
-    s.add_argument("--no-lowering", action="store_true",
-                   help="no Debye-Hueckel lowering of the ionization energy")
+    s.add_argument("--lowering", action=argparse.BooleanOptionalAction, default=True,
+                   help="Debye-Hueckel lowering of the ionization energy, as in every command "
+                        "(default on here: --no-lowering leaves it out)")
     s.add_argument("--initial-temperature", type=quantity_option("K"), default=1e4, metavar="K",
                    help="start of the T iteration when n_e is given (default 10000 K)")
     s.set_defaults(func=run_saha_boltzmann)
@@ -78,8 +81,9 @@ def register(sub) -> None:
                    help="print every pair (n_e, bounds, outlier flag) instead of the summary")
     d.add_argument("--tolerance", type=quantity_option("nm"), default=0.01, metavar="NM",
                    help="wavelength match tolerance for --neutral/--ion (default 0.01 nm)")
-    d.add_argument("--no-lowering", action="store_true",
-                   help="no Debye-Hueckel lowering of the ionization energy")
+    d.add_argument("--lowering", action=argparse.BooleanOptionalAction, default=True,
+                   help="Debye-Hueckel lowering of the ionization energy, as in every command "
+                        "(default on here: --no-lowering leaves it out)")
     d.add_argument("--photon-counts", action="store_true",
                    help="intensities are photon counts (default: energy units)")
     d.add_argument("--delta-e", type=quantity_option("eV"), metavar="EV",
@@ -147,7 +151,7 @@ def run_saha_boltzmann(args) -> int:
     fit = saha_boltzmann_plot(read_lines(args.lines), args.element,
                               electron_density=args.electron_density,
                               electron_density_error=args.electron_density_error,
-                              lowering=not args.no_lowering, photon_counts=args.photon_counts,
+                              lowering=args.lowering, photon_counts=args.photon_counts,
                               reject_outliers=args.reject_outliers,
                               outlier_threshold=args.outlier_threshold,
                               initial_temperature=args.initial_temperature,
@@ -170,7 +174,7 @@ def run_density(args) -> int:
             keep &= hit
     neutral, ion = neutral.select(keep), ion.select(keep)
     res = ratio_density(neutral, ion, args.temperature, args.temperature_error,
-                        lowering=not args.no_lowering, photon_counts=args.photon_counts,
+                        lowering=args.lowering, photon_counts=args.photon_counts,
                         delta_e_ev=args.delta_e)
     notes = {}
     if res.lte:

@@ -24,7 +24,7 @@ import numpy as np
 from sahaboltz.equilibrium.closures import CLOSURES
 from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
-from sahaboltz.faces.state_options import add_mixture_options, parse_mix
+from sahaboltz.faces.state_options import add_mixture_options, number_option, parse_mix
 from sahaboltz.tables.spec import normalize_composition
 
 
@@ -61,8 +61,10 @@ def register(subparsers) -> None:
                    help="partition functions to store, e.g. 'Fe II' (repeatable)")
     b.add_argument("-o", "--output", help="write the table here instead of the cache")
     b.add_argument("--rebuild", action="store_true", help="rebuild even if cached")
-    b.add_argument("--workers", type=int, help="worker processes (default: all cores)")
-    b.add_argument("--chunk-states", type=int, default=None, help="states per block")
+    b.add_argument("--workers", type=number_option(integer=True, minimum=1),
+                   help="worker processes (default: all cores)")
+    b.add_argument("--chunk-states", type=number_option(integer=True, minimum=1), default=None,
+                   help="states per block")
     b.add_argument("--no-progress", action="store_true", help="no progress bar")
     b.add_argument("--compute", metavar="MODULE:FUNCTION",
                    help="advanced: your own compute(spec, T, P) -> dict of arrays instead of "
@@ -79,8 +81,8 @@ def register(subparsers) -> None:
     q = sub.add_parser("query", help="interpolate a table at given points")
     q.add_argument("table", help="table file, or a cache key (prefix)")
     q.add_argument("--at", action="append", default=[], metavar="T,P",
-                   help="a point: temperature [K] and the table's pressure-like quantity in cgs "
-                        "(repeatable)")
+                   help="a point: temperature [K] and the table's pressure-like quantity in cgs, "
+                        "or with units ('5800 K,1e4 Pa') (repeatable)")
     q.add_argument("--points", metavar="CSV", help="CSV file with two columns T,P (header optional)")
     q.add_argument("-q", "--quantities", action="append", default=[], metavar="NAME,..",
                    help="quantities to interpolate (default: the scalar ones)")
@@ -232,16 +234,17 @@ def _inspect(args) -> int:
     return 0
 
 
-def _points(args) -> tuple[np.ndarray, np.ndarray]:
+def _points(args, pressure_unit: str = "dyn cm-2") -> tuple[np.ndarray, np.ndarray]:
+    from sahaboltz.quantities import parse_quantity
+
     pts: list[tuple[float, float]] = []
     for item in args.at:
-        parts = item.replace(" ", "").split(",")
-        try:
-            if len(parts) != 2:
-                raise ValueError
-            pts.append((float(parts[0]), float(parts[1])))
-        except ValueError:
-            raise InputError(f"--at: write T,P (two numbers), got {item!r}") from None
+        parts = item.split(",")
+        if len(parts) != 2:
+            raise InputError(f"--at: write T,P (two numbers, each with an optional unit, "
+                             f"e.g. 5800,1e5 or '5800 K,1e4 Pa'), got {item!r}")
+        pts.append((parse_quantity(parts[0], "K", "--at (temperature)"),
+                    parse_quantity(parts[1], pressure_unit, "--at (pressure)")))
     if args.points:
         try:
             with open(args.points, newline="") as fh:
@@ -270,7 +273,7 @@ def _query(args) -> int:
     names = [n.strip() for item in args.quantities for n in item.split(",") if n.strip()]
     if not names:
         names = [n for n in tab.quantities if n in SCALAR_OUTPUTS]
-    t, p = _points(args)
+    t, p = _points(args, tab.pressure_unit)
     vals = tab.interpolate(names, t, p, method=args.method, outside=args.outside)
     rows = []
     for k in range(t.size):
