@@ -387,6 +387,22 @@ def test_quantities_and_html():
     assert html.startswith("<div>") and "dominant Fe" in html and "Fe II" in html
 
 
+def test_table_quantity(tmp_path, capsys):
+    path = tmp_path / "h.h5"
+    code, _, _ = _run(capsys, "table", "build", "-T", "5000:8000:7", "--pressure",
+                      "1e0:1e2:5 Pa", "--mix", "H:1", "--no-h-minus", "--no-progress",
+                      "-o", str(path))
+    assert code == 0
+    tab = sb.open_table(path)
+    pe = tab.quantity("electron_pressure", 6000 * u.K, 1 * u.Pa)       # 10 dyn cm-2, on grid
+    assert pe.unit == u.dyn / u.cm**2
+    x = hydrogen_fraction_saha(6000.0, 10.0)
+    assert pe.to_value(u.dyn / u.cm**2) == pytest.approx(10.0 * x / (1 + x), rel=2e-4)
+    assert tab.quantity("fraction_H_II", 6000.0, 10.0).unit == u.dimensionless_unscaled
+    assert "PopulationTable" in tab._repr_html_()
+    tab.close()
+
+
 # -- a builder that waited ---------------------------------------------------------------------
 def slow_compute(spec, t, p):
     time.sleep(1.0)

@@ -238,6 +238,19 @@ class PopulationTable:
             wide[widths] = _wide_windows(g, *widths)
         return np.ascontiguousarray(g).ravel(), logged, wide.get(widths)
 
+    def quantity(self, name: str, temperature, pressure, **options):
+        """:meth:`interpolate` one quantity and return it as an astropy Quantity in the unit
+        the table stores it in (``units`` attribute; "1" is dimensionless), e.g.
+        ``table.quantity("electron_pressure", 5800 * u.K, 1e4 * u.Pa).to(u.Pa)``."""
+        import astropy.units as u
+
+        if not isinstance(name, str):
+            raise InputError(f"quantity: give one name, got {name!r}")
+        value = self.interpolate(name, temperature, pressure, **options)
+        unit = self.units(name)
+        return np.asarray(value) * (u.dimensionless_unscaled if unit in ("", "1")
+                                    else u.Unit(unit))
+
     def interpolate(self, names: str | Sequence[str], temperature, pressure, *,
                     method: str = "quintic", outside: str = "raise"):
         """Interpolate stored quantities at the points ``(temperature, pressure)``.
