@@ -53,6 +53,7 @@ def _run(args) -> int:
                       f"{s['star_table']:.1f} s)",
         "arc table": f"{r.arc_table} ({_status(r.statuses['arc'])}, {s['arc_table']:.1f} s)",
         "cache directory": str(r.cache_dir),
+        "cache": "$SAHABOLTZ_CACHE_DIR moves it; 'sahaboltz table cache clear --all' empties it",
         "P_e over the star's table [dyn cm-2]":
             f"{r.electron_pressure_range[0]:.3g} .. {r.electron_pressure_range[1]:.3g}",
         "P_e along the photosphere, tau 1e-3..10 [dyn cm-2]":
