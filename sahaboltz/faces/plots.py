@@ -937,7 +937,8 @@ def diagnostic_fit_plot(fit, *, ax=None, annotate: bool = True) -> tuple[Figure,
         lo_ne, hi_ne = fit.electron_density_bounds
         title = (f"Saha-Boltzmann plot of {fit.lower} + {fit.upper}: $n_e$ = "
                  f"{format_value(fit.electron_density, 'cm-3', tex=True)} ({src}; "
-                 f"1$\\sigma$ {lo_ne:.2g}-{hi_ne:.2g})")
+                 f"1$\\sigma$: {format_value(lo_ne, '', tex=True).strip()} .. "
+                 f"{format_value(hi_ne, '', tex=True).strip()})")
     else:
         ax.set_ylabel(y_label)
         x_label = "upper-level energy $E_u$ [eV]"
