@@ -124,6 +124,8 @@ def run_state(args) -> int:
     meta["mixture"] = comp.name
     (name, value), = closure.items()
     meta["closure"] = name
+    # the given value, not the solved one (equal to the solver's tolerance, 1e-12)
+    meta[f"{name}_{CLOSURE_UNITS[name].replace(' ', '_')}"] = float(value)
     if args.budget:
         return _emit_budget(state, elements, args, meta)
     rows = stage_table(state, elements, min_fraction=args.min_fraction)

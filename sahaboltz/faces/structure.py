@@ -24,6 +24,7 @@ import numpy as np
 
 from sahaboltz.equilibrium.closures import CLOSURES
 from sahaboltz.errors import InputError
+from sahaboltz.faces.output import DIGITS
 from sahaboltz.quantities import convert, unit_of
 
 #: header names (lower case, without unit) recognised as the temperature column
@@ -201,11 +202,14 @@ def structure_rows(structure: Structure, state, species: list[str],
         out[name] = v
     out["temperature_K"] = structure.temperature
     unit = CLOSURES[structure.closure].unit.replace(" ", "_")
-    out[f"{structure.closure}_{unit}"] = structure.value
+    given = f"{structure.closure}_{unit}"
+    out[given] = structure.value
     out["n_e_cm-3"] = state.n_e
-    out["electron_pressure_dyn_cm-2"] = state.electron_pressure
-    out["gas_pressure_dyn_cm-2"] = state.gas_pressure
-    out["mass_density_g_cm-3"] = state.mass_density
+    for key, value in (("electron_pressure_dyn_cm-2", state.electron_pressure),
+                       ("gas_pressure_dyn_cm-2", state.gas_pressure),
+                       ("mass_density_g_cm-3", state.mass_density)):
+        if key != given:  # the given column stays as given (the solved one equals it to 1e-12)
+            out[key] = value
     for sp in species:
         key = sp.replace(" ", "_")
         out[f"fraction_{key}"] = state.fraction(sp)
@@ -239,9 +243,9 @@ def write_structure(path: str | Path, names: list[str], columns: dict, meta: dic
                 w = csv.writer(fh, lineterminator="\n")
                 w.writerow(names)
                 for r in range(len(columns[names[0]])):
-                    w.writerow([f"{float(columns[n][r]):.10g}" for n in names])
+                    w.writerow([f"{float(columns[n][r]):.{DIGITS}g}" for n in names])
         elif suffix == ".json":
-            rows = [{n: float(f"{float(columns[n][r]):.10g}") for n in names}
+            rows = [{n: float(f"{float(columns[n][r]):.{DIGITS}g}") for n in names}
                     for r in range(len(columns[names[0]]))]
             tmp.write_text(json.dumps({**meta, "rows": rows}, indent=1) + "\n")
         else:
