@@ -783,7 +783,7 @@ def partition_function_plot(species: Sequence[str], temperature: Any, *,
     bits = [f"truncations: {', '.join(truncations)}"]
     if needs_ne:
         bits.append(f"$n_e$ = {format_value(ne, 'cm-3', tex=True)} held fixed"
-                    + ("; lowered: Debye-Hueckel limit from n_e, T" if "lowered" in truncations
+                    + ("; lowered: Debye-Hueckel limit from $n_e$, $T$" if "lowered" in truncations
                        else ""))
         bits.append("hydrogenic completion" if completion else "tabulated levels only")
     bits.append("levels: NIST ASD via level_data")
@@ -881,7 +881,7 @@ def level_population_plot(species: str, temperature: Any, pressure: Any, *, comp
     title = f"Level populations of {name} (Boltzmann diagram)"
     note = (describe_state(comp, closure=pressure_quantity, value=pv, truncation=truncation,
                            lowering=lowering, h_minus=h_minus, tex=True)
-            + f"; {int(keep.sum())} tabulated bound levels; n_i = number density of level i")
+            + f"; {int(keep.sum())} tabulated bound levels; $n_i$ = number density of level $i$")
     return draw_level_populations(series, title=title, note=note, boltzmann_lines=lines, ax=ax,
                                   annotate=annotate)
 

@@ -287,9 +287,10 @@ def describe_state(composition, *, closure: str | None = None, value: Any = None
         else:
             parts.append(f"{sym} = {format_value(v.min(), unit, tex)} .. "
                          f"{format_value(v.max(), unit, tex)}")
-    parts.append(physics_label(truncation, lowering))
+    physics = physics_label(truncation, lowering)
+    parts.append("$U$" + physics[1:] if tex and physics.startswith("U:") else physics)
     if not h_minus:
-        parts.append("no H-")
+        parts.append("no H$^-$" if tex else "no H-")
     parts.append("LTE")
     return "; ".join(parts)
 
