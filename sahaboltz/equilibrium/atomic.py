@@ -169,7 +169,8 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
     status = np.zeros(n, dtype=np.int8)
     reason = np.full(n, "", dtype=object)
     if bad.any():
-        _classify_failures(network, closure, t, v, resid, passes, bad, status, reason)
+        _classify_failures(network, closure, t, v, resid, passes, bad, status, reason,
+                           max_passes)
     if lowering:
         _check_lowering(network, lam_out, ~bad, status, reason)
         _unsettled_coupling(t, ne_last, status, reason)
@@ -181,7 +182,12 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
             status, reason)
 
 
-def _classify_failures(network, closure, t, v, resid, passes, bad, status, reason) -> None:
+#: the default of ``max_passes``; a smaller limit is the first suspect of a failure
+DEFAULT_MAX_PASSES = 200
+
+
+def _classify_failures(network, closure, t, v, resid, passes, bad, status, reason,
+                       max_passes: int = DEFAULT_MAX_PASSES) -> None:
     """Status and reason of the states ``bad``: a given electron pressure that the gas cannot
     supply (with the largest it can there), or no convergence."""
     idx = np.flatnonzero(bad)
@@ -199,6 +205,9 @@ def _classify_failures(network, closure, t, v, resid, passes, bad, status, reaso
     hint = ("; the 'lowered' cut makes U jump whenever a level crosses the limit, so the "
             "balance can lack an exact root: 'occupation' is continuous"
             if network.scheme.key == "lowered" else "; check that the state is physical")
+    if max_passes < DEFAULT_MAX_PASSES:
+        hint = (f"; max_passes={max_passes} is below the default {DEFAULT_MAX_PASSES}: "
+                "raise it")
     for i in idx:
         reason[i] = (f"no convergence in {int(passes[i])} passes (relative charge residual "
                      f"{resid[i]:.3g}){hint}")

@@ -2,24 +2,32 @@
 
 from __future__ import annotations
 
+from sahaboltz.data.elements import atomic_number, spectroscopic_name
+from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
-from sahaboltz.faces.state_options import (CLOSURE_FLAGS, add_mixture_options, parse_mix,
-                                           solver_options)
+from sahaboltz.faces.state_options import (CLOSURE_FLAGS, CLOSURE_UNITS, add_mixture_options,
+                                           add_temperature_option, number_option, parse_mix,
+                                           quantity_option, solver_options)
 
 def register(sub) -> None:
-    p = sub.add_parser("state", help="stage fractions of a gas at one temperature and pressure",
+    p = sub.add_parser("state", help="stage fractions of a gas at one state, or along a "
+                                     "structure file (--from)",
                        description="Solve the LTE ionization balance of a mixture at one state "
-                                   "and list the stage fractions of the chosen elements.")
-    p.add_argument("-T", "--temperature", type=float, required=True, metavar="K",
-                   help="temperature [K]")
-    grp = p.add_mutually_exclusive_group(required=True)
+                                   "and list the stage fractions of the chosen elements; or, "
+                                   "with --from FILE, at every row of a model structure "
+                                   "(a temperature and a pressure-like column) and write the "
+                                   "chosen species' fractions, number densities and level "
+                                   "populations per row.")
+    add_temperature_option(p, several=False)
+    grp = p.add_mutually_exclusive_group()
     for dest, flag, text in CLOSURE_FLAGS:
-        grp.add_argument(flag, dest=dest, type=float, metavar="X", help=text)
+        grp.add_argument(flag, dest=dest, type=quantity_option(CLOSURE_UNITS[dest]),
+                         metavar="X", help=text)
     add_mixture_options(p)
     p.add_argument("--elements", default=None, metavar="LIST",
                    help="comma-separated elements to list (default: all of a custom mix; "
                         "H,He,C,N,O,Na,Mg,Si,Ca,Fe for solar)")
-    p.add_argument("--min-fraction", type=float, default=1e-6, metavar="F",
+    p.add_argument("--min-fraction", type=number_option(minimum=0.0), default=1e-6, metavar="F",
                    help="hide stages below this fraction of their element (default 1e-6)")
     p.add_argument("--dominant-only", action="store_true",
                    help="one row per element: its dominant stage")
@@ -28,6 +36,29 @@ def register(sub) -> None:
                         "each molecule), as fractions")
     p.add_argument("--plasma", action="store_true",
                    help="also print Debye length, coupling parameter and the McWhirter check")
+    s = p.add_argument_group("a model structure (--from)")
+    s.add_argument("--from", dest="structure", metavar="FILE",
+                   help="solve every row of this CSV or whitespace table (a header line naming "
+                        "the columns, units in brackets: 'T [K]  P_gas [Pa]')")
+    s.add_argument("--temperature-column", metavar="NAME",
+                   help="the temperature column (default: the one named T or temperature)")
+    s.add_argument("--pressure-column", metavar="NAME",
+                   help="the pressure-like column (default: the one named P, P_gas, P_e, rho, "
+                        "n_H ...)")
+    s.add_argument("--pressure-quantity", choices=tuple(CLOSURE_UNITS), default=None,
+                   help="what the pressure-like column is (default: from its name)")
+    s.add_argument("--temperature-unit", metavar="UNIT",
+                   help="unit of the temperature column when its header has none (default K)")
+    s.add_argument("--pressure-unit", metavar="UNIT",
+                   help="unit of the pressure-like column when its header has none "
+                        "(default: cgs)")
+    s.add_argument("--species", default=None, metavar="LIST",
+                   help="species whose fraction and number density to write, e.g. "
+                        "'H I,Fe I,Fe II' (default: the stages of --elements)")
+    s.add_argument("--levels", action="append", default=[], metavar="SPECIES:IDX",
+                   help="level populations to write, e.g. 'Fe I:0-4' (repeatable)")
+    s.add_argument("-o", "--output", metavar="FILE",
+                   help="write the rows to FILE.csv, FILE.json or FILE.h5 (default: print)")
     add_format_option(p)
     p.set_defaults(func=run_state)
 
@@ -38,49 +69,135 @@ def register(sub) -> None:
                                    "element is above stage q.")
     p.add_argument("element", help="element symbol, e.g. H, Fe")
     grp = p.add_mutually_exclusive_group(required=True)
-    grp.add_argument("--electron-pressure", type=float, metavar="X", help="P_e [dyn cm^-2]")
-    grp.add_argument("--gas-pressure", type=float, metavar="X", help="P_gas [dyn cm^-2]")
+    grp.add_argument("--electron-pressure", type=quantity_option("dyn cm-2"), metavar="X",
+                     help="P_e [dyn cm^-2, or with a unit]")
+    grp.add_argument("--gas-pressure", type=quantity_option("dyn cm-2"), metavar="X",
+                     help="P_gas [dyn cm^-2, or with a unit]")
     p.add_argument("--mix", default=None, metavar="MIX",
                    help="'solar' or amounts 'H:0.9,He:0.1' (default: the pure element)")
     p.add_argument("--by", choices=("number", "mass"), default="number")
-    p.add_argument("--tmin", type=float, default=1e3, metavar="K", help="default 1000 K")
-    p.add_argument("--tmax", type=float, default=1e6, metavar="K", help="default 1e6 K")
-    p.add_argument("--lowering", action="store_true")
+    p.add_argument("--tmin", type=quantity_option("K"), default=1e3, metavar="K",
+                   help="default 1000 K")
+    p.add_argument("--tmax", type=quantity_option("K"), default=1e6, metavar="K",
+                   help="default 1e6 K")
+    p.add_argument("--lowering", action="store_true",
+                   help="Debye-Hueckel lowering of the ionization energies (self-consistent)")
     p.add_argument("--no-h-minus", action="store_true")
     add_format_option(p)
     p.set_defaults(func=run_half)
 
 
+def _elements(args, comp) -> list[str]:
+    if args.elements:
+        return [e.strip() for e in args.elements.split(",") if e.strip()]
+    if args.mix.strip().lower() == "solar":
+        return [e for e in ("H", "He", "C", "N", "O", "Na", "Mg", "Si", "Ca", "Fe") if e in comp]
+    return comp.symbols
+
+
 def run_state(args) -> int:
     from sahaboltz.equilibrium import solve_equilibrium, stage_table
+    from sahaboltz.quantities import parse_quantity
 
+    if args.structure:
+        return run_structure(args)
+    for opt in ("temperature_column", "pressure_column", "pressure_quantity", "temperature_unit",
+                "pressure_unit", "species", "output"):
+        if getattr(args, opt) is not None:
+            raise InputError(f"--{opt.replace('_', '-')} goes with --from FILE")
+    if args.levels:
+        raise InputError("--levels goes with --from FILE")
+    if args.temperature is None:
+        raise InputError("-T/--temperature is needed (or --from FILE for a structure)")
+    temperature = parse_quantity(args.temperature, "K", "-T/--temperature")
+    if not temperature > 0:
+        raise InputError(f"-T/--temperature must be positive, got {args.temperature!r}")
     comp = parse_mix(args.mix, args.by, args.metallicity, args.alpha)
     closure = {dest: getattr(args, dest) for dest, _, _ in CLOSURE_FLAGS
                if getattr(args, dest) is not None}
-    state = solve_equilibrium(comp, args.temperature, **closure, **solver_options(args))
-    if args.elements:
-        elements = [e.strip() for e in args.elements.split(",") if e.strip()]
-    elif args.mix.strip().lower() == "solar":
-        elements = [e for e in ("H", "He", "C", "N", "O", "Na", "Mg", "Si", "Ca", "Fe")
-                    if e in comp]
-    else:
-        elements = comp.symbols
+    if not closure:
+        raise InputError("give one of " + ", ".join(f for _, f, _ in CLOSURE_FLAGS)
+                         + " (e.g. --gas-pressure 1e5 or --gas-pressure '1 atm')")
+    state = solve_equilibrium(comp, temperature, **closure, **solver_options(args))
+    elements = _elements(args, comp)
+    meta = state.summary()
+    meta["mixture"] = comp.name
+    (name, value), = closure.items()
+    meta["closure"] = name
+    # the given value, not the solved one (equal to the solver's tolerance, 1e-12)
+    meta[f"{name}_{CLOSURE_UNITS[name].replace(' ', '_')}"] = float(value)
     if args.budget:
-        return _emit_budget(state, elements, args)
+        return _emit_budget(state, elements, args, meta)
     rows = stage_table(state, elements, min_fraction=args.min_fraction)
     if args.dominant_only:
         rows = [r for r in rows if r["dominant"]]
-    for r in rows:
-        r["dominant"] = "*" if r["dominant"] else ""
-    meta = state.summary()
-    meta["mixture"] = comp.name
     if args.plasma:
         meta["debye_length_cm"] = float(state.debye_length)
         meta["coupling_parameter"] = float(state.coupling_parameter)
         meta["mcwhirter_min_n_e_cm-3"] = float(state.mcwhirter_density())
         meta["lte_mcwhirter"] = bool(state.lte_valid())
-    emit(rows, args.format, title=f"LTE ionization balance at T = {args.temperature:g} K",
+    if args.format == "table":
+        for r in rows:
+            r["dominant"] = "*" if r["dominant"] else ""
+    elif args.format == "csv":  # every row carries the conditions of the state
+        rows = [{**_conditions(meta), **r} for r in rows]
+    emit(rows, args.format, title=f"LTE ionization balance at T = {temperature:g} K",
          meta=meta)
+    return 0
+
+
+#: the conditions every CSV row of ``state`` repeats (the CSV has no place for metadata)
+CONDITION_KEYS = ("temperature_K", "gas_pressure_dyn_cm-2", "electron_pressure_dyn_cm-2",
+                  "n_e_cm-3", "mass_density_g_cm-3")
+
+
+def _conditions(meta: dict) -> dict:
+    return {k: meta[k] for k in CONDITION_KEYS if k in meta}
+
+
+def run_structure(args) -> int:
+    """``state --from FILE``: every row of a structure file in one vectorized solve."""
+    from sahaboltz.equilibrium import solve_equilibrium
+    from sahaboltz.faces.structure import read_structure, structure_rows, write_structure
+    from sahaboltz.tables.spec import _parse_levels, normalise_species
+
+    given = [f for d, f, _ in CLOSURE_FLAGS if getattr(args, d) is not None]
+    if args.temperature is not None:
+        given.insert(0, "-T/--temperature")
+    if given:
+        raise InputError("--from FILE takes the temperatures and pressures from the file; "
+                         f"leave out {', '.join(given)}")
+    if args.budget or args.dominant_only or args.plasma:
+        raise InputError("--budget, --dominant-only and --plasma are for one state, not --from")
+    st = read_structure(args.structure, temperature_column=args.temperature_column,
+                        pressure_column=args.pressure_column,
+                        pressure_quantity=args.pressure_quantity,
+                        temperature_unit=args.temperature_unit, pressure_unit=args.pressure_unit)
+    comp = parse_mix(args.mix, args.by, args.metallicity, args.alpha)
+    try:
+        levels = [_parse_levels(e) for e in args.levels]
+    except InputError as exc:
+        raise InputError(f"--levels: {exc}") from None
+    if args.species:
+        species = [normalise_species(s) for s in args.species.split(",") if s.strip()]
+    else:
+        species = []
+        for el in _elements(args, comp):
+            z = atomic_number(el)
+            species += [spectroscopic_name(z, q) for q in range(min(z, 2) + 1)]
+    state = solve_equilibrium(comp, st.temperature, **{st.closure: st.value},
+                              **solver_options(args))
+    names, cols = structure_rows(st, state, species, levels)
+    meta = {"source": st.path, "rows": len(st), "mixture": comp.name, "closure": st.closure,
+            "truncation": state.summary(0)["truncation"] if state.shape else "",
+            "lowering": bool(args.lowering), "units": "K, cm-3, dyn cm-2, g cm-3"}
+    if args.output:
+        path = write_structure(args.output, names, cols, meta)
+        emit([{"file": str(path), "rows": len(st), "columns": len(names)}], args.format,
+             title="structure solved")
+        return 0
+    rows = [{n: float(cols[n][r]) for n in names} for r in range(len(st))]
+    emit(rows, args.format, title=f"LTE populations along {st.path}", meta=meta)
     return 0
 
 
@@ -110,10 +227,9 @@ def _truncation_used(lowering: bool) -> str:
     return truncation.used(truncation.resolve(None, lowering), lowering)
 
 
-def _emit_budget(state, elements, args) -> int:
+def _emit_budget(state, elements, args, meta) -> int:
     """Element budget: the share of each element's nuclei in atoms/ions and in each molecule."""
     if not hasattr(state, "element_budget"):
-        from sahaboltz.errors import InputError
         raise InputError("--budget needs molecules: add --molecules default (or all)")
     rows = []
     for el in elements:
@@ -122,7 +238,9 @@ def _emit_budget(state, elements, args) -> int:
             if where == "atoms" or value >= args.min_fraction:
                 rows.append({"element": el, "in": "atoms and ions" if where == "atoms" else where,
                              "fraction": value})
-    meta = state.summary()
     meta["molecules"] = len(state.molecule_names)
-    emit(rows, args.format, title=f"element budget at T = {args.temperature:g} K", meta=meta)
+    if args.format == "csv":
+        rows = [{**_conditions(meta), **r} for r in rows]
+    emit(rows, args.format, title=f"element budget at T = {meta['temperature_K']:g} K",
+         meta=meta)
     return 0

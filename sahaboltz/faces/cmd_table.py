@@ -1,4 +1,4 @@
-"""``sahaboltz table``: build, inspect and query population tables; manage the table cache.
+"""sahaboltz table: build, inspect and query population tables; manage the table cache.
 
     sahaboltz table template > grid.toml          # an annotated spec file to edit
     sahaboltz table build grid.toml               # build (or find) it in the cache
@@ -16,6 +16,7 @@ import argparse
 import csv
 from dataclasses import replace
 import importlib
+import os
 import sys
 import time
 from pathlib import Path
@@ -25,7 +26,7 @@ import numpy as np
 from sahaboltz.equilibrium.closures import CLOSURES
 from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
-from sahaboltz.faces.state_options import add_mixture_options, parse_mix
+from sahaboltz.faces.state_options import add_mixture_options, number_option, parse_mix
 from sahaboltz.tables.spec import composition_axis_from_text, normalize_composition
 
 
@@ -41,12 +42,13 @@ def register(subparsers) -> None:
     b = sub.add_parser("build", help="build a table from a spec file or options")
     b.add_argument("spec", nargs="?", help="spec file (.toml or .json); or give the options below")
     g = b.add_argument_group("grid (when no spec file is given)")
-    g.add_argument("--temperature", metavar="MIN:MAX:NUM|V1,V2,..",
-                   help="temperature axis [K] (default 2000:50000, 100 per decade)")
+    g.add_argument("-T", "--temperature", metavar="MIN:MAX:NUM|V1,V2,..",
+                   help="temperature axis [K, or with a unit] (default 2000:50000, 100 per "
+                        "decade)")
     g.add_argument("--temperature-scale", choices=("log", "linear"), default="log")
     g.add_argument("--pressure", metavar="MIN:MAX:NUM|V1,V2,..",
-                   help="pressure-like axis in cgs (default gas pressure 1e-2:1e8 dyn cm-2, "
-                        "10 per decade)")
+                   help="pressure-like axis in cgs or with a unit, e.g. '1e2:1e6:9' or "
+                        "'1e1:1e5:9 Pa' (default gas pressure 1e-2:1e8 dyn cm-2, 10 per decade)")
     g.add_argument("--pressure-quantity", default="gas_pressure",
                    choices=tuple(CLOSURES))
     g.add_argument("--pressure-scale", choices=("log", "linear"), default="log")
@@ -66,13 +68,15 @@ def register(subparsers) -> None:
                         "metallicity=-2:0.5:6 (also with a spec file without one)")
     b.add_argument("-o", "--output", help="write the table here instead of the cache")
     b.add_argument("--rebuild", action="store_true", help="rebuild even if cached")
-    b.add_argument("--workers", type=int, help="worker processes (default: all cores)")
+    b.add_argument("--workers", type=number_option(integer=True, minimum=1),
+                   help="worker processes (default: all cores)")
     b.add_argument("--scheduler", metavar="ADDRESS",
                    help="run the blocks on a Dask cluster: its scheduler's tcp://HOST:PORT or "
                         "scheduler file (.json); needs sahaboltz[dask] (docs/scaling.md)")
     b.add_argument("--no-resume", action="store_true",
                    help="start afresh instead of going on from an interrupted build's record")
-    b.add_argument("--chunk-states", type=int, default=None, help="states per block")
+    b.add_argument("--chunk-states", type=number_option(integer=True, minimum=1), default=None,
+                   help="states per block")
     b.add_argument("--no-progress", action="store_true", help="no progress bar")
     b.add_argument("--compute", metavar="MODULE:FUNCTION",
                    help="advanced: your own compute(spec, T, P) -> dict of arrays instead of "
@@ -90,8 +94,8 @@ def register(subparsers) -> None:
     q.add_argument("table", help="table file, or a cache key (prefix)")
     q.add_argument("--at", action="append", default=[], metavar="T,P[,C]",
                    help="a point: temperature [K] and the table's pressure-like quantity in cgs, "
-                        "and the composition value for a table with a composition axis "
-                        "(repeatable)")
+                        "or with units ('5800 K,1e4 Pa'), and the composition value for a table "
+                        "with a composition axis (repeatable)")
     q.add_argument("--points", metavar="CSV",
                    help="CSV file with columns T,P (and C with a composition axis; header "
                         "optional)")
@@ -236,6 +240,9 @@ def _resolve(text: str) -> Path:
     p = Path(text)
     if p.exists():
         return p
+    if "/" in text or os.sep in text or p.suffix:
+        raise InputError(f"no table file {text} (and not a cache key: "
+                         "see 'sahaboltz table cache list')")
     return cache.find(text)
 
 
@@ -273,20 +280,28 @@ def _inspect(args) -> int:
     return 0
 
 
-def _points(args, ncol: int = 2) -> tuple[np.ndarray, ...]:
-    """The query points: ``ncol`` numbers each (T,P, or T,P,C with a composition axis)."""
+def _points(args, ncol: int = 2, pressure_unit: str = "dyn cm-2") -> tuple[np.ndarray, ...]:
+    """The query points: ``ncol`` values each (T,P, or T,P,C with a composition axis); T and P
+    may carry units."""
+    from sahaboltz.quantities import parse_quantity
+
     what = "T,P" if ncol == 2 else "T,P,C"
     pts: list[tuple[float, ...]] = []
     for item in args.at:
-        parts = item.replace(" ", "").split(",")
-        try:
-            if len(parts) != ncol:
-                raise ValueError
-            pts.append(tuple(float(x) for x in parts))
-        except ValueError:
+        parts = item.split(",")
+        if len(parts) != ncol:
             extra = " (the table has a composition axis)" if ncol == 3 else ""
-            raise InputError(f"--at: write {what} ({ncol} numbers{extra}), got {item!r}") \
-                from None
+            raise InputError(f"--at: write {what} ({ncol} values{extra}, T and P each with an "
+                             f"optional unit, e.g. 5800,1e5 or '5800 K,1e4 Pa'), got {item!r}")
+        point = [parse_quantity(parts[0], "K", "--at (temperature)"),
+                 parse_quantity(parts[1], pressure_unit, "--at (pressure)")]
+        if ncol == 3:
+            try:
+                point.append(float(parts[2]))
+            except ValueError:
+                raise InputError(f"--at: the composition value must be a number, got "
+                                 f"{parts[2]!r}") from None
+        pts.append(tuple(point))
     if args.points:
         try:
             with open(args.points, newline="") as fh:
@@ -316,7 +331,7 @@ def _query(args) -> int:
     names = [n.strip() for item in args.quantities for n in item.split(",") if n.strip()]
     if not names:
         names = [n for n in tab.quantities if n in SCALAR_OUTPUTS]
-    t, p, *c = _points(args, 2 if tab.composition_axis is None else 3)
+    t, p, *c = _points(args, 2 if tab.composition_axis is None else 3, tab.pressure_unit)
     vals = tab.interpolate(names, t, p, c[0] if c else None, method=args.method,
                            outside=args.outside)
     rows = []

@@ -30,7 +30,6 @@ import hashlib
 import json
 import multiprocessing
 import os
-import sys
 import time
 import uuid
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -40,9 +39,12 @@ from typing import Any, Iterator, Mapping
 
 import numpy as np
 
+from sahaboltz.errors import InputError, TableError
 from sahaboltz.tables.blocks import (Block, ComputeFn, block_spec, block_states,  # noqa: F401
                                      blocks, run_block)
 from sahaboltz.tables.hdf5 import MAX_CHUNK_ELEMENTS, TableWriter, block_shape
+from sahaboltz.tables.files import describe, ensure_directory
+from sahaboltz.tables.progress import Progress
 from sahaboltz.tables.spec import TableSpec
 
 #: default largest number of states per block
@@ -55,48 +57,33 @@ PROBE_STATES = 16
 
 
 def _worker_init() -> None:
-    """Let a worker die with the build: a killed parent must not leave workers behind."""
+    """Let a worker die with the build: a killed parent must not leave workers behind; and
+    leave Ctrl-C to the parent (which stops the workers), so that an interrupted build
+    prints one line instead of a traceback from every worker."""
+    import signal
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     try:  # Linux: prctl(PR_SET_PDEATHSIG, SIGKILL)
         import ctypes
-        import signal
         ctypes.CDLL("libc.so.6", use_errno=True).prctl(1, int(signal.SIGKILL))
     except (OSError, AttributeError):
         pass
+
+
+def _stop_workers(pool: ProcessPoolExecutor) -> None:
+    """End the workers of an interrupted build now (not after their running blocks)."""
+    procs = list(getattr(pool, "_processes", {}).values())  # the executor's own processes
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in procs:
+        if proc.is_alive():
+            proc.terminate()
+    for proc in procs:
+        proc.join(timeout=5)
 
 
 def default_compute() -> ComputeFn:
     """The compute function backed by the equilibrium solver."""
     from sahaboltz.tables.compute import solver_compute
     return solver_compute
-
-
-class Progress:
-    """A one-line progress bar on stderr (shown when stderr is a terminal, or when forced)."""
-
-    def __init__(self, total: int, enabled: bool | None = None, stream=None, label: str = "states"):
-        self.stream = stream or sys.stderr
-        self.enabled = self.stream.isatty() if enabled is None else enabled
-        self.total, self.done, self.label = total, 0, label
-        self.start = time.perf_counter()
-        self._last = 0.0
-
-    def update(self, n: int) -> None:
-        self.done += n
-        now = time.perf_counter()
-        if self.enabled and (now - self._last > 0.2 or self.done >= self.total):
-            self._last = now
-            frac = self.done / self.total if self.total else 1.0
-            el = now - self.start
-            eta = el / frac - el if frac > 0 else float("nan")
-            bar = "#" * int(30 * frac)
-            self.stream.write(f"\r[{bar:<30}] {100 * frac:5.1f}% {self.done}/{self.total} "
-                              f"{self.label}  {el:6.1f} s, eta {eta:5.1f} s")
-            self.stream.flush()
-
-    def close(self) -> None:
-        if self.enabled:
-            self.stream.write("\n")
-            self.stream.flush()
 
 
 def _pool(workers: int) -> ProcessPoolExecutor:
@@ -112,7 +99,8 @@ def _results(compute: ComputeFn, spec: TableSpec, todo: list[Block], workers: in
         for b in todo:
             yield run_block(compute, spec, b, chunk_shape)
         return
-    with _pool(workers) as pool:
+    pool = _pool(workers)
+    with pool:
         pending: set = set()
         queue = iter(todo)
         try:
@@ -127,6 +115,9 @@ def _results(compute: ComputeFn, spec: TableSpec, todo: list[Block], workers: in
                 finished, pending = wait(pending, return_when=FIRST_COMPLETED)
                 for fut in finished:
                     yield fut.result()
+        except BaseException:  # Ctrl-C, a failed block, a closed generator: stop at once
+            _stop_workers(pool)
+            raise
         finally:
             for fut in pending:
                 fut.cancel()
@@ -239,7 +230,8 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
         machine.  A probe of a few states measures the output size per state; blocks are made
         small enough.
     progress : bool, optional
-        Show a progress bar on stderr; default: when stderr is a terminal.
+        True: a tqdm progress bar; False: none; None (default): a bar in a terminal or a
+        notebook, else a log line on stderr every 10 s (:mod:`sahaboltz.tables.progress`).
     provenance : mapping, optional
         Extra root attributes (cache key, level-data digest, solver version ...).
     client : distributed.Client, optional
@@ -282,7 +274,10 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
 def _build(spec, path, compute, runner, chunk_states, memory_mb, progress, provenance,
            resume, stats) -> Path:
     identity = build_identity(spec, provenance, compute)
-    path.parent.mkdir(parents=True, exist_ok=True)
+    if path.is_dir():
+        raise InputError(f"{path} is a directory: give the table's file name (e.g. "
+                         f"{path / 'table.h5'})")
+    ensure_directory(path.parent, "the directory of the table")
     tmp, fd = _claim(path, resume)
     writer = None
     bar = None
@@ -302,9 +297,13 @@ def _build(spec, path, compute, runner, chunk_states, memory_mb, progress, prove
             per_block = _block_states(compute, spec, runner, chunk_states, memory_mb)
             todo_all = blocks(spec.shape, per_block)
             record = np.zeros(len(todo_all), np.int64)
-            writer = TableWriter(tmp, spec, provenance, block_shape(todo_all[0]),
-                                 identity=identity, block_states=per_block,
-                                 n_blocks=len(todo_all))
+            try:
+                writer = TableWriter(tmp, spec, provenance, block_shape(todo_all[0]),
+                                     identity=identity, block_states=per_block,
+                                     n_blocks=len(todo_all))
+            except OSError as exc:
+                raise TableError(f"cannot write the table {path}: "
+                                 f"{describe(exc) if exc.errno else exc}") from None
         index = {b: k for k, b in enumerate(todo_all)}
         done = record > 0
         todo = [b for b, d in zip(todo_all, done) if not d]

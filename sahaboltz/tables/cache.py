@@ -37,6 +37,7 @@ from typing import Any, Iterator
 from sahaboltz._version import __version__
 from sahaboltz.equilibrium import SOLVER_VERSION
 from sahaboltz.errors import InputError, TableError
+from sahaboltz.tables.files import describe, ensure_directory
 from sahaboltz.tables.layout import FORMAT_VERSION
 from sahaboltz.tables.spec import TableSpec
 
@@ -44,6 +45,8 @@ from sahaboltz.tables.spec import TableSpec
 # since its digest was compared needs neither (the command line answers sooner)
 
 CACHE_ENV = "SAHABOLTZ_CACHE_DIR"
+#: how to choose another cache directory, for error messages
+CACHE_ADVICE = f"set ${CACHE_ENV} to a directory you can write (or build with -o FILE)"
 
 
 def _is_default(compute) -> bool:
@@ -76,7 +79,7 @@ def cache_dir(create: bool = True) -> Path:
         base = os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache"
         d = Path(base) / "sahaboltz" / "tables"
     if create:
-        d.mkdir(parents=True, exist_ok=True)
+        ensure_directory(d, "the table cache directory", CACHE_ADVICE)
     return d
 
 
@@ -154,7 +157,12 @@ def table_key(spec: TableSpec, compute=None) -> str:
 def key_lock(directory: Path, key: str, blocking: bool = True) -> Iterator[bool]:
     """Hold the exclusive lock of ``key``; yields False if ``blocking=False`` and it is taken."""
     lock = directory / f"{key}.lock"
-    with open(lock, "a+") as fh:
+    try:
+        fh = open(lock, "a+")
+    except OSError as exc:
+        raise TableError(f"cannot write in the table cache directory {directory}: "
+                         f"{describe(exc)}; {CACHE_ADVICE}") from None
+    with fh:
         try:
             fcntl.flock(fh, fcntl.LOCK_EX | (0 if blocking else fcntl.LOCK_NB))
         except BlockingIOError:
@@ -267,8 +275,8 @@ def obtain_table(spec: TableSpec, *, output: str | Path | None = None,
         from sahaboltz.tables.build import build_table
         path = build_table(spec, output, compute=compute, provenance=prov, **build_options)
         return TableResult(Path(path), key, "built", _failed_states(path))
-    d = Path(directory) if directory is not None else cache_dir()
-    d.mkdir(parents=True, exist_ok=True)
+    d = (ensure_directory(directory, "the table directory") if directory is not None
+         else cache_dir())
     final = d / f"{key}.h5"
     if not rebuild and final.exists():
         with contextlib.suppress(TableError, OSError):
@@ -372,7 +380,8 @@ def entries(directory: str | Path | None = None) -> list[dict[str, Any]]:
 def find(key_prefix: str, directory: str | Path | None = None) -> Path:
     """The cached table whose key starts with ``key_prefix``."""
     d = Path(directory) if directory is not None else cache_dir()
-    hits = sorted(d.glob(f"{key_prefix}*.h5")) if key_prefix else []
+    plain = key_prefix and all(c in "0123456789abcdef" for c in key_prefix.lower())
+    hits = sorted(d.glob(f"{key_prefix.lower()}*.h5")) if plain else []
     if not hits:
         raise InputError(f"no cached table with key starting {key_prefix!r}; "
                          f"see 'sahaboltz table cache list'")

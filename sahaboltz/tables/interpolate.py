@@ -144,6 +144,23 @@ class PopulationTable:
         except Exception:  # noqa: BLE001 - interpreter shutdown
             pass
 
+    def _repr_html_(self) -> str:
+        from sahaboltz._html import html_table
+
+        t, p = self.temperature, self.pressure
+        rows = [("file", str(self.path)),
+                ("title", str(self.attrs.get("title", ""))),
+                ("grid", f"{t.size} x {p.size}"),
+                ("temperature", f"{t[0]:.4g} .. {t[-1]:.4g} K"),
+                (self.pressure_quantity, f"{p[0]:.4g} .. {p[-1]:.4g} {self.pressure_unit}"),
+                ("composition", str(self.attrs.get("composition", ""))),
+                ("physics", str(self.attrs.get("physics", ""))),
+                ("variables", ", ".join(self.variables)),
+                ("quantities", f"{len(self.quantities)} (e.g. "
+                               f"{', '.join(self.quantities[:4])})")]
+        return html_table("PopulationTable", rows,
+                          "table.interpolate(name, T, P); table.to_xarray()")
+
     def __repr__(self) -> str:
         lead = "" if self.composition is None else f"{len(self.composition)} x "
         return (f"PopulationTable({str(self.path)!r}: {lead}{len(self.temperature)} x "
@@ -251,6 +268,19 @@ class PopulationTable:
                         (g.shape[1] - widths[0] + 1, g.shape[2] - widths[1] + 1), bool)
                      for m in maps])
         return np.ascontiguousarray(g).ravel(), logged, wide.get(widths)
+
+    def quantity(self, name: str, temperature, pressure, composition=None, **options):
+        """:meth:`interpolate` one quantity and return it as an astropy Quantity in the unit
+        the table stores it in (``units`` attribute; "1" is dimensionless), e.g.
+        ``table.quantity("electron_pressure", 5800 * u.K, 1e4 * u.Pa).to(u.Pa)``."""
+        import astropy.units as u
+
+        if not isinstance(name, str):
+            raise InputError(f"quantity: give one name, got {name!r}")
+        value = self.interpolate(name, temperature, pressure, composition, **options)
+        unit = self.units(name)
+        return np.asarray(value) * (u.dimensionless_unscaled if unit in ("", "1")
+                                    else u.Unit(unit))
 
     def interpolate(self, names: str | Sequence[str], temperature, pressure, composition=None,
                     *, method: str = "quintic", outside: str = "raise"):

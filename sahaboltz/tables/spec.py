@@ -20,7 +20,7 @@ import numpy as np
 
 from sahaboltz.data.elements import SYMBOLS, atomic_number, parse_species, spectroscopic_name
 from sahaboltz.equilibrium.closures import CLOSURES
-from sahaboltz.errors import InputError
+from sahaboltz.errors import InputError, SahaboltzError
 from sahaboltz.kernels import truncation as _truncation
 
 if sys.version_info >= (3, 11):
@@ -113,6 +113,56 @@ partition_functions = []    # e.g. ["Fe I", "Fe II"]
 """.format(closures=" | ".join(CLOSURES), truncations=" | ".join(_truncation.names()))
 
 
+# -- checked reading of a spec's values (a spec file can hold anything) --------------------
+def _table(value: Any, where: str) -> Mapping[str, Any]:
+    """A table (mapping) of a spec, or an InputError naming where it belongs."""
+    if not isinstance(value, Mapping):
+        raise InputError(f"{where} must be a table of keys (e.g. [{where}] in TOML), "
+                         f"got {_shown(value)}")
+    return value
+
+
+def _number(value: Any, where: str) -> float:
+    """A finite number of a spec (not a string, a list or a boolean)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+        raise InputError(f"{where} must be a number, got {_shown(value)}")
+    v = float(value)
+    if not math.isfinite(v):
+        raise InputError(f"{where} must be finite, got {value!r}")
+    return v
+
+
+def _integer(value: Any, where: str) -> int:
+    """A whole number of a spec (2 or 2.0; not 2.5, "ten" or true)."""
+    v = _number(value, where)
+    if v != int(v):
+        raise InputError(f"{where} must be a whole number, got {value!r}")
+    return int(v)
+
+
+def _boolean(value: Any, where: str) -> bool:
+    """true or false (a string such as "no" would otherwise read as True)."""
+    if not isinstance(value, (bool, np.bool_)):
+        raise InputError(f"{where} must be true or false, got {_shown(value)}")
+    return bool(value)
+
+
+def _strings(value: Any, where: str) -> list[str]:
+    """A list of strings of a spec (a single string is a one-item list)."""
+    if isinstance(value, str):
+        return [value]
+    if not isinstance(value, (list, tuple)) or not all(isinstance(x, str) for x in value):
+        raise InputError(f"{where} must be a list of strings, got {_shown(value)}")
+    return list(value)
+
+
+def _shown(value: Any) -> str:
+    kind = {str: "text", list: "a list", tuple: "a list", dict: "a table", bool: "a boolean",
+            int: "a number", float: "a number"}.get(type(value), type(value).__name__)
+    text = repr(value)
+    return f"{kind} {text if len(text) <= 40 else text[:37] + '...'}"
+
+
 @dataclass(frozen=True)
 class Axis:
     """One grid axis: a name, its cgs unit and strictly increasing positive values."""
@@ -142,28 +192,35 @@ class Axis:
     @classmethod
     def from_mapping(cls, name: str, unit: str, m: Mapping[str, Any]) -> "Axis":
         """Build an axis from ``{scale, min, max, num | per_decade, values, unit}``."""
+        m = _table(m, name)
         known = {"scale", "min", "max", "num", "per_decade", "values", "unit", "quantity"}
         extra = set(m) - known
         if extra:
             raise InputError(f"{name} axis: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
         scale = m.get("scale", "values" if "values" in m else "log")
-        if scale not in AXIS_SCALES:
+        if not isinstance(scale, str) or scale not in AXIS_SCALES:
             raise InputError(f"{name} axis: scale must be one of {AXIS_SCALES}, got {scale!r}")
         if scale == "values":
             if "values" not in m:
                 raise InputError(f"{name} axis: scale 'values' needs a 'values' list")
-            vals = np.asarray(m["values"], dtype=float)
+            raw = m["values"]
+            if not isinstance(raw, (list, tuple)):
+                raise InputError(f"{name}.values must be a list of numbers, got {_shown(raw)}")
+            vals = np.array([_number(v, f"{name}.values[{k}]") for k, v in enumerate(raw)])
         else:
             for k in ("min", "max"):
                 if k not in m:
                     raise InputError(f"{name} axis: scale {scale!r} needs 'min' and 'max'")
-            lo, hi = float(m["min"]), float(m["max"])
+            lo, hi = _number(m["min"], f"{name}.min"), _number(m["max"], f"{name}.max")
             if not (0 < lo < hi and math.isfinite(hi)):
                 raise InputError(f"{name} axis: need 0 < min < max, got min={lo}, max={hi}")
             if "num" in m:
-                num = int(m["num"])
+                num = _integer(m["num"], f"{name}.num")
             elif "per_decade" in m and scale == "log":
-                num = int(math.ceil(float(m["per_decade"]) * math.log10(hi / lo) - 1e-9)) + 1
+                per = _number(m["per_decade"], f"{name}.per_decade")
+                if not per > 0:
+                    raise InputError(f"{name}.per_decade must be positive, got {per:g}")
+                num = int(math.ceil(per * math.log10(hi / lo) - 1e-9)) + 1
             else:
                 raise InputError(f"{name} axis: give 'num' (or 'per_decade' for a log axis)")
             if num < 2:
@@ -171,12 +228,15 @@ class Axis:
             vals = (np.geomspace(lo, hi, num) if scale == "log" else np.linspace(lo, hi, num))
             vals[0], vals[-1] = lo, hi  # exact end points
         in_unit = m.get("unit", unit)
+        if not isinstance(in_unit, str):
+            raise InputError(f"{name}.unit must be text such as 'K' or 'Pa', got "
+                             f"{_shown(in_unit)}")
         if in_unit != unit:  # astropy only when converting: it takes ~0.5 s to import
-            import astropy.units as u
+            from sahaboltz.quantities import convert, unit_of
             try:
-                vals = (vals * u.Unit(in_unit)).to_value(unit)
-            except (ValueError, u.UnitConversionError) as exc:
-                raise InputError(f"{name} axis: cannot use unit {in_unit!r} ({exc})") from None
+                vals = convert(vals, unit_of(in_unit, unit, f"{name}.unit"), unit)
+            except InputError as exc:
+                raise InputError(f"{name} axis: {exc}") from None
         return cls(name, unit, tuple(float(x) for x in vals), scale)
 
 
@@ -410,11 +470,13 @@ class Outputs:
 
     @classmethod
     def from_mapping(cls, m: Mapping[str, Any]) -> "Outputs":
+        m = _table(m, "outputs")
         known = {"quantities", "stage_fractions", "levels", "partition_functions"}
         extra = set(m) - known
         if extra:
             raise InputError(f"outputs: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
-        q = tuple(m.get("quantities", SCALAR_OUTPUTS))
+        q = tuple(_strings(m["quantities"], "outputs.quantities") if "quantities" in m
+                  else SCALAR_OUTPUTS)
         bad = [x for x in q if x not in SCALAR_OUTPUTS]
         if bad:
             raise InputError(f"outputs.quantities: unknown {bad}; choose from {list(SCALAR_OUTPUTS)}")
@@ -423,9 +485,10 @@ class Outputs:
             if sf != "all":
                 sf = tuple(s.strip() for s in sf.split(",") if s.strip())
         if not isinstance(sf, str):
-            sf = tuple(SYMBOLS[atomic_number(s)] for s in sf)
-        levels = tuple(_parse_levels(e) for e in m.get("levels", ()))
-        pf = tuple(normalise_species(s) for s in m.get("partition_functions", ()))
+            sf = tuple(SYMBOLS[atomic_number(s)] for s in _strings(sf, "outputs.stage_fractions"))
+        levels = tuple(_parse_levels(e) for e in _strings(m.get("levels", []), "outputs.levels"))
+        pf = tuple(normalise_species(s) for s in _strings(m.get("partition_functions", []),
+                                                          "outputs.partition_functions"))
         return cls(tuple(dict.fromkeys(q)), sf, levels, tuple(dict.fromkeys(pf)))
 
     def to_mapping(self) -> dict:
@@ -505,15 +568,16 @@ class TableSpec:
     @classmethod
     def from_mapping(cls, m: Mapping[str, Any]) -> "TableSpec":
         """Build from the nested mapping of a TOML/JSON spec file (see :data:`EXAMPLE_TOML`)."""
+        m = _table(m, "table spec")
         known = {"temperature", "pressure", "composition", "physics", "outputs"}
         extra = set(m) - known
         if extra:
             raise InputError(f"table spec: unknown section(s) {sorted(extra)}; known: {sorted(known)}")
-        tm = dict(m.get("temperature", DEFAULT_TEMPERATURE))
+        tm = dict(_table(m.get("temperature", DEFAULT_TEMPERATURE), "temperature"))
         temperature = Axis.from_mapping("temperature", "K", tm)
-        pm = dict(m.get("pressure", DEFAULT_PRESSURE))
+        pm = dict(_table(m.get("pressure", DEFAULT_PRESSURE), "pressure"))
         quantity = pm.get("quantity", "gas_pressure")
-        if quantity not in PRESSURE_QUANTITIES:
+        if not isinstance(quantity, str) or quantity not in PRESSURE_QUANTITIES:
             raise InputError(f"pressure.quantity must be one of {list(PRESSURE_QUANTITIES)}, "
                              f"got {quantity!r}")
         pressure = Axis.from_mapping(quantity, PRESSURE_QUANTITIES[quantity], pm)
@@ -541,7 +605,10 @@ class TableSpec:
         except (ValueError, tomllib.TOMLDecodeError) as exc:
             raise InputError(f"table spec {path} is not valid "
                              f"{'JSON' if path.suffix.lower() == '.json' else 'TOML'}: {exc}") from None
-        return cls.from_mapping(m)
+        try:
+            return cls.from_mapping(m)
+        except SahaboltzError as exc:
+            raise type(exc)(f"table spec {path}: {exc}") from None
 
     def with_outputs(self, **kw) -> "TableSpec":
         return replace(self, outputs=replace(self.outputs, **kw))
@@ -595,9 +662,9 @@ def normalize_composition(c: Any) -> dict:
         if "name" in c:
             raise InputError("composition: give either a name or abundances, not both")
         ab = {}
-        for sym, val in dict(c["abundances"]).items():
-            val = float(val)
-            if not (val > 0 and math.isfinite(val)):
+        for sym, val in _table(c["abundances"], "composition.abundances").items():
+            val = _number(val, f"composition.abundances.{sym}")
+            if not val > 0:
                 raise InputError(f"composition: abundance of {sym} must be positive, got {val}")
             ab[SYMBOLS[atomic_number(sym)]] = val
         if not ab:
@@ -605,7 +672,10 @@ def normalize_composition(c: Any) -> dict:
         out: dict[str, Any] = {"abundances": dict(sorted(ab.items(),
                                                          key=lambda kv: atomic_number(kv[0])))}
     else:
-        out = {"name": str(c.get("name", "solar"))}
+        name = c.get("name", "solar")
+        if not isinstance(name, str):
+            raise InputError(f"composition.name must be text such as 'solar', got {_shown(name)}")
+        out = {"name": name}
     for k in ("metallicity", "alpha_enhancement"):  # [M/H], [alpha/Fe] in dex
         if k in c and _number(c[k], f"composition.{k}") != 0.0:
             out[k] = float(c[k])
@@ -634,33 +704,29 @@ def normalize_composition(c: Any) -> dict:
     return out
 
 
-def _number(value: Any, what: str) -> float:
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise InputError(f"{what} must be a number, got {value!r}") from None
-    if not math.isfinite(v):
-        raise InputError(f"{what} must be finite, got {value!r}")
-    return v
-
-
 def _physics(p: Mapping[str, Any]) -> dict:
+    p = _table(p, "physics")
     known = {"truncation", "lowering", "molecules", "condensates", "completion", "h_minus"}
     extra = set(p) - known
     if extra:
         raise InputError(f"physics: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
-    lowering = bool(p.get("lowering", False))
+    lowering = _boolean(p.get("lowering", False), "physics.lowering")
+    truncation = p.get("truncation") or None
+    if truncation is not None and not isinstance(truncation, str):
+        raise InputError(f"physics.truncation must be text such as 'occupation', got "
+                         f"{_shown(truncation)}")
     try:  # the solver's rule, from the registry: the scheme it would use for these options
-        trunc = _truncation.resolve(p.get("truncation") or None, lowering).key
+        trunc = _truncation.resolve(truncation, lowering).key
     except InputError as exc:
         raise InputError(f"physics.truncation: {exc}") from None
     molecules = _molecule_set(p.get("molecules", False))
-    condensates = bool(p.get("condensates", False))
+    condensates = _boolean(p.get("condensates", False), "physics.condensates")
     if condensates and molecules == "none":
         raise InputError("physics.condensates needs molecules (e.g. molecules = \"default\")")
     return {"truncation": trunc, "lowering": lowering, "molecules": molecules,
-            "condensates": condensates, "completion": bool(p.get("completion", False)),
-            "h_minus": bool(p.get("h_minus", True))}
+            "condensates": condensates,
+            "completion": _boolean(p.get("completion", False), "physics.completion"),
+            "h_minus": _boolean(p.get("h_minus", True), "physics.h_minus")}
 
 
 def _molecule_set(value: Any) -> str:
@@ -669,6 +735,9 @@ def _molecule_set(value: Any) -> str:
     mean "default" / "none")."""
     if value is True or value is False:
         return "default" if value else "none"
+    if not isinstance(value, str):
+        raise InputError(f"physics.molecules must be true, false or a name such as 'default', "
+                         f"got {_shown(value)}")
     if value in ("none", "default"):
         return value
     # the other names only when a spec gives one (a cache hit needs no molecule code)
@@ -679,22 +748,23 @@ def _molecule_set(value: Any) -> str:
                      f"{', '.join(repr(m) for m in MOLECULE_SETS)}, got {value!r}")
 
 
-def axis_from_text(name: str, unit: str, text: str, scale: str = "log") -> Axis:
-    """Parse a command-line axis: ``MIN:MAX:NUM`` or a comma-separated list of values."""
-    if ":" in text:
-        parts = text.split(":")
-        if len(parts) != 3:
-            raise InputError(f"{name}: write MIN:MAX:NUM, e.g. 3000:30000:100, got {text!r}")
-        try:
-            lo, hi, num = float(parts[0]), float(parts[1]), int(parts[2])
-        except ValueError:
-            raise InputError(f"{name}: MIN:MAX:NUM must be numbers, got {text!r}") from None
+def axis_from_text(name: str, unit: str, text: str, scale: str = "log",
+                   option: str | None = None) -> Axis:
+    """Parse a command-line axis: ``MIN:MAX:NUM`` or a comma-separated list of values, each
+    optionally with a unit ("1e2:1e6:9 Pa", "5726.85 degC,8000 K"); ``option`` (e.g.
+    ``--pressure``) names it in errors."""
+    from sahaboltz.quantities import parse_range_text, parse_values_text
+
+    where = option or name
+    rng = parse_range_text(text, where, unit)
+    if rng is not None:
+        lo, hi, num = rng
         return Axis.from_mapping(name, unit, {"scale": scale, "min": lo, "max": hi, "num": num})
+    vals = parse_values_text(text, where, unit=unit)
     try:
-        vals = [float(x) for x in text.split(",") if x.strip()]
-    except ValueError:
-        raise InputError(f"{name}: give MIN:MAX:NUM or comma-separated numbers, got {text!r}") from None
-    return Axis.from_mapping(name, unit, {"scale": "values", "values": vals})
+        return Axis.from_mapping(name, unit, {"scale": "values", "values": list(vals)})
+    except InputError as exc:
+        raise InputError(f"{where}: {exc}") from None
 
 
 def spec_from_options(temperature: str | None = None, pressure: str | None = None, *,
@@ -712,10 +782,11 @@ def spec_from_options(temperature: str | None = None, pressure: str | None = Non
     if pressure_quantity not in PRESSURE_QUANTITIES:
         raise InputError(f"pressure quantity must be one of {list(PRESSURE_QUANTITIES)}")
     punit = PRESSURE_QUANTITIES[pressure_quantity]
-    t_axis = (axis_from_text("temperature", "K", temperature, temperature_scale) if temperature
+    t_axis = (axis_from_text("temperature", "K", temperature, temperature_scale,
+                             "-T/--temperature") if temperature
               else Axis.from_mapping("temperature", "K", DEFAULT_TEMPERATURE))
     if pressure:
-        p_axis = axis_from_text(pressure_quantity, punit, pressure, pressure_scale)
+        p_axis = axis_from_text(pressure_quantity, punit, pressure, pressure_scale, "--pressure")
     else:
         d = {k: v for k, v in DEFAULT_PRESSURE.items() if k != "quantity"}
         if pressure_quantity != "gas_pressure":
