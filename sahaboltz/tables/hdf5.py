@@ -182,7 +182,9 @@ class TableWriter:
                               spec.pressure.name.replace("_", " "))
         # the build's record: which blocks are stored (removed by finish)
         f.attrs["build_identity"] = identity
+        # contiguous (no chunk index to update): a checkpoint rewrites it in place
         prog = f.create_dataset(PROGRESS, data=np.zeros(n_blocks, np.int64))
+        self._record = np.zeros(n_blocks, np.int64)
         prog.attrs["block_states"] = np.int64(block_states)
         prog.attrs["chunk_shape"] = json.dumps(list(self.chunks))
         self.seconds["create"] += time.perf_counter() - t0
@@ -228,7 +230,8 @@ class TableWriter:
                 if var is not None:
                     self._rows[name] = d.chunks[0]
                     self._labels[var.dim] = [_decode_str(x) for x in f[var.dim][()]]
-            return self, int(prog.attrs["block_states"]), prog[()].astype(np.int64)
+            self._record = prog[()].astype(np.int64)
+            return self, int(prog.attrs["block_states"]), self._record.copy()
         except (KeyError, OSError, ValueError, RuntimeError):
             f.close()
             return None
@@ -317,17 +320,23 @@ class TableWriter:
 
     def mark_done(self, index: int, elapsed: float, failed: int = 0, every: float = 0.0) -> None:
         """Record block ``index`` (of the build's block list) as stored, with ``failed``
-        states that could not be solved.  The record reaches the file at the next flush
-        (now, or at most ``every`` seconds later), together with everything written before
-        it; a block stored but not yet recorded is computed again by a resumed build."""
-        self.file[PROGRESS][index] = 1 + int(failed)
+        states that could not be solved.  The record reaches the file at the next checkpoint
+        (now, or at most ``every`` seconds later), after everything written before it; a
+        block stored but not yet recorded is computed again by a resumed build."""
+        self._record[index] = 1 + int(failed)
         if time.monotonic() - self._flushed >= every:
             self.checkpoint(elapsed)
 
     def checkpoint(self, elapsed: float) -> None:
-        """Flush what is written, with the build's seconds so far."""
-        self.file.attrs["build_elapsed"] = float(elapsed)
-        self.file.flush()
+        """Flush what is written, with the build's seconds so far, and only then the record
+        of the blocks stored: HDF5 may write its caches to the file in any order, so a record
+        written with the data could reach the file before the chunks it vouches for (a build
+        killed then would resume with those chunks missing)."""
+        f = self.file
+        f.attrs["build_elapsed"] = float(elapsed)
+        f.flush()
+        f[PROGRESS][...] = self._record
+        f.flush()
         self._flushed = time.monotonic()
 
     def elapsed_before(self) -> float:
