@@ -143,6 +143,9 @@ def parse_quantity(text: Any, unit: str, name: str, *, default_unit: str | None 
         value = float(text)
         given_unit = default_unit
     else:
+        if "," in str(text) or ":" in str(text):
+            raise InputError(f"{_prefix(name)}give one value here (e.g. '6000' or '6000 K'), "
+                             f"got {text!r}")
         number, given_unit = split_number_unit(str(text))
         try:
             value = float(number)

@@ -26,6 +26,12 @@ STATE = ["state", "-T", "5000", "--gas-pressure", "1e5"]
 #: (id, argv, a fragment the message must contain); {d} is a directory of the test's own
 CLI_CASES = [
     ("T not a number", ["state", "-T", "hot", "--gas-pressure", "1e5"], "-T/--temperature"),
+    ("T list for one state", ["state", "-T", "3000,6000", "--gas-pressure", "1e5"],
+     "-T/--temperature: give one value here"),
+    ("half-ionization T one value", ["half-ionization", "H", "--electron-pressure", "200",
+                                     "-T", "3000"], "-T/--temperature: give the range searched"),
+    ("half-ionization T reversed", ["half-ionization", "H", "--electron-pressure", "200",
+                                    "-T", "5e4:3000"], "from a lower to a higher"),
     ("T zero", ["state", "-T", "0", "--gas-pressure", "1e5"], "-T/--temperature must be pos"),
     ("T below absolute zero", ["state", "-T", "-300 degC", "--gas-pressure", "1e5"],
      "-T/--temperature must be positive"),
@@ -216,6 +222,15 @@ def test_cli_bad_input(case, inputs, capsys, monkeypatch):
     assert err.count("\n") <= 30                     # a message, not a dump
     last = err.strip().splitlines()[-1]
     assert last.startswith(("sahaboltz: error:", "sahaboltz ")), last
+
+
+def test_cli_failed_state_in_cli_words(capsys):
+    # the Python remedy (errors='mask') has no command-line form and is not offered there
+    code, err = _cli(["state", "-T", "3000", "--electron-pressure", "1e12", "--mix",
+                      "H:0.9,He:0.1"], capsys)
+    assert code == 2 and "errors=" not in err and "electron_pressure" not in err
+    assert err.startswith("sahaboltz: error: ") and "Traceback" not in err
+    assert "--electron-pressure = 1e+12 (unreachable" in err
 
 
 def test_cli_cache_directory_under_a_file(inputs, capsys, monkeypatch):

@@ -122,7 +122,14 @@ def cli_wording(message: str) -> str:
     """A message of the Python API in the command line's words (its options)."""
     for pattern, repl in _PYTHON_TO_CLI:
         message = pattern.sub(repl, message)
-    return message
+    # closure keywords (gas_pressure = ..., "gas_pressure: ...") as their options; the
+    # registry is read only here, on an error, to keep the start-up light
+    from sahaboltz.equilibrium.closures import CLOSURES
+    for c in CLOSURES.values():
+        message = re.sub(rf"\b{c.name}(?= = |: )", c.flag, message)
+    # the Python remedy for failed states has no command-line form
+    return message.replace("\n(errors='mask' returns the other states, with a status per state)",
+                           "")
 
 
 def _os_message(exc: OSError) -> str:

@@ -76,10 +76,12 @@ def register(sub) -> None:
     p.add_argument("--mix", default=None, metavar="MIX",
                    help="'solar' or amounts 'H:0.9,He:0.1' (default: the pure element)")
     p.add_argument("--by", choices=("number", "mass"), default="number")
-    p.add_argument("--tmin", type=quantity_option("K"), default=1e3, metavar="K",
-                   help="default 1000 K")
-    p.add_argument("--tmax", type=quantity_option("K"), default=1e6, metavar="K",
-                   help="default 1e6 K")
+    p.add_argument("-T", "--temperature", metavar="MIN:MAX",
+                   help="temperature range searched [K, or each with a unit] (default 1000:1e6)")
+    p.add_argument("--tmin", type=quantity_option("K"), default=None, metavar="K",
+                   help="the lower end of -T alone")
+    p.add_argument("--tmax", type=quantity_option("K"), default=None, metavar="K",
+                   help="the upper end of -T alone")
     p.add_argument("--lowering", action="store_true",
                    help="Debye-Hueckel lowering of the ionization energies (self-consistent)")
     p.add_argument("--no-h-minus", action="store_true")
@@ -201,10 +203,30 @@ def run_structure(args) -> int:
     return 0
 
 
+def _search_range(args) -> tuple[float, float]:
+    """(T_min, T_max) [K] of half-ionization: -T MIN:MAX, --tmin/--tmax, default 1e3 - 1e6."""
+    from sahaboltz.quantities import parse_quantity
+
+    t_min, t_max = 1e3, 1e6
+    if args.temperature is not None:
+        parts = str(args.temperature).split(":")
+        if len(parts) != 2:
+            raise InputError(f"-T/--temperature: give the range searched as MIN:MAX (e.g. "
+                             f"3000:50000 or '3000 K:50000 K'), got {args.temperature!r}")
+        t_min, t_max = (parse_quantity(x.strip(), "K", "-T/--temperature") for x in parts)
+    t_min = args.tmin if args.tmin is not None else t_min
+    t_max = args.tmax if args.tmax is not None else t_max
+    if not 0 < t_min < t_max:
+        raise InputError(f"-T/--temperature: the range searched must run from a lower to a "
+                         f"higher positive temperature, got {t_min:g} to {t_max:g} K")
+    return t_min, t_max
+
+
 def run_half(args) -> int:
     from sahaboltz.equilibrium import half_ionization_temperatures
 
     comp = parse_mix(args.mix, args.by) if args.mix else None
+    args.tmin, args.tmax = _search_range(args)
     res = half_ionization_temperatures(args.element, electron_pressure=args.electron_pressure,
                                        gas_pressure=args.gas_pressure, composition=comp,
                                        t_min=args.tmin, t_max=args.tmax, lowering=args.lowering,
