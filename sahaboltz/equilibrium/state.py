@@ -19,7 +19,7 @@ from sahaboltz.errors import InputError, NoDataError
 from sahaboltz.kernels import truncation as _truncation
 from sahaboltz.kernels.plasma import (_coupling, _debye_length, _degeneracy, _lowering_ev,
                                       _mcwhirter)
-from sahaboltz.kernels.saha import chain_fractions
+from sahaboltz.kernels.saha import _chain_fractions_inplace
 from sahaboltz.quantities import as_positive_array
 
 
@@ -183,7 +183,8 @@ class EquilibriumState:
             else:
                 lam = None if self._debye is None else self._debye.ravel()[ok]
                 tab = self.network.log_c(chain, t, np.exp(x), lam)
-            out[:, ok] = chain_fractions(tab - np.multiply.outer(chain.charges, x))
+            tab -= np.multiply.outer(chain.charges, x)     # tab is this call's own array
+            out[:, ok] = _chain_fractions_inplace(tab)
             self._cache[chain.k] = out.reshape((chain.n,) + self.shape)
         return self._cache[chain.k]
 

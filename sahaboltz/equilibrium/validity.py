@@ -83,10 +83,10 @@ def plain_excess(state) -> dict[str, int]:
     st_idx = np.concatenate(pairs_state)
     rows = np.concatenate(pairs_row)
     u_occ = occ.evaluate_pairs(t, ne, rows, want_temperature=False, states=st_idx)[0]
-    # the plain sums through the same (compiled) pair sums: at n_e = 1e-30 cm^-3 every
-    # weight is 1 to within 1e-40
-    u_plain = occ.evaluate_pairs(t, np.full(t.size, 1e-30), rows, want_temperature=False,
-                                 states=st_idx)[0]
+    # the plain sums: one table over the distinct temperatures (the state's own partition
+    # functions)
+    ut, tinv = np.unique(t[st_idx], return_inverse=True)
+    u_plain = net.model.evaluate(ut)[rows, tinv]
     flagged = u_plain > PLAIN_EXCESS * u_occ
     which = np.concatenate(names)[flagged]
     return {net.species_names[i]: int(n) for i, n in zip(*np.unique(which, return_counts=True))}

@@ -124,9 +124,16 @@ def chain_log_populations(log_phi: np.ndarray, log_ne: np.ndarray) -> np.ndarray
 
 def chain_fractions(log_rel: np.ndarray) -> np.ndarray:
     """Stage fractions from ln(n_r / n_0) (any reference stage): a log-sum-exp normalization."""
-    m = np.max(log_rel, axis=0, keepdims=True)
-    e = np.exp(log_rel - m)
-    return e / e.sum(axis=0, keepdims=True)
+    return _chain_fractions_inplace(np.array(log_rel, dtype=float))
+
+
+def _chain_fractions_inplace(a: np.ndarray) -> np.ndarray:
+    """:func:`chain_fractions` overwriting its float array argument (no temporaries of its
+    size: large grids of many stages are memory-bound)."""
+    a -= np.max(a, axis=0, keepdims=True)
+    np.exp(a, out=a)
+    a /= a.sum(axis=0, keepdims=True)
+    return a
 
 
 def saha_chain(element: Any, temperature: Any, electron_density: Any = None,
