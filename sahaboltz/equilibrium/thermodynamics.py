@@ -88,6 +88,8 @@ QUANTITIES = {
 # stages below e^-_THR of their element's largest stage are left out (they cannot change a
 # double-precision sum); the density-dependent U are bounded by their low-density limit
 _THR = 50.0
+# and a stage below e^-_THR_ALL of all nuclei too (rare elements)
+_THR_ALL = 46.0
 # (species x states) elements per chunk
 _CHUNK_ELEMENTS = 1 << 21
 
@@ -267,40 +269,48 @@ def _stage_energies(chain) -> np.ndarray:
     return cum - cum[i0]
 
 
-def _log_u_terms(net, chain, sig, t, ne, tinv, ut):
-    """(ln U, U_T, U_n, U_TT, U_Tn) of a chain's stages, (n, m) each, where ``sig``; the
-    density derivatives only with density-dependent weights."""
-    n, m = sig.shape
-    out = [np.zeros((n, m)) for _ in range(5)]
-    has = (chain.model_rows >= 0)[:, None] & sig
+def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut):
+    """(ln U, U_T, U_n, U_TT, U_Tn) of a chain's stages ``rows`` (W, m) where ``inside``;
+    the density derivatives only with density-dependent weights."""
+    w, m = rows.shape
+    out = [np.zeros((w, m)) for _ in range(5)]
+    mrow = chain.model_rows[rows]
+    has = (mrow >= 0) & inside
     if chain.model is not None and has.any():
         model = net.model
+        r, j = np.nonzero(has)
         if net.ideal:
-            # the partition functions depend on T alone: once per distinct T
-            nu = ut.size
-            any_t = np.zeros((n, nu), dtype=bool)
-            np.logical_or.at(any_t.T, tinv, has.T)
-            r, j = np.nonzero(any_t)
-            vals = model.pair_log_derivatives(ut[j], None, chain.model_offset
-                                              + chain.model_rows[r])
-            tab = [np.zeros((n, nu)) for _ in range(5)]
-            for a, v in zip(tab, vals):
-                a[r, j] = v
-            for a, v in zip(out, tab):
-                a[:] = v[:, tinv]
-                a[~has] = 0.0
+            # the partition functions depend on T alone: once per (stage, distinct T)
+            key, inv = np.unique(mrow[r, j] * ut.size + tinv[j], return_inverse=True)
+            vals = model.pair_log_derivatives(ut[key % ut.size], None,
+                                              chain.model_offset + key // ut.size)
+            for a, v in zip(out, vals):
+                a[r, j] = v[inv]
         else:
-            r, j = np.nonzero(has)
-            vals = model.pair_log_derivatives(t[j], ne[j],
-                                              chain.model_offset + chain.model_rows[r])
+            vals = model.pair_log_derivatives(t[j], ne[j], chain.model_offset + mrow[r, j])
             for a, v in zip(out, vals):
                 a[r, j] = v
     if chain.charges[0] < 0 and not net.ideal:
-        w = net.scheme.bound_state_weight_derivatives(float(chain.chi_ev[0]), t, ne)
-        if w is not None:
-            for a, v in zip(out, w):
-                a[0] = v
+        wts = net.scheme.bound_state_weight_derivatives(float(chain.chi_ev[0]), t, ne)
+        if wts is not None:
+            neg = (rows == 0) & inside
+            for a, v in zip(out, wts):
+                a[neg] = np.broadcast_to(v, (w, m))[neg]
     return out
+
+
+def _window(sig: np.ndarray, forced: list) -> np.ndarray:
+    """Rows (W, m) of the smallest common-width windows that hold every significant stage
+    (``sig``, (n, m)) and the ``forced`` ones."""
+    n = sig.shape[0]
+    lo = np.argmax(sig, axis=0)
+    hi = n - 1 - np.argmax(sig[::-1], axis=0)
+    if forced:
+        lo = np.minimum(lo, min(forced))
+        hi = np.maximum(hi, max(forced))
+    width = int((hi - lo).max()) + 1
+    s0 = np.minimum(lo, n - width)
+    return s0[None, :] + np.arange(width)[:, None]
 
 
 def _chunk(state, sel) -> dict:
@@ -316,6 +326,7 @@ def _chunk(state, sel) -> dict:
     beta = 1.0 / (K_B_EV * t)
     lq = _log_quantum_concentration(t)                 # ln (2 pi m_e k T / h^2)^{3/2}
     ln_qe = np.log(2.0) + lq
+    lam_ch = ln_qe - x
     weights = comp.atomic_weights()
     mol_pos = {} if system is None else {c.k: i for i, c in enumerate(system.mol_chains)}
     km = len(mol_pos)
@@ -333,66 +344,77 @@ def _chunk(state, sel) -> dict:
     elim = []                                           # eliminated chains' sums
     kept = {}                                           # position -> per-stage arrays
     s_corr = np.zeros(m)
-    sums = {"n": np.zeros(m), "sa_fix": np.zeros(m)}
     for c in net.chains:
-        n_st = c.n
-        q = c.charges[:, None]
         i0 = int(np.flatnonzero(c.charges == 0)[0])
-        lim = net.log_c(c, ut)[:, tinv]                 # low-density limit (exact if ideal)
-        a0 = lim - q * x[None, :]
-        sig = a0 >= a0.max(axis=0) - _THR
+        lim = net.log_c(c, ut)                          # low-density limit (exact if ideal)
+        a0 = lim[:, tinv] - np.multiply.outer(c.charges, x)
+        top = a0.max(axis=0)
+        # significant: within e^-_THR of the element's largest stage and (for rare elements)
+        # above e^-_THR_ALL of all nuclei
+        thr = max(2.0, min(_THR, _THR_ALL + np.log(c.fraction)))
+        sig = a0 >= top - thr
         p = mol_pos.get(c.k)
-        if p is not None:
-            sig[i0] = True
-            for row in comp_rows.get(p, ()):
-                sig[row] = True
-        lu, u_t, u_n, u_tt, u_tn = _log_u_terms(net, c, sig, t, ne, tinv, ut)
-        bare = net.bare_log_c(c, ut)[:, tinv]
-        ln_rel = np.where(sig, bare + lu - q * x[None, :], -np.inf)
+        forced = [] if p is None else sorted({i0} | comp_rows.get(p, set()))
+        rows = _window(sig, forced)
+        inside = np.take_along_axis(sig, rows, axis=0)
+        for row in forced:
+            inside |= rows == row
+        q = c.charges[rows]
+        lu, u_t, u_n, u_tt, u_tn = _log_u_terms(net, c, rows, inside, t, ne, tinv, ut)
+        if net.ideal:   # the limit tables are exact: C_q = bare + ln U_q - ln U_first
+            ln_rel = np.take_along_axis(a0, rows, axis=0)
+        else:
+            bare = net.bare_log_c(c, ut)
+            ln_rel = (np.take(bare.ravel(), rows * ut.size + tinv[None, :]) + lu
+                      - q * x[None, :])
+        ln_rel = np.where(inside, ln_rel, -np.inf)
         if p is None:
             top = ln_rel.max(axis=0)
             ln_n = ln_rel - (top + np.log(np.exp(ln_rel - top).sum(axis=0)))
             ln_n += np.log(nuc * c.fraction)[None, :]
         else:
-            ln_n = y[p][None, :] + ln_rel - ln_rel[i0][None, :]
+            at0 = np.take_along_axis(ln_rel, (i0 - rows[0])[None, :], axis=0)[0]
+            ln_n = y[p][None, :] + ln_rel - at0[None, :]
         n = np.exp(ln_n)
-        e_ev = _stage_energies(c)[:, None]
-        eb = e_ev * beta[None, :]
-        a = np.where(sig, 1.5 + u_t + eb, 0.0)
-        b = np.where(sig, u_tt - eb, 0.0)
+        eb = _stage_energies(c)[rows] * beta[None, :]
+        a = np.where(inside, 1.5 + u_t + eb, 0.0)
+        b = np.where(inside, u_tt - eb, 0.0)
         d = u_n
         cc = u_tn
         big_a = a + 1.5 * d
-        # element potential from the most populated stage: lambda_k = ln(n_r / Q_r) - q_r lambda_ch
-        r = np.argmax(ln_n, axis=0)
-        take = (lambda arr: np.take_along_axis(arr, r[None, :], axis=0)[0])
-        ln_q_r = (lq + 1.5 * np.log(weights[c.k] * AMU / M_E) + take(lu) - take(eb))
-        lam_ch = ln_qe - x
-        lam_k = take(ln_n) - ln_q_r - c.charges[r] * lam_ch
+        # element potential from the most populated stage: lambda_k = ln(n_r/Q_r) - q_r lambda_ch
+        r = np.argmax(ln_n, axis=0)[None, :]
+
+        def take(arr):
+            return np.take_along_axis(arr, r, axis=0)[0]
+
+        ln_q_r = lq + 1.5 * np.log(weights[c.k] * AMU / M_E) + take(lu) - take(eb)
+        lam_k = take(ln_n) - ln_q_r - take(q) * lam_ch
         s_corr += nuc * c.fraction * lam_k
-        st = {"n": n, "q": q, "a": a, "b": b, "d": d, "c": cc, "A": big_a, "lam": lam_k,
-              "Na": nuc * c.fraction}
-        mom = {
-            "S0": n.sum(axis=0), "Sq": (n * q).sum(axis=0), "Sqq": (n * q * q).sum(axis=0),
-            "SD": (n * d).sum(axis=0), "SqD": (n * q * d).sum(axis=0),
-            "SA": (n * big_a).sum(axis=0), "SqA": (n * q * big_a).sum(axis=0),
-            "Sa": (n * a).sum(axis=0), "SaA": (n * a * big_a).sum(axis=0),
-            "Saq": (n * a * (q - d)).sum(axis=0), "Sb": (n * b).sum(axis=0),
-            "Sc": (n * cc).sum(axis=0)}
-        st.update(mom)
+        nq = n * q
+        nd = n * d
+        na = n * a
+        st = {"rows": rows, "charges": c.charges, "q": q, "a": a, "b": b, "d": d, "c": cc, "lam": lam_k,
+              "Na": nuc * c.fraction,
+              "S0": n.sum(axis=0), "Sq": nq.sum(axis=0), "Sqq": (nq * q).sum(axis=0),
+              "SD": nd.sum(axis=0), "SqD": (nq * d).sum(axis=0),
+              "SA": (n * big_a).sum(axis=0), "SqA": (nq * big_a).sum(axis=0),
+              "Sa": na.sum(axis=0), "SaA": (na * big_a).sum(axis=0),
+              "Saq": (na * (q - d)).sum(axis=0), "Sb": (n * b).sum(axis=0),
+              "Sc": (n * cc).sum(axis=0)}
         if p is None:
-            s0 = mom["S0"]
-            mat[:, ch, ch] += (mom["Sqq"] - mom["SqD"]) - mom["Sq"] * (mom["Sq"] - mom["SD"]) / s0
-            rhs[:, ch, 0] -= mom["SqA"] - mom["Sq"] * mom["SA"] / s0
-            rhs[:, ch, 1] -= mom["Sq"] * st["Na"] / s0
+            s0 = st["S0"]
+            mat[:, ch, ch] += (st["Sqq"] - st["SqD"]) - st["Sq"] * (st["Sq"] - st["SD"]) / s0
+            rhs[:, ch, 0] -= st["SqA"] - st["Sq"] * st["SA"] / s0
+            rhs[:, ch, 1] -= st["Sq"] * st["Na"] / s0
             elim.append(st)
         else:
-            mat[:, p, p] += mom["S0"]
-            mat[:, p, ch] += mom["Sq"] - mom["SD"]
-            mat[:, ch, p] += mom["Sq"]
-            mat[:, ch, ch] += mom["Sqq"] - mom["SqD"]
-            rhs[:, p, 0] -= mom["SA"]
-            rhs[:, ch, 0] -= mom["SqA"]
+            mat[:, p, p] += st["S0"]
+            mat[:, p, ch] += st["Sq"] - st["SD"]
+            mat[:, ch, p] += st["Sq"]
+            mat[:, ch, ch] += st["Sqq"] - st["SqD"]
+            rhs[:, p, 0] -= st["SA"]
+            rhs[:, ch, 0] -= st["SqA"]
             rhs[:, p, 1] += st["Na"]
             kept[p] = st
     # molecules
@@ -411,11 +433,12 @@ def _chunk(state, sel) -> dict:
             qsum = 0.0
             for p, row in comps:
                 st = kept[p]
-                a_m[i] += st["a"][row]
-                b_m[i] += st["b"][row]
-                d_m[i] += st["d"][row]
-                c_m[i] += st["c"][row]
-                qsum += st["q"][row, 0]
+                at = (row - st["rows"][0])[None, :]
+                a_m[i] += np.take_along_axis(st["a"], at, axis=0)[0]
+                b_m[i] += np.take_along_axis(st["b"], at, axis=0)[0]
+                d_m[i] += np.take_along_axis(st["d"], at, axis=0)[0]
+                c_m[i] += np.take_along_axis(st["c"], at, axis=0)[0]
+                qsum += float(kept[p]["charges"][row])
             a_m[i] += 1.5 * (qsum - qm[i])
         big_am = a_m + 1.5 * d_m
         nu_hat = np.concatenate([system.nu, qm[:, None]], axis=1)          # (nm, R)
