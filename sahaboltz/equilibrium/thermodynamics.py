@@ -91,7 +91,7 @@ _THR = 50.0
 # and a stage below e^-_THR_ALL of all nuclei too (rare elements)
 _THR_ALL = 46.0
 # (species x states) elements per chunk
-_CHUNK_ELEMENTS = 1 << 21
+_CHUNK_ELEMENTS = 1 << 24
 
 
 @dataclass

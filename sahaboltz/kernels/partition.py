@@ -446,6 +446,10 @@ class PartitionModel:
         start = self._starts[rows]
         count = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
         count = np.clip(count, 1, self._counts[rows])
+        if dens:
+            fast = self.scheme.pair_log_derivative_sums(self, beta, start, count, pst)
+            if fast is not None:
+                return fast
         ln_u, u_t, u_n, u_tt, u_tn = out
         ends = np.cumsum(count)
         cuts = np.searchsorted(ends, np.arange(_PAIR_BLOCK, ends[-1], _PAIR_BLOCK))
