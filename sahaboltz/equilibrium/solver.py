@@ -73,7 +73,8 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
                       molecules=None, database=None, missing_levels: str = "unit",
                       tolerance: float = DEFAULT_TOLERANCE, max_passes: int = 200,
                       network: AtomicNetwork | None = None, molecule_database=None,
-                      errors: str = "raise", condensates=False, **closure: Any):
+                      errors: str = "raise", condensates=False, radiation: bool = False,
+                      **closure: Any):
     """Solve the LTE ionization balance of a mixture at one or many states.
 
     Parameters
@@ -120,6 +121,12 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
         result (``.state``); "mask" returns the state with ``status`` (converged, unreachable,
         strongly coupled, not converged) and ``reason`` per state, and NaN values only there.
 
+    radiation : bool
+        Include black-body radiation at T in the thermodynamic properties of the result
+        (``state.internal_energy``, ``state.gamma1`` ...; see
+        :mod:`sahaboltz.equilibrium.thermodynamics`); default off.  The populations and the
+        gas-pressure closure are not affected.
+
     Returns
     -------
     EquilibriumState (MolecularEquilibriumState with molecules)
@@ -154,6 +161,7 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
     else:
         state = raise_or_keep(solve_atomic(network, t, v, closure_def, lowering=lowering,
                                            tolerance=tolerance, max_passes=max_passes), errors)
+    state.radiation = bool(radiation)
     warn_validity(state)
     if scheme.key == "plain" and truncation is not None:
         warn_plain(state)
