@@ -248,3 +248,52 @@ def test_unsupported_options_are_refused_clearly():
         st.internal_energy
     failed = solve(HYDROGEN, np.array([1e4, 2e4]), mass_density=1e-8)
     assert np.isfinite(failed.gamma1).all()
+
+
+# -- the closures that replace the temperature -----------------------------------------------
+def test_density_energy_round_trip():
+    # (rho, u) -> T -> u to 1e-10, over ionization zones of a solar mixture (a table axis:
+    # shared densities) with plain sums and with the default occupation weights
+    comp = solar().subset(["H", "He", "C", "O", "Fe"])
+    t = np.geomspace(3000.0, 3e5, 12)
+    tt, rr = np.meshgrid(t, np.array([1e-10, 1e-7, 1e-4]), indexing="ij")
+    for kw in ({"truncation": "plain"}, {}):
+        ref = solve(comp, tt, mass_density=rr, **kw)
+        back = solve(comp, mass_density=rr, internal_energy=ref.internal_energy, **kw)
+        np.testing.assert_allclose(back.internal_energy, ref.internal_energy, rtol=1e-10)
+        np.testing.assert_allclose(back.temperature, tt, rtol=1e-9)
+        assert back.thermal_closure == "internal_energy"
+
+
+def test_pressure_entropy_round_trip_scattered_states_and_molecules():
+    comp = solar().subset(COOL)
+    rng = np.random.default_rng(3)
+    t = np.exp(rng.uniform(np.log(1500.0), np.log(2e4), 10))
+    p = np.exp(rng.uniform(np.log(1e2), np.log(1e7), 10))
+    ref = solve(comp, t, gas_pressure=p)
+    back = solve(comp, gas_pressure=p, entropy=ref.entropy)
+    np.testing.assert_allclose(back.entropy, ref.entropy, rtol=1e-10)
+    np.testing.assert_allclose(back.temperature, t, rtol=1e-9)
+    cool = solve(comp, t[:4] * 0 + 2500.0, gas_pressure=p[:4], molecules="default",
+                 truncation="plain")
+    again = solve(comp, gas_pressure=p[:4], entropy=cool.entropy, molecules="default",
+                  truncation="plain")
+    np.testing.assert_allclose(again.entropy, cool.entropy, rtol=1e-10)
+    np.testing.assert_allclose(again.temperature, 2500.0, rtol=1e-9)
+
+
+def test_thermal_closure_errors_name_the_states():
+    from sahaboltz.errors import ConvergenceError
+    with pytest.raises(ConvergenceError, match=r"state \(1,\).*no temperature in \[1000, 1e\+08\]"):
+        solve(HYDROGEN, mass_density=np.array([1e-8, 1e-8]),
+              internal_energy=np.array([1e12, 1e30]))
+    st = solve(HYDROGEN, mass_density=np.array([1e-8, 1e-8]),
+               internal_energy=np.array([1e12, 1e30]), errors="mask")
+    assert st.converged.tolist() == [True, False]
+    assert np.isnan(st.n_e[1]) and np.isfinite(st.n_e[0])
+    with pytest.raises(InputError, match="goes with mass_density"):
+        solve(HYDROGEN, gas_pressure=1e5, internal_energy=1e12)
+    with pytest.raises(InputError, match="replaces the temperature"):
+        solve(HYDROGEN, 5000.0, mass_density=1e-8, internal_energy=1e12)
+    with pytest.raises(InputError, match="temperature is missing"):
+        solve(HYDROGEN, mass_density=1e-8)
