@@ -297,3 +297,32 @@ def test_thermal_closure_errors_name_the_states():
         solve(HYDROGEN, 5000.0, mass_density=1e-8, internal_energy=1e12)
     with pytest.raises(InputError, match="temperature is missing"):
         solve(HYDROGEN, mass_density=1e-8)
+
+
+# -- tables ---------------------------------------------------------------------------------
+def test_thermodynamic_table_fields(tmp_path):
+    from sahaboltz.tables import cache
+    from sahaboltz.tables.build import build_table
+    from sahaboltz.tables.interpolate import open_table
+    from sahaboltz.tables.spec import DEFAULT_QUANTITIES, THERMO_OUTPUTS, TableSpec
+    q = ["mass_density", "internal_energy", "entropy", "adiabatic_gradient", "gamma1",
+         "total_pressure", "sound_speed", "dlnmu_dlnt"]
+    spec = TableSpec.from_mapping({
+        "temperature": {"scale": "log", "min": 4000.0, "max": 40000.0, "num": 5},
+        "pressure": {"quantity": "gas_pressure", "scale": "log", "min": 1e2, "max": 1e6,
+                     "num": 3},
+        "composition": {"abundances": {"H": 1.0, "He": 0.085}},
+        "physics": {"radiation": True},
+        "outputs": {"quantities": q, "stage_fractions": ["H"]}})
+    assert set(THERMO_OUTPUTS) <= set(spec.outputs.quantities) | set(THERMO_OUTPUTS)
+    assert not set(THERMO_OUTPUTS) & set(DEFAULT_QUANTITIES)   # on request only
+    path = build_table(spec, tmp_path / "thermo.h5", workers=1, progress=False,
+                       provenance=cache.solver_provenance(spec))
+    t, p = np.meshgrid(spec.temperature.array, spec.pressure.array, indexing="ij")
+    comp = Composition.from_number({"H": 1.0, "He": 0.085})
+    st = solve(comp, t, gas_pressure=p, radiation=True)
+    with open_table(path) as tab:
+        for name in q:
+            want = st.total_pressure if name == "total_pressure" else getattr(st, name)
+            np.testing.assert_allclose(tab[name], want, rtol=1e-9, atol=1e-12)
+        assert tab.quantity_attrs("internal_energy")["units"] == "erg g-1"

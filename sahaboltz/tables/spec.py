@@ -20,6 +20,7 @@ import numpy as np
 
 from sahaboltz.data.elements import SYMBOLS, atomic_number, parse_species, spectroscopic_name
 from sahaboltz.equilibrium.closures import CLOSURES
+from sahaboltz.equilibrium.thermodynamics import QUANTITIES as _THERMO_QUANTITIES
 from sahaboltz.errors import InputError
 from sahaboltz.kernels import truncation as _truncation
 
@@ -42,6 +43,14 @@ SCALAR_OUTPUTS = {
     "status": ("1", "solver outcome of the state: 0 converged, 1 unreachable, "
                     "2 strongly coupled, 3 not converged (its other fields are NaN)"),
 }
+
+#: the scalar outputs a table stores unless its spec lists others
+DEFAULT_QUANTITIES = tuple(SCALAR_OUTPUTS)
+#: thermodynamic outputs (on request: ``outputs.quantities``), from the thermodynamics
+#: module's list; "pressure" is stored as ``total_pressure`` (gas plus radiation if asked for)
+THERMO_OUTPUTS = {("total_pressure" if k == "pressure" else k): (u or "1", d)
+                  for k, (u, d) in _THERMO_QUANTITIES.items() if k != "mean_molecular_weight"}
+SCALAR_OUTPUTS.update(THERMO_OUTPUTS)
 
 AXIS_SCALES = ("log", "linear", "values")
 
@@ -79,11 +88,14 @@ completion = false          # hydrogenic completion of the level lists (not with
 h_minus = true              # include H-
 molecules = "none"          # or "default" (every molecule of the data), "diatomics", "abundant"
 condensates = false         # with molecules: gas-condensate equilibrium (condensed_fraction)
+radiation = false           # add a T^4 radiation field to the thermodynamic outputs
 
 [outputs]
 quantities = ["electron_density", "electron_pressure", "gas_pressure", "mass_density",
               "mean_molecular_weight", "mean_charge"]
 stage_fractions = "all"     # or a list of elements, e.g. ["H", "He", "Fe"]
+# thermodynamics on request, e.g. "internal_energy", "entropy", "adiabatic_gradient",
+# "gamma1", "heat_capacity_p", "sound_speed" (docs/thermodynamics.md)
 levels = []                 # e.g. ["Fe II:0-9", "H I:0,1,2"]  (bound-level indices, ground = 0)
 partition_functions = []    # e.g. ["Fe I", "Fe II"]
 """.format(closures=" | ".join(CLOSURES), truncations=" | ".join(_truncation.names()))
@@ -196,7 +208,7 @@ def _parse_levels(entry: str) -> tuple[str, tuple[int, ...]]:
 class Outputs:
     """What to store.  ``stage_fractions`` is ``"all"`` or a tuple of element symbols."""
 
-    quantities: tuple[str, ...] = tuple(SCALAR_OUTPUTS)
+    quantities: tuple[str, ...] = DEFAULT_QUANTITIES
     stage_fractions: str | tuple[str, ...] = "all"
     levels: tuple[tuple[str, tuple[int, ...]], ...] = ()
     partition_functions: tuple[str, ...] = ()
@@ -207,7 +219,7 @@ class Outputs:
         extra = set(m) - known
         if extra:
             raise InputError(f"outputs: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
-        q = tuple(m.get("quantities", SCALAR_OUTPUTS))
+        q = tuple(m.get("quantities", DEFAULT_QUANTITIES))
         bad = [x for x in q if x not in SCALAR_OUTPUTS]
         if bad:
             raise InputError(f"outputs.quantities: unknown {bad}; choose from {list(SCALAR_OUTPUTS)}")
@@ -363,7 +375,8 @@ def normalize_composition(c: Any) -> dict:
 
 
 def _physics(p: Mapping[str, Any]) -> dict:
-    known = {"truncation", "lowering", "molecules", "condensates", "completion", "h_minus"}
+    known = {"truncation", "lowering", "molecules", "condensates", "completion", "h_minus",
+             "radiation"}
     extra = set(p) - known
     if extra:
         raise InputError(f"physics: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
@@ -376,9 +389,12 @@ def _physics(p: Mapping[str, Any]) -> dict:
     condensates = bool(p.get("condensates", False))
     if condensates and molecules == "none":
         raise InputError("physics.condensates needs molecules (e.g. molecules = \"default\")")
-    return {"truncation": trunc, "lowering": lowering, "molecules": molecules,
-            "condensates": condensates, "completion": bool(p.get("completion", False)),
-            "h_minus": bool(p.get("h_minus", True))}
+    out = {"truncation": trunc, "lowering": lowering, "molecules": molecules,
+           "condensates": condensates, "completion": bool(p.get("completion", False)),
+           "h_minus": bool(p.get("h_minus", True))}
+    if p.get("radiation"):   # only when asked for: the keys of existing specs stay as they were
+        out["radiation"] = True
+    return out
 
 
 def _molecule_set(value: Any) -> str:
