@@ -326,3 +326,31 @@ def test_thermodynamic_table_fields(tmp_path):
             want = st.total_pressure if name == "total_pressure" else getattr(st, name)
             np.testing.assert_allclose(tab[name], want, rtol=1e-9, atol=1e-12)
         assert tab.quantity_attrs("internal_energy")["units"] == "erg g-1"
+
+
+# -- command line ---------------------------------------------------------------------------
+def test_state_command_prints_the_thermodynamics_block(capsys):
+    import json
+    from sahaboltz.faces.cli import main
+    assert main(["state", "-T", "3000", "--gas-pressure", "1e6", "--mix", "Ar:1",
+                 "--no-h-minus", "--format", "json"]) == 0
+    meta = json.loads(capsys.readouterr().out)["meta"]
+    assert "radiation not included" in meta["thermodynamics"]
+    assert meta["adiabatic_gradient"] == pytest.approx(0.4, rel=1e-8)     # ideal monatomic gas
+    assert main(["state", "--internal-energy", str(meta["internal_energy_erg_g-1"]),
+                 "--mass-density", str(meta["pressure_dyn_cm-2"] * 0 + 1.0e-3),
+                 "--mix", "Ar:1", "--no-h-minus", "--radiation", "--temperature-range",
+                 "500,1e5", "--format", "json"]) == 0
+    meta2 = json.loads(capsys.readouterr().out)["meta"]
+    assert "radiation" in meta2["thermodynamics"] and "not" not in meta2["thermodynamics"]
+    # u of an ideal monatomic gas does not depend on density: the same temperature back
+    # (radiation at 3000 K adds 1e-8 of u here; ionization of Ar is below 1e-10)
+    assert meta2["temperature_K"] == pytest.approx(3000.0, rel=1e-7)
+
+
+def test_plot_thermo_map(tmp_path, capsys):
+    from sahaboltz.faces.cli import main
+    out = tmp_path / "nabla.png"
+    assert main(["plot", "thermo", "--temperature", "3000:3e4:12", "--gas-pressure",
+                 "1e2:1e6:5", "--mix", "H:0.9,He:0.1", "-o", str(out)]) == 0
+    assert out.stat().st_size > 10_000

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from sahaboltz.equilibrium.closures import CLOSURES, THERMAL_CLOSURES
 from sahaboltz.faces.output import add_format_option, emit
 from sahaboltz.faces.state_options import (CLOSURE_FLAGS, add_mixture_options, parse_mix,
                                            solver_options)
@@ -10,11 +11,20 @@ def register(sub) -> None:
     p = sub.add_parser("state", help="stage fractions of a gas at one temperature and pressure",
                        description="Solve the LTE ionization balance of a mixture at one state "
                                    "and list the stage fractions of the chosen elements.")
-    p.add_argument("-T", "--temperature", type=float, required=True, metavar="K",
-                   help="temperature [K]")
+    p.add_argument("-T", "--temperature", type=float, default=None, metavar="K",
+                   help="temperature [K] (or give one of the thermal options below instead)")
     grp = p.add_mutually_exclusive_group(required=True)
     for dest, flag, text in CLOSURE_FLAGS:
         grp.add_argument(flag, dest=dest, type=float, metavar="X", help=text)
+    thermal = p.add_mutually_exclusive_group()
+    for c in THERMAL_CLOSURES.values():
+        thermal.add_argument(c.flag, dest=c.name, type=float, default=None, metavar="X",
+                             help=f"in place of -T: {c.long_name} [{c.unit}], with "
+                                  f"{CLOSURES[c.partner].flag}")
+    p.add_argument("--temperature-range", default=None, metavar="LO,HI",
+                   help="temperatures searched with a thermal option [K] (default 1000,1e8)")
+    p.add_argument("--radiation", action="store_true",
+                   help="include black-body radiation at T in the thermodynamics block")
     add_mixture_options(p)
     p.add_argument("--elements", default=None, metavar="LIST",
                    help="comma-separated elements to list (default: all of a custom mix; "
@@ -57,7 +67,25 @@ def run_state(args) -> int:
     comp = parse_mix(args.mix, args.by, args.metallicity, args.alpha)
     closure = {dest: getattr(args, dest) for dest, _, _ in CLOSURE_FLAGS
                if getattr(args, dest) is not None}
-    state = solve_equilibrium(comp, args.temperature, **closure, **solver_options(args))
+    closure.update({name: getattr(args, name) for name in THERMAL_CLOSURES
+                    if getattr(args, name, None) is not None})
+    if args.temperature is None and not set(closure) & set(THERMAL_CLOSURES):
+        from sahaboltz.errors import InputError
+        raise InputError("give -T/--temperature, or "
+                         + " / ".join(c.flag for c in THERMAL_CLOSURES.values())
+                         + " with its partner closure")
+    extra = {}
+    if args.temperature_range:
+        try:
+            extra["temperature_range"] = tuple(float(v) for v in
+                                               args.temperature_range.split(","))
+        except ValueError:
+            from sahaboltz.errors import InputError
+            raise InputError(f"--temperature-range: give LO,HI in K, got "
+                             f"{args.temperature_range!r}") from None
+    state = solve_equilibrium(comp, args.temperature, **closure, radiation=args.radiation,
+                              **extra, **solver_options(args))
+    args.temperature = float(state.temperature)
     if args.elements:
         elements = [e.strip() for e in args.elements.split(",") if e.strip()]
     elif args.mix.strip().lower() == "solar":
@@ -79,9 +107,30 @@ def run_state(args) -> int:
         meta["coupling_parameter"] = float(state.coupling_parameter)
         meta["mcwhirter_min_n_e_cm-3"] = float(state.mcwhirter_density())
         meta["lte_mcwhirter"] = bool(state.lte_valid())
+    meta.update(thermo_summary(state))
     emit(rows, args.format, title=f"LTE ionization balance at T = {args.temperature:g} K",
          meta=meta)
     return 0
+
+
+def thermo_summary(state, index=None) -> dict:
+    """The thermodynamics block of one state (``index``; scalar states: None), keyed with
+    units; says whether radiation is included, or why there is no block."""
+    from sahaboltz.equilibrium.thermodynamics import QUANTITIES
+    from sahaboltz.errors import InputError
+    try:
+        th = state.thermodynamics()
+    except InputError as exc:
+        return {"thermodynamics": f"not available ({exc})"}
+    idx = () if index is None else index
+    out = {"thermodynamics": ("gas and radiation (a T^4)" if th.radiation else
+                              "gas only (radiation not included; --radiation adds it)")}
+    for name, (unit, _) in QUANTITIES.items():
+        if name == "mean_molecular_weight":
+            continue
+        key = f"{name}_{unit.replace(' ', '_')}" if unit else name
+        out[key] = float(th.get(name)[idx])
+    return out
 
 
 def run_half(args) -> int:
