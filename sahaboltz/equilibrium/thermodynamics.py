@@ -87,9 +87,9 @@ QUANTITIES = {
 
 # stages below e^-_THR of their element's largest stage are left out (they cannot change a
 # double-precision sum); the density-dependent U are bounded by their low-density limit
-_THR = 50.0
+_THR = 40.0
 # and a stage below e^-_THR_ALL of all nuclei too (rare elements)
-_THR_ALL = 46.0
+_THR_ALL = 40.0
 # (species x states) elements per chunk
 _CHUNK_ELEMENTS = 1 << 24
 
@@ -287,7 +287,8 @@ def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut):
             for a, v in zip(out, vals):
                 a[r, j] = v[inv]
         else:
-            vals = model.pair_log_derivatives(t[j], ne[j], chain.model_offset + mrow[r, j])
+            vals = model.pair_log_derivatives(t, ne, chain.model_offset + mrow[r, j],
+                                              states=j)
             for a, v in zip(out, vals):
                 a[r, j] = v
     if chain.charges[0] < 0 and not net.ideal:

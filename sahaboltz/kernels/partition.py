@@ -447,7 +447,7 @@ class PartitionModel:
         count = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
         count = np.clip(count, 1, self._counts[rows])
         if dens:
-            fast = self.scheme.pair_log_derivative_sums(self, beta, start, count, pst)
+            fast = self.scheme.pair_log_derivative_sums(self, rows, beta, start, count, pst)
             if fast is not None:
                 return fast
         ln_u, u_t, u_n, u_tt, u_tn = out

@@ -141,8 +141,8 @@ class TruncationScheme:
         its weight is 1."""
         return None
 
-    def pair_log_derivative_sums(self, model, beta: np.ndarray, start: np.ndarray,
-                                 count: np.ndarray, pst: dict):
+    def pair_log_derivative_sums(self, model, rows: np.ndarray, beta: np.ndarray,
+                                 start: np.ndarray, count: np.ndarray, pst: dict):
         """(ln U, U_T, U_n, U_TT, U_Tn) of every pair by a compiled loop, or None to let the
         numpy path use :meth:`pair_weight_derivatives`."""
         return None
@@ -358,13 +358,15 @@ class OccupationProbability(TruncationScheme):
         pst["stark"] = stark_state_factors(pst["T"], pst["ne"])
         pst["stark_curv"] = stark_state_curvatures(pst["T"], pst["ne"])
 
-    def pair_log_derivative_sums(self, model, beta, start, count, pst):
+    def pair_log_derivative_sums(self, model, rows, beta, start, count, pst):
         from sahaboltz.kernels import compiled_thermo
         if not compiled_thermo.available():
             return None
+        beta_u, tidx = np.unique(beta, return_inverse=True)
         return compiled_thermo.occupation_log_derivative_sums(
-            beta, pst["stark"], pst["stark_curv"], pst.get("nn"), start, count, model._e,
-            model._lng, model._q_stark, model._r3)
+            tidx.ravel(), rows, beta_u, pst["stark"], pst["stark_curv"], pst.get("nn"), start,
+            count, model._e, model._lng, model._lng_max, model._q_stark, model._r3,
+            model.n_species)
 
     def pair_weight_derivatives(self, model, lv, counts, pairs, pst):
         from sahaboltz.kernels.occupation import log_w_charged_derivatives
