@@ -59,7 +59,8 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
     reached = np.full(m, np.nan)                  # last value seen, for the messages
     uv, vinv = np.unique(partner, return_inverse=True)
     if uv.size <= max(1, m // 4):
-        tau, lo, hi, outside = _start_table(forward, closure, target, uv, vinv, log_lo, log_hi)
+        table = _grid_values(forward, closure, uv, log_lo, log_hi)
+        tau, lo, hi, outside = _start_table(table, target, vinv, log_lo, log_hi)
         _out_of_range(closure, target, partner, outside, t_range, status, reason, done)
     else:
         # many distinct partner values: start from a table on a coarse grid of them,
@@ -69,9 +70,9 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         pos = np.interp(lv, np.log(grid_v), np.arange(_COARSE))
         i0 = np.minimum(np.floor(pos).astype(int), _COARSE - 2)
         w = pos - i0
-        t0, _, _, _ = _start_table(forward, closure, target, grid_v, i0, log_lo, log_hi)
-        t1, _, _, _ = _start_table(forward, closure, target, grid_v, i0 + 1, log_lo, log_hi,
-                                   cached=True)
+        table = _grid_values(forward, closure, grid_v, log_lo, log_hi)
+        t0 = _start_table(table, target, i0, log_lo, log_hi)[0]
+        t1 = _start_table(table, target, i0 + 1, log_lo, log_hi)[0]
         tau = (1.0 - w) * t0 + w * t1
     active = np.flatnonzero(~done)
     passes = 0
@@ -130,25 +131,26 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
     return np.exp(tau), status, reason
 
 
-def _start_table(forward, closure, target, uv, vinv, log_lo, log_hi, cached=False):
-    """Start values and brackets from y on a ln T grid for every distinct partner value;
-    also the states whose target lies outside the grid's range of y.  ``cached``: reuse
-    the table of the previous call (same ``uv``)."""
+def _grid_values(forward, closure, uv, log_lo, log_hi):
+    """y and dy/d ln T on the ln T grid for every partner value ``uv``, (n_v, G) each."""
     grid = np.linspace(log_lo, log_hi, _GRID)
-    if not cached:
-        tt = np.repeat(np.exp(grid)[None, :], uv.size, axis=0)
-        vv = np.repeat(uv[:, None], _GRID, axis=1)
-        st = forward(tt.ravel(), vv.ravel())
-        th = st.thermodynamics()
-        y = th.get(closure.name).reshape(uv.size, _GRID)
-        dy = getattr(th, closure.slope).reshape(uv.size, _GRID)
-        # y rises with T; a failed grid point takes its lower neighbour's value (monotone)
-        bad = ~(np.isfinite(y) & np.isfinite(dy) & (dy > 0))
-        y = np.maximum.accumulate(np.where(bad, -np.inf, y), axis=1)
-        dy = np.where(bad, np.nan, dy)
-        _start_table.last = (y, dy)
-    else:
-        y, dy = _start_table.last
+    tt = np.repeat(np.exp(grid)[None, :], uv.size, axis=0)
+    vv = np.repeat(uv[:, None], _GRID, axis=1)
+    th = forward(tt.ravel(), vv.ravel()).thermodynamics()
+    y = th.get(closure.name).reshape(uv.size, _GRID)
+    dy = getattr(th, closure.slope).reshape(uv.size, _GRID)
+    # y rises with T; a failed grid point takes its lower neighbour's value (monotone)
+    bad = ~(np.isfinite(y) & np.isfinite(dy) & (dy > 0))
+    y = np.maximum.accumulate(np.where(bad, -np.inf, y), axis=1)
+    return y, np.where(bad, np.nan, dy)
+
+
+def _start_table(table, target, vinv, log_lo, log_hi):
+    """Start values and brackets from the grid values ``table`` (of :func:`_grid_values`)
+    for states of partner rows ``vinv``; also the states whose target lies outside the
+    grid's range of y."""
+    grid = np.linspace(log_lo, log_hi, _GRID)
+    y, dy = table
     yg = y[vinv]                                               # (m, G)
     j = (yg <= target[:, None]).sum(axis=1)                    # grid points at or below
     outside = np.flatnonzero((j == 0) | (j == _GRID))
