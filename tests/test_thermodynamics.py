@@ -354,3 +354,12 @@ def test_plot_thermo_map(tmp_path, capsys):
     assert main(["plot", "thermo", "--temperature", "3000:3e4:12", "--gas-pressure",
                  "1e2:1e6:5", "--mix", "H:0.9,He:0.1", "-o", str(out)]) == 0
     assert out.stat().st_size > 10_000
+
+
+def test_delta_and_the_temperature_derivative_of_mu():
+    # ideal gas with a variable mean molecular weight (Kippenhahn & Weigert, the chapter on
+    # ionization, from memory): delta = 1 - (d ln mu / d ln T)_P, and mu falls as H ionizes
+    t = np.geomspace(5000.0, 30000.0, 11)
+    st = solve(HYDROGEN, t, gas_pressure=1e4, truncation="ground", h_minus=False)
+    np.testing.assert_allclose(st.delta, 1.0 - st.dlnmu_dlnt, rtol=1e-10)
+    assert (st.dlnmu_dlnt < 0).all() and st.dlnmu_dlnt.min() < -0.5

@@ -54,6 +54,7 @@ size of the mismatch.  Debye-Hueckel lowering and condensates are not covered ye
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass
 
 import numpy as np
@@ -300,6 +301,29 @@ def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut):
     return out
 
 
+_BOUNDS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+
+
+def _log_u_bounds(net, chain) -> tuple[np.ndarray, np.ndarray]:
+    """Bounds ln g_ground <= ln U <= ln sum_i g_i of every stage of a chain for partition
+    functions that depend on T alone (U = 1 for stages without levels and H-)."""
+    per_net = _BOUNDS.setdefault(net, {})
+    if chain.k not in per_net:
+        lo = np.zeros(chain.n)
+        hi = np.zeros(chain.n)
+        model = net.model
+        for r, row in enumerate(chain.model_rows):
+            if row < 0:
+                continue
+            i = chain.model_offset + row
+            lng = model._lng[model._starts[i]:model._starts[i] + model._counts[i]]
+            lo[r] = lng[np.isfinite(lng)][0]
+            top = lng.max()
+            hi[r] = top + np.log(np.exp(lng - top).sum())
+        per_net[chain.k] = (lo, hi)
+    return per_net[chain.k]
+
+
 def _window(sig: np.ndarray, forced: list) -> np.ndarray:
     """Rows (W, m) of the smallest common-width windows that hold every significant stage
     (``sig``, (n, m)) and the ``forced`` ones."""
@@ -347,13 +371,20 @@ def _chunk(state, sel) -> dict:
     s_corr = np.zeros(m)
     for c in net.chains:
         i0 = int(np.flatnonzero(c.charges == 0)[0])
-        lim = net.log_c(c, ut)                          # low-density limit (exact if ideal)
-        a0 = lim[:, tinv] - np.multiply.outer(c.charges, x)
-        top = a0.max(axis=0)
+        bare = net.bare_log_c(c, ut)
         # significant: within e^-_THR of the element's largest stage and (for rare elements)
         # above e^-_THR_ALL of all nuclei
         thr = max(2.0, min(_THR, _THR_ALL + np.log(c.fraction)))
-        sig = a0 >= top - thr
+        if net.ideal:
+            # without evaluating any U: bounds of ln U decide (a superset of the stages)
+            u_lo, u_hi = _log_u_bounds(net, c)
+            a0 = bare[:, tinv] - np.multiply.outer(c.charges, x)
+            sig = a0 + u_hi[:, None] >= (a0 + u_lo[:, None]).max(axis=0) - thr
+        else:
+            # the low-density limit bounds each U from above
+            lim = net.log_c(c, ut)
+            a0 = lim[:, tinv] - np.multiply.outer(c.charges, x)
+            sig = a0 >= a0.max(axis=0) - thr
         p = mol_pos.get(c.k)
         forced = [] if p is None else sorted({i0} | comp_rows.get(p, set()))
         rows = _window(sig, forced)
@@ -362,12 +393,7 @@ def _chunk(state, sel) -> dict:
             inside |= rows == row
         q = c.charges[rows]
         lu, u_t, u_n, u_tt, u_tn = _log_u_terms(net, c, rows, inside, t, ne, tinv, ut)
-        if net.ideal:   # the limit tables are exact: C_q = bare + ln U_q - ln U_first
-            ln_rel = np.take_along_axis(a0, rows, axis=0)
-        else:
-            bare = net.bare_log_c(c, ut)
-            ln_rel = (np.take(bare.ravel(), rows * ut.size + tinv[None, :]) + lu
-                      - q * x[None, :])
+        ln_rel = np.take(bare.ravel(), rows * ut.size + tinv[None, :]) + lu - q * x[None, :]
         ln_rel = np.where(inside, ln_rel, -np.inf)
         if p is None:
             top = ln_rel.max(axis=0)
