@@ -363,3 +363,18 @@ def test_delta_and_the_temperature_derivative_of_mu():
     st = solve(HYDROGEN, t, gas_pressure=1e4, truncation="ground", h_minus=False)
     np.testing.assert_allclose(st.delta, 1.0 - st.dlnmu_dlnt, rtol=1e-10)
     assert (st.dlnmu_dlnt < 0).all() and st.dlnmu_dlnt.min() < -0.5
+
+
+def test_compiled_and_numpy_plain_sums_agree(monkeypatch):
+    from sahaboltz.data.database import default_database
+    from sahaboltz.kernels.partition import PartitionModel
+    db = default_database()
+    model = PartitionModel([db.species(s) for s in ("Fe I", "H I", "C II")], truncation="plain")
+    t = np.array([3000.0, 12000.0, 30000.0])
+    rows = np.array([0, 1, 2])
+    fast = model.pair_log_derivatives(t, None, rows)
+    monkeypatch.setenv("SAHABOLTZ_NO_NUMBA", "1")
+    slow = model.pair_log_derivatives(t, None, rows)
+    for a, b in zip(fast, slow):
+        np.testing.assert_allclose(a, b, rtol=1e-11, atol=1e-14)
+    np.testing.assert_allclose(slow[1], model.log_derivative(t)[rows, np.arange(3)], rtol=1e-9)

@@ -64,7 +64,17 @@ def _sums(tidx, rows, beta_u, p_, a_, b_, a1, b1, a2, b2, nn4, start, count, e, 
         sd = 0.0
         sed = 0.0
         sdd = 0.0
-        for lv in range(lo, hi):
+        if pk == 0.0 and nk == 0.0:
+            # every weight 1 (partition functions of T alone): the Boltzmann moments only
+            for lv in range(lo, hi):
+                term = table[o + lv]
+                be = bk * e[lv]
+                ec = be - shift
+                s0 += term
+                se += term * ec
+                see += term * ec * ec
+                sde -= term * be
+        for lv in range(lo if (pk != 0.0 or nk != 0.0) else hi, hi):
             sv = pk * q[lv]
             s2 = sv * sv
             inv = 1.0 / (1.0 + sv * (ak * sv + bbk))
@@ -119,3 +129,12 @@ def occupation_log_derivative_sums(tidx, rows, beta_u, stark, curv, nn, start, c
               np.ascontiguousarray(count, dtype=np.int64), e, lng,
               np.ascontiguousarray(lng_max, dtype=float), q, r3, int(n_rows), out)
     return tuple(out)
+
+
+def plain_log_derivative_sums(tidx, rows, beta_u, start, count, e, lng, lng_max, q, r3, n_rows):
+    """The same sums with every weight 1 (partition functions of T alone): the loop above
+    with P = 0, so that s = 0 and every weight term vanishes."""
+    n = tidx.size
+    zero = np.zeros(n)
+    return occupation_log_derivative_sums(tidx, rows, beta_u, (zero,) * 3, (zero,) * 4, None,
+                                          start, count, e, lng, lng_max, q, r3, n_rows)

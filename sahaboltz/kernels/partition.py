@@ -450,6 +450,13 @@ class PartitionModel:
             fast = self.scheme.pair_log_derivative_sums(self, rows, beta, start, count, pst)
             if fast is not None:
                 return fast
+        else:   # every weight 1 here
+            from sahaboltz.kernels import compiled_thermo
+            if compiled_thermo.available():
+                beta_u, tidx = np.unique(beta, return_inverse=True)
+                return compiled_thermo.plain_log_derivative_sums(
+                    tidx.ravel(), rows, beta_u, start, count, self._e, self._lng,
+                    self._lng_max, self._q_stark, self._r3, self.n_species)
         ln_u, u_t, u_n, u_tt, u_tn = out
         ends = np.cumsum(count)
         cuts = np.searchsorted(ends, np.arange(_PAIR_BLOCK, ends[-1], _PAIR_BLOCK))
