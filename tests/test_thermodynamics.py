@@ -378,3 +378,17 @@ def test_compiled_and_numpy_plain_sums_agree(monkeypatch):
     for a, b in zip(fast, slow):
         np.testing.assert_allclose(a, b, rtol=1e-11, atol=1e-14)
     np.testing.assert_allclose(slow[1], model.log_derivative(t)[rows, np.arange(3)], rtol=1e-9)
+
+
+def test_molecules_with_occupation_weights_exact_derivatives():
+    comp = solar().subset(COOL)
+    t = np.array([2000.0, 3500.0, 5000.0])
+    kw = {"molecules": "default"}
+    th = solve(comp, t, mass_density=1e-7, **kw).thermodynamics()
+    up, dn, rp, rd, h = _fd(comp, t, 1e-7, kw)
+    np.testing.assert_allclose(th.du_dlnt, (up.internal_energy - dn.internal_energy) / (2 * h),
+                               rtol=1e-6)
+    np.testing.assert_allclose(th.du_dlnrho, (rp.internal_energy - rd.internal_energy) / (2 * h),
+                               atol=1e-9 * np.abs(th.internal_energy).max())
+    np.testing.assert_allclose(th.chi_rho, (np.log(rp.pressure) - np.log(rd.pressure)) / (2 * h),
+                               rtol=1e-6)

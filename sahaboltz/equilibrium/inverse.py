@@ -75,12 +75,10 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         t1 = _start_table(table, target, i0 + 1, log_lo, log_hi)[0]
         tau = (1.0 - w) * t0 + w * t1
     active = np.flatnonzero(~done)
-    passes = 0
     for _ in range(_MAX_PASSES):
         if not active.size:
             break
         st = forward(np.exp(tau[active]), partner[active])
-        passes += 1
         th = st.thermodynamics()
         y = th.get(closure.name).ravel()
         slope = getattr(th, closure.slope).ravel()
@@ -127,7 +125,6 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         status[i] = 3
         reason[i] = (f"no convergence in {_MAX_PASSES} passes for {closure.name} = "
                      f"{target[i]:.6g} {closure.unit}")
-    solve_thermal.passes = passes
     return np.exp(tau), status, reason
 
 
