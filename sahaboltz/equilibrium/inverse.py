@@ -7,13 +7,15 @@ pass is one forward solve of the active states (:mod:`~sahaboltz.equilibrium.sol
 thermodynamics; the slope d y / d ln T is exact (c_v T at fixed rho, c_p T at fixed P; both
 positive, so y rises monotonically with T and the root is unique).
 
-Start: where the states share few partner values (a table axis), y is first evaluated on a
-coarse ln T grid for each distinct value; the grid brackets each root and a linear
-interpolation starts Newton within ~1e-3 in ln T, so two or three passes reach the
-tolerance.  Otherwise Newton starts at the middle of the temperature range.  Every state keeps
-a bracket [lo, hi] in ln T (the range, narrowed by the signs seen), and a step that would
-leave it bisects.  A state whose value lies outside what the range of temperatures gives is
-reported with that range and the nearest value reached.
+Start: where the states share few partner values (a table axis), y and its exact slope are
+first evaluated on a 65-point ln T grid for each distinct value (only 65 distinct
+temperatures, so cheap); the grid brackets each root and the cubic Hermite interpolant of
+(y, dy/d ln T) starts Newton close to it, so two passes usually reach the tolerance (the last
+Newton step, below 3e-7 in ln T, is taken without evaluating again: its error is of the order
+of its square).  Otherwise the start comes from such a table on 8 partner values spanning
+theirs, interpolated in ln(partner).  Every state keeps a bracket [lo, hi] in ln T (the range,
+narrowed by the signs seen), and a step that would leave it bisects.  A state whose value lies
+outside what the range of temperatures gives is reported with that range and the nearest value reached.
 """
 
 from __future__ import annotations

@@ -375,13 +375,15 @@ def _chunk(state, sel) -> dict:
         # significant: within e^-_THR of the element's largest stage and (for rare elements)
         # above e^-_THR_ALL of all nuclei
         thr = max(2.0, min(_THR, _THR_ALL + np.log(c.fraction)))
-        if net.ideal:
-            # without evaluating any U: bounds of ln U decide (a superset of the stages)
+        if net.ideal and ut.size * 8 > m:
+            # temperatures hardly shared: rather than every U at every temperature, bounds of
+            # ln U decide (a superset of the stages)
             u_lo, u_hi = _log_u_bounds(net, c)
             a0 = bare[:, tinv] - np.multiply.outer(c.charges, x)
             sig = a0 + u_hi[:, None] >= (a0 + u_lo[:, None]).max(axis=0) - thr
         else:
-            # the low-density limit bounds each U from above
+            # ln U at each distinct T (exact for T-only U; for density-dependent U their
+            # low-density limit, which bounds each from above)
             lim = net.log_c(c, ut)
             a0 = lim[:, tinv] - np.multiply.outer(c.charges, x)
             sig = a0 >= a0.max(axis=0) - thr
