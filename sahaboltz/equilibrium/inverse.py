@@ -12,7 +12,7 @@ first evaluated on a 65-point ln T grid for each distinct value (only 65 distinc
 temperatures, so cheap); the grid brackets each root and the cubic Hermite interpolant of
 (y, dy/d ln T) starts Newton close to it, so two passes usually reach the tolerance (the last
 Newton step, below 3e-7 in ln T, is taken without evaluating again: its error is of the order
-of its square).  Otherwise the start comes from such a table on 8 partner values spanning
+of its square).  Otherwise the start comes from such a table on 8-32 partner values spanning
 theirs, interpolated in ln(partner).  Every state keeps a bracket [lo, hi] in ln T (the range,
 narrowed by the signs seen), and a step that would leave it bisects.  A state whose value lies
 outside what the range of temperatures gives is reported with that range and the nearest value reached.
@@ -38,7 +38,8 @@ _LAST_STEP = 3e-7
 _MAX_PASSES = 60
 # grid points of the start table, and when it pays (states per distinct partner value)
 _GRID = 65
-# partner values of the coarse start table when they are many
+# partner values of the coarse start table when they are many (at least; up to 4x with more
+# states, half as many grid states as states)
 _COARSE = 8
 
 
@@ -68,9 +69,10 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         # many distinct partner values: start from a table on a coarse grid of them,
         # interpolated in ln(partner) (a start only: the brackets stay the whole range)
         lv = np.log(partner)
-        grid_v = np.exp(np.linspace(lv.min(), lv.max(), _COARSE))
-        pos = np.interp(lv, np.log(grid_v), np.arange(_COARSE))
-        i0 = np.minimum(np.floor(pos).astype(int), _COARSE - 2)
+        nc = int(np.clip(m // (2 * _GRID), _COARSE, 4 * _COARSE))
+        grid_v = np.exp(np.linspace(lv.min(), lv.max(), nc))
+        pos = np.interp(lv, np.log(grid_v), np.arange(nc))
+        i0 = np.minimum(np.floor(pos).astype(int), nc - 2)
         w = pos - i0
         table = _grid_values(forward, closure, grid_v, log_lo, log_hi)
         t0 = _start_table(table, target, i0, log_lo, log_hi)[0]
