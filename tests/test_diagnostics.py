@@ -113,7 +113,7 @@ def test_saha_boltzmann_recovery_within_stated_uncertainty(fe_lines):
         m = synthesize(fe_lines, t, ne, relative_error=0.05, rng=seed)
         fit = saha_boltzmann_plot(m)
         pt.append((fit.temperature - t) / fit.temperature_error)
-        pn.append(np.log(fit.electron_density / ne) / fit.log_ne_error)
+        pn.append(np.log(fit.electron_density / ne) / fit.ln_ne_error)
     for p in (_pulls(pt), _pulls(pn)):
         assert np.sum(np.abs(p) > 3) <= 1
         assert 0.6 < np.std(p) < 1.4
@@ -146,11 +146,11 @@ def test_ratio_density_recovery_with_temperature_error(fe_lines):
         t_meas = t + 150.0 * rng.standard_normal()
         n_i, i_i = all_pairs(m)
         res = ratio_density(n_i.select([0]), i_i.select([0]), t_meas, 150.0)
-        pulls.append(np.log(res.electron_density[0] / ne) / res.log_ne_error[0])
+        pulls.append(np.log(res.electron_density[0] / ne) / res.ln_ne_error[0])
         # the budget adds in quadrature to the total
         b = res.error_budget
         np.testing.assert_allclose(np.sqrt(b["lines"]**2 + b["temperature"]**2
-                                           + b["ionization_energy"]**2), res.log_ne_error)
+                                           + b["ionization_energy"]**2), res.ln_ne_error)
     pulls = _pulls(pulls)
     assert np.sum(np.abs(pulls) > 3) <= 1
     assert 0.6 < np.std(pulls) < 1.4

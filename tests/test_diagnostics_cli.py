@@ -1,6 +1,7 @@
 """``sahaboltz diagnose``: synthesize a line list, fit it, plot, and fail cleanly."""
 
 import json
+import math
 
 import pytest
 
@@ -31,7 +32,7 @@ def synthetic_csv(run, tmp_path):
 
 
 def _summary(out):
-    return {r["quantity"]: r["value"] for r in json.loads(out)["rows"]}
+    return json.loads(out)          # one flat object
 
 
 def test_boltzmann_json_and_plot(run, synthetic_csv, tmp_path):
@@ -51,7 +52,10 @@ def test_saha_boltzmann_both_modes(run, synthetic_csv, tmp_path):
     assert code == 0
     s = _summary(out)
     assert abs(s["temperature_K"] - 10000) < 3 * s["temperature_error_K"]
-    assert abs(s["n_e_cm-3"] - 5e16) < 3 * s["n_e_error_cm-3"]
+    # n_e is log-normal: 5e16 lies within 3 sigma of ln n_e, and the bounds bracket n_e
+    assert abs(math.log(s["n_e_cm-3"] / 5e16)) < 3 * s["sigma_ln_n_e"]
+    assert s["n_e_low_cm-3"] < s["n_e_cm-3"] < s["n_e_high_cm-3"]
+    assert s["sigma_log10_n_e"] == pytest.approx(s["sigma_ln_n_e"] / math.log(10), rel=1e-12)
     assert s["mcwhirter_satisfied"] is True and s["n_e_source"] == "fitted"
     code, out, _ = run("diagnose", "saha-boltzmann", str(synthetic_csv), "--electron-density",
                        "5e16", "--electron-density-error", "5e15", "--format", "csv",
@@ -64,15 +68,21 @@ def test_saha_boltzmann_both_modes(run, synthetic_csv, tmp_path):
 
 def test_density_pairs_and_selection(run, synthetic_csv):
     code, out, _ = run("diagnose", "density", str(synthetic_csv), "--temperature", "10000",
-                       "--temperature-error", "200", "--format", "json")
+                       "--temperature-error", "200", "--format", "json", "--show-pairs")
     assert code == 0
     rows = json.loads(out)["rows"]
     assert len(rows) == 81                                 # 9 x 9 pairs
     for r in rows:
-        assert abs(r["n_e_cm-3"] - 5e16) < 3 * r["n_e_error_cm-3"]
+        assert abs(math.log(r["n_e_cm-3"] / 5e16)) < 3 * r["sigma_ln_n_e"]
+        assert r["outlier"] is False
+    code, out, _ = run("diagnose", "density", str(synthetic_csv), "-T", "10000 K",
+                       "--temperature-error", "200", "--format", "json")
+    s = json.loads(out)                                    # the combined estimate
+    assert code == 0 and s["pairs"] == 81 and s["outlier_pairs"] == 0
+    assert abs(math.log(s["n_e_cm-3"] / 5e16)) < 3 * s["sigma_ln_n_e"]
     wl = rows[10]["neutral"].split()[-1]
     code, out, _ = run("diagnose", "density", str(synthetic_csv), "--temperature", "10000",
-                       "--neutral", wl, "--format", "json")
+                       "--neutral", wl, "--format", "json", "--show-pairs")
     assert code == 0 and len(json.loads(out)["rows"]) == 9
 
 

@@ -230,7 +230,7 @@ def test_cli_state_and_half_ionization(capsys):
     assert main(["state", "-T", "5800", "--gas-pressure", "1e5", "--elements", "Fe,Ca",
                  "--format", "json"]) == 0
     doc = json.loads(capsys.readouterr().out)
-    dom = {r["element"]: r["species"] for r in doc["rows"] if r["dominant"] == "*"}
+    dom = {r["element"]: r["species"] for r in doc["rows"] if r["dominant"] is True}
     assert dom == {"Fe": "Fe II", "Ca": "Ca II"}
     assert doc["meta"]["gas_pressure_dyn_cm-2"] == pytest.approx(1e5, rel=1e-12)
     assert main(["half-ionization", "H", "--electron-pressure", "200", "--no-h-minus",

@@ -86,6 +86,14 @@ def test_guide_examples_run(tmp_path, monkeypatch):
     # the text around the examples promises these answers (Fe II dominates at 5800 K, 1e5)
     state_out = dict(outputs)["sahaboltz state -T 5800 --gas-pressure 1e5 --dominant-only"]
     assert re.search(r"^Fe\s+Fe II\s", state_out, re.M)
+    # the structure example wrote one row per depth with the columns it names
+    import csv
+    rows = list(csv.DictReader(ln for ln in (tmp_path / "populations.csv").open()
+                               if not ln.startswith("#")))
+    assert [r["depth"] for r in rows] == ["1", "2", "3", "4"]
+    assert {"fraction_Fe_II", "number_density_Ca_II_cm-3",
+            "population_Fe_I_L2_cm-3"} <= set(rows[0])
+    assert float(rows[0]["gas_pressure_dyn_cm-2"]) == 1e3          # 1e2 Pa
     # the spec-file build made a table with what grid.toml asks for
     built = dict(outputs)["sahaboltz table build grid.toml --no-progress"]
     path = Path(built.split()[-1])

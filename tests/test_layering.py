@@ -18,7 +18,8 @@ import sahaboltz
 PACKAGE = Path(sahaboltz.__file__).resolve().parent
 
 #: layer rank of each top-level part of the package
-LAYER = {"errors": 0, "constants": 0, "quantities": 0, "_version": 0, "_lazy": 0, "__init__": 0,
+LAYER = {"errors": 0, "constants": 0, "quantities": 0, "_version": 0, "_lazy": 0, "_html": 0,
+         "__init__": 0,
          "data": 1, "kernels": 2, "equilibrium": 3, "diagnostics": 3, "tables": 4, "faces": 5}
 
 

@@ -119,8 +119,7 @@ def _hydrogen():
 def test_stage_fractions_curves_follow_saha_for_hydrogen():
     t = np.linspace(5000.0, 8000.0, 31)
     p = 1e1
-    fig = plots.stage_fractions_plot("H", t, p, composition=_hydrogen(), h_minus=False)
-    ax = fig.axes[0]
+    fig, ax = plots.stage_fractions_plot("H", t, p, composition=_hydrogen(), h_minus=False)
     lines = {ln.get_label(): ln for ln in ax.lines}
     assert set(lines) == {"H I", "H II"}
     x_plot = lines["H II"].get_ydata()
@@ -129,7 +128,8 @@ def test_stage_fractions_curves_follow_saha_for_hydrogen():
     # axes carry units, the conditions are stated
     assert "[K]" in ax.get_xlabel()
     texts = " ".join(tx.get_text() for tx in fig.texts)
-    assert "P_gas = 10 dyn cm^-2" in texts and "no IP lowering" in texts and "LTE" in texts
+    assert ("$P_\\mathrm{gas}$ = 10 dyn cm$^{-2}$" in texts and "no IP lowering" in texts
+            and "LTE" in texts)
 
 
 def test_dominant_map_boundary_matches_saha_for_hydrogen():
@@ -137,8 +137,7 @@ def test_dominant_map_boundary_matches_saha_for_hydrogen():
 
     t = np.geomspace(4000.0, 12000.0, 56)    # steps of 2 %
     p = np.geomspace(1e-1, 1e1, 5)           # half ionization at 6,500-7,850 K
-    fig = plots.dominant_stage_plot("H", t, p, composition=_hydrogen(), h_minus=False)
-    ax = fig.axes[0]
+    fig, ax = plots.dominant_stage_plot("H", t, p, composition=_hydrogen(), h_minus=False)
     (line,) = [cs for cs in ax.collections if getattr(cs, "stage_boundary", None) == (0, 1)]
     xy = 10.0 ** np.concatenate([path.vertices for path in line.get_paths()])  # log10 axes
     order = np.argsort(xy[:, 1])
@@ -156,8 +155,7 @@ def test_dominant_map_boundary_matches_saha_for_hydrogen():
 def test_electron_pressure_curves_follow_saha_for_hydrogen():
     t = np.linspace(5000.0, 8000.0, 13)
     p = [1e-1, 1e1]
-    fig = plots.electron_pressure_plot(t, p, composition=_hydrogen(), h_minus=False)
-    ax = fig.axes[0]
+    fig, ax = plots.electron_pressure_plot(t, p, composition=_hydrogen(), h_minus=False)
     assert len(ax.lines) == 2
     for line, pj in zip(ax.lines, p):
         x = hydrogen_fraction_saha(t, pj)
@@ -167,8 +165,8 @@ def test_electron_pressure_curves_follow_saha_for_hydrogen():
 
 def test_level_diagram_slope_is_the_boltzmann_law():
     temps = [4000.0, 7000.0]
-    fig = plots.level_population_plot("Fe I", temps, 1e5, max_energy_ev=6.0, truncation="plain")
-    ax = fig.axes[0]
+    fig, ax = plots.level_population_plot("Fe I", temps, 1e5, max_energy_ev=6.0,
+                                          truncation="plain")
     points = [ln for ln in ax.lines if ln.get_linestyle() == "None"]
     assert len(points) == 2
     for ln, t in zip(points, temps):
@@ -191,8 +189,8 @@ def _bc2016(species):
 def test_partition_plot_shows_published_values(species):
     ref = _bc2016(species)
     t = np.array([3000.0, 5000.0, 8000.0])
-    fig = plots.partition_function_plot([species], t, truncations=["plain"])
-    line = fig.axes[0].lines[0]
+    fig, ax = plots.partition_function_plot([species], t, truncations=["plain"])
+    line = ax.lines[0]
     np.testing.assert_allclose(line.get_xdata(), t)
     # our plain sums agree with Barklem & Collet's within 2 % at these temperatures
     np.testing.assert_allclose(line.get_ydata(), [ref[x] for x in t], rtol=0.02)
@@ -200,10 +198,11 @@ def test_partition_plot_shows_published_values(species):
 
 def test_partition_plot_ratio_panel_for_truncations():
     t = np.linspace(5000.0, 20000.0, 16)
-    fig = plots.partition_function_plot(["Ar I"], t, truncations=["plain", "occupation"],
-                                        electron_density=1e17)
-    assert len(fig.axes) == 2
-    ratio = fig.axes[1].lines[0].get_ydata()
+    fig, (ax, axr) = plots.partition_function_plot(["Ar I"], t,
+                                                   truncations=["plain", "occupation"],
+                                                   electron_density=1e17)
+    assert fig.axes == [ax, axr]
+    ratio = axr.lines[0].get_ydata()
     # occupation probabilities only remove weight: U_occ <= U_plain, and -> equal at low T
     assert np.all(ratio <= 1.0 + 1e-12) and ratio[0] == pytest.approx(1.0, abs=1e-5)
     assert ratio[-1] < 0.99

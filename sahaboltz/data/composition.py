@@ -210,6 +210,63 @@ class Composition:
         return Composition(self.Z, self.number_fraction * 10.0 ** dex, name=label,
                            origin=self.origin, provenance=prov)
 
+    def with_offsets(self, offsets: Mapping) -> "Composition":
+        """Scale single elements: ``{"C": 0.3}`` multiplies N_C/N_H by 10**0.3 (dex).
+
+        Raises
+        ------
+        InputError
+            An offset of an element the mixture lacks (it has nothing to scale), or of H.
+        """
+        x = self.number_fraction.copy()
+        notes = []
+        for key, val in offsets.items():
+            z = atomic_number(key)
+            if z == 1:
+                raise InputError("abundance offsets are relative to hydrogen; H cannot have one")
+            if z not in self:
+                raise InputError(f"abundance offset of {SYMBOLS[z]}: the mixture {self.name!r} "
+                                 f"has no {SYMBOLS[z]} to scale")
+            d = _finite(val, f"abundance offset of {SYMBOLS[z]}")
+            x[self._index(z)] *= 10.0 ** d
+            notes.append(f"[{SYMBOLS[z]}/H] {d:+g}")
+        prov = dict(self.provenance)
+        prov["offsets"] = ", ".join(notes)
+        label = f"{self.name} {' '.join(notes)}" if notes else self.name
+        return Composition(self.Z, x, name=label, origin=self.origin, provenance=prov)
+
+    def with_helium_mass_fraction(self, y: float) -> "Composition":
+        """The mixture with helium mass fraction ``y``: every metal keeps its mass fraction
+        (Z fixed), hydrogen takes the rest, X = 1 - Y - Z (He is added if absent).
+
+        Raises
+        ------
+        InputError
+            ``y`` outside (0, 1), no hydrogen, or X = 1 - Y - Z not positive.
+        """
+        y = _finite(y, "helium mass fraction Y")
+        if not 0 < y < 1:
+            raise InputError(f"helium mass fraction Y must lie in (0, 1), got {y:g}")
+        if 1 not in self:
+            raise InputError(f"helium mass fraction: the mixture {self.name!r} has no hydrogen "
+                             f"to take up X = 1 - Y - Z")
+        z_all = np.union1d(self.Z, [2])
+        m = np.zeros(z_all.size)
+        m[np.searchsorted(z_all, self.Z)] = self.mass_fractions
+        metals = z_all > 2
+        zmet = float(m[metals].sum())
+        x = 1.0 - y - zmet
+        if x <= 0:
+            raise InputError(f"helium mass fraction Y = {y:g} with the metal mass fraction "
+                             f"Z = {zmet:.4g} leaves hydrogen X = 1 - Y - Z = {x:.4g}, not "
+                             f"positive")
+        m[z_all == 1], m[z_all == 2] = x, y
+        prov = dict(self.provenance)
+        prov["helium"] = f"Y = {y:g} (X = {x:.6g}, Z = {zmet:.6g} kept)"
+        origin = tuple(self.origin[self._index(z)] if z in self else "given" for z in z_all)
+        return Composition(z_all, m / _weights(z_all, None), name=f"{self.name} Y={y:g}",
+                           origin=origin, provenance=prov)
+
     def subset(self, elements: Iterable) -> "Composition":
         """Only the listed elements (renormalized)."""
         keep = sorted({atomic_number(e) for e in elements})

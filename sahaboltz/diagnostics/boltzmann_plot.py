@@ -205,7 +205,7 @@ def boltzmann_plot(lines: LineList, species: str | None = None, *, photon_counts
     names = lines.species_names
     if len(names) != 1:
         raise InputError(f"a Boltzmann plot takes the lines of one species; this list holds "
-                         f"{', '.join(names)}: choose one (species=..., or --species)")
+                         f"{', '.join(names)}: choose one (species=...)")
     if len(lines) < 3:
         raise InputError(f"{names[0]}: a Boltzmann plot needs at least 3 lines (temperature "
                          f"and its uncertainty), got {len(lines)}")

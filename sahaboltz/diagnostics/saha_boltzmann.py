@@ -48,6 +48,7 @@ from sahaboltz.data.elements import spectroscopic_name
 from sahaboltz.diagnostics.boltzmann_plot import boltzmann_ordinate, line_flags, resonance_mask
 from sahaboltz.diagnostics.fitting import fit_with_rejection, weighted_linear_fit
 from sahaboltz.diagnostics.lines import LineList
+from sahaboltz.diagnostics.uncertainty import LogNormalDensity, summary_items
 from sahaboltz.diagnostics.lte import McWhirterCheck, mcwhirter_check
 from sahaboltz.errors import ConvergenceError, InputError, NoDataError
 from sahaboltz.kernels.plasma import debye_hueckel_lowering, debye_length
@@ -98,7 +99,7 @@ def ionization_energy(z: int, charge: int, database=None) -> tuple[float, float]
 
 
 @dataclass
-class SahaBoltzmannFit:
+class SahaBoltzmannFit(LogNormalDensity):
     """Result of :func:`saha_boltzmann_plot`.
 
     Attributes
@@ -107,10 +108,13 @@ class SahaBoltzmannFit:
         Element symbol and the two stages ("Fe I", "Fe II").
     temperature, temperature_error : float
         [K], 1 sigma.
-    electron_density, electron_density_error : float
-        [cm^-3], 1 sigma (n_e sigma(ln n_e); the error of log10 n_e is sigma(ln n_e) / ln 10).
-    log_ne_error : float
-        sigma(ln n_e).
+    electron_density : float
+        [cm^-3].  n_e is log-normal: its 1-sigma interval is ``electron_density_bounds``
+        (n_e e^-sigma, n_e e^+sigma); ``log10_ne_error`` is sigma(log10 n_e).
+    electron_density_error : float
+        n_e sigma(ln n_e), the linear (first-order) error, [cm^-3]; prefer the bounds.
+    ln_ne_error : float
+        sigma(ln n_e) (natural log; the old name ``log_ne_error`` still works, deprecated).
     correlation : float
         Correlation coefficient of T and ln n_e (0 when n_e was given).
     ne_fitted : bool
@@ -135,7 +139,7 @@ class SahaBoltzmannFit:
     temperature_error: float
     electron_density: float
     electron_density_error: float
-    log_ne_error: float
+    ln_ne_error: float
     correlation: float
     ne_fitted: bool
     ionization_energy_ev: float
@@ -164,8 +168,7 @@ class SahaBoltzmannFit:
     def summary(self) -> dict:
         out = {"method": "Saha-Boltzmann plot", "species": f"{self.lower} + {self.upper}",
                "temperature_K": self.temperature, "temperature_error_K": self.temperature_error,
-               "n_e_cm-3": self.electron_density, "n_e_error_cm-3": self.electron_density_error,
-               "log10_n_e_error": float(self.log_ne_error / np.log(10.0)),
+               **summary_items(self.electron_density, self.ln_ne_error),
                "n_e_source": "fitted" if self.ne_fitted else "given",
                "T_ln_n_e_correlation": float(self.correlation),
                "lowering_eV": self.lowering_ev, "lines_used": int(self.used.sum()),
@@ -247,7 +250,7 @@ def saha_boltzmann_plot(lines: LineList, element=None, *, electron_density=None,
     return SahaBoltzmannFit(
         element=lower.split()[0], lower=lower, upper=upper, temperature=float(t),
         temperature_error=float(st),
-        electron_density=ne, electron_density_error=ne * sl, log_ne_error=sl, correlation=corr,
+        electron_density=ne, electron_density_error=ne * sl, ln_ne_error=sl, correlation=corr,
         ne_fitted=electron_density is None, ionization_energy_ev=chi, lowering_ev=dchi,
         slope=b, intercept=c, x=x_star, y=y_star, y_error=sy, fitted=c + b * x_star,
         studentized=fit.studentized, used=fit.used, flags=flags, chi2=fit.chi2, dof=fit.dof,

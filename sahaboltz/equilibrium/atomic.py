@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from sahaboltz.equilibrium import compiled_newton
 from sahaboltz.equilibrium.closures import Closure
 from sahaboltz.equilibrium.network import AtomicNetwork
 from sahaboltz.equilibrium.state import (CONVERGED, NOT_CONVERGED, STRONGLY_COUPLED,
@@ -50,7 +51,8 @@ _LOG_FLOOR = -300.0
 _DENSITY_THR = 45.0
 # the low-density-limit solve only starts the density-dependent one: a loose tolerance will do
 _START_TOLERANCE = 1e-6
-# a density-dependent Newton step below this times sqrt(tol) is the last one (see run)
+# a Newton step below this times sqrt(tol) is the last one (see run): its error is of the
+# order of its square
 _FINAL_STEP = 1e-4
 
 
@@ -116,8 +118,29 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
                      for c, tab in zip(network.chains, c_unique)]
     else:
         ut = tinv = c_unique = None
+    fast = None
+    if c_unique is not None and compiled_newton.available() and (
+            not density or network.scheme.key == "occupation"):
+        bare = [network.bare_log_c(c, ut) for c in network.chains] if density else None
+        fast = compiled_newton.CompiledSolver(network, ut, c_unique, intervals, bare)
+        kind = (compiled_newton.FIXED_NUCLEI if fixed_n is not None else
+                compiled_newton.FIXED_PARTICLES if ntot is not None else
+                compiled_newton.FIXED_ELECTRONS)
     for c0 in range(0, n, chunk):
         idx = order[c0:c0 + chunk]
+        if fast is not None:
+            fn = None if fixed_n is None else fixed_n[idx]
+            nt = None if ntot is None else ntot[idx]
+            x_hi = _x_upper(network, closure, t[idx], v[idx], fn, nt)
+            nref = fn if fn is not None else nt if nt is not None else np.zeros(idx.size)
+            x0 = (x_hi if fn is None and nt is None else
+                  _weak_start(network, c_unique, tinv[idx], fn, nt, x_hi))
+            out = fast.run(tinv[idx], kind, nref, x0, x_hi, tol,
+                           max(tol, _START_TOLERANCE) if density else tol, max_passes,
+                           _FINAL_STEP * np.sqrt(tol))
+            x_out[idx], nuc_out[idx], passes[idx], resid[idx], done = out
+            failed[idx] = ~done
+            continue
         if density:
             out = _solve_density_block(network, t[idx], v[idx], closure,
                                        None if fixed_n is None else fixed_n[idx],
@@ -139,14 +162,15 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
         sub = _ChunkSolver(network, t[idx], v[idx], closure,
                            None if fixed_n is None else fixed_n[idx],
                            None if ntot is None else ntot[idx], (c_unique, intervals, tinv[idx]))
-        sub.run(tol, max_passes)
+        sub.run(tol, max_passes, final_step=_FINAL_STEP * np.sqrt(tol))
         x_out[idx], nuc_out[idx], passes[idx], resid[idx] = sub.x, sub.nuc, sub.passes, sub.resid
         failed[idx] = ~sub.done
     bad = failed | ~np.isfinite(x_out) | ~np.isfinite(nuc_out) | ~(nuc_out > 0)
     status = np.zeros(n, dtype=np.int8)
     reason = np.full(n, "", dtype=object)
     if bad.any():
-        _classify_failures(network, closure, t, v, resid, passes, bad, status, reason)
+        _classify_failures(network, closure, t, v, resid, passes, bad, status, reason,
+                           max_passes)
     if lowering:
         _check_lowering(network, lam_out, ~bad, status, reason)
         _unsettled_coupling(t, ne_last, status, reason)
@@ -158,7 +182,12 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
             status, reason)
 
 
-def _classify_failures(network, closure, t, v, resid, passes, bad, status, reason) -> None:
+#: the default of ``max_passes``; a smaller limit is the first suspect of a failure
+DEFAULT_MAX_PASSES = 200
+
+
+def _classify_failures(network, closure, t, v, resid, passes, bad, status, reason,
+                       max_passes: int = DEFAULT_MAX_PASSES) -> None:
     """Status and reason of the states ``bad``: a given electron pressure that the gas cannot
     supply (with the largest it can there), or no convergence."""
     idx = np.flatnonzero(bad)
@@ -176,6 +205,9 @@ def _classify_failures(network, closure, t, v, resid, passes, bad, status, reaso
     hint = ("; the 'lowered' cut makes U jump whenever a level crosses the limit, so the "
             "balance can lack an exact root: 'occupation' is continuous"
             if network.scheme.key == "lowered" else "; check that the state is physical")
+    if max_passes < DEFAULT_MAX_PASSES:
+        hint = (f"; max_passes={max_passes} is below the default {DEFAULT_MAX_PASSES}: "
+                "raise it")
     for i in idx:
         reason[i] = (f"no convergence in {int(passes[i])} passes (relative charge residual "
                      f"{resid[i]:.3g}){hint}")
@@ -403,6 +435,18 @@ def _unsettled_coupling(t, ne_last, status, reason) -> None:
                      f"Gamma_e = {g:.3g} > {COUPLING_LIMIT:g}, too strongly coupled for this model")
 
 
+def _weak_start(network, c_unique, tpos, fixed_n, ntot, x_hi):
+    """Weak-ionization estimate n_e ~ sqrt(N sum_k alpha_k Phi_k), capped by x_hi."""
+    terms = np.empty((len(network.chains), tpos.size))
+    for k, (c, tab) in enumerate(zip(network.chains, c_unique)):
+        i0 = int(np.flatnonzero(c.charges == 0)[0])
+        terms[k] = np.log(c.fraction) + (tab[i0 + 1] - tab[i0])[tpos]
+    mx = terms.max(axis=0)
+    ln_sum = mx + np.log(np.exp(terms - mx).sum(axis=0))
+    nref = fixed_n if fixed_n is not None else ntot
+    return np.minimum(0.5 * (np.log(nref) + ln_sum), x_hi - 1e-9)
+
+
 class _ChunkSolver:
     """Safeguarded Newton in ln n_e over one block of states, with fixed Saha tables."""
 
@@ -443,19 +487,10 @@ class _ChunkSolver:
         return zbar, var, zabs, z2
 
     def _initial(self):
-        """Weak-ionization estimate n_e ~ sqrt(N sum_k alpha_k Phi_k), capped by x_hi."""
         if self.fixed_n is None and self.ntot is None:
             return self.x_hi.copy()
-        terms = []
         c_unique, _, tpos = self.ideal_tables
-        for c, tab in zip(self.net.chains, c_unique):
-            i0 = int(np.flatnonzero(c.charges == 0)[0])
-            terms.append(np.log(c.fraction) + (tab[i0 + 1] - tab[i0])[tpos])
-        terms = np.array(terms)
-        mx = terms.max(axis=0)
-        ln_sum = mx + np.log(np.exp(terms - mx).sum(axis=0))
-        nref = self.fixed_n if self.fixed_n is not None else self.ntot
-        return np.minimum(0.5 * (np.log(nref) + ln_sum), self.x_hi - 1e-9)
+        return _weak_start(self.net, c_unique, tpos, self.fixed_n, self.ntot, self.x_hi)
 
     def run(self, tol, max_passes, moments=None, x0=None, final_step=None):
         """Safeguarded Newton in x = ln n_e.
@@ -614,7 +649,7 @@ class _Windows:
     """
 
     #: chains this short are always taken whole (and H with H- needs its true charges)
-    WHOLE = 4
+    WHOLE = compiled_newton.WHOLE_CHAIN
     _BIG = 4.0 * _X_CLIP + 8.0
 
     def __init__(self, chains, c_unique, intervals, tpos):

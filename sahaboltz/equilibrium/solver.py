@@ -162,9 +162,11 @@ def solve_equilibrium(composition: Composition, temperature: Any = None, *,
                                      for c in _closures.THERMAL_CLOSURES.values()))
     closure_def, t, v, scheme = checked_inputs(composition, temperature, closure, truncation,
                                                lowering)
-    if not (isinstance(max_passes, (int, np.integer)) and max_passes >= 1):
+    if not (isinstance(max_passes, (int, np.integer)) and not isinstance(max_passes, bool)
+            and max_passes >= 1):
         raise InputError(f"max_passes must be a positive whole number, got {max_passes!r}")
-    if not (isinstance(tolerance, (int, float)) and 1e-15 <= tolerance < 1e-2):
+    if not (isinstance(tolerance, (int, float)) and not isinstance(tolerance, bool)
+            and 1e-15 <= tolerance < 1e-2):
         raise InputError(f"tolerance must be a number in [1e-15, 1e-2), got {tolerance!r}")
     if network is None:
         network = AtomicNetwork(composition, database, scheme, completion, h_minus,

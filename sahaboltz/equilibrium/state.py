@@ -25,6 +25,17 @@ from sahaboltz.kernels.saha import chain_fractions
 from sahaboltz.quantities import as_positive_array
 
 
+#: names of :meth:`EquilibriumState.quantity` and their units
+QUANTITY_UNITS = {"temperature": "K", "n_e": "cm-3", "nuclei_density": "cm-3",
+                  "particle_density": "cm-3", "hydrogen_density": "cm-3",
+                  "electron_pressure": "dyn cm-2", "gas_pressure": "dyn cm-2",
+                  "mass_density": "g cm-3", "mean_molecular_weight": "u",
+                  "mean_charge": "", "debye_length": "cm", "coupling_parameter": "",
+                  "degeneracy_parameter": "", "number_density": "cm-3", "fraction": "",
+                  "partition_function": "", "lowering_ev": "eV"}
+#: the names that take a species
+SPECIES_QUANTITIES = ("number_density", "fraction", "partition_function", "lowering_ev")
+
 #: the outcome of a solve at one state (``EquilibriumState.status``), by code
 STATUS_NAMES = ("converged", "unreachable", "strongly_coupled", "not_converged")
 CONVERGED, UNREACHABLE, STRONGLY_COUPLED, NOT_CONVERGED = range(len(STATUS_NAMES))
@@ -419,6 +430,52 @@ class EquilibriumState:
         :func:`sahaboltz.equilibrium.export.state_to_xarray`)."""
         from sahaboltz.equilibrium.export import state_to_xarray
         return state_to_xarray(self, dims)
+
+    # -- units and notebooks -------------------------------------------------------------------
+    def quantity(self, name: str, species: str | None = None):
+        """An astropy Quantity of a result, e.g. ``state.quantity("n_e")`` (cm^-3),
+        ``state.quantity("gas_pressure")`` (dyn cm^-2; ``.to("Pa")`` converts) or
+        ``state.quantity("number_density", "Fe II")``; names in :data:`QUANTITY_UNITS`."""
+        import astropy.units as u
+
+        if name not in QUANTITY_UNITS:
+            raise InputError(f"quantity: unknown name {name!r}; choose from "
+                             f"{', '.join(QUANTITY_UNITS)}")
+        if name in SPECIES_QUANTITIES:
+            if species is None:
+                raise InputError(f"quantity({name!r}) needs a species, e.g. "
+                                 f"quantity({name!r}, 'Fe II')")
+            value = getattr(self, name)(species)
+        else:
+            if species is not None:
+                raise InputError(f"quantity({name!r}) takes no species")
+            value = getattr(self, name)
+        return np.asarray(value, dtype=float) * u.Unit(QUANTITY_UNITS[name])
+
+    def _repr_html_(self) -> str:
+        from sahaboltz._html import html_table, span
+
+        rows = [("composition", self.composition.name),
+                ("states", "one" if not self.shape else f"{self.shape} = {self.temperature.size}"),
+                ("temperature", span(self.temperature, "K")),
+                (self.closure, span(self.closure_value, QUANTITY_UNITS.get(self.closure, ""))),
+                ("n_e", span(self.n_e, "cm-3")),
+                ("electron pressure", span(self.electron_pressure, "dyn cm-2")),
+                ("mass density", span(self.mass_density, "g cm-3")),
+                ("truncation", _truncation.used(self.network.scheme, self.lowering)),
+                ("converged", f"{int(self.converged.sum())} of {self.converged.size}")]
+        if not self.shape:
+            symbols = list(self.composition.symbols)
+            common = [e for e in ("H", "He", "C", "N", "O", "Na", "Mg", "Si", "Ca", "Fe")
+                      if e in symbols]
+            for el in (common if len(symbols) > 12 else symbols):
+                chain = self.network.chain_of(el)
+                q = int(self.dominant_stage(el))
+                f = float(np.max(self.stage_fractions(el)))
+                rows.append((f"dominant {el}", f"{chain.names[list(chain.charges).index(q)]} "
+                                               f"({f:.3g})"))
+        return html_table("EquilibriumState (LTE)", rows,
+                          "state.quantity('n_e') gives astropy Quantities")
 
     def __repr__(self) -> str:
         return (f"EquilibriumState({self.composition.name!r}, shape={self.shape}, "

@@ -1,9 +1,12 @@
-"""``sahaboltz demo``: the demo scenario (an invented K dwarf and an invented argon arc).
+"""sahaboltz demo: the demo scenario (an invented K dwarf and an invented argon arc).
 
     sahaboltz demo                      # tables through the cache, summary, plots
     sahaboltz demo --out plots/ --quick # reduced grids, a few seconds
 
-See :mod:`sahaboltz.faces.demo` for the scenario.  A second run finds both tables in the cache.
+The two tables go to the table cache (sahaboltz table cache dir prints where it is;
+$SAHABOLTZ_CACHE_DIR moves it; sahaboltz table cache clear --all empties it); the plots go to
+--out.  A second run finds both tables in the cache.  The scenario is described in the
+module sahaboltz.faces.demo.
 """
 
 from __future__ import annotations
@@ -11,6 +14,7 @@ from __future__ import annotations
 import argparse
 
 from sahaboltz.faces.output import add_format_option, emit
+from sahaboltz.faces.state_options import number_option
 
 
 def register(subparsers) -> None:
@@ -22,14 +26,19 @@ def register(subparsers) -> None:
                    help="directory for the plots (default ./sahaboltz-demo)")
     p.add_argument("--quick", action="store_true", help="reduced grids (seconds; for tests)")
     p.add_argument("--no-plots", action="store_true", help="skip the plots")
-    p.add_argument("--workers", type=int, default=None,
+    p.add_argument("--workers", type=number_option(integer=True, minimum=1), default=None,
                    help="worker processes for the table builds (default: all cores)")
     add_format_option(p)
     p.set_defaults(func=_run)
 
 
-def _status(hit: bool) -> str:
-    return "cache hit" if hit else "built"
+#: how the demo reports what the cache did for a table (TableResult.status)
+STATUS_WORDS = {"built": "built", "cached": "cache hit",
+                "waited": "waited for another process that built it"}
+
+
+def _status(status: str) -> str:
+    return STATUS_WORDS.get(status, status)
 
 
 def _run(args) -> int:
@@ -40,10 +49,11 @@ def _run(args) -> int:
     meta = {
         "star": f"{STAR['name']}: invented {STAR['kind']}, Teff {STAR['teff']:,.0f} K, "
                 f"log g {STAR['logg']}, [M/H] = {STAR['metallicity']:+.1f}",
-        "star table": f"{r.star_table} ({_status(r.cache_hits['star'])}, "
+        "star table": f"{r.star_table} ({_status(r.statuses['star'])}, "
                       f"{s['star_table']:.1f} s)",
-        "arc table": f"{r.arc_table} ({_status(r.cache_hits['arc'])}, {s['arc_table']:.1f} s)",
+        "arc table": f"{r.arc_table} ({_status(r.statuses['arc'])}, {s['arc_table']:.1f} s)",
         "cache directory": str(r.cache_dir),
+        "cache": "$SAHABOLTZ_CACHE_DIR moves it; 'sahaboltz table cache clear --all' empties it",
         "P_e over the star's table [dyn cm-2]":
             f"{r.electron_pressure_range[0]:.3g} .. {r.electron_pressure_range[1]:.3g}",
         "P_e along the photosphere, tau 1e-3..10 [dyn cm-2]":

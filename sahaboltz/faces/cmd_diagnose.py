@@ -8,14 +8,13 @@ docs/diagnostics.md.  Plots are drawn headless (matplotlib Agg canvas, no displa
 
 from __future__ import annotations
 
-import os
-import tempfile
-from pathlib import Path
+import argparse
 
 import numpy as np
 
 from sahaboltz.errors import InputError
-from sahaboltz.faces.output import add_format_option, emit
+from sahaboltz.faces.output import add_format_option, emit, emit_summary
+from sahaboltz.faces.state_options import number_option, quantity_option
 
 _SAFETY = ("results assume optically thin lines, LTE and a homogeneous plasma; not for "
            "safety decisions about real equipment")
@@ -37,8 +36,9 @@ def register(sub) -> None:
     _common(b)
     b.add_argument("--species", help="use the lines of this species (needed when the file "
                                      "holds several)")
-    b.add_argument("--electron-density", type=float, metavar="CM-3",
-                   help="n_e known from elsewhere, for the McWhirter check")
+    b.add_argument("--electron-density", type=quantity_option("cm-3"), metavar="CM-3",
+                   help="n_e known from elsewhere, for the McWhirter check [cm^-3, or with a "
+                        "unit]")
     b.set_defaults(func=run_boltzmann)
 
     s = dsub.add_parser("saha-boltzmann", help="T and n_e from two successive stages",
@@ -47,13 +47,15 @@ def register(sub) -> None:
     _common(s)
     s.add_argument("--element", help="use the lines of this element (needed when the file "
                                      "holds several)")
-    s.add_argument("--electron-density", type=float, metavar="CM-3",
-                   help="n_e known from elsewhere: fit T only")
-    s.add_argument("--electron-density-error", type=float, default=0.0, metavar="CM-3",
-                   help="1-sigma uncertainty of --electron-density")
-    s.add_argument("--no-lowering", action="store_true",
-                   help="no Debye-Hueckel lowering of the ionization energy")
-    s.add_argument("--initial-temperature", type=float, default=1e4, metavar="K",
+    s.add_argument("--electron-density", type=quantity_option("cm-3"), metavar="CM-3",
+                   help="n_e known from elsewhere: fit T only [cm^-3, or with a unit]")
+    s.add_argument("--electron-density-error", type=quantity_option("cm-3", positive=False,
+                                                                    minimum=0.0),
+                   default=0.0, metavar="CM-3", help="1-sigma uncertainty of --electron-density")
+    s.add_argument("--lowering", action=argparse.BooleanOptionalAction, default=True,
+                   help="Debye-Hueckel lowering of the ionization energy, as in every command "
+                        "(default on here: --no-lowering leaves it out)")
+    s.add_argument("--initial-temperature", type=quantity_option("K"), default=1e4, metavar="K",
                    help="start of the T iteration when n_e is given (default 10000 K)")
     s.set_defaults(func=run_saha_boltzmann)
 
@@ -62,19 +64,29 @@ def register(sub) -> None:
                                     "stage r+1 to one of stage r, at a known temperature; "
                                     "every pair in the file unless --neutral/--ion pick lines.")
     d.add_argument("lines", help="line-list CSV file")
-    d.add_argument("--temperature", type=float, required=True, metavar="K")
-    d.add_argument("--temperature-error", type=float, default=0.0, metavar="K",
+    d.add_argument("-T", "--temperature", type=quantity_option("K"), required=True, metavar="K",
+                   help="the plasma temperature [K, or with a unit]")
+    d.add_argument("--temperature-error", type=quantity_option("K", positive=False, minimum=0.0),
+                   default=0.0, metavar="K",
                    help="1-sigma uncertainty of the temperature (propagated)")
     d.add_argument("--element", help="use the lines of this element")
-    d.add_argument("--neutral", type=float, metavar="NM", help="wavelength of the stage-r line")
-    d.add_argument("--ion", type=float, metavar="NM", help="wavelength of the stage-r+1 line")
-    d.add_argument("--tolerance", type=float, default=0.01, metavar="NM",
+    d.add_argument("--neutral", type=quantity_option("nm"), metavar="NM",
+                   help="wavelength of the stage-r line")
+    d.add_argument("--ion", type=quantity_option("nm"), metavar="NM",
+                   help="wavelength of the stage-r+1 line")
+    d.add_argument("--outlier-threshold", type=number_option(positive=True), default=3.0,
+                   metavar="T", help="a pair more than T of its own errors from the combined "
+                                     "ln n_e is flagged (default 3)")
+    d.add_argument("--show-pairs", action="store_true",
+                   help="print every pair (n_e, bounds, outlier flag) instead of the summary")
+    d.add_argument("--tolerance", type=quantity_option("nm"), default=0.01, metavar="NM",
                    help="wavelength match tolerance for --neutral/--ion (default 0.01 nm)")
-    d.add_argument("--no-lowering", action="store_true",
-                   help="no Debye-Hueckel lowering of the ionization energy")
+    d.add_argument("--lowering", action=argparse.BooleanOptionalAction, default=True,
+                   help="Debye-Hueckel lowering of the ionization energy, as in every command "
+                        "(default on here: --no-lowering leaves it out)")
     d.add_argument("--photon-counts", action="store_true",
                    help="intensities are photon counts (default: energy units)")
-    d.add_argument("--delta-e", type=float, metavar="EV",
+    d.add_argument("--delta-e", type=quantity_option("eV"), metavar="EV",
                    help="level gap for the McWhirter check (default: from the database)")
     add_format_option(d)
     d.set_defaults(func=run_density)
@@ -84,16 +96,19 @@ def register(sub) -> None:
                                     "built on real database levels with INVENTED A values: for "
                                     "trying the diagnostics, never as atomic data.")
     y.add_argument("--species", nargs="+", required=True, help="e.g. 'Fe I' 'Fe II'")
-    y.add_argument("--lines", type=int, default=8, metavar="N", help="lines per species")
-    y.add_argument("--temperature", type=float, required=True, metavar="K")
-    y.add_argument("--electron-density", type=float, required=True, metavar="CM-3")
-    y.add_argument("--noise", type=float, default=0.05,
+    y.add_argument("--lines", type=number_option(integer=True, minimum=1), default=8,
+                   metavar="N", help="lines per species")
+    y.add_argument("-T", "--temperature", type=quantity_option("K"), required=True, metavar="K",
+                   help="the plasma temperature [K, or with a unit]")
+    y.add_argument("--electron-density", type=quantity_option("cm-3"), required=True,
+                   metavar="CM-3", help="n_e [cm^-3, or with a unit]")
+    y.add_argument("--noise", type=number_option(minimum=0.0), default=0.05,
                    help="relative log-normal intensity noise (default 0.05)")
-    y.add_argument("--a-error", type=float, default=0.0,
+    y.add_argument("--a-error", type=number_option(minimum=0.0), default=0.0,
                    help="relative error given to the synthetic A values (default 0)")
-    y.add_argument("--resonance-lines", type=int, default=0, metavar="N",
-                   help="lines per species ending on the ground level")
-    y.add_argument("--seed", type=int, default=None)
+    y.add_argument("--resonance-lines", type=number_option(integer=True, minimum=0), default=0,
+                   metavar="N", help="lines per species ending on the ground level")
+    y.add_argument("--seed", type=number_option(integer=True), default=None)
     y.add_argument("--output", required=True, metavar="CSV")
     add_format_option(y)
     y.set_defaults(func=run_synthesize)
@@ -105,11 +120,15 @@ def _common(p) -> None:
                    help="intensities are photon counts (default: energy units)")
     p.add_argument("--reject-outliers", action="store_true",
                    help="drop outliers (|studentized residual| > threshold) and refit")
-    p.add_argument("--outlier-threshold", type=float, default=3.0, metavar="T",
+    p.add_argument("--outlier-threshold", type=number_option(positive=True), default=3.0,
+                   metavar="T",
                    help="studentized-residual limit of the outlier flag (default 3)")
-    p.add_argument("--delta-e", type=float, metavar="EV",
+    p.add_argument("--delta-e", type=quantity_option("eV"), metavar="EV",
                    help="level gap for the McWhirter check (default: from the database)")
-    p.add_argument("--plot", metavar="PNG", help="draw the fit to this image file")
+    p.add_argument("--plot", metavar="PNG", help="draw the fit (with its residuals) to this "
+                                                 "image file (.png or .pdf)")
+    p.add_argument("--dpi", type=number_option(positive=True), default=None,
+                   help="resolution of a PNG plot (default 200)")
     p.add_argument("--show-lines", action="store_true",
                    help="print the per-line table (ordinates, residuals, flags) instead of "
                         "the summary")
@@ -132,7 +151,7 @@ def run_saha_boltzmann(args) -> int:
     fit = saha_boltzmann_plot(read_lines(args.lines), args.element,
                               electron_density=args.electron_density,
                               electron_density_error=args.electron_density_error,
-                              lowering=not args.no_lowering, photon_counts=args.photon_counts,
+                              lowering=args.lowering, photon_counts=args.photon_counts,
                               reject_outliers=args.reject_outliers,
                               outlier_threshold=args.outlier_threshold,
                               initial_temperature=args.initial_temperature,
@@ -155,14 +174,29 @@ def run_density(args) -> int:
             keep &= hit
     neutral, ion = neutral.select(keep), ion.select(keep)
     res = ratio_density(neutral, ion, args.temperature, args.temperature_error,
-                        lowering=not args.no_lowering, photon_counts=args.photon_counts,
+                        lowering=args.lowering, photon_counts=args.photon_counts,
                         delta_e_ev=args.delta_e)
-    meta = {"note": _SAFETY}
+    notes = {}
     if res.lte:
-        meta["lte_note"] = res.lte[0].message if len(res.lte) == 1 else (
+        notes["lte_note"] = res.lte[0].message if len(res.lte) == 1 else (
             f"McWhirter criterion met by {sum(bool(c.satisfied) for c in res.lte)} of "
             f"{len(res.lte)} pairs (needs n_e >= {res.lte[0].required_density:.3g} cm^-3)")
-    emit(res.rows(), args.format, title="electron density from line ratios", meta=meta)
+    notes["note"] = _SAFETY
+    rows = res.rows(args.outlier_threshold)
+    title = "electron density from line ratios"
+    if args.show_pairs or len(rows) == 1:
+        emit(rows, args.format, title=title, meta=notes)
+        return 0
+    comb = res.combined(args.outlier_threshold)
+    summary = {"method": "ionic-to-neutral line ratios, combined in ln n_e",
+               "temperature_K": res.temperature, "temperature_error_K": res.temperature_error,
+               **comb.summary()}
+    out = [r for r in rows if r["outlier"]]
+    summary["outliers"] = ("; ".join(f"{r['neutral']} / {r['ion']}" for r in out[:8])
+                           + (f" and {len(out) - 8} more" if len(out) > 8 else "")) or "none"
+    summary.update(notes)
+    emit_summary(summary, args.format, title=title + f" ({len(rows)} pairs; --show-pairs "
+                                                      "lists them)")
     return 0
 
 
@@ -189,12 +223,14 @@ def _report(args, fit, title) -> None:
     summary = fit.summary()
     summary["note"] = _SAFETY
     if args.plot:
-        plot_fit(fit, args.plot)
+        from sahaboltz.faces.plots import diagnostic_fit_plot, save_figure
+        fig, _ = diagnostic_fit_plot(fit)
+        save_figure(fig, args.plot, dpi=args.dpi)
         summary["plot"] = args.plot
     if args.show_lines:
         emit(line_rows(fit), args.format, title=title, meta=summary)
     else:
-        emit([{"quantity": k, "value": v} for k, v in summary.items()], args.format, title=title)
+        emit_summary(summary, args.format, title=title)
 
 
 def line_rows(fit) -> list[dict]:
@@ -205,64 +241,3 @@ def line_rows(fit) -> list[dict]:
              "fitted": float(fit.fitted[i]), "studentized": float(fit.studentized[i]),
              "used": bool(fit.used[i]), "flags": fit.flags[i], "label": ln.label[i]}
             for i in range(len(ln))]
-
-
-def plot_fit(fit, path) -> Path:
-    """Draw a Boltzmann or Saha-Boltzmann fit (points with error bars, fitted line) to ``path``.
-
-    Uses the Agg canvas directly (no display, no pyplot state).  The image is written to a
-    temporary file and moved into place, so a failed write leaves no half file.
-    """
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    path = Path(path)
-    fig = Figure(figsize=(7.0, 4.8))
-    FigureCanvasAgg(fig)
-    ax = fig.add_subplot(111)
-    saha = hasattr(fit, "upper")
-    groups = ([(fit.lower, ~fit.upper_stage, "C0"), (fit.upper, fit.upper_stage, "C1")]
-              if saha else [(fit.species, np.ones(fit.used.size, dtype=bool), "C0")])
-    flagged = np.array([("outlier" in f) or ("self-absorption" in f) for f in fit.flags])
-    for name, sel, colour in groups:
-        ok = sel & fit.used
-        ax.errorbar(fit.x[ok], fit.y[ok], yerr=fit.y_error[ok], fmt="o", ms=4, color=colour,
-                    capsize=2, label=name)
-        out = sel & ~fit.used
-        if out.any():
-            ax.errorbar(fit.x[out], fit.y[out], yerr=fit.y_error[out], fmt="x", ms=6,
-                        color=colour, capsize=2, label=f"{name} rejected")
-    if flagged.any():
-        ax.plot(fit.x[flagged], fit.y[flagged], "s", mfc="none", mec="red", ms=10,
-                label="flagged")
-    xs = np.linspace(fit.x.min(), fit.x.max(), 2)
-    pad = 0.05 * (xs[1] - xs[0])
-    xs = np.array([xs[0] - pad, xs[1] + pad])
-    ax.plot(xs, fit.intercept + fit.slope * xs, "k-", lw=1,
-            label=f"T = {fit.temperature:.0f} +/- {fit.temperature_error:.0f} K")
-    ylab = "ln(I / (g A))" if fit.photon_counts else "ln(I lambda / (g A))"
-    if saha:
-        ax.set_xlabel("E_u [eV] (upper stage: E_u + chi - dchi)")
-        ax.set_ylabel(ylab + " (upper stage: - ln(2 S(T) / n_e))")
-        src = "fitted" if fit.ne_fitted else "given"
-        ax.set_title(f"Saha-Boltzmann plot {fit.lower} + {fit.upper}: n_e = "
-                     f"{fit.electron_density:.3g} cm^-3 ({src})", fontsize=10)
-    else:
-        ax.set_xlabel("upper-level energy E_u [eV]")
-        ax.set_ylabel(ylab)
-        ax.set_title(f"Boltzmann plot {fit.species}", fontsize=10)
-    ax.legend(fontsize=8)
-    ax.grid(alpha=0.3)
-    fig.tight_layout()
-    suffix = path.suffix or ".png"
-    fd, tmp = tempfile.mkstemp(dir=path.parent if str(path.parent) else ".",
-                               prefix=f".{path.name}.", suffix=suffix)
-    os.close(fd)
-    try:
-        fig.savefig(tmp, dpi=110, format=suffix.lstrip("."))
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-    return path

@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+import argparse
+
 import numpy as np
 
 from sahaboltz.data.database import default_database
 from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
-from sahaboltz.faces.state_options import truncation_option
+from sahaboltz.faces.state_options import (number_option, quantity_option,
+                                           temperatures_from_args, truncation_option)
 from sahaboltz.kernels import truncation as registry
 from sahaboltz.kernels.boltzmann import level_populations, select_levels
 from sahaboltz.kernels.partition import PartitionModel, default_truncation
@@ -15,18 +18,25 @@ from sahaboltz.kernels.partition import PartitionModel, default_truncation
 
 def _add_truncation_options(p) -> None:
     p.add_argument("--truncation", type=truncation_option, default=None, metavar="SCHEME",
-                   help="how the level sum is truncated (default: occupation with --n-e, "
-                        "lowered with --lowering, plain at a temperature alone): "
-                        f"{registry.choices_help()}")
+                   help="how the level sum is truncated (default: occupation with "
+                        "--electron-density, lowered with --lowering, plain at a temperature "
+                        f"alone): {registry.choices_help()}")
     p.add_argument("--completion", action="store_true",
                    help="add hydrogenic Rydberg levels of the parent above the highest "
                         "tabulated level (needs --truncation lowered or occupation)")
-    p.add_argument("--n-e", type=float, default=None, metavar="CM-3", dest="n_e",
-                   help="electron density [cm^-3] for the density-dependent truncations")
-    p.add_argument("--lowering", type=float, default=None, metavar="EV",
-                   help="ionization-potential lowering [eV] for --truncation lowered "
-                        "(default: Debye-Hueckel from --n-e)")
-    p.add_argument("--n-neutral", type=float, default=None, metavar="CM-3", dest="n_neutral",
+    p.add_argument("--electron-density", "--n-e", type=quantity_option("cm-3"), default=None,
+                   metavar="CM-3", dest="n_e",
+                   help="electron density [cm^-3, or with a unit] for the density-dependent "
+                        "truncations (--n-e is the old spelling)")
+    p.add_argument("--lowering", action="store_true",
+                   help="Debye-Hueckel lowering of the ionization energy at --electron-density "
+                        "(as in every command); --lowering-energy gives the value instead")
+    p.add_argument("--lowering-energy", type=quantity_option("eV", positive=False, minimum=0.0),
+                   default=None, metavar="EV",
+                   help="a given ionization-potential lowering [eV, or with a unit] for "
+                        "--truncation lowered")
+    p.add_argument("--n-neutral", type=quantity_option("cm-3", positive=False, minimum=0.0),
+                   default=None, metavar="CM-3", dest="n_neutral",
                    help="density of neutral perturbers [cm^-3] for --truncation occupation")
 
 
@@ -35,11 +45,14 @@ def register(sub) -> None:
                        description="Internal partition functions over a list or a range of "
                                    "temperatures, one column per species.")
     p.add_argument("species", nargs="+", help="e.g. 'Fe II' Fe+ 'H I'")
-    p.add_argument("-T", "--temperature", type=float, nargs="+", metavar="K",
-                   help="temperatures [K]")
-    p.add_argument("--range", type=float, nargs=3, metavar=("START", "STOP", "N"),
-                   help="N temperatures from START to STOP [K]")
-    p.add_argument("--log", action="store_true", help="space --range geometrically")
+    p.add_argument("-T", "--temperature", nargs="+", metavar="MIN:MAX:NUM|V1,V2,..",
+                   help="temperatures [K, or with a unit]: values (space- or comma-separated) "
+                        "or MIN:MAX:NUM")
+    p.add_argument("--temperature-scale", choices=("log", "linear"), default="linear",
+                   help="spacing of a MIN:MAX:NUM range (default linear)")
+    p.add_argument("--range", type=number_option(), nargs=3, metavar=("START", "STOP", "N"),
+                   help=argparse.SUPPRESS)  # old spelling of -T START:STOP:N
+    p.add_argument("--log", action="store_true", help=argparse.SUPPRESS)  # old: log spacing
     p.add_argument("--derivative", action="store_true",
                    help="also print d ln U / d ln T for each species")
     _add_truncation_options(p)
@@ -50,15 +63,17 @@ def register(sub) -> None:
                        description="Fraction of a stage in each level at one temperature "
                                    "(and density), with the partition function.")
     p.add_argument("species", help="e.g. 'Fe II'")
-    p.add_argument("-T", "--temperature", type=float, required=True, metavar="K",
-                   help="temperature [K]")
-    p.add_argument("--index", type=int, nargs="+", default=None, metavar="I",
-                   help="only these level indices (0 = ground)")
-    p.add_argument("--energy-range", type=float, nargs=2, default=None, metavar=("LO", "HI"),
+    p.add_argument("-T", "--temperature", type=quantity_option("K"), required=True,
+                   metavar="VALUE", help="temperature [K, or with a unit]")
+    p.add_argument("--index", type=number_option(integer=True, minimum=0), nargs="+",
+                   default=None, metavar="I", help="only these level indices (0 = ground)")
+    p.add_argument("--energy-range", type=quantity_option("eV", positive=False), nargs=2,
+                   default=None, metavar=("LO", "HI"),
                    help="only levels with LO <= E <= HI [eV]")
     p.add_argument("--configuration", default=None, help="only this configuration (wildcards ok)")
     p.add_argument("--term", default=None, help="only this term label (wildcards ok)")
-    p.add_argument("--limit", type=int, default=None, metavar="N", help="at most N rows")
+    p.add_argument("--limit", type=number_option(integer=True, minimum=1), default=None,
+                   metavar="N", help="at most N rows")
     _add_truncation_options(p)
     add_format_option(p)
     p.set_defaults(func=run_populations)
@@ -67,7 +82,7 @@ def register(sub) -> None:
 def _temperatures(args) -> np.ndarray:
     if args.temperature and args.range:
         raise InputError("give either -T/--temperature or --range, not both")
-    if args.range:
+    if args.range:  # the old spelling, kept working: --range START STOP N [--log]
         start, stop, n = args.range
         if n < 1 or n != int(n):
             raise InputError(f"--range: N must be a positive integer, got {n:g}")
@@ -77,13 +92,33 @@ def _temperatures(args) -> np.ndarray:
             return np.geomspace(start, stop, int(n))
         return np.linspace(start, stop, int(n))
     if args.temperature:
-        return np.asarray(args.temperature, dtype=float)
-    raise InputError("give temperatures with -T/--temperature or --range START STOP N")
+        if args.log:
+            args.temperature_scale = "log"
+        return temperatures_from_args(args)
+    raise InputError("give temperatures with -T/--temperature, e.g. -T 4000 6000 or "
+                     "-T 2000:10000:5")
+
+
+def _lowering_ev(args):
+    """The lowering [eV] asked for: a given value, or Debye-Hueckel at --electron-density
+    for a neutral's ionization (z = 0; the model applies (z + 1) e^2 / lambda_D per species)."""
+    if args.lowering and args.lowering_energy is not None:
+        raise InputError("give --lowering (Debye-Hueckel) or --lowering-energy EV, not both")
+    if args.lowering_energy is not None:
+        return args.lowering_energy
+    if args.lowering:
+        if args.n_e is None:
+            raise InputError("--lowering needs --electron-density (the lowering follows from it)")
+        return None
+    return None
 
 
 def _scheme(args) -> str:
     """The truncation to use: the one asked for, else the best for what is given."""
-    return default_truncation(args.truncation, args.n_e, args.lowering).key
+    low = _lowering_ev(args)
+    if args.lowering and args.truncation is None:
+        return "lowered"
+    return default_truncation(args.truncation, args.n_e, low).key
 
 
 def _warn_plain(args, species, t, u) -> None:
@@ -106,9 +141,10 @@ def _warn_plain(args, species, t, u) -> None:
 
 
 def _lowering(args, n_species: int):
-    if args.lowering is None:
+    low = _lowering_ev(args)
+    if low is None:
         return None
-    return np.full(n_species, args.lowering)
+    return np.full(n_species, low)
 
 
 def run_partition(args) -> int:
@@ -130,8 +166,10 @@ def run_partition(args) -> int:
     meta = {"truncation": model.truncation, "completion": args.completion}
     if args.n_e is not None:
         meta["n_e_cm-3"] = args.n_e
-    if args.lowering is not None:
-        meta["lowering_eV"] = args.lowering
+    if args.lowering_energy is not None:
+        meta["lowering_eV"] = args.lowering_energy
+    elif args.lowering:
+        meta["lowering"] = "Debye-Hueckel at n_e"
     emit(rows, args.format, title="Partition functions", meta=meta)
     return 0
 
@@ -143,7 +181,7 @@ def run_populations(args) -> int:
                                   ("configuration", args.configuration), ("term", args.term))
                 if v is not None}
     sel = select_levels(sp, **criteria) if criteria else np.flatnonzero(sp.bound)
-    low = None if args.lowering is None else args.lowering
+    low = _lowering_ev(args)
     scheme = _scheme(args)
     pops = level_populations(sp, args.temperature, truncation=scheme,
                              completion=args.completion, n_e=args.n_e, lowering_ev=low,

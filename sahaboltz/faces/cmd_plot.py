@@ -1,4 +1,4 @@
-"""``sahaboltz plot``: pictures of LTE equilibria, written as PNG or PDF (by file suffix).
+"""sahaboltz plot: pictures of LTE equilibria, written as PNG or PDF (by file suffix).
 
     sahaboltz plot stages Fe --temperature 3000:12000:200 --gas-pressure 1e5 -o fe.png
     sahaboltz plot dominant Fe --temperature 3000:30000:80 --gas-pressure 1e-2:1e6:33 -o fe.pdf
@@ -7,11 +7,13 @@
     sahaboltz plot levels "Fe I" --temperature 4600,6000 --gas-pressure 1e5
     sahaboltz plot thermo --temperature 1500:1e6:121 --gas-pressure 1e-2:1e10:61 --molecules default
 
-Temperatures and pressures are MIN:MAX:NUM (evenly spaced; logarithmically for pressures and
-for the temperature axis of maps) or comma-separated values, in K and cgs units.  The state
-options (--mix, --by, --metallicity, --alpha, --lowering, --truncation, --no-h-minus and one of
---gas-pressure, --mass-density, --hydrogen-density, --electron-pressure) are those of
-'sahaboltz state'.
+Temperatures (-T/--temperature) and pressures are MIN:MAX:NUM or comma-separated values, in
+K and cgs units unless a unit is written ('1 atm', '1e2:1e6:9 Pa', '5000 K,8000 K').  The
+spacing of a temperature range is --temperature-scale log|linear; pressure ranges are
+log-spaced.  The state options (--mix, --by, --metallicity, --alpha, --lowering,
+--truncation, --no-h-minus and one of --gas-pressure, --mass-density, --hydrogen-density,
+--nuclei-density, --electron-pressure) are those of 'sahaboltz state'.  PNG files are
+written at 200 dpi (--dpi); --no-annotations leaves out the title and the note of conditions.
 """
 
 from __future__ import annotations
@@ -22,9 +24,11 @@ from pathlib import Path
 
 from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
-from sahaboltz.faces.state_options import (add_closure_options, add_mixture_options,
+from sahaboltz.faces.state_options import (CLOSURE_FLAG, CLOSURE_UNITS, add_closure_options,
+                                           add_mixture_options, add_temperature_option,
                                            closure_from_args, composition_from_args,
-                                           parse_values, solver_options)
+                                           number_option, parse_values, quantity_option,
+                                           solver_options, temperatures_from_args)
 
 
 def register(subparsers) -> None:
@@ -40,7 +44,8 @@ def register(subparsers) -> None:
     _temperature(s, "3000:30000:300", "linear")
     add_closure_options(s, default=("gas_pressure", "1e5"))
     s.add_argument("--log", action="store_true", help="logarithmic fraction axis")
-    s.add_argument("--min-fraction", type=float, default=1e-3, metavar="F",
+    s.add_argument("--min-fraction", type=number_option(positive=True), default=1e-3,
+                   metavar="F",
                    help="leave out stages that never reach F (default 1e-3)")
     _state(s)
     _finish(s, _stages)
@@ -51,7 +56,8 @@ def register(subparsers) -> None:
     _temperature(b, "1000:6000:126", "linear")
     add_closure_options(b, default=("gas_pressure", "1e6"))
     b.add_argument("--linear", action="store_true", help="linear fraction axis (default log)")
-    b.add_argument("--min-fraction", type=float, default=1e-3, metavar="F",
+    b.add_argument("--min-fraction", type=number_option(positive=True), default=1e-3,
+                   metavar="F",
                    help="leave out parts that never reach F (default 1e-3)")
     _state(b)
     b.set_defaults(molecules="default")
@@ -82,8 +88,9 @@ def register(subparsers) -> None:
     _temperature(u, "2000:20000:200", "linear")
     u.add_argument("--truncations", default="plain", metavar="T1,T2,..",
                    help="plain, lowered, occupation (comma-separated; default plain)")
-    u.add_argument("--electron-density", type=float, default=None, metavar="CM-3",
-                   help="n_e [cm^-3] held fixed, for the lowered and occupation truncations")
+    u.add_argument("--electron-density", type=quantity_option("cm-3"), default=None,
+                   metavar="CM-3", help="n_e [cm^-3, or with a unit] held fixed, for the "
+                                        "lowered and occupation truncations")
     u.add_argument("--completion", action="store_true",
                    help="hydrogenic completion of the level lists (not for plain)")
     _finish(u, _partition)
@@ -97,19 +104,16 @@ def register(subparsers) -> None:
 
     v = sub.add_parser("levels", help="level-population (Boltzmann) diagram of one species")
     v.add_argument("species", help="e.g. 'Fe I', 'Ar II'")
-    v.add_argument("--temperature", default="5000", metavar="T1,T2,..",
-                   help="one or a few temperatures [K], one series each (default 5000)")
+    add_temperature_option(v, default="5000")
     add_closure_options(v, default=("gas_pressure", "1e5"))
-    v.add_argument("--max-energy", type=float, default=None, metavar="EV",
+    v.add_argument("--max-energy", type=quantity_option("eV"), default=None, metavar="EV",
                    help="only levels up to this excitation energy [eV]")
     _state(v)
     _finish(v, _levels)
 
 
 def _temperature(p, default: str, scale: str) -> None:
-    p.add_argument("--temperature", default=default, metavar="MIN:MAX:NUM|V1,V2,..",
-                   help=f"temperatures [K] ({'log-spaced' if scale == 'log' else 'evenly spaced'} "
-                        f"from MIN:MAX:NUM; default {default})")
+    add_temperature_option(p, default=default, scale=scale)
 
 
 def _state(p) -> None:
@@ -119,6 +123,10 @@ def _state(p) -> None:
 def _finish(p, func) -> None:
     p.add_argument("-o", "--output", metavar="FILE.png|FILE.pdf",
                    help="image file to write (default: a name from the plot, .png, here)")
+    p.add_argument("--dpi", type=number_option(positive=True), default=None,
+                   help="resolution of a PNG file (default 200)")
+    p.add_argument("--no-annotations", dest="annotate", action="store_false",
+                   help="leave out the title and the note of the conditions")
     add_format_option(p)
     p.set_defaults(func=func)
 
@@ -127,7 +135,7 @@ def _write(args, fig, default_stem: str, what: str, t0: float) -> int:
     from sahaboltz.faces.plots import save_figure
 
     out = Path(args.output) if args.output else Path(f"{default_stem}.png")
-    path = save_figure(fig, out)
+    path = save_figure(fig, out, dpi=args.dpi)
     emit([{"plot": what, "file": str(path), "bytes": path.stat().st_size,
            "seconds": round(time.perf_counter() - t0, 2)}], args.format)
     return 0
@@ -139,10 +147,9 @@ def _safe(text: str) -> str:
 
 def _one_closure(args) -> tuple[str, float]:
     name, text = closure_from_args(args)
-    vals = parse_values(text, name)
+    vals = parse_values(text, CLOSURE_FLAG[name], unit=CLOSURE_UNITS[name])
     if vals.size != 1:
-        raise InputError(f"--{name.replace('_', '-')}: give one value for this plot, "
-                         f"got {text!r}")
+        raise InputError(f"{CLOSURE_FLAG[name]}: give one value for this plot, got {text!r}")
     return name, float(vals[0])
 
 
@@ -151,11 +158,11 @@ def _stages(args) -> int:
 
     t0 = time.perf_counter()
     closure, value = _one_closure(args)
-    fig = stage_fractions_plot(args.element, parse_values(args.temperature, "--temperature",
-                                                          scale="linear"), value,
+    fig = stage_fractions_plot(args.element, temperatures_from_args(args), value,
                                composition=composition_from_args(args),
                                pressure_quantity=closure, log=args.log,
-                               min_fraction=args.min_fraction, **solver_options(args))
+                               min_fraction=args.min_fraction, **solver_options(args),
+                               annotate=args.annotate)
     return _write(args, fig, f"stages_{_safe(args.element)}", "stage fractions", t0)
 
 
@@ -165,13 +172,13 @@ def _budget(args) -> int:
     t0 = time.perf_counter()
     closure, value = _one_closure(args)
     opts = solver_options(args)
-    fig = element_budget_plot(args.element, parse_values(args.temperature, "--temperature",
-                                                         scale="linear"), value,
+    fig = element_budget_plot(args.element, temperatures_from_args(args), value,
                               composition=composition_from_args(args),
                               pressure_quantity=closure, log=not args.linear,
                               min_fraction=args.min_fraction,
                               molecules=opts.pop("molecules", "none"),
-                              condensates=opts.pop("condensates", False), **opts)
+                              condensates=opts.pop("condensates", False), **opts,
+                              annotate=args.annotate)
     return _write(args, fig, f"budget_{_safe(args.element)}", "element budget", t0)
 
 
@@ -180,10 +187,12 @@ def _dominant(args) -> int:
 
     t0 = time.perf_counter()
     closure, text = closure_from_args(args)
-    fig = dominant_stage_plot(args.element, parse_values(args.temperature, "--temperature"),
-                              parse_values(text, closure),
+    fig = dominant_stage_plot(args.element, temperatures_from_args(args),
+                              parse_values(text, CLOSURE_FLAG[closure],
+                                           unit=CLOSURE_UNITS[closure]),
                               composition=composition_from_args(args),
-                              pressure_quantity=closure, **solver_options(args))
+                              pressure_quantity=closure, **solver_options(args),
+                              annotate=args.annotate)
     return _write(args, fig, f"dominant_{_safe(args.element)}", "dominant stage", t0)
 
 
@@ -204,10 +213,9 @@ def _partition(args) -> int:
 
     t0 = time.perf_counter()
     truncs = [x.strip() for x in args.truncations.split(",") if x.strip()]
-    fig = partition_function_plot(args.species, parse_values(args.temperature, "--temperature",
-                                                             scale="linear"),
+    fig = partition_function_plot(args.species, temperatures_from_args(args),
                                   truncations=truncs, electron_density=args.electron_density,
-                                  completion=args.completion)
+                                  completion=args.completion, annotate=args.annotate)
     return _write(args, fig, f"partition_{_safe('_'.join(args.species))}",
                   "partition functions", t0)
 
@@ -216,9 +224,11 @@ def _electron_pressure(args) -> int:
     from sahaboltz.faces.plots import electron_pressure_plot
 
     t0 = time.perf_counter()
-    fig = electron_pressure_plot(parse_values(args.temperature, "--temperature", scale="linear"),
-                                 parse_values(args.gas_pressure, "--gas-pressure"),
-                                 composition=composition_from_args(args), **solver_options(args))
+    fig = electron_pressure_plot(temperatures_from_args(args),
+                                 parse_values(args.gas_pressure, "--gas-pressure",
+                                              unit="dyn cm-2"),
+                                 composition=composition_from_args(args), **solver_options(args),
+                                 annotate=args.annotate)
     return _write(args, fig, "electron_pressure", "electron pressure", t0)
 
 
@@ -227,10 +237,11 @@ def _levels(args) -> int:
 
     t0 = time.perf_counter()
     closure, value = _one_closure(args)
-    fig = level_population_plot(args.species, parse_values(args.temperature, "--temperature"),
+    fig = level_population_plot(args.species, temperatures_from_args(args),
                                 value, composition=composition_from_args(args),
                                 pressure_quantity=closure,
-                                max_energy_ev=args.max_energy, **solver_options(args))
+                                max_energy_ev=args.max_energy, **solver_options(args),
+                                annotate=args.annotate)
     return _write(args, fig, f"levels_{_safe(args.species)}", "level populations", t0)
 
 

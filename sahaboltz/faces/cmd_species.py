@@ -9,6 +9,7 @@ from sahaboltz.data.elements import Z_OF, atomic_number
 from sahaboltz.data.species import Species
 from sahaboltz.errors import InputError, NoDataError
 from sahaboltz.faces.output import add_format_option, emit
+from sahaboltz.faces.state_options import number_option, quantity_option
 
 
 def register(sub) -> None:
@@ -22,9 +23,11 @@ def register(sub) -> None:
     p = sub.add_parser("levels", help="list the energy levels of a species",
                        description="Energy levels of one species, lowest first.")
     p.add_argument("species", help="e.g. 'Fe II', Fe+, 'H I'")
-    p.add_argument("--max-energy", type=float, default=None, metavar="EV",
+    p.add_argument("--max-energy", type=quantity_option("eV", positive=False), default=None,
+                   metavar="EV",
                    help="only levels up to this excitation energy [eV]")
-    p.add_argument("--limit", type=int, default=None, metavar="N", help="at most N levels")
+    p.add_argument("--limit", type=number_option(integer=True, minimum=1), default=None,
+                   metavar="N", help="at most N levels")
     p.add_argument("--autoionizing", action="store_true",
                    help="also list levels above the ionization limit")
     add_format_option(p)

@@ -1,8 +1,10 @@
-"""``sahaboltz table``: build, inspect and query population tables; manage the table cache.
+"""sahaboltz table: build, inspect and query population tables; manage the table cache.
 
     sahaboltz table template > grid.toml          # an annotated spec file to edit
     sahaboltz table build grid.toml               # build (or find) it in the cache
     sahaboltz table build --temperature 3000:30000:100 --pressure 1e2:1e6:41 -o t.h5
+    sahaboltz table build grid.toml --composition-axis metallicity=-2:0.5:6   # a third axis
+    sahaboltz table build grid.toml --scheduler tcp://10.0.0.5:8786   # on a Dask cluster
     sahaboltz table inspect t.h5                  # provenance and stored quantities
     sahaboltz table query t.h5 --at 5800,1e5 -q electron_density,fraction_Fe_II
     sahaboltz table cache list | inspect KEY | clear [KEY | --all] | dir
@@ -14,6 +16,7 @@ import argparse
 import csv
 from dataclasses import replace
 import importlib
+import os
 import sys
 import time
 from pathlib import Path
@@ -23,8 +26,8 @@ import numpy as np
 from sahaboltz.equilibrium.closures import CLOSURES
 from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
-from sahaboltz.faces.state_options import add_mixture_options, parse_mix
-from sahaboltz.tables.spec import normalize_composition
+from sahaboltz.faces.state_options import add_mixture_options, number_option, parse_mix
+from sahaboltz.tables.spec import composition_axis_from_text, normalize_composition
 
 
 def register(subparsers) -> None:
@@ -39,12 +42,13 @@ def register(subparsers) -> None:
     b = sub.add_parser("build", help="build a table from a spec file or options")
     b.add_argument("spec", nargs="?", help="spec file (.toml or .json); or give the options below")
     g = b.add_argument_group("grid (when no spec file is given)")
-    g.add_argument("--temperature", metavar="MIN:MAX:NUM|V1,V2,..",
-                   help="temperature axis [K] (default 2000:50000, 100 per decade)")
+    g.add_argument("-T", "--temperature", metavar="MIN:MAX:NUM|V1,V2,..",
+                   help="temperature axis [K, or with a unit] (default 2000:50000, 100 per "
+                        "decade)")
     g.add_argument("--temperature-scale", choices=("log", "linear"), default="log")
     g.add_argument("--pressure", metavar="MIN:MAX:NUM|V1,V2,..",
-                   help="pressure-like axis in cgs (default gas pressure 1e-2:1e8 dyn cm-2, "
-                        "10 per decade)")
+                   help="pressure-like axis in cgs or with a unit, e.g. '1e2:1e6:9' or "
+                        "'1e1:1e5:9 Pa' (default gas pressure 1e-2:1e8 dyn cm-2, 10 per decade)")
     g.add_argument("--pressure-quantity", default="gas_pressure",
                    choices=tuple(CLOSURES))
     g.add_argument("--pressure-scale", choices=("log", "linear"), default="log")
@@ -57,10 +61,22 @@ def register(subparsers) -> None:
                    help="level populations to store, e.g. 'Fe II:0-9' (repeatable)")
     g.add_argument("--partition", action="append", default=[], metavar="SPECIES",
                    help="partition functions to store, e.g. 'Fe II' (repeatable)")
+    b.add_argument("--composition-axis", metavar="QUANTITY=MIN:MAX:NUM|V1,V2,..",
+                   help="a third grid axis over the composition: metallicity ([M/H], dex), "
+                        "alpha ([alpha/Fe], dex), Y (helium mass fraction) or an element "
+                        "symbol (its abundance offset in dex; abundance:Y for yttrium), e.g. "
+                        "metallicity=-2:0.5:6 (also with a spec file without one)")
     b.add_argument("-o", "--output", help="write the table here instead of the cache")
     b.add_argument("--rebuild", action="store_true", help="rebuild even if cached")
-    b.add_argument("--workers", type=int, help="worker processes (default: all cores)")
-    b.add_argument("--chunk-states", type=int, default=None, help="states per block")
+    b.add_argument("--workers", type=number_option(integer=True, minimum=1),
+                   help="worker processes (default: all cores)")
+    b.add_argument("--scheduler", metavar="ADDRESS",
+                   help="run the blocks on a Dask cluster: its scheduler's tcp://HOST:PORT or "
+                        "scheduler file (.json); needs sahaboltz[dask] (docs/scaling.md)")
+    b.add_argument("--no-resume", action="store_true",
+                   help="start afresh instead of going on from an interrupted build's record")
+    b.add_argument("--chunk-states", type=number_option(integer=True, minimum=1), default=None,
+                   help="states per block")
     b.add_argument("--no-progress", action="store_true", help="no progress bar")
     b.add_argument("--compute", metavar="MODULE:FUNCTION",
                    help="advanced: your own compute(spec, T, P) -> dict of arrays instead of "
@@ -76,10 +92,13 @@ def register(subparsers) -> None:
 
     q = sub.add_parser("query", help="interpolate a table at given points")
     q.add_argument("table", help="table file, or a cache key (prefix)")
-    q.add_argument("--at", action="append", default=[], metavar="T,P",
-                   help="a point: temperature [K] and the table's pressure-like quantity in cgs "
-                        "(repeatable)")
-    q.add_argument("--points", metavar="CSV", help="CSV file with two columns T,P (header optional)")
+    q.add_argument("--at", action="append", default=[], metavar="T,P[,C]",
+                   help="a point: temperature [K] and the table's pressure-like quantity in cgs, "
+                        "or with units ('5800 K,1e4 Pa'), and the composition value for a table "
+                        "with a composition axis (repeatable)")
+    q.add_argument("--points", metavar="CSV",
+                   help="CSV file with columns T,P (and C with a composition axis; header "
+                        "optional)")
     q.add_argument("-q", "--quantities", action="append", default=[], metavar="NAME,..",
                    help="quantities to interpolate (default: the scalar ones)")
     q.add_argument("--method", choices=("quintic", "cubic", "linear"), default="quintic",
@@ -137,10 +156,18 @@ def _spec_from_args(args):
                     args.truncation, args.completion, args.no_h_minus, args.molecules != "none",
                     args.condensates,
                     args.fractions != "all")
+    axis = composition_axis_from_text(args.composition_axis) if args.composition_axis else None
     if args.spec:
         if any(grid_opts) or any(physics_opts):
             raise InputError("give either a spec file or grid options, not both")
-        return TableSpec.from_file(args.spec)
+        spec = TableSpec.from_file(args.spec)
+        if axis is not None:
+            if spec.composition_axis is not None:
+                raise InputError(f"{args.spec} has a composition axis already "
+                                 f"({spec.composition_axis.name}); give it there or with "
+                                 f"--composition-axis, not both")
+            spec = replace(spec, composition_axis=axis)
+        return spec
     spec = spec_from_options(args.temperature, args.pressure,
                              pressure_quantity=args.pressure_quantity,
                              temperature_scale=args.temperature_scale,
@@ -150,12 +177,19 @@ def _spec_from_args(args):
                              completion=args.completion,
                              h_minus=not args.no_h_minus, fractions=args.fractions,
                              levels=args.levels, partition_functions=args.partition)
-    return replace(spec, composition=_composition_doc(args))
+    return replace(spec, composition=_composition_doc(args, axis is not None),
+                   composition_axis=axis)
 
 
-def _composition_doc(args) -> dict:
+def _composition_doc(args, modifiers: bool = False) -> dict:
     """The spec's composition from the shared mixture options (--mix, --by, --metallicity,
-    --alpha): solar by name, anything else as resolved number abundances."""
+    --alpha): solar by name, anything else as resolved number abundances (with a composition
+    axis, [M/H] and [alpha/Fe] kept as modifiers, so that one given twice is caught)."""
+    if modifiers and args.mix.strip().lower() != "solar":
+        comp = parse_mix(args.mix, args.by, 0.0, 0.0)
+        return normalize_composition({
+            "abundances": dict(zip(comp.symbols, (float(x) for x in comp.number_fraction))),
+            "metallicity": args.metallicity, "alpha_enhancement": args.alpha})
     if args.mix.strip().lower() == "solar":
         doc = {"name": "solar"}
         if args.metallicity:
@@ -171,19 +205,32 @@ def _composition_doc(args) -> dict:
 def _build(args) -> int:
     from sahaboltz.tables.cache import obtain_table
 
+    if args.scheduler is not None:  # a malformed address: an error before anything else
+        from sahaboltz.tables.cluster import check_address
+        check_address(args.scheduler)
+        if args.workers:
+            raise InputError("--workers sets local processes; with --scheduler the cluster's "
+                             "workers compute: give one of them")
     spec = _spec_from_args(args)
-    opts = {"workers": args.workers, "progress": False if args.no_progress else None}
+    opts = {"workers": args.workers, "progress": False if args.no_progress else None,
+            "resume": not args.no_resume}
+    if args.scheduler is not None:
+        opts["scheduler"] = args.scheduler
     if args.chunk_states:
         opts["chunk_states"] = args.chunk_states
+    stats: dict = {}
     t0 = time.perf_counter()
     res = obtain_table(spec, output=args.output, compute=_load_compute(args.compute),
-                       rebuild=args.rebuild, **opts)
+                       rebuild=args.rebuild, stats=stats, **opts)
+    if stats.get("resumed"):
+        print(f"sahaboltz: note: resumed an interrupted build: {stats['resumed']} of "
+              f"{stats['blocks']} blocks were stored already", file=sys.stderr)
     if res.failed_states:
         print(f"sahaboltz: note: {res.failed_states} of {spec.size} states could not be solved "
               "(their fields are NaN; the 'status' field says why)", file=sys.stderr)
     emit([{"key": res.key[:16], "status": res.status,
            "failed_states": res.failed_states if res.failed_states is not None else "",
-           "grid": f"{spec.shape[0]}x{spec.shape[1]}",
+           "grid": "x".join(str(n) for n in spec.shape),
            "seconds": round(time.perf_counter() - t0, 3), "path": str(res.path)}], args.format)
     return 0
 
@@ -193,6 +240,9 @@ def _resolve(text: str) -> Path:
     p = Path(text)
     if p.exists():
         return p
+    if "/" in text or os.sep in text or p.suffix:
+        raise InputError(f"no table file {text} (and not a cache key: "
+                         "see 'sahaboltz table cache list')")
     return cache.find(text)
 
 
@@ -212,6 +262,9 @@ def _inspect(args) -> int:
     info["temperature"] = f"{tab.temperature[0]:g}..{tab.temperature[-1]:g} K ({tab.temperature.size})"
     info[tab.pressure_quantity] = (f"{tab.pressure[0]:g}..{tab.pressure[-1]:g} "
                                    f"{tab.pressure_unit} ({tab.pressure.size})")
+    if tab.composition_axis is not None:
+        info[tab.composition_axis] = (f"{tab.composition[0]:g}..{tab.composition[-1]:g} "
+                                      f"{tab.composition_unit} ({tab.composition.size})")
     if args.verify:
         info["verified"] = "all chunks read, Fletcher-32 checksums ok"
     info["format_version"] = meta.get("format_version")
@@ -227,16 +280,28 @@ def _inspect(args) -> int:
     return 0
 
 
-def _points(args) -> tuple[np.ndarray, np.ndarray]:
-    pts: list[tuple[float, float]] = []
+def _points(args, ncol: int = 2, pressure_unit: str = "dyn cm-2") -> tuple[np.ndarray, ...]:
+    """The query points: ``ncol`` values each (T,P, or T,P,C with a composition axis); T and P
+    may carry units."""
+    from sahaboltz.quantities import parse_quantity
+
+    what = "T,P" if ncol == 2 else "T,P,C"
+    pts: list[tuple[float, ...]] = []
     for item in args.at:
-        parts = item.replace(" ", "").split(",")
-        try:
-            if len(parts) != 2:
-                raise ValueError
-            pts.append((float(parts[0]), float(parts[1])))
-        except ValueError:
-            raise InputError(f"--at: write T,P (two numbers), got {item!r}") from None
+        parts = item.split(",")
+        if len(parts) != ncol:
+            extra = " (the table has a composition axis)" if ncol == 3 else ""
+            raise InputError(f"--at: write {what} ({ncol} values{extra}, T and P each with an "
+                             f"optional unit, e.g. 5800,1e5 or '5800 K,1e4 Pa'), got {item!r}")
+        point = [parse_quantity(parts[0], "K", "--at (temperature)"),
+                 parse_quantity(parts[1], pressure_unit, "--at (pressure)")]
+        if ncol == 3:
+            try:
+                point.append(float(parts[2]))
+            except ValueError:
+                raise InputError(f"--at: the composition value must be a number, got "
+                                 f"{parts[2]!r}") from None
+        pts.append(tuple(point))
     if args.points:
         try:
             with open(args.points, newline="") as fh:
@@ -244,17 +309,18 @@ def _points(args) -> tuple[np.ndarray, np.ndarray]:
                     if not row or row[0].strip().startswith("#"):
                         continue
                     try:
-                        pts.append((float(row[0]), float(row[1])))
+                        pts.append(tuple(float(row[k]) for k in range(ncol)))
                     except (ValueError, IndexError):
                         if n == 1:  # header
                             continue
-                        raise InputError(f"{args.points}, line {n}: need two numbers T,P") from None
+                        raise InputError(f"{args.points}, line {n}: need {ncol} numbers "
+                                         f"{what}") from None
         except OSError as exc:
             raise InputError(f"cannot read {args.points}: {exc.strerror}") from None
     if not pts:
-        raise InputError("give points with --at T,P or --points FILE.csv")
+        raise InputError(f"give points with --at {what} or --points FILE.csv")
     a = np.array(pts, dtype=float)
-    return a[:, 0], a[:, 1]
+    return tuple(a[:, k] for k in range(ncol))
 
 
 def _query(args) -> int:
@@ -265,11 +331,14 @@ def _query(args) -> int:
     names = [n.strip() for item in args.quantities for n in item.split(",") if n.strip()]
     if not names:
         names = [n for n in tab.quantities if n in SCALAR_OUTPUTS]
-    t, p = _points(args)
-    vals = tab.interpolate(names, t, p, method=args.method, outside=args.outside)
+    t, p, *c = _points(args, 2 if tab.composition_axis is None else 3, tab.pressure_unit)
+    vals = tab.interpolate(names, t, p, c[0] if c else None, method=args.method,
+                           outside=args.outside)
     rows = []
     for k in range(t.size):
         row = {"temperature": float(t[k]), tab.pressure_quantity: float(p[k])}
+        if c:
+            row[tab.composition_axis] = float(c[0][k])
         row.update({n: float(vals[n][k]) for n in names})
         rows.append(row)
     emit(rows, args.format, meta={"table": str(tab.path), "method": args.method})
@@ -279,7 +348,7 @@ def _query(args) -> int:
 def _cache_list(args) -> int:
     from sahaboltz.tables import cache
     rows = [{"key": e["key"][:16], "created": e["created"],
-             "grid": f"{e['shape'][0]}x{e['shape'][1]}" if e["shape"] else "",
+             "grid": "x".join(str(n) for n in e["shape"]) if e["shape"] else "",
              "MB": round(e["size_bytes"] / 1e6, 3), "status": e["status"][:60],
              "title": e["title"] or ""} for e in cache.entries()]
     emit(rows, args.format, columns=["key", "created", "grid", "MB", "status", "title"],

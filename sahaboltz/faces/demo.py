@@ -95,6 +95,9 @@ class DemoResult:
     track_electron_pressure_range: tuple[float, float]
     plots: list[Path] = field(default_factory=list)
     cache_dir: Path | None = None
+    #: what the cache did for each table: "built", "cached" or "waited" (another process
+    #: built it while this one waited for it)
+    statuses: dict[str, str] = field(default_factory=dict)
 
 
 def _table(spec, workers):
@@ -102,7 +105,7 @@ def _table(spec, workers):
 
     t0 = time.perf_counter()
     res = obtain_table(spec, workers=workers, progress=False)
-    return res.path, res.status != "built", time.perf_counter() - t0
+    return res.path, res.status, time.perf_counter() - t0
 
 
 def _stage_rows(tab, element: str) -> tuple[list[str], np.ndarray]:
@@ -148,8 +151,9 @@ def run_demo(out_dir: str | Path = "sahaboltz-demo", *, quick: bool = False,
 
     t_start = time.perf_counter()
     seconds: dict[str, float] = {}
-    star_path, star_hit, seconds["star_table"] = _table(star_spec(quick), workers)
-    arc_path, arc_hit, seconds["arc_table"] = _table(arc_spec(quick), workers)
+    star_path, star_status, seconds["star_table"] = _table(star_spec(quick), workers)
+    arc_path, arc_status, seconds["arc_table"] = _table(arc_spec(quick), workers)
+    star_hit, arc_hit = star_status != "built", arc_status != "built"
 
     # -- the star: read the table back at a few depths ------------------------------------
     t0 = time.perf_counter()
@@ -206,7 +210,8 @@ def run_demo(out_dir: str | Path = "sahaboltz-demo", *, quick: bool = False,
     seconds["arc_read"] = time.perf_counter() - t0
 
     result = DemoResult(star_table=star_path, arc_table=arc_path,
-                        cache_hits={"star": star_hit, "arc": arc_hit}, seconds=seconds,
+                        cache_hits={"star": star_hit, "arc": arc_hit},
+                        statuses={"star": star_status, "arc": arc_status}, seconds=seconds,
                         depths=depths, arc=arc_rows,
                         electron_pressure_range=(float(pe.min()), float(pe.max())),
                         track_electron_pressure_range=(float(pe_track.min()),
@@ -240,8 +245,9 @@ def _plots(out: Path, tab, arc_tab, stage_info, arc_stages, j_atm, track_tau, ar
     fig = P.draw_dominant_map(
         t, p, dom, "Fe", fractions=fr, charges=charges,
         title=f"Dominant stage of iron in the photosphere of {star}",
-        note=describe_state(comp, closure="gas_pressure", value=p) + "; track: grey T(tau) "
-             "with the invented P_gas = 1.5e5 tau^0.65 dyn cm^-2, tau = 1e-3..10" + source,
+        note=describe_state(comp, closure="gas_pressure", value=p, tex=True)
+             + "; track: grey $T(\\tau)$ with the invented $P_\\mathrm{gas} = 1.5\\times10^5\\,"
+               "\\tau^{0.65}$ dyn cm$^{-2}$, $\\tau$ = 1e-3..10" + source,
         track=(grey_temperature(track_tau), track_pressure(track_tau),
                "photosphere, tau = 0.001-10"),
         marks=[(float(grey_temperature(x)), float(track_pressure(x)), f"tau = {x:g}")
@@ -254,9 +260,9 @@ def _plots(out: Path, tab, arc_tab, stage_info, arc_stages, j_atm, track_tau, ar
         names, charges, fr = stage_info[el]
         fig = P.draw_stage_fractions(
             t, fr[:, :, j], names, log=False,
-            title=f"Ionization of {el} in {STAR['name']} at P_gas = "
-                  f"{format_value(p[j], 'dyn cm-2')} (near tau = 1)",
-            note=describe_state(comp, closure="gas_pressure", value=p[j]) + source)
+            title=f"Ionization of {el} in {STAR['name']} at $P_\\mathrm{{gas}}$ = "
+                  f"{format_value(p[j], 'dyn cm-2', tex=True)} (near $\\tau$ = 1)",
+            note=describe_state(comp, closure="gas_pressure", value=p[j], tex=True) + source)
         written.append(P.save_figure(fig, out / f"korva_stages_{el}.png"))
 
     # 3. electron pressure against T at a few gas pressures of the table
@@ -267,13 +273,13 @@ def _plots(out: Path, tab, arc_tab, stage_info, arc_stages, j_atm, track_tau, ar
               for c in cols]
     fig = P.draw_electron_pressure(t, curves, title=f"Electron pressure in {star}",
                                    note=describe_state(comp, closure="gas_pressure",
-                                                       value=p[cols]) + source)
+                                                       value=p[cols], tex=True) + source)
     written.append(P.save_figure(fig, out / "korva_electron_pressure.png"))
 
     # 4. the argon arc at 1 atm
     ar_names, _, ar_fr = arc_stages
     argon_note = describe_state(_argon(), closure="gas_pressure", value=arc_tab.pressure[j_atm],
-                                lowering=ARC["lowering"])
+                                lowering=ARC["lowering"], tex=True)
     fig = P.draw_stage_fractions(
         arc_tab.temperature, ar_fr[:, :, j_atm], ar_names,
         title=f"{ARC['name']}: invented argon arc at 1 atm",

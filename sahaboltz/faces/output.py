@@ -14,12 +14,39 @@ import sys
 from typing import Any, Iterable, Sequence
 
 FORMATS = ("table", "csv", "json")
+#: significant digits of the numbers in CSV and JSON: the solver's results are good to about
+#: 1e-10 relative, so 15 digits keep all of it and drop the noise of the last binary digits
+#: (1e5 written as 1e5, not 99999.99999999999)
+DIGITS = 15
 
 
 def add_format_option(parser) -> None:
     """Give a subcommand the shared ``--format`` option."""
     parser.add_argument("--format", choices=FORMATS, default="table",
                         help="output as a readable table (default), CSV or JSON")
+
+
+def clean_number(value: Any) -> Any:
+    """A float (or numpy number) rounded to :data:`DIGITS` significant digits; numpy booleans
+    and integers as Python ones; anything else as it is."""
+    if isinstance(value, bool):
+        return value
+    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
+        try:
+            value = value.item()
+        except (ValueError, AttributeError):
+            return value
+    if isinstance(value, float) and math.isfinite(value):
+        return float(f"{value:.{DIGITS}g}")
+    return value
+
+
+def _clean(doc: Any) -> Any:
+    if isinstance(doc, dict):
+        return {k: _clean(v) for k, v in doc.items()}
+    if isinstance(doc, (list, tuple)):
+        return [_clean(v) for v in doc]
+    return clean_number(doc)
 
 
 def _cell(value: Any) -> str:
@@ -64,13 +91,13 @@ def emit(rows: Sequence[dict], fmt: str, *, columns: Sequence[str] | None = None
             doc["title"] = title
         if meta:
             doc["meta"] = meta
-        json.dump(doc, stream, indent=2, default=_json_default)
+        json.dump(_clean(doc), stream, indent=2, default=_json_default)
         stream.write("\n")
     elif fmt == "csv":
         buf = io.StringIO()
         writer = csv.DictWriter(buf, fieldnames=columns, extrasaction="ignore", lineterminator="\n")
         writer.writeheader()
-        writer.writerows(rows)
+        writer.writerows({k: clean_number(v) for k, v in r.items()} for r in rows)
         stream.write(buf.getvalue())
     else:
         if title:
@@ -79,6 +106,32 @@ def emit(rows: Sequence[dict], fmt: str, *, columns: Sequence[str] | None = None
             for k, v in meta.items():
                 stream.write(f"  {k}: {_cell(v)}\n")
         stream.write(render_table(rows, columns))
+
+
+def emit_summary(values: dict, fmt: str, *, title: str | None = None, stream=None) -> None:
+    """Write one result as key/value pairs: a readable two-column list (keys padded to a
+    common width, values left-aligned, long text wrapped under its value), a flat JSON
+    object, or CSV rows ``quantity,value``."""
+    stream = stream or sys.stdout
+    if fmt == "json":
+        doc = {"title": title, **values} if title else dict(values)
+        json.dump(_clean(doc), stream, indent=2, default=_json_default)
+        stream.write("\n")
+        return
+    if fmt == "csv":
+        emit([{"quantity": k, "value": v} for k, v in values.items()], "csv", stream=stream)
+        return
+    import textwrap
+
+    if title:
+        stream.write(title + "\n")
+    width = min(max((len(k) for k in values), default=0), 32)
+    for k, v in values.items():
+        text = _cell(v) if not isinstance(v, bool) else ("yes" if v else "no")
+        lines = textwrap.wrap(text, width=max(30, 96 - width)) or [""]
+        stream.write(f"  {k.ljust(width)}  {lines[0]}\n")
+        for more in lines[1:]:
+            stream.write(f"  {'':{width}}  {more}\n")
 
 
 def _json_default(obj):

@@ -9,12 +9,15 @@ headless and never touches the user's interactive backend.  Each picture comes i
 - ``*_plot`` functions solve the equilibrium (or evaluate the partition functions) with the
   package's public API and then call the matching ``draw_*``.
 
-Every figure names its axes with units and states its conditions (composition, pressure,
-physics options) in the title and a note under the axes.  :func:`save_figure` writes PNG or PDF
-(chosen by the file suffix) atomically.
+Every figure names its axes with units (mathtext) and states its conditions (composition,
+pressure, physics options) in the title and a note under the axes; ``annotate=False`` leaves
+both out.  Every function takes ``ax=`` (an Axes of your own figure, e.g. one panel of a
+multi-panel figure; its margins are then left alone) and returns ``(fig, ax)``.
+:func:`save_figure` writes PNG (200 dpi unless ``dpi=``) or PDF, chosen by the file suffix,
+atomically and with the usual file permissions.
 
->>> fig = stage_fractions_plot("Fe", np.linspace(3000, 12000, 200), 1e5)   # doctest: +SKIP
->>> save_figure(fig, "fe_stages.png")                                      # doctest: +SKIP
+>>> fig, ax = stage_fractions_plot("Fe", np.linspace(3000, 12000, 200), 1e5)   # doctest: +SKIP
+>>> save_figure(fig, "fe_stages.png")                                          # doctest: +SKIP
 """
 
 from __future__ import annotations
@@ -39,6 +42,8 @@ from sahaboltz.quantities import as_positive_array
 
 #: file suffixes :func:`save_figure` writes
 FORMATS = {".png": "png", ".pdf": "pdf"}
+#: resolution of PNG files unless ``dpi=`` says otherwise
+DEFAULT_DPI = 200
 _LN10 = float(np.log(10.0))
 # line styles of the truncation schemes, in the order they are drawn (the first: solid)
 _LINESTYLES = ["-", "--", ":", "-.", (0, (5, 1, 1, 1, 1, 1)), (0, (1, 3))]
@@ -49,13 +54,22 @@ _COLORS = ["#1b5e9e", "#d9661f", "#2a9d4b", "#b8332e", "#7b4fa6", "#8a5a44", "#d
 
 # -- figures and files ---------------------------------------------------------------------
 def new_figure(width: float = 7.2, height: float = 5.0, rows: int = 1,
-               height_ratios: Sequence[float] | None = None) -> tuple[Figure, Any]:
-    """A figure with ``rows`` axes sharing x, with fixed margins for the title and the note.
+               height_ratios: Sequence[float] | None = None, ax=None) -> tuple[Figure, Any]:
+    """A figure with ``rows`` axes sharing x, with fixed margins for the title and the note;
+    or, given ``ax`` (one Axes, or ``rows`` of them), that Axes' figure and the axes (a single
+    Axes where ``rows`` are wanted gives the axes and None for the others).
 
     (Fixed margins rather than constrained layout: drawing is then twice as fast, and every
     figure here has the same furniture.)
     """
-    fig = Figure(figsize=(width, height), dpi=110)
+    if ax is not None:
+        if rows == 1:
+            return _axes_figure(ax), ax
+        axes = list(ax) if isinstance(ax, (list, tuple, np.ndarray)) else [ax]
+        axes += [None] * (rows - len(axes))
+        return _axes_figure(axes[0]), axes[:rows]
+    fig = Figure(figsize=(width, height))
+    fig._sahaboltz_layout = True  # the margins are ours to adjust
     fig.subplots_adjust(left=0.115, right=0.955, top=0.93, bottom=0.14, hspace=0.08)
     if rows == 1:
         return fig, fig.add_subplot()
@@ -63,30 +77,56 @@ def new_figure(width: float = 7.2, height: float = 5.0, rows: int = 1,
     return fig, axes
 
 
+def _axes_figure(ax) -> Figure:
+    fig = getattr(ax, "figure", None)
+    if fig is None or not hasattr(ax, "plot"):
+        raise InputError(f"ax must be a matplotlib Axes, got {ax!r}")
+    return fig
+
+
+def _own(fig: Figure) -> bool:
+    return getattr(fig, "_sahaboltz_layout", False)
+
+
 def add_note(fig: Figure, text: str, width: int = 118) -> None:
-    """The conditions of a figure, in small type under the axes (the margin grows to fit)."""
+    """The conditions of a figure, in small type under the axes (the margin grows to fit).
+    On a figure of your own (``ax=``) the note goes under the axes without moving them."""
     lines = textwrap.wrap(text, width=width)
     inch = 1.0 / fig.get_figheight()
     fig.text(0.012, 0.012, "\n".join(lines), fontsize=7.5, color="0.25", ha="left", va="bottom")
-    fig.subplots_adjust(bottom=0.58 * inch + 0.13 * inch * len(lines))
+    if _own(fig):
+        fig.subplots_adjust(bottom=0.58 * inch + 0.13 * inch * len(lines))
 
 
 def set_title(fig: Figure, ax, title: str, width: int = 78) -> None:
     """Title over ``ax``, wrapped to fit; the top margin grows with the lines."""
     lines = textwrap.wrap(title, width=width)
     ax.set_title("\n".join(lines), fontsize=10.5)
-    inch = 1.0 / fig.get_figheight()
-    fig.subplots_adjust(top=1.0 - (0.12 + 0.19 * len(lines)) * inch)
+    if _own(fig):
+        inch = 1.0 / fig.get_figheight()
+        fig.subplots_adjust(top=1.0 - (0.12 + 0.19 * len(lines)) * inch)
 
 
-def save_figure(fig: Figure, path: str | os.PathLike) -> Path:
-    """Write ``fig`` to ``path`` as PNG or PDF (by suffix), never leaving a half-written file.
+def _annotate(fig: Figure, ax, title: str, note: str, annotate: bool) -> None:
+    """Title and note unless ``annotate`` is False."""
+    if annotate:
+        set_title(fig, ax, title)
+        if note:
+            add_note(fig, note)
+
+
+def save_figure(fig: Figure, path: str | os.PathLike, dpi: float | None = None) -> Path:
+    """Write ``fig`` (or the ``(fig, ax)`` a plot function returns) to ``path`` as PNG or PDF
+    (by suffix), never leaving a half-written file; PNG at ``dpi`` (default 200).  The file
+    gets the usual permissions (those of a new file under the user's umask).
 
     Raises
     ------
     InputError
         An unsupported suffix, or a directory that cannot be written.
     """
+    if isinstance(fig, tuple):
+        fig = fig[0]
     path = Path(path)
     fmt = FORMATS.get(path.suffix.lower())
     if fmt is None:
@@ -98,7 +138,7 @@ def save_figure(fig: Figure, path: str | os.PathLike) -> Path:
         raise InputError(f"cannot create the directory {path.parent}: {exc.strerror}") from None
     tmp = path.with_name(f".{path.name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp")
     try:
-        fig.savefig(tmp, format=fmt)
+        fig.savefig(tmp, format=fmt, dpi=DEFAULT_DPI if dpi is None else float(dpi))
         os.replace(tmp, path)
     except OSError as exc:
         raise InputError(f"cannot write {path}: {exc.strerror or exc}") from None
@@ -161,7 +201,8 @@ def _stage_names(element, charges: Sequence[int]) -> list[str]:
 
 # -- drawing: stage fractions --------------------------------------------------------------
 def draw_stage_fractions(temperature, fractions, names: Sequence[str], *, title: str,
-                         note: str = "", log: bool = False, min_fraction: float = 1e-3) -> Figure:
+                         note: str = "", log: bool = False, min_fraction: float = 1e-3,
+                         ax=None, annotate: bool = True) -> tuple[Figure, Any]:
     """Fractions of an element's stages against temperature.
 
     Parameters
@@ -181,7 +222,7 @@ def draw_stage_fractions(temperature, fractions, names: Sequence[str], *, title:
     f = np.asarray(fractions, dtype=float)
     if f.shape != (len(names), t.size):
         raise InputError(f"fractions must have shape ({len(names)}, {t.size}), got {f.shape}")
-    fig, ax = new_figure()
+    fig, ax = new_figure(ax=ax)
     shown = [i for i in range(len(names)) if f[i].max() >= min_fraction]
     for k, i in enumerate(shown):
         ax.plot(t, f[i], color=_COLORS[k % len(_COLORS)], lw=1.8, label=names[i])
@@ -194,12 +235,10 @@ def draw_stage_fractions(temperature, fractions, names: Sequence[str], *, title:
     else:
         ax.set_ylim(0.0, 1.08)
     ax.grid(alpha=0.3)
-    set_title(fig, ax, title)
-    if note:
-        add_note(fig, note)
+    _annotate(fig, ax, title, note, annotate)
     _label_curves(fig, ax, t, [f[i] for i in shown], [names[i] for i in shown],
                   [_COLORS[k % len(_COLORS)] for k in range(len(shown))])
-    return fig
+    return fig, ax
 
 
 def _label_curves(fig, ax, t, curves, names, colors) -> None:
@@ -242,7 +281,8 @@ def _label_curves(fig, ax, t, curves, names, colors) -> None:
 def draw_dominant_map(temperature, pressure, dominant, element, *, title: str, note: str = "",
                       pressure_quantity: str = "gas_pressure", fractions=None,
                       charges: Sequence[int] | None = None, track=None,
-                      marks: Sequence[tuple[float, float, str]] = ()) -> Figure:
+                      marks: Sequence[tuple[float, float, str]] = (), ax=None,
+                      annotate: bool = True) -> tuple[Figure, Any]:
     """Map of the most populated stage of an element over the (T, P) plane.
 
     Parameters
@@ -274,7 +314,7 @@ def draw_dominant_map(temperature, pressure, dominant, element, *, title: str, n
     lo, hi = present[0], present[-1]
     qs = list(range(lo, hi + 1))
     names = _stage_names(element, qs)
-    fig, ax = new_figure(7.2, 5.4)
+    fig, ax = new_figure(7.2, 5.4, ax=ax)
     palette = ["#dbe9f6", "#fde2c8", "#d7efd9", "#f6d5d3", "#e6dcf0", "#efe3c9", "#f7dcec",
                "#e2e2e2"]
     cmap = ListedColormap([palette[(q - lo) % len(palette)] for q in qs])
@@ -326,13 +366,11 @@ def draw_dominant_map(temperature, pressure, dominant, element, *, title: str, n
     log_ticks(ax.yaxis, p[0], p[-1], plain=False)
     ax.set_xlabel("temperature $T$ [K]")
     ax.set_ylabel(_pressure_axis_label(pressure_quantity))
-    set_title(fig, ax, title)
-    if note:
-        add_note(fig, note)
+    _annotate(fig, ax, title, note, annotate)
     # labels last, placed where they clear the lines: the marks, then the stage names
     _label_marks(fig, ax, [(np.log10(tm), np.log10(pm), text) for tm, pm, text in marks])
     _label_regions(fig, ax, lt, lp, d, qs, names)
-    return fig
+    return fig, ax
 
 
 def _obstacles(fig, ax):
@@ -422,7 +460,8 @@ def _place(text, renderer, frame, lines, taken, candidates) -> bool:
 
 # -- drawing: partition functions, electron pressure, level populations ---------------------
 def draw_partition_functions(temperature, curves: Sequence[tuple[str, str, Any]], *, title: str,
-                             note: str = "") -> Figure:
+                             note: str = "", ax=None, annotate: bool = True
+                             ) -> tuple[Figure, Any]:
     """Partition functions against temperature.
 
     Parameters
@@ -432,6 +471,10 @@ def draw_partition_functions(temperature, curves: Sequence[tuple[str, str, Any]]
         One colour per species, one line style per truncation.  When a species has a
         "plain" curve and others, a lower panel shows their ratio to the plain sum (the
         curves themselves often lie on top of each other).
+    ax : Axes or (Axes, Axes), optional
+        Where to draw; with one Axes of your own the ratio panel is left out.
+
+    Returns (fig, ax), or (fig, (ax, ratio_ax)) with the ratio panel.
     """
     t = np.asarray(temperature, dtype=float)
     species = list(dict.fromkeys(c[0] for c in curves))
@@ -440,9 +483,9 @@ def draw_partition_functions(temperature, curves: Sequence[tuple[str, str, Any]]
     plain = {c[0]: np.asarray(c[2], dtype=float) for c in curves if c[1] == "plain"}
     ratios = [c for c in curves if c[1] != "plain" and c[0] in plain]
     if ratios:
-        fig, (ax, axr) = new_figure(7.2, 6.2, rows=2, height_ratios=[2.3, 1])
+        fig, (ax, axr) = new_figure(7.2, 6.2, rows=2, height_ratios=[2.3, 1], ax=ax)
     else:
-        fig, ax = new_figure()
+        fig, ax = new_figure(ax=ax[0] if isinstance(ax, (list, tuple)) else ax)
         axr = None
     for name, trunc, u in curves:
         color = _COLORS[species.index(name) % len(_COLORS)]
@@ -455,7 +498,8 @@ def draw_partition_functions(temperature, curves: Sequence[tuple[str, str, Any]]
     ax.set_ylabel("partition function $U(T)$ (dimensionless)")
     ax.grid(alpha=0.3, which="both")
     ax.legend(fontsize=8.5, ncol=2 if len(curves) > 6 else 1, framealpha=0.85)
-    set_title(fig, ax, title)
+    if annotate:
+        set_title(fig, ax, title)
     if axr is not None:
         for name, trunc, u in ratios:
             color = _COLORS[species.index(name) % len(_COLORS)]
@@ -467,13 +511,14 @@ def draw_partition_functions(temperature, curves: Sequence[tuple[str, str, Any]]
         axr.set_xlabel("temperature $T$ [K]")
     else:
         ax.set_xlabel("temperature $T$ [K]")
-    if note:
+    if note and annotate:
         add_note(fig, note)
-    return fig
+    return (fig, (ax, axr)) if axr is not None else (fig, ax)
 
 
 def draw_electron_pressure(temperature, curves: Sequence[tuple[str, Any]], *, title: str,
-                           note: str = "") -> Figure:
+                           note: str = "", ax=None, annotate: bool = True
+                           ) -> tuple[Figure, Any]:
     """Electron pressure against temperature, one curve per gas pressure.
 
     Parameters
@@ -482,7 +527,7 @@ def draw_electron_pressure(temperature, curves: Sequence[tuple[str, Any]], *, ti
     curves : sequence of (label, P_e array [dyn cm^-2] of shape (n,))
     """
     t = np.asarray(temperature, dtype=float)
-    fig, ax = new_figure()
+    fig, ax = new_figure(ax=ax)
     for k, (lab, pe) in enumerate(curves):
         ax.plot(t, np.asarray(pe, dtype=float), color=_COLORS[k % len(_COLORS)], lw=1.8, label=lab)
     ax.set_yscale("log")
@@ -491,15 +536,13 @@ def draw_electron_pressure(temperature, curves: Sequence[tuple[str, Any]], *, ti
     ax.set_ylabel("electron pressure $P_e = n_e k T$ [dyn cm$^{-2}$]")
     ax.grid(alpha=0.3, which="both")
     ax.legend(fontsize=8.5, framealpha=0.85, loc="lower right")
-    set_title(fig, ax, title)
-    if note:
-        add_note(fig, note)
-    return fig
+    _annotate(fig, ax, title, note, annotate)
+    return fig, ax
 
 
 def draw_level_populations(series: Sequence[tuple[str, Any, Any]], *, title: str,
-                           note: str = "", boltzmann_lines: Sequence[tuple[float, float]] = ()
-                           ) -> Figure:
+                           note: str = "", boltzmann_lines: Sequence[tuple[float, float]] = (),
+                           ax=None, annotate: bool = True) -> tuple[Figure, Any]:
     """Level-population diagram: log10(n_i / g_i) against excitation energy.
 
     Parameters
@@ -509,7 +552,7 @@ def draw_level_populations(series: Sequence[tuple[str, Any, Any]], *, title: str
         Straight lines of slope -1 / (k T ln 10) per eV (the Boltzmann law), drawn through
         the given intercepts, one per series.
     """
-    fig, ax = new_figure()
+    fig, ax = new_figure(ax=ax)
     emax = max(float(np.max(e)) for _, e, _ in series)
     for k, (lab, e, y) in enumerate(series):
         color = _COLORS[k % len(_COLORS)]
@@ -527,10 +570,8 @@ def draw_level_populations(series: Sequence[tuple[str, Any, Any]], *, title: str
         handles.append(Line2D([], [], color="0.3", ls="--", lw=1.0))
         labels.append("Boltzmann law, slope $-1/(kT\\,\\ln 10)$")
     ax.legend(handles, labels, fontsize=8.5, framealpha=0.85, loc="upper right")
-    set_title(fig, ax, title)
-    if note:
-        add_note(fig, note)
-    return fig
+    _annotate(fig, ax, title, note, annotate)
+    return fig, ax
 
 
 # -- computing and drawing -----------------------------------------------------------------
@@ -569,7 +610,8 @@ def _scalar(value, name: str, unit: str) -> float:
 def stage_fractions_plot(element: str, temperature: Any, pressure: Any, *, composition=None,
                          pressure_quantity: str = "gas_pressure", truncation: str | None = None,
                          lowering: bool = False, h_minus: bool = True, log: bool = False,
-                         min_fraction: float = 1e-3) -> Figure:
+                         min_fraction: float = 1e-3, ax=None, annotate: bool = True
+                         ) -> tuple[Figure, Any]:
     """Stage fractions of ``element`` against temperature at one fixed pressure.
 
     Parameters
@@ -593,12 +635,12 @@ def stage_fractions_plot(element: str, temperature: Any, pressure: Any, *, compo
     q = state.stage_charges(element)
     sym = atomic_number(element)
     el = spectroscopic_name(sym, 0).split()[0]
-    title = (f"Ionization stages of {el} at {CLOSURE_SYMBOLS[pressure_quantity]} = "
-             f"{format_value(pv, CLOSURE_UNITS[pressure_quantity])}")
+    title = (f"Ionization stages of {el} at ${CLOSURES[pressure_quantity].tex}$ = "
+             f"{format_value(pv, CLOSURE_UNITS[pressure_quantity], tex=True)}")
     note = describe_state(comp, closure=pressure_quantity, value=pv, truncation=truncation,
-                          lowering=lowering, h_minus=h_minus)
+                          lowering=lowering, h_minus=h_minus, tex=True)
     return draw_stage_fractions(t, fr, _stage_names(element, q), title=title, note=note,
-                                log=log, min_fraction=min_fraction)
+                                log=log, min_fraction=min_fraction, ax=ax, annotate=annotate)
 
 
 def element_budget(state, element: str, min_fraction: float = 0.0
@@ -626,7 +668,8 @@ def element_budget_plot(element: str, temperature: Any, pressure: Any, *, compos
                         pressure_quantity: str = "gas_pressure", molecules="default",
                         condensates: bool = False, truncation: str | None = None,
                         lowering: bool = False, h_minus: bool = True, log: bool = True,
-                        min_fraction: float = 1e-3) -> Figure:
+                        min_fraction: float = 1e-3, ax=None, annotate: bool = True
+                        ) -> tuple[Figure, Any]:
     """Where the nuclei of ``element`` are (atoms, ions, each molecule, condensed) against
     temperature at one fixed pressure: the element's budget in cool gas."""
     from sahaboltz.equilibrium import solve_equilibrium
@@ -644,20 +687,21 @@ def element_budget_plot(element: str, temperature: Any, pressure: Any, *, compos
                               lowering=lowering, h_minus=h_minus, **opts)
     names, f = element_budget(state, element, min_fraction)
     el = names[0].split()[0]
-    title = (f"Where the {el} is, at {CLOSURE_SYMBOLS[pressure_quantity]} = "
-             f"{format_value(pv, CLOSURE_UNITS[pressure_quantity])}")
+    title = (f"Where the {el} is, at ${CLOSURES[pressure_quantity].tex}$ = "
+             f"{format_value(pv, CLOSURE_UNITS[pressure_quantity], tex=True)}")
     note = describe_state(comp, closure=pressure_quantity, value=pv, truncation=truncation,
-                          lowering=lowering, h_minus=h_minus)
+                          lowering=lowering, h_minus=h_minus, tex=True)
     note += f"; molecules: {molecules}" + ("; with condensates" if condensates else "")
-    fig = draw_stage_fractions(t, f, names, title=title, note=note, log=log,
-                               min_fraction=min_fraction)
-    fig.axes[0].set_ylabel(f"fraction of the {el} nuclei")
-    return fig
+    fig, ax = draw_stage_fractions(t, f, names, title=title, note=note, log=log,
+                                   min_fraction=min_fraction, ax=ax, annotate=annotate)
+    ax.set_ylabel(f"fraction of the {el} nuclei")
+    return fig, ax
 
 
 def dominant_stage_plot(element: str, temperature: Any, pressure: Any, *, composition=None,
                         pressure_quantity: str = "gas_pressure", truncation: str | None = None,
-                        lowering: bool = False, h_minus: bool = True) -> Figure:
+                        lowering: bool = False, h_minus: bool = True, ax=None,
+                        annotate: bool = True) -> tuple[Figure, Any]:
     """Map of the dominant stage of ``element`` over a temperature x pressure grid.
 
     Parameters
@@ -678,18 +722,19 @@ def dominant_stage_plot(element: str, temperature: Any, pressure: Any, *, compos
     el = spectroscopic_name(atomic_number(element), 0).split()[0]
     title = f"Dominant ionization stage of {el}"
     note = (describe_state(comp, closure=pressure_quantity, value=p, truncation=truncation,
-                           lowering=lowering, h_minus=h_minus)
+                           lowering=lowering, h_minus=h_minus, tex=True)
             + "; lines: neighbouring stages equally populated")
     return draw_dominant_map(t, p, d, element, title=title, note=note,
                              pressure_quantity=pressure_quantity,
                              fractions=state.stage_fractions(element),
-                             charges=state.stage_charges(element))
+                             charges=state.stage_charges(element), ax=ax, annotate=annotate)
 
 
 def partition_function_plot(species: Sequence[str], temperature: Any, *,
                             truncations: Sequence[str] = ("plain",),
                             electron_density: float | None = None,
-                            completion: bool = False) -> Figure:
+                            completion: bool = False, ax=None, annotate: bool = True
+                            ) -> tuple[Figure, Any]:
     """Partition functions of ``species`` against temperature for several truncations.
 
     Parameters
@@ -737,17 +782,19 @@ def partition_function_plot(species: Sequence[str], temperature: Any, *,
     title = f"Partition functions of {', '.join(names)}"
     bits = [f"truncations: {', '.join(truncations)}"]
     if needs_ne:
-        bits.append(f"n_e = {format_value(ne, 'cm-3')} held fixed"
-                    + ("; lowered: Debye-Hueckel limit from n_e, T" if "lowered" in truncations
+        bits.append(f"$n_e$ = {format_value(ne, 'cm-3', tex=True)} held fixed"
+                    + ("; lowered: Debye-Hueckel limit from $n_e$, $T$" if "lowered" in truncations
                        else ""))
         bits.append("hydrogenic completion" if completion else "tabulated levels only")
     bits.append("levels: NIST ASD via level_data")
-    return draw_partition_functions(t, curves, title=title, note="; ".join(bits))
+    return draw_partition_functions(t, curves, title=title, note="; ".join(bits), ax=ax,
+                                    annotate=annotate)
 
 
 def electron_pressure_plot(temperature: Any, gas_pressures: Any, *, composition=None,
                            truncation: str | None = None, lowering: bool = False,
-                           h_minus: bool = True) -> Figure:
+                           h_minus: bool = True, ax=None, annotate: bool = True
+                           ) -> tuple[Figure, Any]:
     """Electron pressure of a mixture against temperature, one curve per gas pressure."""
     comp = _default_composition(composition)
     t = _sorted_temperature(temperature)
@@ -759,8 +806,8 @@ def electron_pressure_plot(temperature: Any, gas_pressures: Any, *, composition=
     from sahaboltz.faces.state_options import composition_label
     title = f"Electron pressure of {composition_label(comp)}"
     note = describe_state(comp, closure="gas_pressure", value=p, truncation=truncation,
-                          lowering=lowering, h_minus=h_minus)
-    return draw_electron_pressure(t, curves, title=title, note=note)
+                          lowering=lowering, h_minus=h_minus, tex=True)
+    return draw_electron_pressure(t, curves, title=title, note=note, ax=ax, annotate=annotate)
 
 
 def level_population_data(species: str, temperature: Any, pressure: Any, *, composition=None,
@@ -797,7 +844,8 @@ def level_population_data(species: str, temperature: Any, pressure: Any, *, comp
 def level_population_plot(species: str, temperature: Any, pressure: Any, *, composition=None,
                           pressure_quantity: str = "gas_pressure", truncation: str | None = None,
                           lowering: bool = False, h_minus: bool = True,
-                          max_energy_ev: float | None = None) -> Figure:
+                          max_energy_ev: float | None = None, ax=None,
+                          annotate: bool = True) -> tuple[Figure, Any]:
     """Boltzmann diagram of one species: log10(n_i/g_i) against E_i, at one or more T.
 
     Parameters
@@ -832,12 +880,88 @@ def level_population_plot(species: str, temperature: Any, pressure: Any, *, comp
     pv = float(np.ravel(state.closure_value)[0])
     title = f"Level populations of {name} (Boltzmann diagram)"
     note = (describe_state(comp, closure=pressure_quantity, value=pv, truncation=truncation,
-                           lowering=lowering, h_minus=h_minus)
-            + f"; {int(keep.sum())} tabulated bound levels; n_i = number density of level i")
-    return draw_level_populations(series, title=title, note=note, boltzmann_lines=lines)
+                           lowering=lowering, h_minus=h_minus, tex=True)
+            + f"; {int(keep.sum())} tabulated bound levels; $n_i$ = number density of level $i$")
+    return draw_level_populations(series, title=title, note=note, boltzmann_lines=lines, ax=ax,
+                                  annotate=annotate)
 
 
-__all__ = ["save_figure", "new_figure", "add_note", "draw_stage_fractions", "draw_dominant_map",
+# -- diagnostics ---------------------------------------------------------------------------
+def diagnostic_fit_plot(fit, *, ax=None, annotate: bool = True) -> tuple[Figure, Any]:
+    """A Boltzmann or Saha-Boltzmann fit: the lines with their error bars, the fitted line,
+    rejected and flagged lines marked, and a lower panel of the studentized residuals.
+
+    Parameters
+    ----------
+    fit : BoltzmannFit or SahaBoltzmannFit
+        From :func:`sahaboltz.diagnostics.boltzmann_plot` or
+        :func:`~sahaboltz.diagnostics.saha_boltzmann_plot`.
+    ax : Axes or (Axes, Axes), optional
+        Where to draw; one Axes of your own leaves the residual panel out.
+    annotate : bool
+        Title and the note of the method's assumptions (default True).
+
+    Returns (fig, (ax, residual_ax)), or (fig, ax) without the residual panel.
+    """
+    saha = hasattr(fit, "upper")
+    fig, axes = new_figure(7.2, 6.0, rows=2, height_ratios=[2.6, 1], ax=ax)
+    ax, axr = axes[0], axes[1]
+    groups = ([(fit.lower, ~fit.upper_stage), (fit.upper, fit.upper_stage)]
+              if saha else [(fit.species, np.ones(fit.used.size, dtype=bool))])
+    flagged = np.array([("outlier" in f) or ("self-absorption" in f) for f in fit.flags])
+    for k, (name, sel) in enumerate(groups):
+        color = _COLORS[k]
+        ok = sel & fit.used
+        ax.errorbar(fit.x[ok], fit.y[ok], yerr=fit.y_error[ok], fmt="o", ms=4, color=color,
+                    capsize=2, lw=1.0, label=name)
+        out = sel & ~fit.used
+        if out.any():
+            ax.errorbar(fit.x[out], fit.y[out], yerr=fit.y_error[out], fmt="x", ms=6,
+                        color=color, capsize=2, lw=1.0, label=f"{name}, rejected")
+        if axr is not None:
+            axr.plot(fit.x[sel], fit.studentized[sel], "o" if k == 0 else "s", ms=3.5,
+                     color=color, mec="none")
+    if flagged.any():
+        ax.plot(fit.x[flagged], fit.y[flagged], "s", mfc="none", mec=_COLORS[3], ms=10,
+                label="flagged (outlier or self-absorption)")
+    lo, hi = float(fit.x.min()), float(fit.x.max())
+    pad = 0.05 * (hi - lo or 1.0)
+    xs = np.array([lo - pad, hi + pad])
+    ax.plot(xs, fit.intercept + fit.slope * xs, color="k", lw=1.1,
+            label=f"$T$ = {fit.temperature:,.0f} $\\pm$ {fit.temperature_error:,.0f} K")
+    y_label = ("$\\ln(I/(g A))$" if fit.photon_counts else "$\\ln(I \\lambda/(g A))$")
+    if saha:
+        ax.set_ylabel(y_label + " (upper stage: $- \\ln(2 S(T)/n_e)$)")
+        x_label = "$E_u$ [eV] (upper stage: $E_u + \\chi - \\Delta\\chi$)"
+        src = "fitted" if fit.ne_fitted else "given"
+        lo_ne, hi_ne = fit.electron_density_bounds
+        title = (f"Saha-Boltzmann plot of {fit.lower} + {fit.upper}: $n_e$ = "
+                 f"{format_value(fit.electron_density, 'cm-3', tex=True)} ({src}; "
+                 f"1$\\sigma$: {format_value(lo_ne, '', tex=True).strip()} .. "
+                 f"{format_value(hi_ne, '', tex=True).strip()})")
+    else:
+        ax.set_ylabel(y_label)
+        x_label = "upper-level energy $E_u$ [eV]"
+        title = f"Boltzmann plot of {fit.species}"
+    ax.legend(fontsize=8, framealpha=0.85)
+    ax.grid(alpha=0.3)
+    ax.set_xlim(xs[0], xs[1])
+    if axr is not None:
+        axr.axhline(0.0, color="0.4", lw=0.8)
+        axr.set_ylabel("studentized\nresidual")
+        axr.grid(alpha=0.3)
+        axr.set_xlabel(x_label)
+    else:
+        ax.set_xlabel(x_label)
+    note = ("LTE, optically thin lines and a homogeneous plasma assumed; "
+            f"{int(fit.used.sum())} of {fit.used.size} lines used, "
+            f"$\\chi^2$/dof = {fit.chi2:.3g}/{fit.dof}")
+    _annotate(fig, ax, title, note, annotate)
+    return (fig, (ax, axr)) if axr is not None else (fig, ax)
+
+
+__all__ = ["save_figure", "new_figure", "diagnostic_fit_plot", "add_note", "draw_stage_fractions",
+           "draw_dominant_map",
            "draw_partition_functions", "draw_electron_pressure", "draw_level_populations",
            "stage_fractions_plot", "dominant_stage_plot", "partition_function_plot",
            "electron_pressure_plot", "level_population_data", "level_population_plot",

@@ -28,15 +28,20 @@ import numpy as np
 from sahaboltz.data.composition import Composition, solar
 from sahaboltz.equilibrium.closures import CLOSURES
 from sahaboltz.equilibrium.molecular import MOLECULE_SETS
-from sahaboltz.errors import InputError
+from sahaboltz.data.elements import SYMBOLS, atomic_number
+from sahaboltz.errors import InputError, UnknownSpeciesError
 from sahaboltz.kernels import truncation as _truncation
+from sahaboltz.quantities import parse_quantity, parse_values_text
 
 #: pressure-like closures and their cgs unit (the solver's keyword names), from the registry
 CLOSURE_UNITS = {name: c.unit for name, c in CLOSURES.items()}
 #: short symbols for titles
 CLOSURE_SYMBOLS = {name: c.symbol for name, c in CLOSURES.items()}
 #: (keyword, flag, help) of every closure
-CLOSURE_FLAGS = tuple((name, c.flag, f"{c.long_name} [{c.unit}]") for name, c in CLOSURES.items())
+CLOSURE_FLAGS = tuple((name, c.flag, f"{c.long_name} [{c.unit}, or with a unit]")
+                      for name, c in CLOSURES.items())
+#: closure name -> its command-line flag
+CLOSURE_FLAG = {name: c.flag for name, c in CLOSURES.items()}
 
 
 def truncation_option(text: str) -> str:
@@ -54,9 +59,9 @@ def add_mixture_options(p) -> None:
                         "(default solar)")
     p.add_argument("--by", choices=("number", "mass"), default="number",
                    help="whether --mix amounts are by number or mass fractions (default number)")
-    p.add_argument("--metallicity", type=float, default=0.0, metavar="DEX",
+    p.add_argument("--metallicity", type=number_option(), default=0.0, metavar="DEX",
                    help="[M/H] scaling of the metals (default 0)")
-    p.add_argument("--alpha", type=float, default=0.0, metavar="DEX",
+    p.add_argument("--alpha", type=number_option(), default=0.0, metavar="DEX",
                    help="[alpha/Fe] enhancement of O Ne Mg Si S Ar Ca Ti (default 0)")
     p.add_argument("--lowering", action="store_true",
                    help="Debye-Hueckel lowering of the ionization energies (self-consistent)")
@@ -89,9 +94,20 @@ def parse_mix(text: str, by: str = "number", metallicity: float = 0.0,
             raise InputError(f"--mix: expected 'Element:amount' pairs such as 'Ar:1', got {part!r}")
         el, val = part.split(":", 1)
         try:
-            amounts[el.strip()] = float(val)
+            amount = float(val)
         except ValueError:
             raise InputError(f"--mix: amount of {el.strip()} is not a number: {val!r}") from None
+        if not (amount > 0 and np.isfinite(amount)):
+            raise InputError(f"--mix: amount of {el.strip()} must be a positive number, "
+                             f"got {val!r}")
+        key = el.strip()
+        try:  # "fe" and "Fe" are one element
+            key = SYMBOLS[atomic_number(key)]
+        except UnknownSpeciesError as exc:
+            raise InputError(f"--mix: {exc}") from None
+        if key in amounts:
+            raise InputError(f"--mix: {key} is given twice ({text!r}); give each element once")
+        amounts[key] = amount
     if not amounts:
         raise InputError("--mix: give 'solar' or amounts such as 'N:0.78,O:0.21,Ar:0.0093'")
     comp = (Composition.from_mass_fraction(amounts, name=text) if by == "mass"
@@ -142,25 +158,80 @@ def solver_options(args: argparse.Namespace) -> dict[str, Any]:
     return opts
 
 
-def parse_values(text: str, name: str, *, scale: str = "log") -> np.ndarray:
-    """Values from ``MIN:MAX:NUM`` (log-spaced unless ``scale='linear'``) or ``V1,V2,..``."""
-    text = str(text).strip()
-    try:
-        if ":" in text:
-            parts = text.split(":")
-            if len(parts) != 3:
-                raise ValueError
-            lo, hi, num = float(parts[0]), float(parts[1]), int(parts[2])
-            if not (0 < lo < hi) or num < 2:
-                raise InputError(f"{name}: need 0 < MIN < MAX and NUM >= 2, got {text!r}")
-            return np.geomspace(lo, hi, num) if scale == "log" else np.linspace(lo, hi, num)
-        vals = np.array([float(x) for x in text.split(",") if x.strip()])
-    except ValueError:
-        raise InputError(f"{name}: give MIN:MAX:NUM or comma-separated numbers, "
-                         f"got {text!r}") from None
-    if vals.size == 0 or not np.all(np.isfinite(vals)) or np.any(vals <= 0):
-        raise InputError(f"{name}: values must be positive numbers, got {text!r}")
-    return vals
+def parse_values(text: str, name: str, *, scale: str = "log", unit: str | None = None
+                 ) -> np.ndarray:
+    """Values from ``MIN:MAX:NUM`` (log-spaced unless ``scale='linear'``) or ``V1,V2,..``;
+    with ``unit``, each may carry a unit (:func:`sahaboltz.quantities.parse_values_text`)."""
+    return parse_values_text(text, name, scale=scale, unit=unit)
+
+
+def quantity_option(unit: str, *, positive: bool = True, minimum: float | None = None):
+    """argparse ``type=`` of a numeric option with an optional unit ("1 atm", "6000 K");
+    a bare number is in ``unit`` (the documented cgs unit).  argparse names the option in
+    its message."""
+    def parse(text: str) -> float:
+        try:
+            value = parse_quantity(text, unit, "")
+        except InputError as exc:
+            raise argparse.ArgumentTypeError(str(exc)) from None
+        if positive and not value > 0:
+            raise argparse.ArgumentTypeError(f"must be positive, got {text!r}")
+        if minimum is not None and value < minimum:
+            raise argparse.ArgumentTypeError(f"must be at least {minimum:g} {unit}, got {text!r}")
+        return value
+    parse.__name__ = f"quantity in {unit}"
+    return parse
+
+
+def number_option(*, positive: bool = False, integer: bool = False, minimum: float | None = None):
+    """argparse ``type=`` of a plain number (a fraction, a count, dex), checked to be finite
+    (and positive, at least ``minimum``, whole) with a message argparse prefixes with the option."""
+    def parse(text: str):
+        try:
+            value = int(text) if integer else float(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(
+                f"expected {'a whole number' if integer else 'a number'}, got {text!r}") from None
+        if not np.isfinite(value):
+            raise argparse.ArgumentTypeError(f"must be finite, got {text!r}")
+        if positive and not value > 0:
+            raise argparse.ArgumentTypeError(f"must be positive, got {text!r}")
+        if minimum is not None and value < minimum:
+            raise argparse.ArgumentTypeError(f"must be at least {minimum:g}, got {text!r}")
+        return value
+    parse.__name__ = "whole number" if integer else "number"
+    return parse
+
+
+def add_temperature_option(p, *, default: str | None = None, required: bool = False,
+                           several: bool = True, scale: str = "linear") -> None:
+    """The one temperature option of every command: ``-T/--temperature`` with values
+    ``V1,V2,..`` or ``MIN:MAX:NUM`` (each value may carry a unit, e.g. '5726.85 degC'),
+    and ``--temperature-scale log|linear`` for the spacing of MIN:MAX:NUM."""
+    what = "MIN:MAX:NUM|V1,V2,.." if several else "VALUE"
+    text = ("temperatures [K, or with a unit such as '6000 K', '5726.85 degC']: comma-separated "
+            "values or MIN:MAX:NUM" if several else
+            "temperature [K, or with a unit such as '6000 K', '5726.85 degC']")
+    if default is not None:
+        text += f" (default {default})"
+    p.add_argument("-T", "--temperature", default=default, required=required, metavar=what,
+                   help=text)
+    if several:
+        p.add_argument("--temperature-scale", choices=("log", "linear"), default=scale,
+                       help=f"spacing of a MIN:MAX:NUM temperature range (default {scale})")
+
+
+def temperatures_from_args(args, *, minimum: int = 1) -> np.ndarray:
+    """The temperatures [K] of ``-T/--temperature`` (and ``--temperature-scale``)."""
+    if args.temperature is None:
+        raise InputError("-T/--temperature: give temperatures, e.g. -T 5800 or -T 3000:12000:40")
+    texts = args.temperature if isinstance(args.temperature, list) else [args.temperature]
+    scale = getattr(args, "temperature_scale", "linear")
+    t = np.concatenate([parse_values(x, "-T/--temperature", scale=scale, unit="K")
+                        for x in texts])
+    if t.size < minimum:
+        raise InputError(f"-T/--temperature: give at least {minimum} temperatures, got {t.size}")
+    return t
 
 
 # -- describing ----------------------------------------------------------------------------
@@ -201,20 +272,25 @@ def unit_label(unit: str, tex: bool = False) -> str:
 
 def describe_state(composition, *, closure: str | None = None, value: Any = None,
                    truncation: str | None = None, lowering: bool = False,
-                   h_minus: bool = True) -> str:
-    """One line naming the conditions: composition; closure = value; physics options."""
+                   h_minus: bool = True, tex: bool = False) -> str:
+    """One line naming the conditions: composition; closure = value; physics options
+    (``tex``: symbols and units in mathtext, for figures)."""
     parts = [composition_label(composition)]
     if closure is not None and value is not None:
         v = np.atleast_1d(np.asarray(value, dtype=float))
         sym = CLOSURE_SYMBOLS.get(closure, closure)
+        if tex and closure in CLOSURES:
+            sym = f"${CLOSURES[closure].tex}$"
         unit = CLOSURE_UNITS.get(closure, "")
         if v.size == 1:
-            parts.append(f"{sym} = {format_value(v[0], unit)}")
+            parts.append(f"{sym} = {format_value(v[0], unit, tex)}")
         else:
-            parts.append(f"{sym} = {format_value(v.min(), unit)} .. {format_value(v.max(), unit)}")
-    parts.append(physics_label(truncation, lowering))
+            parts.append(f"{sym} = {format_value(v.min(), unit, tex)} .. "
+                         f"{format_value(v.max(), unit, tex)}")
+    physics = physics_label(truncation, lowering)
+    parts.append("$U$" + physics[1:] if tex and physics.startswith("U:") else physics)
     if not h_minus:
-        parts.append("no H-")
+        parts.append("no H$^-$" if tex else "no H-")
     parts.append("LTE")
     return "; ".join(parts)
 
@@ -222,4 +298,5 @@ def describe_state(composition, *, closure: str | None = None, value: Any = None
 __all__ = ["add_mixture_options", "add_closure_options", "composition_from_args",
            "solver_options", "closure_from_args", "parse_values", "parse_mix", "describe_state",
            "composition_label", "physics_label", "format_value", "unit_label",
-           "CLOSURE_UNITS", "CLOSURE_SYMBOLS"]
+           "CLOSURE_UNITS", "CLOSURE_SYMBOLS", "CLOSURE_FLAG", "quantity_option",
+           "number_option", "add_temperature_option", "temperatures_from_args"]

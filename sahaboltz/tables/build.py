@@ -1,33 +1,51 @@
-"""Chunked table builds on all cores, with bounded memory and an atomic final write.
+"""Chunked table builds on all cores, or on a Dask cluster, with bounded memory, resumable,
+and an atomic final write.
 
-The grid is cut into rectangular blocks of at most ``chunk_states`` states.  Each block is handed
-to a *compute function* ``compute(spec, T, P) -> {name: array}`` (flat 1-D arrays of the block's
-states in, same-length arrays out) in a worker process, which also compresses the results into
-HDF5 chunks (one chunk per block and group of rows of a stacked variable); the parent only
+The grid is cut into rectangular blocks of at most ``chunk_states`` states (whole
+temperature rows of one composition, when the grid has a composition axis;
+:mod:`sahaboltz.tables.blocks`).  Each block is handed to a *compute function*
+``compute(spec, T, P) -> {name: array}`` (flat 1-D arrays of the block's states in,
+same-length arrays out) in a worker process, which also compresses the results into HDF5
+chunks (one chunk per block and group of rows of a stacked variable); this process only
 stores those bytes into a temporary HDF5 file as they arrive.  At most two blocks per worker
-are in flight (compressed), so memory is bounded by the block size, not the grid size.  Only a finished, flushed file is renamed into
-place (``os.replace``), so a build that fails or is killed never leaves a half table at ``path``.
+are in flight (compressed), so memory is bounded by the block size, not the grid size.  Only
+a finished, flushed file is renamed into place (``os.replace``), so a build that fails or is
+killed never leaves a half table at ``path``.
+
+Builds resume: the temporary file ``.<name>.resume.tmp`` records the blocks stored in it
+(:class:`~sahaboltz.tables.hdf5.TableWriter`), and the next build of the same table (same
+spec and provenance) that finds it computes only the others.  It is kept when a build is
+interrupted (Ctrl-C), killed, or loses its workers or its cluster, and removed when the
+compute function itself fails.
+
+With ``client=`` (a ``distributed.Client``) or ``scheduler=`` (its address) the blocks run
+as tasks on a Dask cluster (:mod:`sahaboltz.tables.cluster`); this process stays the one
+writer.  Dask is imported only then.
 """
 
 from __future__ import annotations
 
+import fcntl
+import hashlib
+import json
 import multiprocessing
 import os
-import sys
 import time
 import uuid
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
 from pathlib import Path
-from typing import Any, Callable, Iterator, Mapping
+from typing import Any, Iterator, Mapping
 
 import numpy as np
 
 from sahaboltz.errors import InputError, TableError
-from sahaboltz.tables.hdf5 import MAX_CHUNK_ELEMENTS, TableWriter, encode_field
-from sahaboltz.tables.layout import STACKED, stack
+from sahaboltz.tables.blocks import (Block, ComputeFn, block_spec, block_states,  # noqa: F401
+                                     blocks, run_block)
+from sahaboltz.tables.hdf5 import MAX_CHUNK_ELEMENTS, TableWriter, block_shape
+from sahaboltz.tables.files import describe, ensure_directory
+from sahaboltz.tables.progress import Progress
 from sahaboltz.tables.spec import TableSpec
-
-ComputeFn = Callable[[TableSpec, np.ndarray, np.ndarray], Mapping[str, np.ndarray]]
 
 #: default largest number of states per block
 DEFAULT_CHUNK_STATES = 16384
@@ -37,87 +55,35 @@ DEFAULT_MEMORY_MB = 512.0
 #: states in the probe block that finds the output names and their size per state
 PROBE_STATES = 16
 
-Block = tuple[int, int, int, int]
-
-
-def blocks(shape: tuple[int, int], chunk_states: int) -> list[Block]:
-    """Cut a ``(nT, nP)`` grid into blocks ``(i0, i1, j0, j1)`` of at most ``chunk_states`` states."""
-    if chunk_states < 1:
-        raise InputError(f"chunk_states must be >= 1, got {chunk_states}")
-    nt, np_ = shape
-    cols = min(np_, chunk_states)
-    rows = max(1, min(nt, chunk_states // cols))
-    return [(i, min(i + rows, nt), j, min(j + cols, np_))
-            for i in range(0, nt, rows) for j in range(0, np_, cols)]
-
-
-def block_states(spec: TableSpec, block: Block) -> tuple[np.ndarray, np.ndarray]:
-    """Flat (T, P) arrays of the states in ``block``, row-major (T slowest)."""
-    i0, i1, j0, j1 = block
-    t, p = np.meshgrid(spec.temperature.array[i0:i1], spec.pressure.array[j0:j1], indexing="ij")
-    return t.ravel(), p.ravel()
-
-
-def run_block(compute: ComputeFn, spec: TableSpec, block: Block,
-              chunk_shape: tuple[int, int] | None = None) -> tuple:
-    """Compute one block and stack its outputs into the table's variables
-    (:func:`sahaboltz.tables.layout.stack`); with ``chunk_shape``, as finished HDF5 chunks."""
-    t, p = block_states(spec, block)
-    fields, labels, aux = stack(compute(spec, t, p), t.size)
-    shape = (block[1] - block[0], block[3] - block[2])
-    # a state the solver could not solve is NaN in every field, and says why in "status"
-    failed = fields["status"] != 0 if "status" in fields else np.zeros(t.size, bool)
-    for name, arr in fields.items():
-        if not np.all(np.isfinite(arr[..., ~failed])):
-            raise TableError(f"compute function returned non-finite {name} in block {block}")
-        if chunk_shape is not None:
-            fields[name] = encode_field(arr, shape, chunk_shape, name in STACKED)
-    return block, {"fields": fields, "labels": labels, "aux": aux, "failed": int(failed.sum())}
-
 
 def _worker_init() -> None:
-    """Let a worker die with the build: a killed parent must not leave workers behind."""
+    """Let a worker die with the build: a killed parent must not leave workers behind; and
+    leave Ctrl-C to the parent (which stops the workers), so that an interrupted build
+    prints one line instead of a traceback from every worker."""
+    import signal
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     try:  # Linux: prctl(PR_SET_PDEATHSIG, SIGKILL)
         import ctypes
-        import signal
         ctypes.CDLL("libc.so.6", use_errno=True).prctl(1, int(signal.SIGKILL))
     except (OSError, AttributeError):
         pass
+
+
+def _stop_workers(pool: ProcessPoolExecutor) -> None:
+    """End the workers of an interrupted build now (not after their running blocks)."""
+    procs = list(getattr(pool, "_processes", {}).values())  # the executor's own processes
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in procs:
+        if proc.is_alive():
+            proc.terminate()
+    for proc in procs:
+        proc.join(timeout=5)
 
 
 def default_compute() -> ComputeFn:
     """The compute function backed by the equilibrium solver."""
     from sahaboltz.tables.compute import solver_compute
     return solver_compute
-
-
-class Progress:
-    """A one-line progress bar on stderr (shown when stderr is a terminal, or when forced)."""
-
-    def __init__(self, total: int, enabled: bool | None = None, stream=None, label: str = "states"):
-        self.stream = stream or sys.stderr
-        self.enabled = self.stream.isatty() if enabled is None else enabled
-        self.total, self.done, self.label = total, 0, label
-        self.start = time.perf_counter()
-        self._last = 0.0
-
-    def update(self, n: int) -> None:
-        self.done += n
-        now = time.perf_counter()
-        if self.enabled and (now - self._last > 0.2 or self.done >= self.total):
-            self._last = now
-            frac = self.done / self.total if self.total else 1.0
-            el = now - self.start
-            eta = el / frac - el if frac > 0 else float("nan")
-            bar = "#" * int(30 * frac)
-            self.stream.write(f"\r[{bar:<30}] {100 * frac:5.1f}% {self.done}/{self.total} "
-                              f"{self.label}  {el:6.1f} s, eta {eta:5.1f} s")
-            self.stream.flush()
-
-    def close(self) -> None:
-        if self.enabled:
-            self.stream.write("\n")
-            self.stream.flush()
 
 
 def _pool(workers: int) -> ProcessPoolExecutor:
@@ -133,7 +99,8 @@ def _results(compute: ComputeFn, spec: TableSpec, todo: list[Block], workers: in
         for b in todo:
             yield run_block(compute, spec, b, chunk_shape)
         return
-    with _pool(workers) as pool:
+    pool = _pool(workers)
+    with pool:
         pending: set = set()
         queue = iter(todo)
         try:
@@ -148,9 +115,34 @@ def _results(compute: ComputeFn, spec: TableSpec, todo: list[Block], workers: in
                 finished, pending = wait(pending, return_when=FIRST_COMPLETED)
                 for fut in finished:
                     yield fut.result()
+        except BaseException:  # Ctrl-C, a failed block, a closed generator: stop at once
+            _stop_workers(pool)
+            raise
         finally:
             for fut in pending:
                 fut.cancel()
+
+
+class LocalRunner:
+    """Blocks in a local process pool (or in this process with one worker)."""
+
+    def __init__(self, workers: int):
+        self.workers = workers  # blocks computed at once on this machine
+
+    def probe(self, compute: ComputeFn, spec: TableSpec, block: Block) -> dict:
+        return run_block(compute, spec, block)[1]
+
+    def results(self, compute, spec, todo, chunk_shape) -> Iterator[tuple[Block, dict]]:
+        return _results(compute, spec, todo, self.workers, chunk_shape)
+
+    @staticmethod
+    def resumable(exc: BaseException) -> bool:
+        """Is ``exc`` an interruption (keep the record and resume) rather than a failure of
+        the computation itself?"""
+        return isinstance(exc, (KeyboardInterrupt, SystemExit, BrokenProcessPool, OSError))
+
+    def close(self) -> None:
+        pass
 
 
 def temp_path_for(path: Path) -> Path:
@@ -158,10 +150,64 @@ def temp_path_for(path: Path) -> Path:
     return path.with_name(f".{path.name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp")
 
 
+def resume_path_for(path: Path) -> Path:
+    """The temporary file of the builds of ``path``, which records their progress."""
+    return path.with_name(f".{path.name}.resume.tmp")
+
+
+def build_identity(spec: TableSpec, provenance: Mapping[str, Any], compute: ComputeFn) -> str:
+    """What a resumed build must share with the one it goes on from (hex SHA-256)."""
+    doc = {"spec": spec.canonical(), "provenance": dict(provenance),
+           "compute": f"{compute.__module__}.{compute.__qualname__}"}
+    text = json.dumps(doc, sort_keys=True, separators=(",", ":"), default=str)
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def _claim(path: Path, resume: bool) -> tuple[Path, int | None]:
+    """The temporary file of this build, locked (``flock``) while the build runs.  When
+    another build of the same target holds the resumable one, this build uses a temporary
+    of its own (and does not record anything for later)."""
+    if resume:
+        tmp = resume_path_for(path)
+        fd = os.open(tmp, os.O_RDWR | os.O_CREAT, 0o644)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            return tmp, fd
+        except BlockingIOError:
+            os.close(fd)
+    return temp_path_for(path), None
+
+
+def _discard_record(path: Path) -> None:
+    """Remove the record of an interrupted build of ``path`` now built, unless a build is
+    writing it."""
+    tmp = resume_path_for(path)
+    try:
+        fd = os.open(tmp, os.O_RDWR)
+    except OSError:
+        return
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        tmp.unlink(missing_ok=True)
+    except BlockingIOError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def _check_compositions(spec: TableSpec) -> None:
+    """Resolve every slice of a composition axis: an abundance left negative, or an element
+    to scale that is absent, is an error before any work starts."""
+    from sahaboltz.tables.compute import compositions_of
+    compositions_of(spec)
+
+
 def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None = None,
                 workers: int | None = None, chunk_states: int = DEFAULT_CHUNK_STATES,
                 progress: bool | None = None, provenance: Mapping[str, Any] | None = None,
-                memory_mb: float = DEFAULT_MEMORY_MB) -> Path:
+                memory_mb: float = DEFAULT_MEMORY_MB, client=None, scheduler: str | None = None,
+                resume: bool = True, connect_timeout: float = 10.0,
+                stats: dict | None = None) -> Path:
     """Compute ``spec`` and write it as an HDF5 table at ``path`` (atomically).
 
     Parameters
@@ -172,18 +218,35 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
         Where the finished table goes; an existing file there is replaced only on success.
     compute : callable, optional
         ``compute(spec, T, P) -> {name: array}``; default: the equilibrium solver.  It must be a
-        module-level function (it is sent to worker processes).
+        module-level function (it is sent to worker processes).  With a composition axis it
+        gets the 2-D spec of the block's composition slice.
     workers : int, optional
-        Worker processes; default: all cores.  1 computes in this process.
+        Worker processes; default: all cores.  1 computes in this process.  Not used with a
+        Dask cluster.
     chunk_states : int
         Largest number of states per block.
     memory_mb : float
-        Bound on the raw output arrays of the blocks being computed (one per worker).  A
-        probe of a few states measures the output size per state; blocks are made small enough.
+        Bound on the raw output arrays of the blocks being computed (one per worker) on one
+        machine.  A probe of a few states measures the output size per state; blocks are made
+        small enough.
     progress : bool, optional
-        Show a progress bar on stderr; default: when stderr is a terminal.
+        True: a tqdm progress bar; False: none; None (default): a bar in a terminal or a
+        notebook, else a log line on stderr every 10 s (:mod:`sahaboltz.tables.progress`).
     provenance : mapping, optional
         Extra root attributes (cache key, level-data digest, solver version ...).
+    client : distributed.Client, optional
+        Run the blocks as tasks on this Dask cluster (needs ``sahaboltz[dask]``).
+    scheduler : str, optional
+        Or the cluster's scheduler address (``tcp://HOST:PORT``) or scheduler file (.json);
+        an unreachable one is an error naming it, before anything is written.
+    resume : bool
+        Go on from the record of an interrupted build of the same table at ``path``, and keep
+        one if this build is interrupted (default True).
+    connect_timeout : float
+        Seconds to wait for the scheduler.
+    stats : dict, optional
+        Filled with what the build did: ``blocks``, ``computed`` (blocks computed in this
+        run), ``resumed`` (blocks found stored), ``block_states``.
 
     Returns
     -------
@@ -192,36 +255,109 @@ def build_table(spec: TableSpec, path: str | Path, *, compute: ComputeFn | None 
     """
     path = Path(path)
     compute = compute or default_compute()
-    workers = workers or os.cpu_count() or 1
-    # probe: output bytes per state (a solar mixture with all stage fractions has thousands)
-    _, sample = run_block(compute, spec, (0, 1, 0, min(spec.shape[1], PROBE_STATES)))
-    per_state = sum(a.nbytes for a in sample["fields"].values()) / \
-        min(spec.shape[1], PROBE_STATES)
-    # raw outputs exist only in the block a worker computes; what travels is compressed
-    fit = int(memory_mb * 1e6 / (max(workers, 1) * max(per_state, 1.0)))
-    todo = blocks(spec.shape, max(1, min(chunk_states, fit, MAX_CHUNK_ELEMENTS)))
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = temp_path_for(path)
-    first = todo[0]
-    writer = None
-    bar = Progress(spec.size, progress)
-    t0 = time.perf_counter()
-    failed = 0
+    if spec.composition_axis is not None:
+        _check_compositions(spec)
+    provenance = dict(provenance or {})
+    if client is not None or scheduler is not None:
+        from sahaboltz.tables.cluster import DaskRunner  # dask only for cluster builds
+        runner: Any = DaskRunner(client=client, address=scheduler, timeout=connect_timeout,
+                                 expect=provenance)
+    else:
+        runner = LocalRunner(workers or os.cpu_count() or 1)
     try:
-        chunk_shape = (first[1] - first[0], first[3] - first[2])
-        writer = TableWriter(tmp, spec, dict(provenance or {}), chunk_shape)
-        for block, values in _results(compute, spec, todo, workers, chunk_shape):
+        return _build(spec, path, compute, runner, chunk_states, memory_mb, progress,
+                      provenance, resume, stats if stats is not None else {})
+    finally:
+        runner.close()
+
+
+def _build(spec, path, compute, runner, chunk_states, memory_mb, progress, provenance,
+           resume, stats) -> Path:
+    identity = build_identity(spec, provenance, compute)
+    if path.is_dir():
+        raise InputError(f"{path} is a directory: give the table's file name (e.g. "
+                         f"{path / 'table.h5'})")
+    ensure_directory(path.parent, "the directory of the table")
+    tmp, fd = _claim(path, resume)
+    writer = None
+    bar = None
+    t0 = time.perf_counter()
+    before = 0.0  # seconds of earlier runs of a resumed build
+    try:
+        state = None
+        if fd is not None and os.fstat(fd).st_size > 0:
+            state = TableWriter.reopen(tmp, spec, identity)
+        if state is not None:
+            writer, per_block, record = state
+            todo_all = blocks(spec.shape, per_block)
+            if len(todo_all) != record.size:  # not a record of these blocks: start again
+                writer.abort()
+                writer, state = None, None
+        if state is None:
+            per_block = _block_states(compute, spec, runner, chunk_states, memory_mb)
+            todo_all = blocks(spec.shape, per_block)
+            record = np.zeros(len(todo_all), np.int64)
+            try:
+                writer = TableWriter(tmp, spec, provenance, block_shape(todo_all[0]),
+                                     identity=identity, block_states=per_block,
+                                     n_blocks=len(todo_all))
+            except OSError as exc:
+                raise TableError(f"cannot write the table {path}: "
+                                 f"{describe(exc) if exc.errno else exc}") from None
+        index = {b: k for k, b in enumerate(todo_all)}
+        done = record > 0
+        todo = [b for b, d in zip(todo_all, done) if not d]
+        failed = int(np.sum(record[done] - 1))
+        stats.update(blocks=len(todo_all), resumed=int(done.sum()), computed=0,
+                     block_states=per_block)
+        bar = Progress(spec.size, progress)
+        bar.update(sum(int(np.prod(block_shape(b))) for b, d in zip(todo_all, done) if d))
+        before = writer.elapsed_before()
+        for block, values in runner.results(compute, spec, todo, writer.chunks):
             writer.write_block(block, values)
-            failed += values.get("failed", 0)
-            bar.update((block[1] - block[0]) * (block[3] - block[2]))
-        writer.finish({"build_seconds": round(time.perf_counter() - t0, 3),
-                       "failed_states": failed})
+            n_failed = values.get("failed", 0)
+            writer.mark_done(index[block], before + time.perf_counter() - t0, n_failed)
+            failed += n_failed
+            stats["computed"] += 1
+            bar.update(int(np.prod(block_shape(block))))
+        extra = {"build_seconds": round(before + time.perf_counter() - t0, 3),
+                 "failed_states": failed}
+        if stats["resumed"]:
+            extra["resumed_blocks"] = stats["resumed"]
+        writer.finish(extra)
         os.replace(tmp, path)
-    except BaseException:
+        if fd is None:  # built without the record (resume=False, or it was busy)
+            _discard_record(path)
+    except BaseException as exc:
+        keep = fd is not None and runner.resumable(exc)
         if writer is not None:
-            writer.abort()
-        tmp.unlink(missing_ok=True)
+            if keep:
+                try:
+                    writer.checkpoint(before + time.perf_counter() - t0)
+                    writer.close()
+                except Exception:  # noqa: BLE001 - the interruption is what to report
+                    writer.abort()
+            else:
+                writer.abort()
+        if not keep or writer is None:
+            tmp.unlink(missing_ok=True)
         raise
     finally:
-        bar.close()
+        if bar is not None:
+            bar.close()
+        if fd is not None:
+            os.close(fd)
     return path
+
+
+def _block_states(compute, spec: TableSpec, runner, chunk_states: int, memory_mb: float) -> int:
+    """States per block: ``chunk_states``, fewer when the outputs per state (measured on a
+    probe of a few states) would make the blocks in flight on one machine exceed
+    ``memory_mb``."""
+    n = min(spec.shape[-1], PROBE_STATES)
+    probe = (0, 1, 0, n) if spec.composition_axis is None else (0, 0, 1, 0, n)
+    sample = runner.probe(compute, spec, probe)
+    per_state = sum(a.nbytes for a in sample["fields"].values()) / n
+    # raw outputs exist only in the block a worker computes; what travels is compressed
+    fit = int(memory_mb * 1e6 / (max(runner.workers, 1) * max(per_state, 1.0)))
+    return max(1, min(chunk_states, fit, MAX_CHUNK_ELEMENTS))

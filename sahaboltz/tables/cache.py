@@ -9,8 +9,9 @@ version (or, for an injected compute function, its name and ``provenance``).  A 
   ``~/.cache/sahaboltz/tables``.
 - Builds hold an exclusive ``fcntl.flock`` on ``<key>.lock``, so concurrent builders of one spec
   compute it once; the others wait and then read the finished file.
-- Files appear only complete (temporary file + ``os.replace``); stale temporaries of killed
-  builds are removed by the next builder of that key and by :func:`clear`.
+- Files appear only complete (temporary file + ``os.replace``); the next builder of a key
+  resumes from the temporary file of a killed build (``.<key>.h5.resume.tmp``, which records
+  the blocks stored) and removes other stale temporaries; :func:`clear` removes them all.
 - Every table has a digest of all its bytes beside it (``<key>.h5.sum``, written by the
   builder).  A hit checks the file's structure (:func:`~sahaboltz.tables.hdf5.check_table`)
   and its bytes against the digest; the last successful comparison is remembered by the file's
@@ -36,6 +37,7 @@ from typing import Any, Iterator
 from sahaboltz._version import __version__
 from sahaboltz.equilibrium import SOLVER_VERSION
 from sahaboltz.errors import InputError, TableError
+from sahaboltz.tables.files import describe, ensure_directory
 from sahaboltz.tables.layout import FORMAT_VERSION
 from sahaboltz.tables.spec import TableSpec
 
@@ -43,6 +45,8 @@ from sahaboltz.tables.spec import TableSpec
 # since its digest was compared needs neither (the command line answers sooner)
 
 CACHE_ENV = "SAHABOLTZ_CACHE_DIR"
+#: how to choose another cache directory, for error messages
+CACHE_ADVICE = f"set ${CACHE_ENV} to a directory you can write (or build with -o FILE)"
 
 
 def _is_default(compute) -> bool:
@@ -75,7 +79,7 @@ def cache_dir(create: bool = True) -> Path:
         base = os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache"
         d = Path(base) / "sahaboltz" / "tables"
     if create:
-        d.mkdir(parents=True, exist_ok=True)
+        ensure_directory(d, "the table cache directory", CACHE_ADVICE)
     return d
 
 
@@ -153,7 +157,12 @@ def table_key(spec: TableSpec, compute=None) -> str:
 def key_lock(directory: Path, key: str, blocking: bool = True) -> Iterator[bool]:
     """Hold the exclusive lock of ``key``; yields False if ``blocking=False`` and it is taken."""
     lock = directory / f"{key}.lock"
-    with open(lock, "a+") as fh:
+    try:
+        fh = open(lock, "a+")
+    except OSError as exc:
+        raise TableError(f"cannot write in the table cache directory {directory}: "
+                         f"{describe(exc)}; {CACHE_ADVICE}") from None
+    with fh:
         try:
             fcntl.flock(fh, fcntl.LOCK_EX | (0 if blocking else fcntl.LOCK_NB))
         except BlockingIOError:
@@ -266,14 +275,14 @@ def obtain_table(spec: TableSpec, *, output: str | Path | None = None,
         from sahaboltz.tables.build import build_table
         path = build_table(spec, output, compute=compute, provenance=prov, **build_options)
         return TableResult(Path(path), key, "built", _failed_states(path))
-    d = Path(directory) if directory is not None else cache_dir()
-    d.mkdir(parents=True, exist_ok=True)
+    d = (ensure_directory(directory, "the table directory") if directory is not None
+         else cache_dir())
     final = d / f"{key}.h5"
     if not rebuild and final.exists():
         with contextlib.suppress(TableError, OSError):
             check_cached(final, key)
             return TableResult(final, key, "cached")  # fast path: no lock for a hit
-    with key_lock(d, key):
+    with _cluster(build_options), key_lock(d, key):
         if final.exists():
             if not rebuild:
                 try:
@@ -282,15 +291,35 @@ def obtain_table(spec: TableSpec, *, output: str | Path | None = None,
                 except (TableError, OSError) as exc:
                     warnings.warn(f"cached table {final.name} is damaged and will be rebuilt: "
                                   f"{exc}", TableCacheWarning, stacklevel=2)
+        from sahaboltz.tables.build import build_table, resume_path_for  # not for a hit
         for tmp in _stale_temps(d, key):  # left by a killed builder; we hold the lock
-            tmp.unlink(missing_ok=True)
+            if tmp != resume_path_for(final):  # the record a build resumes from stays
+                tmp.unlink(missing_ok=True)
         digest_path(final).unlink(missing_ok=True)
-        from sahaboltz.tables.build import build_table  # not needed for a cache hit
         build_table(spec, final, compute=compute, provenance=prov, **build_options)
         failed = _failed_states(final)
         record_digest(final)
         _fsync_dir(d)
     return TableResult(final, key, "built", failed)
+
+
+@contextlib.contextmanager
+def _cluster(build_options: dict) -> Iterator[None]:
+    """With ``scheduler=`` in ``build_options``: connect before the cache's lock is taken (an
+    unreachable scheduler leaves nothing behind, not even a lock file) and hand the build the
+    client, closed afterwards."""
+    address = build_options.get("scheduler")
+    if address is None or build_options.get("client") is not None:
+        yield
+        return
+    from sahaboltz.tables.cluster import connect
+    client = connect(address, build_options.get("connect_timeout", 10.0))
+    build_options["client"] = client
+    del build_options["scheduler"]
+    try:
+        yield
+    finally:
+        client.close()
 
 
 def get_table(spec: TableSpec, *, compute=None,
@@ -308,7 +337,8 @@ def get_table(spec: TableSpec, *, compute=None,
     rebuild : bool
         Build again even if a valid table exists.
     **build_options
-        ``workers``, ``chunk_states``, ``progress`` for the build.
+        ``workers``, ``chunk_states``, ``progress``, ``client`` / ``scheduler`` (a Dask
+        cluster), ``resume`` ... for the build (:func:`~sahaboltz.tables.build.build_table`).
 
     Warns
     -----
@@ -350,7 +380,8 @@ def entries(directory: str | Path | None = None) -> list[dict[str, Any]]:
 def find(key_prefix: str, directory: str | Path | None = None) -> Path:
     """The cached table whose key starts with ``key_prefix``."""
     d = Path(directory) if directory is not None else cache_dir()
-    hits = sorted(d.glob(f"{key_prefix}*.h5")) if key_prefix else []
+    plain = key_prefix and all(c in "0123456789abcdef" for c in key_prefix.lower())
+    hits = sorted(d.glob(f"{key_prefix.lower()}*.h5")) if plain else []
     if not hits:
         raise InputError(f"no cached table with key starting {key_prefix!r}; "
                          f"see 'sahaboltz table cache list'")

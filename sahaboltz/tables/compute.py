@@ -19,28 +19,72 @@ _SOLAR_NAMES = {"solar": "asplund2009", "asplund2009": "asplund2009"}
 
 
 def composition_of(spec: TableSpec):
-    """The :class:`~sahaboltz.data.composition.Composition` a spec asks for."""
+    """The :class:`~sahaboltz.data.composition.Composition` of a spec's fixed composition
+    (the base, then [M/H] and [alpha/Fe], element offsets, helium mass fraction)."""
+    if spec.composition_axis is not None:
+        raise InputError("a spec with a composition axis has one composition per slice: "
+                         "use compositions_of(spec)")
+    return resolve_composition(spec.composition)
+
+
+def resolve_composition(c: dict):
+    """A fixed composition document (:func:`~sahaboltz.tables.spec.normalize_composition`)
+    as a :class:`~sahaboltz.data.composition.Composition`."""
     from sahaboltz.data.composition import Composition, solar
 
-    c = spec.composition
     if "abundances" in c:
-        return Composition.from_number(c["abundances"], name="custom")
-    name = c.get("name", "solar")
-    if name not in _SOLAR_NAMES:
-        raise InputError(f"unknown composition {name!r}; use 'solar' or give abundances "
-                         f"(SYMBOL=NUMBER relative to hydrogen)")
-    return solar(_SOLAR_NAMES[name], metallicity=float(c.get("metallicity", 0.0)),
-                 alpha_enhancement=float(c.get("alpha_enhancement", 0.0)))
+        comp = Composition.from_number(c["abundances"], name="custom")
+        if c.get("metallicity") or c.get("alpha_enhancement"):
+            comp = comp.scaled(float(c.get("metallicity", 0.0)),
+                               float(c.get("alpha_enhancement", 0.0)))
+    else:
+        name = c.get("name", "solar")
+        if name not in _SOLAR_NAMES:
+            raise InputError(f"unknown composition {name!r}; use 'solar' or give abundances "
+                             f"(SYMBOL=NUMBER relative to hydrogen)")
+        comp = solar(_SOLAR_NAMES[name], metallicity=float(c.get("metallicity", 0.0)),
+                     alpha_enhancement=float(c.get("alpha_enhancement", 0.0)))
+    if c.get("abundance_offsets"):
+        comp = comp.with_offsets(c["abundance_offsets"])
+    if "helium_mass_fraction" in c:
+        comp = comp.with_helium_mass_fraction(c["helium_mass_fraction"])
+    return comp
+
+
+def compositions_of(spec: TableSpec) -> list:
+    """The composition of every slice, resolved (all of them, so that a slice that leaves an
+    abundance negative is an error before any state is computed); all slices must hold the
+    same elements, since the file stores one species list."""
+    comps = []
+    ax = spec.composition_axis
+    for k, doc in enumerate(spec.compositions()):
+        try:
+            comps.append(resolve_composition(doc))
+        except InputError as exc:
+            if ax is None:
+                raise
+            raise InputError(f"composition axis {ax.name} = {ax.values[k]:g}: {exc}") from None
+    if len({tuple(c.Z.tolist()) for c in comps}) > 1:
+        raise InputError(f"composition axis {ax.name}: the slices hold different elements; "
+                         f"every slice needs the same ones")
+    return comps
 
 
 def composition_digest_doc(spec: TableSpec) -> dict[str, Any]:
-    """The resolved composition (element -> number fraction) for the cache key."""
-    comp = composition_of(spec)
-    return {"name": comp.name, "number_fraction": dict(zip(comp.symbols,
-                                                           (float(x) for x in comp.number_fraction)))}
+    """The resolved composition (element -> number fraction) for the cache key; with a
+    composition axis, one per slice."""
+    docs = [{"name": comp.name, "number_fraction": dict(zip(
+        comp.symbols, (float(x) for x in comp.number_fraction)))}
+        for comp in compositions_of(spec)]
+    if spec.composition_axis is None:
+        return docs[0]
+    return {"axis": spec.composition_axis.name, "slices": docs}
 
 
-_NETWORKS: dict[str, tuple[Any, Any]] = {}  # per process: spec identity -> (composition, network)
+#: per process: spec identity -> (composition, network), the most recent few (a composition
+#: axis has one network per slice; its blocks come slice after slice)
+_NETWORKS: dict[str, tuple[Any, Any]] = {}
+_KEEP_NETWORKS = 4
 
 
 def _network_key(spec: TableSpec) -> str:
@@ -72,6 +116,8 @@ def solve_block(spec: TableSpec, T: np.ndarray, P: np.ndarray):
     network = getattr(state, "network", None)
     if network is not None:
         _NETWORKS[key] = (comp, network)
+        while len(_NETWORKS) > _KEEP_NETWORKS:
+            del _NETWORKS[next(iter(_NETWORKS))]
     return state
 
 
@@ -165,4 +211,5 @@ def _level_outputs(spec, state, n, out, labels, coords) -> None:
     out["level_number_density"] = np.stack(rows)
 
 
-__all__ = ["solver_compute", "composition_of", "composition_digest_doc"]
+__all__ = ["solver_compute", "composition_of", "compositions_of", "resolve_composition",
+           "composition_digest_doc"]

@@ -3,13 +3,19 @@
 Layout (documented in docs/table_format.md):
 
 - ``/temperature`` (nT,) [K] and ``/<pressure quantity>`` (nP,) are dimension scales, and so
-  are the label coordinates ``/species``, ``/molecule``, ``/element``, ``/level``,
+  is, for a table with a composition axis, ``/<composition quantity>`` (nC,) (``metallicity``,
+  ``alpha_enhancement``, ``helium_mass_fraction``, ``abundance_C`` ...), and so are
+  the label coordinates ``/species``, ``/molecule``, ``/element``, ``/level``,
   ``/partition_species`` of the stacked variables (strings);
 - scalar fields are 2-D ``(temperature, <pressure quantity>)``; stacked ones are 3-D
-  ``(label, temperature, <pressure quantity>)`` (one variable for all species, ...);
+  ``(label, temperature, <pressure quantity>)`` (one variable for all species, ...); a
+  composition axis adds a dimension before temperature: ``([label,] composition, T, P)``;
 - auxiliary coordinates (``charge``, ``atomic_number``, ``level_energy``, ``level_g`` ...)
   are listed in each variable's CF ``coordinates`` attribute;
 - provenance in root attributes; ``complete = 1`` and the ``variables`` list are written last.
+- while a build runs, ``/build_progress`` (per block: 0, or 1 + its unsolved states once stored) and the root
+  attributes ``build_identity`` and ``build_variables`` let a killed build resume; they are
+  removed when the table is finished.
 
 Files are plain netCDF-4/HDF5 that h5py, xarray (engine ``h5netcdf``), C and Fortran read
 without custom code.  Every chunk goes through shuffle, deflate and the Fletcher-32 checksum
@@ -21,6 +27,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import json
+import math
 import os
 import time
 import zlib
@@ -42,6 +49,8 @@ MAX_CHUNK_ELEMENTS = 131072
 #: that a build writes few, large chunks; reading one row decompresses at most its chunk
 MIN_CHUNK_ELEMENTS = 32768
 GZIP_LEVEL = 1
+#: the dataset of a build in progress that records its stored blocks
+PROGRESS = "build_progress"
 
 
 def fletcher32(data: bytes) -> bytes:
@@ -84,25 +93,39 @@ def rows_per_chunk(n_rows: int, block_states: int) -> int:
     return max(1, min(n_rows, want, fit))
 
 
-def encode_field(arr: np.ndarray, block_shape: tuple[int, int], chunk_shape: tuple[int, int],
+def encode_field(arr: np.ndarray, block_shape: tuple[int, ...], chunk_shape: tuple[int, ...],
                  stacked: bool) -> list[bytes | None]:
-    """The chunks of one variable over one block (``block_shape`` states; smaller than
-    ``chunk_shape`` at the grid edge): one, or one per group of rows of a stacked variable.
+    """The chunks of one variable over one block (``block_shape`` states, e.g. (nT, nP) rows
+    or (1, nT, nP) of one composition; smaller than ``chunk_shape`` at the grid edge): one,
+    or one per group of rows of a stacked variable.
 
     A chunk of zeros only is None: it is not written, and HDF5 reads an unwritten chunk as the
     variable's fill value, 0.  High stages of heavy elements are exactly 0 (underflow) over
     much of a grid, so this skips most of the compression of a solar table.
     """
-    bt, bp = block_shape
+    block_shape, chunk_shape = tuple(block_shape), tuple(chunk_shape)
     if not stacked:
-        a = arr.reshape(bt, bp)
+        a = arr.reshape(block_shape)
         return [encode_chunk(a, chunk_shape) if a.any() else None]
     n = arr.shape[0]
-    k = rows_per_chunk(n, chunk_shape[0] * chunk_shape[1])
-    a = arr.reshape(n, bt, bp)
-    nonzero = np.add.reduceat(np.any(a, axis=(1, 2)), np.arange(0, n, k)) > 0
-    return [encode_chunk(a[r:r + k], (k,) + tuple(chunk_shape)) if nz else None
+    k = rows_per_chunk(n, math.prod(chunk_shape))
+    a = arr.reshape((n,) + block_shape)
+    nonzero = np.add.reduceat(np.any(a, axis=tuple(range(1, a.ndim))),
+                              np.arange(0, n, k)) > 0
+    return [encode_chunk(a[r:r + k], (k,) + chunk_shape) if nz else None
             for r, nz in zip(range(0, n, k), nonzero)]
+
+
+def block_offset(block: tuple[int, ...]) -> tuple[int, ...]:
+    """Where a block ``([c,] i0, i1, j0, j1)`` starts in a scalar variable."""
+    *lead, i0, _, j0, _ = block
+    return tuple(lead) + (i0, j0)
+
+
+def block_shape(block: tuple[int, ...]) -> tuple[int, ...]:
+    """The shape of a block ``([c,] i0, i1, j0, j1)`` in a scalar variable."""
+    *lead, i0, i1, j0, j1 = block
+    return (1,) * len(lead) + (i1 - i0, j1 - j0)
 
 
 def _str_array(values) -> np.ndarray:
@@ -120,24 +143,19 @@ class TableWriter:
     """Write one table file block by block.  Use :func:`sahaboltz.tables.build.build_table`.
 
     Variables are created from the first block written (names, labels and coordinates come
-    from the compute function).  :meth:`finish` writes the closing attributes; a file without
-    them is incomplete.
+    from the compute function).  The blocks stored are recorded in the file
+    (:meth:`mark_done`), so that a killed build can go on from them (:meth:`reopen`).
+    :meth:`finish` writes the closing attributes; a file without them is incomplete.
     """
 
     def __init__(self, path: str | Path, spec: TableSpec, provenance: Mapping[str, Any],
-                 block_shape: tuple[int, int]):
+                 block_shape: tuple[int, ...], *, identity: str = "", block_states: int = 0,
+                 n_blocks: int = 0):
         t0 = time.perf_counter()
         self.path = Path(path)
         self.spec = spec
-        self.file = h5py.File(self.path, "w", libver=("earliest", "v110"))
-        self.seconds = {"create": 0.0, "write": 0.0}  # file and variables; storing chunks
-        if block_shape[0] * block_shape[1] > MAX_CHUNK_ELEMENTS:
-            raise TableError(f"block {block_shape} is larger than the largest chunk "
-                             f"({MAX_CHUNK_ELEMENTS} states)")
-        self.chunks = tuple(block_shape)  # one HDF5 chunk per build block (and row group)
-        self._datasets: dict[str, h5py.Dataset] = {}
-        self._labels: dict[str, list] = {}
-        self._rows: dict[str, int] = {}
+        self.file = h5py.File(self.path, "w", libver=("earliest", "v110"), locking=False)
+        self._setup(block_shape)
         f = self.file
         f.attrs["Conventions"] = _text("CF-1.8")
         f.attrs["format_name"] = _text(FORMAT_NAME)
@@ -147,17 +165,76 @@ class TableWriter:
         f.attrs["package_version"] = _text(__version__)
         f.attrs["created"] = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
         f.attrs["pressure_quantity"] = _text(spec.pressure.name)
+        ax = spec.composition_axis
+        if ax is not None:
+            f.attrs["composition_axis"] = _text(ax.name)
         f.attrs["composition"] = json.dumps(spec.composition, sort_keys=True)
         f.attrs["physics"] = json.dumps(spec.physics, sort_keys=True)
         f.attrs["outputs"] = json.dumps(spec.outputs.to_mapping(), sort_keys=True)
         f.attrs["spec"] = spec.canonical()
         for k, v in provenance.items():
             f.attrs[k] = v if isinstance(v, (str, int, float)) else json.dumps(v, sort_keys=True)
+        if ax is not None:
+            self._c = self._scale(ax.name, ax.array, ax.unit, ax.long_name)
         self._t = self._scale(spec.temperature.name, spec.temperature.array, "K", "temperature")
         punit = PRESSURE_QUANTITIES[spec.pressure.name]
         self._p = self._scale(spec.pressure.name, spec.pressure.array, punit,
                               spec.pressure.name.replace("_", " "))
+        # the build's record: which blocks are stored (removed by finish)
+        f.attrs["build_identity"] = identity
+        # contiguous (no chunk index to update): a checkpoint rewrites it in place
+        prog = f.create_dataset(PROGRESS, data=np.zeros(n_blocks, np.int64))
+        self._record = np.zeros(n_blocks, np.int64)
+        prog.attrs["block_states"] = np.int64(block_states)
+        prog.attrs["chunk_shape"] = json.dumps(list(self.chunks))
         self.seconds["create"] += time.perf_counter() - t0
+
+    def _setup(self, block_shape) -> None:
+        self.seconds = {"create": 0.0, "write": 0.0}  # file and variables; storing chunks
+        if math.prod(block_shape) > MAX_CHUNK_ELEMENTS:
+            raise TableError(f"block {tuple(block_shape)} is larger than the largest chunk "
+                             f"({MAX_CHUNK_ELEMENTS} states)")
+        self.chunks = tuple(block_shape)  # one HDF5 chunk per build block (and row group)
+        self._datasets: dict[str, h5py.Dataset] = {}
+        self._labels: dict[str, list] = {}
+        self._rows: dict[str, int] = {}
+        self._c = None
+        self._flushed = time.monotonic()
+
+    @classmethod
+    def reopen(cls, path: str | Path, spec: TableSpec, identity: str
+               ) -> tuple["TableWriter", int, np.ndarray] | None:
+        """Open the temporary file of a killed build of the same table to go on with it:
+        returns (writer, states per block, record), or None when the file is not such a
+        record (another table, damaged, or finished).  The record has one entry per block:
+        0 not stored, else 1 + the states of the block the solver could not solve."""
+        try:
+            f = h5py.File(path, "a", locking=False)
+        except OSError:
+            return None
+        try:
+            if _decode(f.attrs.get("build_identity")) != identity or PROGRESS not in f:
+                f.close()
+                return None
+            prog = f[PROGRESS]
+            self = cls.__new__(cls)
+            self.path, self.spec, self.file = Path(path), spec, f
+            self._setup(tuple(json.loads(_decode_str(prog.attrs["chunk_shape"]))))
+            ax = spec.composition_axis
+            self._c = f[ax.name] if ax is not None else None
+            self._t, self._p = f[spec.temperature.name], f[spec.pressure.name]
+            for name in json.loads(_decode_str(f.attrs.get("build_variables", "[]"))):
+                d = f[name]
+                self._datasets[name] = d
+                var = STACKED.get(name)
+                if var is not None:
+                    self._rows[name] = d.chunks[0]
+                    self._labels[var.dim] = [_decode_str(x) for x in f[var.dim][()]]
+            self._record = prog[()].astype(np.int64)
+            return self, int(prog.attrs["block_states"]), self._record.copy()
+        except (KeyError, OSError, ValueError, RuntimeError):
+            f.close()
+            return None
 
     def _scale(self, name, values, unit, long_name):
         d = self.file.create_dataset(name, data=values)
@@ -188,7 +265,7 @@ class TableWriter:
             var = STACKED.get(name)
             if var is not None:
                 nrow = len(self._labels[var.dim])
-                k = rows_per_chunk(nrow, self.chunks[0] * self.chunks[1])
+                k = rows_per_chunk(nrow, math.prod(self.chunks))
                 shape, chunks = (nrow,) + self.spec.shape, (k,) + self.chunks
                 self._rows[name] = k
             else:
@@ -198,7 +275,7 @@ class TableWriter:
                                  fletcher32=True, fillvalue=0.0)  # unwritten chunks: zeros
             for k_, v_ in field_attrs(name).items():
                 d.attrs[k_] = v_ if isinstance(v_, np.ndarray) else _text(v_)
-            axes = [self._t, self._p]
+            axes = [self._t, self._p] if self._c is None else [self._c, self._t, self._p]
             if var is not None:
                 axes.insert(0, scales[var.dim])
                 if aux_of.get(var.dim):
@@ -206,13 +283,13 @@ class TableWriter:
             for i, sc in enumerate(axes):  # a dozen variables: attaching one by one is cheap
                 d.dims[i].attach_scale(sc)
             self._datasets[name] = d
+        f.attrs["build_variables"] = json.dumps(list(self._datasets))
 
-    def write_block(self, block: tuple[int, int, int, int], values: Mapping[str, Any]):
-        """Store the block ``(i0, i1, j0, j1)``: ``values`` as made by the workers
+    def write_block(self, block: tuple[int, ...], values: Mapping[str, Any]):
+        """Store the block ``([c,] i0, i1, j0, j1)``: ``values`` as made by the workers
         (:func:`sahaboltz.tables.build.run_block`): ``fields`` (arrays, or their chunks
         already encoded), ``labels`` and ``aux``."""
         t0 = time.perf_counter()
-        i0, i1, j0, j1 = block
         fields = {k: v for k, v in values["fields"].items()
                   if k not in (self.spec.temperature.name, self.spec.pressure.name)}
         if not self._datasets:
@@ -223,26 +300,56 @@ class TableWriter:
                 {k: [str(x) for x in v] for k, v in values["labels"].items()} != self._labels:
             raise TableError(f"compute function returned different quantities for block {block}: "
                              f"{sorted(set(fields) ^ set(self._datasets))}")
-        if (i0 % self.chunks[0]) or (j0 % self.chunks[1]):
+        at = block_offset(block)
+        if len(at) != len(self.chunks) or any(a % c for a, c in zip(at, self.chunks)):
             raise TableError(f"block {block} is not aligned with the chunks {self.chunks}")
         for name, chunks in fields.items():
             stacked = name in STACKED
             if not isinstance(chunks, list):
-                chunks = encode_field(np.asarray(chunks, dtype=float), (i1 - i0, j1 - j0),
+                chunks = encode_field(np.asarray(chunks, dtype=float), block_shape(block),
                                       self.chunks, stacked)
             dsid = self._datasets[name].id
             if stacked:
                 k = self._rows[name]
                 for g, raw in enumerate(chunks):
                     if raw is not None:
-                        dsid.write_direct_chunk((g * k, i0, j0), raw)
+                        dsid.write_direct_chunk((g * k,) + at, raw)
             elif chunks[0] is not None:
-                dsid.write_direct_chunk((i0, j0), chunks[0])
+                dsid.write_direct_chunk(at, chunks[0])
         self.seconds["write"] += time.perf_counter() - t0
 
-    def finish(self, extra: Mapping[str, Any] | None = None) -> None:
-        """Write the closing attributes, flush to disk and close."""
+    def mark_done(self, index: int, elapsed: float, failed: int = 0, every: float = 0.0) -> None:
+        """Record block ``index`` (of the build's block list) as stored, with ``failed``
+        states that could not be solved.  The record reaches the file at the next checkpoint
+        (now, or at most ``every`` seconds later), after everything written before it; a
+        block stored but not yet recorded is computed again by a resumed build."""
+        self._record[index] = 1 + int(failed)
+        if time.monotonic() - self._flushed >= every:
+            self.checkpoint(elapsed)
+
+    def checkpoint(self, elapsed: float) -> None:
+        """Flush what is written, with the build's seconds so far, and only then the record
+        of the blocks stored: HDF5 may write its caches to the file in any order, so a record
+        written with the data could reach the file before the chunks it vouches for (a build
+        killed then would resume with those chunks missing)."""
         f = self.file
+        f.attrs["build_elapsed"] = float(elapsed)
+        f.flush()
+        f[PROGRESS][...] = self._record
+        f.flush()
+        self._flushed = time.monotonic()
+
+    def elapsed_before(self) -> float:
+        """Build seconds spent in earlier runs of a resumed build."""
+        return float(self.file.attrs.get("build_elapsed", 0.0))
+
+    def finish(self, extra: Mapping[str, Any] | None = None) -> None:
+        """Remove the build's record, write the closing attributes, flush to disk and close."""
+        f = self.file
+        del f[PROGRESS]
+        for k in ("build_identity", "build_variables", "build_elapsed"):
+            if k in f.attrs:
+                del f.attrs[k]
         for k, v in (extra or {}).items():
             f.attrs[k] = v
         f.attrs["create_seconds"] = round(self.seconds["create"], 4)
@@ -253,6 +360,13 @@ class TableWriter:
         fd = f.id.get_vfd_handle()
         os.fsync(fd)
         f.close()
+
+    def close(self) -> None:
+        """Close the file as it is, with its record: an interrupted build goes on from it."""
+        try:
+            self.file.flush()
+        finally:
+            self.file.close()
 
     def abort(self) -> None:
         try:
@@ -268,7 +382,7 @@ def read_metadata(path: str | Path) -> dict[str, Any]:
         meta = {k: _decode(v) for k, v in f.attrs.items()}
         pq = meta.get("pressure_quantity")
         if "temperature" in f and pq in f:
-            meta["shape"] = (f["temperature"].shape[0], f[pq].shape[0])
+            meta["shape"] = _grid_shape(f)
     meta["size_bytes"] = path.stat().st_size
     return meta
 
@@ -330,17 +444,16 @@ def check_table(path: str | Path, *, key: str | None = None, full: bool = False)
             if key is not None and _decode(f.attrs.get("cache_key")) != key:
                 raise TableError(f"{path} holds a different table (cache key mismatch)")
             names = json.loads(_decode_str(f.attrs["variables"]))
-            pq = _decode_str(f.attrs["pressure_quantity"])
-            shape = (f["temperature"].shape[0], f[pq].shape[0])
+            shape = _grid_shape(f)
             missing = set(names) - set(f.keys())
             if missing:
                 raise TableError(f"{path} is damaged: {len(missing)} listed variable(s) missing, "
                                  f"e.g. {sorted(missing)[0]}")
             for name in names:
                 d = f[name]
-                if d.shape[-2:] != shape:
+                if d.shape[-len(shape):] != shape:
                     raise TableError(f"{path}: variable {name} has shape {d.shape}, expected "
-                                     f"(..., {shape[0]}, {shape[1]})")
+                                     f"(..., {', '.join(str(n) for n in shape)})")
                 if full:
                     for sl in d.iter_chunks():
                         d[sl]
@@ -351,6 +464,13 @@ def check_table(path: str | Path, *, key: str | None = None, full: bool = False)
         except (KeyError, OSError, ValueError, RuntimeError) as exc:
             raise TableError(f"{path} is damaged: {exc}. Delete it and build the table again.") \
                 from None
+
+
+def _grid_shape(f: h5py.File) -> tuple[int, ...]:
+    """(nT, nP), or (nC, nT, nP) for a table with a composition axis."""
+    shape = (f["temperature"].shape[0], f[_decode_str(f.attrs["pressure_quantity"])].shape[0])
+    ax = f.attrs.get("composition_axis")
+    return shape if ax is None else (f[_decode_str(ax)].shape[0],) + shape
 
 
 def _decode_str(v) -> str:

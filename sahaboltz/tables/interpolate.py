@@ -11,6 +11,12 @@ to zero next to finite ones) they fall back to bilinear interpolation of the log
 overshoot.  ``method="linear"`` is bilinear everywhere.  Zeros are logged as the smallest normal float; results below it come back as
 exactly 0.
 
+A table with a composition axis (metallicity, [alpha/Fe], helium mass fraction Y or one
+element's abundance) is interpolated in it as well, as given (dex quantities are already
+logarithms, so ln q is interpolated linearly in dex): Lagrange through 4 composition points
+where the axis has 4 or more (and the method is not ``linear``), else linearly; where the 4
+values of a logged quantity span more than ``e^50`` it is linear there.
+
 Points outside the grid raise :class:`~sahaboltz.errors.InputError` by default; ``outside="clip"``
 clamps them onto the grid edge and ``outside="nan"`` returns NaN there (asked-for, documented NaN).
 """
@@ -64,6 +70,11 @@ class PopulationTable:
         Pressure-like axis in the cgs unit of :attr:`pressure_quantity`.
     pressure_quantity : str
         ``gas_pressure``, ``electron_pressure``, ``mass_density`` or ``hydrogen_density``.
+    composition_axis : str or None
+        Name of the composition axis (``metallicity``, ``alpha_enhancement``,
+        ``helium_mass_fraction``, ``abundance_C`` ...), None for a 2-D table.
+    composition : ndarray or None
+        Its values (unit :attr:`composition_unit`).
     variables : dict
         Stored variable -> its row labels (None for a scalar field), e.g.
         ``{"electron_density": None, "fraction": ["H-", "H I", ...]}``.
@@ -102,6 +113,12 @@ class PopulationTable:
         self._lt = np.log(self.temperature)
         self._lp = np.log(self.pressure)
         self._axes = (_Axis(self._lt), _Axis(self._lp))
+        ax = self.attrs.get("composition_axis")
+        self.composition_axis = None if ax is None else str(ax)
+        self.composition = None if ax is None else f[self.composition_axis][()]
+        self.composition_unit = (None if ax is None else
+                                 _decode_str(f[self.composition_axis].attrs.get("units", b"")))
+        self._caxis = None if ax is None else _Axis(np.asarray(self.composition, float))
 
     # -- file handle and context manager ------------------------------------------------------
     def _h5(self):
@@ -127,8 +144,26 @@ class PopulationTable:
         except Exception:  # noqa: BLE001 - interpreter shutdown
             pass
 
+    def _repr_html_(self) -> str:
+        from sahaboltz._html import html_table
+
+        t, p = self.temperature, self.pressure
+        rows = [("file", str(self.path)),
+                ("title", str(self.attrs.get("title", ""))),
+                ("grid", f"{t.size} x {p.size}"),
+                ("temperature", f"{t[0]:.4g} .. {t[-1]:.4g} K"),
+                (self.pressure_quantity, f"{p[0]:.4g} .. {p[-1]:.4g} {self.pressure_unit}"),
+                ("composition", str(self.attrs.get("composition", ""))),
+                ("physics", str(self.attrs.get("physics", ""))),
+                ("variables", ", ".join(self.variables)),
+                ("quantities", f"{len(self.quantities)} (e.g. "
+                               f"{', '.join(self.quantities[:4])})")]
+        return html_table("PopulationTable", rows,
+                          "table.interpolate(name, T, P); table.to_xarray()")
+
     def __repr__(self) -> str:
-        return (f"PopulationTable({str(self.path)!r}: {len(self.temperature)} x "
+        lead = "" if self.composition is None else f"{len(self.composition)} x "
+        return (f"PopulationTable({str(self.path)!r}: {lead}{len(self.temperature)} x "
                 f"{len(self.pressure)}, {len(self.variables)} variables, "
                 f"{len(self.quantities)} quantities)")
 
@@ -172,7 +207,8 @@ class PopulationTable:
 
     def __getitem__(self, name: str) -> np.ndarray:
         """The stored grid of a quantity, shape (nT, nP); of a whole stacked variable
-        (``"fraction"``), shape (rows, nT, nP)."""
+        (``"fraction"``), shape (rows, nT, nP); with a composition axis (nC, nT, nP) and
+        (rows, nC, nT, nP)."""
         if name in self.variables and self.variables[name] is not None:
             return self._read(name, slice(None))
         self._known(name)
@@ -198,15 +234,20 @@ class PopulationTable:
 
     def to_dataframe(self, names: str | Sequence[str] | None = None):
         """Quantities as a :class:`pandas.DataFrame`, one row per grid state (index:
-        temperature and the pressure-like quantity); default: the scalar fields."""
+        [the composition quantity,] temperature and the pressure-like quantity); default: the
+        scalar fields."""
         pd = optional("pandas", "to_dataframe()")
         if names is None:
             names = [v for v, labs in self.variables.items() if labs is None]
         elif isinstance(names, str):
             names = [names]
-        t, p = np.meshgrid(self.temperature, self.pressure, indexing="ij")
-        index = pd.MultiIndex.from_arrays([t.ravel(), p.ravel()],
-                                          names=["temperature", self.pressure_quantity])
+        axes = [self.temperature, self.pressure]
+        names_ = ["temperature", self.pressure_quantity]
+        if self.composition is not None:
+            axes.insert(0, self.composition)
+            names_.insert(0, self.composition_axis)
+        grids = np.meshgrid(*axes, indexing="ij")
+        index = pd.MultiIndex.from_arrays([g.ravel() for g in grids], names=names_)
         return pd.DataFrame({n: self[n].ravel() for n in names}, index=index)
 
     def _prepare(self, name: str, widths: tuple[int, int]
@@ -218,12 +259,32 @@ class PopulationTable:
             self._prepared[name] = (g, logged, {})
         g, logged, wide = self._prepared[name]
         if logged and widths not in wide:
-            wide[widths] = _wide_windows(g, *widths)
+            if g.ndim == 2:
+                wide[widths] = _wide_windows(g, *widths)
+            else:  # one map per composition slice
+                maps = [_wide_windows(plane, *widths) for plane in g]
+                wide[widths] = None if all(m is None for m in maps) else np.stack(
+                    [m if m is not None else np.zeros(
+                        (g.shape[1] - widths[0] + 1, g.shape[2] - widths[1] + 1), bool)
+                     for m in maps])
         return np.ascontiguousarray(g).ravel(), logged, wide.get(widths)
 
-    def interpolate(self, names: str | Sequence[str], temperature, pressure, *,
-                    method: str = "quintic", outside: str = "raise"):
-        """Interpolate stored quantities at the points ``(temperature, pressure)``.
+    def quantity(self, name: str, temperature, pressure, composition=None, **options):
+        """:meth:`interpolate` one quantity and return it as an astropy Quantity in the unit
+        the table stores it in (``units`` attribute; "1" is dimensionless), e.g.
+        ``table.quantity("electron_pressure", 5800 * u.K, 1e4 * u.Pa).to(u.Pa)``."""
+        import astropy.units as u
+
+        if not isinstance(name, str):
+            raise InputError(f"quantity: give one name, got {name!r}")
+        value = self.interpolate(name, temperature, pressure, composition, **options)
+        unit = self.units(name)
+        return np.asarray(value) * (u.dimensionless_unscaled if unit in ("", "1")
+                                    else u.Unit(unit))
+
+    def interpolate(self, names: str | Sequence[str], temperature, pressure, composition=None,
+                    *, method: str = "quintic", outside: str = "raise"):
+        """Interpolate stored quantities at the points ``(temperature, pressure[, composition])``.
 
         Parameters
         ----------
@@ -233,8 +294,12 @@ class PopulationTable:
             Temperatures [K].
         pressure : float, array_like or Quantity
             Values of the table's pressure-like quantity, in its cgs unit (:attr:`pressure_unit`).
+        composition : float or array_like, optional
+            Values of the composition axis (:attr:`composition_axis`, e.g. [M/H] in dex);
+            needed for, and only for, a table with one.
         method : {"quintic", "cubic", "linear"}
-            Lagrange stencils of 6 points in ln T and 4 in ln P (default), 4 x 4, or bilinear.
+            Lagrange stencils of 6 points in ln T and 4 in ln P (default), 4 x 4, or bilinear;
+            along a composition axis 4 points (linear for "linear" or fewer than 4 values).
         outside : {"raise", "clip", "nan"}
             What to do with points outside the grid.
 
@@ -255,41 +320,75 @@ class PopulationTable:
             self._known(n)
         t = as_positive_array(temperature, "K", "temperature")
         p = as_positive_array(pressure, self.pressure_unit, self.pressure_quantity)
-        t, p = np.broadcast_arrays(t, p)
+        c = self._composition_values(composition)
+        t, p, c = np.broadcast_arrays(t, p, 0.0 if c is None else c)
         shape = t.shape
-        lt, lp = np.log(t).ravel(), np.log(p).ravel()
-        bad = self._outside(lt, lp, outside)
+        lt, lp, lc = np.log(t).ravel(), np.log(p).ravel(), c.ravel()
+        bad = self._outside(lt, lp, lc, outside)
         lt = np.clip(lt, self._lt[0], self._lt[-1])
         lp = np.clip(lp, self._lp[0], self._lp[-1])
         out = {n: np.empty(lt.size) for n in names}
         wt = min(METHODS[method][0], self.temperature.size)
         wp = min(METHODS[method][1], self.pressure.size)
+        wc = 0
+        if self._caxis is not None:
+            lc = np.clip(lc, self._caxis.x[0], self._caxis.x[-1])
+            wc = 4 if (self.composition.size >= 4 and method != "linear") else 2
         prepared = [self._prepare(n, (wt, wp)) for n in names]
         for s in range(0, lt.size, _BATCH):
             sl = slice(s, s + _BATCH)
             st = _Stencil(self._axes[0], lt[sl], wt)
             sp = _Stencil(self._axes[1], lp[sl], wp)
+            sc = _Stencil(self._caxis, lc[sl], wc) if wc else None
             for n, (g, logged, wide) in zip(names, prepared):
-                out[n][sl] = _evaluate(g, len(self._lp), st, sp, logged, wide)
+                out[n][sl] = _evaluate(g, len(self._lt), len(self._lp), st, sp, logged, wide,
+                                       sc)
         for n in names:
             if bad is not None:
                 out[n][bad] = np.nan
             out[n] = out[n].reshape(shape)
         return out[names[0]] if single else out
 
-    def _outside(self, lt, lp, outside):
+    def _composition_values(self, composition):
+        if self.composition is None:
+            if composition is not None:
+                raise InputError("this table has no composition axis; give temperature and "
+                                 f"{self.pressure_quantity} only")
+            return None
+        if composition is None:
+            raise InputError(f"this table has a composition axis, {self.composition_axis} "
+                             f"{self.composition[0]:g}..{self.composition[-1]:g} "
+                             f"{self.composition_unit}: give composition= values too")
+        try:
+            c = np.asarray(composition, dtype=float)
+        except (TypeError, ValueError):
+            raise InputError(f"composition ({self.composition_axis}) must be numbers, got "
+                             f"{composition!r}") from None
+        if not np.all(np.isfinite(c)):
+            raise InputError(f"composition ({self.composition_axis}) values must be finite")
+        return c
+
+    def _outside(self, lt, lp, lc, outside):
         tol = 1e-12
         bad = ((lt < self._lt[0] - tol) | (lt > self._lt[-1] + tol) |
                (lp < self._lp[0] - tol) | (lp > self._lp[-1] + tol))
+        cx = self._caxis
+        if cx is not None:
+            bad |= (lc < cx.x[0] - tol) | (lc > cx.x[-1] + tol)
         if not bad.any():
             return None
         if outside == "raise":
             i = int(np.argmax(bad))
+            at_c = covers_c = ""
+            if cx is not None:
+                at_c = f", {self.composition_axis} = {lc[i]:.6g}"
+                covers_c = (f", {self.composition_axis} {cx.x[0]:g}..{cx.x[-1]:g} "
+                            f"{self.composition_unit}")
             raise InputError(
                 f"{int(bad.sum())} point(s) outside the table, e.g. T = {np.exp(lt[i]):.6g} K, "
-                f"{self.pressure_quantity} = {np.exp(lp[i]):.6g} {self.pressure_unit}; the grid "
-                f"covers T {self.temperature[0]:g}..{self.temperature[-1]:g} K and "
-                f"{self.pressure[0]:g}..{self.pressure[-1]:g} {self.pressure_unit}. "
+                f"{self.pressure_quantity} = {np.exp(lp[i]):.6g} {self.pressure_unit}{at_c}; "
+                f"the grid covers T {self.temperature[0]:g}..{self.temperature[-1]:g} K and "
+                f"{self.pressure[0]:g}..{self.pressure[-1]:g} {self.pressure_unit}{covers_c}. "
                 f"Pass outside='clip' to clamp onto the edge or outside='nan' for NaN there.")
         return bad if outside == "nan" else None
 
@@ -369,20 +468,41 @@ def _wide_windows(g2d: np.ndarray, wt: int, wp: int) -> np.ndarray | None:
     return wide if wide.any() else None
 
 
-def _evaluate(g: np.ndarray, ncol: int, st: _Stencil, sp: _Stencil, logged: bool,
-              wide_map: np.ndarray | None) -> np.ndarray:
-    offsets = (np.arange(st.width)[:, None] * ncol + np.arange(sp.width)[None, :]).ravel()
-    base = st.start * ncol + sp.start
-    vals = g.take(base[:, None] + offsets).reshape(-1, st.width, sp.width)  # (N, wt, wp)
-    res = np.einsum("na,nab,nb->n", st.weights, vals, sp.weights)
-    if logged and wide_map is not None and st.width * sp.width > 4:
-        wide = wide_map[st.start, sp.start]
-        if wide.any():
-            res[wide] = _bilinear(vals[wide], st, sp, wide)
+def _evaluate(g: np.ndarray, nrow: int, ncol: int, st: _Stencil, sp: _Stencil, logged: bool,
+              wide_map: np.ndarray | None, sc: _Stencil | None = None) -> np.ndarray:
+    """Interpolated values at a batch of points: in (ln T, ln P) on each composition slice of
+    the stencil ``sc`` (the one plane of a 2-D table), then along the composition axis."""
+    if sc is None:
+        res = _plane(g, 0, ncol, st, sp, logged, wide_map, None)
+    else:
+        planes = np.stack([_plane(g, (sc.start + k) * (nrow * ncol), ncol, st, sp, logged,
+                                  wide_map, sc.start + k) for k in range(sc.width)], axis=1)
+        res = np.einsum("nk,nk->n", sc.weights, planes)
+        if logged and sc.width > 2:  # an underflow edge across the compositions: linear
+            wide = np.ptp(planes, axis=1) > _SPAN_LIMIT
+            if wide.any():
+                n = np.nonzero(wide)[0]
+                i, u = sc.offset[wide], sc.frac[wide]
+                res[wide] = (1 - u) * planes[n, i] + u * planes[n, i + 1]
     if logged:
         out = np.exp(res)
         out[res <= _LOG_FLOOR * (1 - 1e-12)] = 0.0
         return out
+    return res
+
+
+def _plane(g: np.ndarray, base0, ncol: int, st: _Stencil, sp: _Stencil, logged: bool,
+           wide_map: np.ndarray | None, cidx) -> np.ndarray:
+    """Tensor-product Lagrange values in (ln T, ln P) on the plane starting at ``base0``."""
+    offsets = (np.arange(st.width)[:, None] * ncol + np.arange(sp.width)[None, :]).ravel()
+    base = base0 + st.start * ncol + sp.start
+    vals = g.take(base[:, None] + offsets).reshape(-1, st.width, sp.width)  # (N, wt, wp)
+    res = np.einsum("na,nab,nb->n", st.weights, vals, sp.weights)
+    if logged and wide_map is not None and st.width * sp.width > 4:
+        wide = (wide_map[st.start, sp.start] if cidx is None else
+                wide_map[cidx, st.start, sp.start])
+        if wide.any():
+            res[wide] = _bilinear(vals[wide], st, sp, wide)
     return res
 
 

@@ -21,7 +21,7 @@ import numpy as np
 from sahaboltz.data.elements import SYMBOLS, atomic_number, parse_species, spectroscopic_name
 from sahaboltz.equilibrium.closures import CLOSURES
 from sahaboltz.equilibrium.thermodynamics import QUANTITIES as _THERMO_QUANTITIES
-from sahaboltz.errors import InputError
+from sahaboltz.errors import InputError, SahaboltzError
 from sahaboltz.kernels import truncation as _truncation
 
 if sys.version_info >= (3, 11):
@@ -54,6 +54,25 @@ SCALAR_OUTPUTS.update(THERMO_OUTPUTS)
 
 AXIS_SCALES = ("log", "linear", "values")
 
+#: what a composition axis can run over: quantity -> (unit, long name of its coordinate).
+#: The same keys, given once, modify the fixed composition (``metallicity = -0.5``).
+COMPOSITION_AXES = {
+    "metallicity": ("dex", "[M/H]: log10 scaling, by number relative to H, of every element "
+                           "heavier than He"),
+    "alpha_enhancement": ("dex", "[alpha/Fe]: further log10 scaling of O Ne Mg Si S Ar Ca Ti"),
+    "helium_mass_fraction": ("1", "helium mass fraction Y (metal mass fractions kept, "
+                                  "X = 1 - Y - Z)"),
+    "abundance": ("dex", "log10 scaling of one element's abundance relative to H, from the "
+                         "base mixture"),
+}
+#: command-line and spec-file aliases of the composition-axis quantities
+COMPOSITION_ALIASES = {"metallicity": "metallicity", "m/h": "metallicity", "[m/h]": "metallicity",
+                       "alpha": "alpha_enhancement", "alpha_enhancement": "alpha_enhancement",
+                       "[alpha/fe]": "alpha_enhancement", "y": "helium_mass_fraction",
+                       "helium_mass_fraction": "helium_mass_fraction"}
+#: elements heavier than He that [alpha/Fe] scales (as sahaboltz.data.composition.ALPHA_ELEMENTS)
+_ALPHA_Z = (8, 10, 12, 14, 16, 18, 20, 22)
+
 #: default grid: dense enough in log T for cubic interpolation of stage fractions to ~1e-4
 DEFAULT_TEMPERATURE = {"scale": "log", "min": 2000.0, "max": 50000.0, "per_decade": 100}
 DEFAULT_PRESSURE = {"quantity": "gas_pressure", "scale": "log", "min": 1e-2, "max": 1e8,
@@ -80,6 +99,11 @@ name = "solar"              # Asplund et al. (2009); optional metallicity = -0.5
 # [composition.abundances]
 # H = 1.0
 # He = 0.085
+# optional third grid axis over the composition (one of them):
+# [composition.axis]
+# quantity = "metallicity"  # [M/H] in dex; or "alpha_enhancement" (dex),
+#                           # "helium_mass_fraction" (Y), "abundance" with element = "C" (dex)
+# values = [-1.0, -0.5, 0.0, 0.5]   # or scale = "linear", min, max, num
 
 [physics]
 truncation = "occupation"   # {truncations}  (default "lowered" with lowering)
@@ -99,6 +123,56 @@ stage_fractions = "all"     # or a list of elements, e.g. ["H", "He", "Fe"]
 levels = []                 # e.g. ["Fe II:0-9", "H I:0,1,2"]  (bound-level indices, ground = 0)
 partition_functions = []    # e.g. ["Fe I", "Fe II"]
 """.format(closures=" | ".join(CLOSURES), truncations=" | ".join(_truncation.names()))
+
+
+# -- checked reading of a spec's values (a spec file can hold anything) --------------------
+def _table(value: Any, where: str) -> Mapping[str, Any]:
+    """A table (mapping) of a spec, or an InputError naming where it belongs."""
+    if not isinstance(value, Mapping):
+        raise InputError(f"{where} must be a table of keys (e.g. [{where}] in TOML), "
+                         f"got {_shown(value)}")
+    return value
+
+
+def _number(value: Any, where: str) -> float:
+    """A finite number of a spec (not a string, a list or a boolean)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+        raise InputError(f"{where} must be a number, got {_shown(value)}")
+    v = float(value)
+    if not math.isfinite(v):
+        raise InputError(f"{where} must be finite, got {value!r}")
+    return v
+
+
+def _integer(value: Any, where: str) -> int:
+    """A whole number of a spec (2 or 2.0; not 2.5, "ten" or true)."""
+    v = _number(value, where)
+    if v != int(v):
+        raise InputError(f"{where} must be a whole number, got {value!r}")
+    return int(v)
+
+
+def _boolean(value: Any, where: str) -> bool:
+    """true or false (a string such as "no" would otherwise read as True)."""
+    if not isinstance(value, (bool, np.bool_)):
+        raise InputError(f"{where} must be true or false, got {_shown(value)}")
+    return bool(value)
+
+
+def _strings(value: Any, where: str) -> list[str]:
+    """A list of strings of a spec (a single string is a one-item list)."""
+    if isinstance(value, str):
+        return [value]
+    if not isinstance(value, (list, tuple)) or not all(isinstance(x, str) for x in value):
+        raise InputError(f"{where} must be a list of strings, got {_shown(value)}")
+    return list(value)
+
+
+def _shown(value: Any) -> str:
+    kind = {str: "text", list: "a list", tuple: "a list", dict: "a table", bool: "a boolean",
+            int: "a number", float: "a number"}.get(type(value), type(value).__name__)
+    text = repr(value)
+    return f"{kind} {text if len(text) <= 40 else text[:37] + '...'}"
 
 
 @dataclass(frozen=True)
@@ -130,28 +204,35 @@ class Axis:
     @classmethod
     def from_mapping(cls, name: str, unit: str, m: Mapping[str, Any]) -> "Axis":
         """Build an axis from ``{scale, min, max, num | per_decade, values, unit}``."""
+        m = _table(m, name)
         known = {"scale", "min", "max", "num", "per_decade", "values", "unit", "quantity"}
         extra = set(m) - known
         if extra:
             raise InputError(f"{name} axis: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
         scale = m.get("scale", "values" if "values" in m else "log")
-        if scale not in AXIS_SCALES:
+        if not isinstance(scale, str) or scale not in AXIS_SCALES:
             raise InputError(f"{name} axis: scale must be one of {AXIS_SCALES}, got {scale!r}")
         if scale == "values":
             if "values" not in m:
                 raise InputError(f"{name} axis: scale 'values' needs a 'values' list")
-            vals = np.asarray(m["values"], dtype=float)
+            raw = m["values"]
+            if not isinstance(raw, (list, tuple)):
+                raise InputError(f"{name}.values must be a list of numbers, got {_shown(raw)}")
+            vals = np.array([_number(v, f"{name}.values[{k}]") for k, v in enumerate(raw)])
         else:
             for k in ("min", "max"):
                 if k not in m:
                     raise InputError(f"{name} axis: scale {scale!r} needs 'min' and 'max'")
-            lo, hi = float(m["min"]), float(m["max"])
+            lo, hi = _number(m["min"], f"{name}.min"), _number(m["max"], f"{name}.max")
             if not (0 < lo < hi and math.isfinite(hi)):
                 raise InputError(f"{name} axis: need 0 < min < max, got min={lo}, max={hi}")
             if "num" in m:
-                num = int(m["num"])
+                num = _integer(m["num"], f"{name}.num")
             elif "per_decade" in m and scale == "log":
-                num = int(math.ceil(float(m["per_decade"]) * math.log10(hi / lo) - 1e-9)) + 1
+                per = _number(m["per_decade"], f"{name}.per_decade")
+                if not per > 0:
+                    raise InputError(f"{name}.per_decade must be positive, got {per:g}")
+                num = int(math.ceil(per * math.log10(hi / lo) - 1e-9)) + 1
             else:
                 raise InputError(f"{name} axis: give 'num' (or 'per_decade' for a log axis)")
             if num < 2:
@@ -159,13 +240,199 @@ class Axis:
             vals = (np.geomspace(lo, hi, num) if scale == "log" else np.linspace(lo, hi, num))
             vals[0], vals[-1] = lo, hi  # exact end points
         in_unit = m.get("unit", unit)
+        if not isinstance(in_unit, str):
+            raise InputError(f"{name}.unit must be text such as 'K' or 'Pa', got "
+                             f"{_shown(in_unit)}")
         if in_unit != unit:  # astropy only when converting: it takes ~0.5 s to import
-            import astropy.units as u
+            from sahaboltz.quantities import convert, unit_of
             try:
-                vals = (vals * u.Unit(in_unit)).to_value(unit)
-            except (ValueError, u.UnitConversionError) as exc:
-                raise InputError(f"{name} axis: cannot use unit {in_unit!r} ({exc})") from None
+                vals = convert(vals, unit_of(in_unit, unit, f"{name}.unit"), unit)
+            except InputError as exc:
+                raise InputError(f"{name} axis: {exc}") from None
         return cls(name, unit, tuple(float(x) for x in vals), scale)
+
+
+@dataclass(frozen=True)
+class CompositionAxis:
+    """The optional third grid axis: one composition quantity over ``values``.
+
+    ``quantity`` is a key of :data:`COMPOSITION_AXES`; ``element`` names the element for
+    ``"abundance"``.  Each value, applied to the spec's base composition, gives the fixed
+    composition of one slice of the grid (:meth:`fixed`).  Values may be negative (dex) but
+    are finite and strictly increasing.
+    """
+
+    quantity: str
+    values: tuple[float, ...]
+    element: str | None = None
+
+    def __post_init__(self):
+        if self.quantity not in COMPOSITION_AXES:
+            raise InputError(f"composition axis: quantity must be one of "
+                             f"{list(COMPOSITION_AXES)}, got {self.quantity!r}")
+        if (self.quantity == "abundance") != (self.element is not None):
+            raise InputError("composition axis: give element = \"SYMBOL\" with quantity "
+                             "\"abundance\" (and only with it)")
+        if self.element == "H":
+            raise InputError("composition axis: abundances are scaled relative to hydrogen, "
+                             "so hydrogen itself cannot be the axis; scale the metals "
+                             "(metallicity) or helium instead")
+        v = np.asarray(self.values, dtype=float)
+        if v.ndim != 1 or v.size < 2:
+            raise InputError(f"composition axis {self.name} needs at least 2 values, got {v.size}")
+        if not np.all(np.isfinite(v)):
+            raise InputError(f"composition axis {self.name}: values must be finite")
+        if np.any(np.diff(v) <= 0):
+            raise InputError(f"composition axis {self.name}: values must be strictly "
+                             f"increasing; sort them and remove duplicates")
+        if self.quantity == "helium_mass_fraction" and (v[0] <= 0 or v[-1] >= 1):
+            raise InputError(f"composition axis helium_mass_fraction: Y must lie in (0, 1), "
+                             f"got {v[0]:g}..{v[-1]:g} (Y = 0 would remove helium, which the "
+                             f"other slices hold)")
+
+    @property
+    def name(self) -> str:
+        """Name of the coordinate in the file: the quantity, or ``abundance_C``."""
+        return self.quantity if self.element is None else f"abundance_{self.element}"
+
+    @property
+    def unit(self) -> str:
+        return COMPOSITION_AXES[self.quantity][0]
+
+    @property
+    def long_name(self) -> str:
+        text = COMPOSITION_AXES[self.quantity][1]
+        return text if self.element is None else text.replace("one element's",
+                                                              f"{self.element}'s")
+
+    @property
+    def array(self) -> np.ndarray:
+        return np.asarray(self.values, dtype=float)
+
+    def __len__(self) -> int:
+        return len(self.values)
+
+    def fixed(self, base: Mapping[str, Any], k: int) -> dict:
+        """The fixed composition (as :func:`normalize_composition` gives it) of slice ``k``."""
+        out = dict(base)
+        if self.quantity == "abundance":
+            offsets = dict(out.get("abundance_offsets", {}))
+            offsets[self.element] = float(self.values[k])
+            out["abundance_offsets"] = offsets
+        else:
+            out[self.quantity] = float(self.values[k])
+        return normalize_composition(out)
+
+    def check_base(self, base: Mapping[str, Any]) -> None:
+        """Raise :class:`InputError` if the axis contradicts the fixed composition ``base``."""
+        what = f"composition axis {self.name}"
+        if self.quantity == "abundance":
+            if self.element in base.get("abundance_offsets", {}):
+                raise InputError(f"{what}: the composition also fixes an offset of "
+                                 f"{self.element}; give it either fixed or as the axis")
+        elif self.quantity in base:
+            raise InputError(f"{what}: the composition also fixes {self.quantity} = "
+                             f"{base[self.quantity]}; give it either fixed or as the axis")
+        ab = base.get("abundances")
+        if ab is None:
+            return  # a named set: checked when it is resolved (it has every element)
+        zs = [atomic_number(s) for s in ab]
+        if self.quantity == "abundance" and self.element not in ab:
+            raise InputError(f"{what}: the custom mixture has no {self.element} "
+                             f"({', '.join(ab)}); add it to composition.abundances")
+        if self.quantity == "metallicity" and not any(z > 2 for z in zs):
+            raise InputError(f"{what}: the custom mixture ({', '.join(ab)}) has no element "
+                             f"heavier than He, so [M/H] would change nothing")
+        if self.quantity == "alpha_enhancement" and not any(z in _ALPHA_Z for z in zs):
+            raise InputError(f"{what}: the custom mixture ({', '.join(ab)}) has no alpha "
+                             f"element (O Ne Mg Si S Ar Ca Ti), so [alpha/Fe] would change "
+                             f"nothing")
+        if self.quantity == "helium_mass_fraction" and 1 not in zs:
+            raise InputError(f"{what}: the custom mixture has no hydrogen, which takes up "
+                             f"X = 1 - Y - Z")
+
+    @classmethod
+    def from_mapping(cls, m: Mapping[str, Any]) -> "CompositionAxis":
+        """``{quantity, [element], values | scale = "linear", min, max, num}``."""
+        if not isinstance(m, Mapping):
+            raise InputError("composition.axis must be a table: quantity = ..., values = [...]")
+        known = {"quantity", "element", "values", "scale", "min", "max", "num"}
+        extra = set(m) - known
+        if extra:
+            raise InputError(f"composition.axis: unknown key(s) {sorted(extra)}; "
+                             f"known: {sorted(known)}")
+        if "quantity" not in m:
+            raise InputError(f"composition.axis: give quantity = one of {list(COMPOSITION_AXES)}")
+        quantity = COMPOSITION_ALIASES.get(str(m["quantity"]).strip().lower(),
+                                           str(m["quantity"]))
+        element = m.get("element")
+        if element is not None:
+            element = SYMBOLS[atomic_number(str(element).strip())]
+        scale = m.get("scale", "values" if "values" in m else "linear")
+        if scale == "values":
+            if "values" not in m:
+                raise InputError("composition.axis: give values = [...] or min, max, num")
+            try:
+                vals = [float(x) for x in m["values"]]
+            except (TypeError, ValueError):
+                raise InputError(f"composition.axis: values must be numbers, "
+                                 f"got {m['values']!r}") from None
+        elif scale == "linear":
+            try:
+                lo, hi, num = float(m["min"]), float(m["max"]), int(m["num"])
+            except KeyError:
+                raise InputError("composition.axis: scale \"linear\" needs min, max and num") \
+                    from None
+            except (TypeError, ValueError):
+                raise InputError("composition.axis: min, max, num must be numbers") from None
+            if num < 2 or not lo < hi:
+                raise InputError(f"composition.axis: need min < max and num >= 2, got "
+                                 f"min={lo}, max={hi}, num={num}")
+            vals = np.linspace(lo, hi, num).tolist()
+            vals[0], vals[-1] = lo, hi
+        else:
+            raise InputError(f"composition.axis: scale must be \"values\" or \"linear\" (the "
+                             f"quantities are already logarithmic or fractions), got {scale!r}")
+        return cls(quantity, tuple(float(x) for x in vals), element)
+
+    def to_mapping(self) -> dict:
+        out = {"quantity": self.quantity, "values": list(self.values)}
+        if self.element is not None:
+            out["element"] = self.element
+        return out
+
+
+def composition_axis_from_text(text: str) -> CompositionAxis:
+    """Parse ``--composition-axis``: ``QUANTITY=MIN:MAX:NUM`` or ``QUANTITY=V1,V2,..`` with
+    QUANTITY ``metallicity`` (or ``M/H``), ``alpha``, ``Y`` (helium mass fraction), or an
+    element symbol, e.g. ``C`` (its abundance offset in dex; ``abundance:Y`` for yttrium)."""
+    if "=" not in text:
+        raise InputError(f"--composition-axis: write QUANTITY=MIN:MAX:NUM or QUANTITY=V1,V2,.. "
+                         f"(QUANTITY: metallicity, alpha, Y or an element symbol), got {text!r}")
+    q, vals = (x.strip() for x in text.split("=", 1))
+    m: dict[str, Any] = {}
+    if q.lower() in COMPOSITION_ALIASES:  # "Y" is helium's mass fraction; yttrium: abundance:Y
+        m["quantity"] = COMPOSITION_ALIASES[q.lower()]
+    else:
+        try:
+            m["element"] = SYMBOLS[atomic_number(q.split(":", 1)[1] if q.lower().startswith(
+                "abundance:") else q)]
+        except (InputError, KeyError, ValueError):
+            raise InputError(f"--composition-axis: {q!r} is neither metallicity, alpha, Y nor "
+                             f"an element symbol") from None
+        m["quantity"] = "abundance"
+    try:
+        if ":" in vals:
+            parts = vals.split(":")
+            if len(parts) != 3:
+                raise ValueError
+            m.update(scale="linear", min=float(parts[0]), max=float(parts[1]), num=int(parts[2]))
+        else:
+            m["values"] = [float(x) for x in vals.split(",") if x.strip()]
+    except ValueError:
+        raise InputError(f"--composition-axis: give MIN:MAX:NUM or comma-separated numbers "
+                         f"after '=', got {vals!r}") from None
+    return CompositionAxis.from_mapping(m)
 
 
 def normalise_species(text: str) -> str:
@@ -215,11 +482,13 @@ class Outputs:
 
     @classmethod
     def from_mapping(cls, m: Mapping[str, Any]) -> "Outputs":
+        m = _table(m, "outputs")
         known = {"quantities", "stage_fractions", "levels", "partition_functions"}
         extra = set(m) - known
         if extra:
             raise InputError(f"outputs: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
-        q = tuple(m.get("quantities", DEFAULT_QUANTITIES))
+        q = tuple(_strings(m["quantities"], "outputs.quantities") if "quantities" in m
+                  else DEFAULT_QUANTITIES)
         bad = [x for x in q if x not in SCALAR_OUTPUTS]
         if bad:
             raise InputError(f"outputs.quantities: unknown {bad}; choose from {list(SCALAR_OUTPUTS)}")
@@ -228,9 +497,10 @@ class Outputs:
             if sf != "all":
                 sf = tuple(s.strip() for s in sf.split(",") if s.strip())
         if not isinstance(sf, str):
-            sf = tuple(SYMBOLS[atomic_number(s)] for s in sf)
-        levels = tuple(_parse_levels(e) for e in m.get("levels", ()))
-        pf = tuple(normalise_species(s) for s in m.get("partition_functions", ()))
+            sf = tuple(SYMBOLS[atomic_number(s)] for s in _strings(sf, "outputs.stage_fractions"))
+        levels = tuple(_parse_levels(e) for e in _strings(m.get("levels", []), "outputs.levels"))
+        pf = tuple(normalise_species(s) for s in _strings(m.get("partition_functions", []),
+                                                          "outputs.partition_functions"))
         return cls(tuple(dict.fromkeys(q)), sf, levels, tuple(dict.fromkeys(pf)))
 
     def to_mapping(self) -> dict:
@@ -252,13 +522,19 @@ class TableSpec:
     pressure : Axis
         The pressure-like axis; ``pressure.name`` is one of :data:`PRESSURE_QUANTITIES`.
     composition : dict
-        ``{"name": "solar"}`` or ``{"abundances": {"H": 1.0, ...}}`` (number ratios N_X/N_H).
+        ``{"name": "solar"}`` or ``{"abundances": {"H": 1.0, ...}}`` (number ratios N_X/N_H),
+        with optional modifiers (:func:`normalize_composition`).  With a composition axis it
+        is the base that every slice modifies.
     physics : dict
         ``truncation`` (a name of :mod:`sahaboltz.kernels.truncation`), ``lowering``,
         ``completion``, ``h_minus``,
         ``molecules`` (a molecule set of the solver: "none", "default", "diatomics" ...).
     outputs : Outputs
         The quantities to store.
+    composition_axis : CompositionAxis, optional
+        A third grid axis over the composition; the grid is then
+        (composition, temperature, pressure) and every slice is a 2-D spec
+        (:meth:`at_composition`).
     """
 
     temperature: Axis
@@ -266,14 +542,35 @@ class TableSpec:
     composition: dict = field(default_factory=lambda: {"name": "solar"})
     physics: dict = field(default_factory=lambda: _physics({}))
     outputs: Outputs = field(default_factory=Outputs)
+    composition_axis: CompositionAxis | None = None
+
+    def __post_init__(self):
+        if self.composition_axis is not None:
+            self.composition_axis.check_base(self.composition)
 
     @property
-    def shape(self) -> tuple[int, int]:
-        return (len(self.temperature), len(self.pressure))
+    def shape(self) -> tuple[int, ...]:
+        """(nT, nP), or (nC, nT, nP) with a composition axis."""
+        tp = (len(self.temperature), len(self.pressure))
+        return tp if self.composition_axis is None else (len(self.composition_axis),) + tp
 
     @property
     def size(self) -> int:
-        return len(self.temperature) * len(self.pressure)
+        return math.prod(self.shape)
+
+    def at_composition(self, k: int) -> "TableSpec":
+        """The 2-D spec of composition slice ``k`` (its composition fixed)."""
+        ax = self.composition_axis
+        if ax is None:
+            raise InputError("this spec has no composition axis")
+        return replace(self, composition=ax.fixed(self.composition, k), composition_axis=None)
+
+    def compositions(self) -> list[dict]:
+        """The fixed composition of every slice (one, without a composition axis)."""
+        if self.composition_axis is None:
+            return [self.composition]
+        return [self.composition_axis.fixed(self.composition, k)
+                for k in range(len(self.composition_axis))]
 
     @property
     def pressure_quantity(self) -> str:
@@ -283,21 +580,26 @@ class TableSpec:
     @classmethod
     def from_mapping(cls, m: Mapping[str, Any]) -> "TableSpec":
         """Build from the nested mapping of a TOML/JSON spec file (see :data:`EXAMPLE_TOML`)."""
+        m = _table(m, "table spec")
         known = {"temperature", "pressure", "composition", "physics", "outputs"}
         extra = set(m) - known
         if extra:
             raise InputError(f"table spec: unknown section(s) {sorted(extra)}; known: {sorted(known)}")
-        tm = dict(m.get("temperature", DEFAULT_TEMPERATURE))
+        tm = dict(_table(m.get("temperature", DEFAULT_TEMPERATURE), "temperature"))
         temperature = Axis.from_mapping("temperature", "K", tm)
-        pm = dict(m.get("pressure", DEFAULT_PRESSURE))
+        pm = dict(_table(m.get("pressure", DEFAULT_PRESSURE), "pressure"))
         quantity = pm.get("quantity", "gas_pressure")
-        if quantity not in PRESSURE_QUANTITIES:
+        if not isinstance(quantity, str) or quantity not in PRESSURE_QUANTITIES:
             raise InputError(f"pressure.quantity must be one of {list(PRESSURE_QUANTITIES)}, "
                              f"got {quantity!r}")
         pressure = Axis.from_mapping(quantity, PRESSURE_QUANTITIES[quantity], pm)
-        composition = normalize_composition(m.get("composition", {"name": "solar"}))
+        cm = m.get("composition", {"name": "solar"})
+        composition = normalize_composition(cm)
+        axis = (CompositionAxis.from_mapping(cm["axis"])
+                if isinstance(cm, Mapping) and "axis" in cm else None)
         return cls(temperature, pressure, composition,
-                   _physics(m.get("physics", {})), Outputs.from_mapping(m.get("outputs", {})))
+                   _physics(m.get("physics", {})), Outputs.from_mapping(m.get("outputs", {})),
+                   axis)
 
     @classmethod
     def from_file(cls, path: str | Path) -> "TableSpec":
@@ -315,7 +617,10 @@ class TableSpec:
         except (ValueError, tomllib.TOMLDecodeError) as exc:
             raise InputError(f"table spec {path} is not valid "
                              f"{'JSON' if path.suffix.lower() == '.json' else 'TOML'}: {exc}") from None
-        return cls.from_mapping(m)
+        try:
+            return cls.from_mapping(m)
+        except SahaboltzError as exc:
+            raise type(exc)(f"table spec {path}: {exc}") from None
 
     def with_outputs(self, **kw) -> "TableSpec":
         return replace(self, outputs=replace(self.outputs, **kw))
@@ -327,7 +632,8 @@ class TableSpec:
             "temperature": {"scale": "values", "values": list(self.temperature.values)},
             "pressure": {"quantity": self.pressure.name, "scale": "values",
                          "values": list(self.pressure.values)},
-            "composition": self.composition,
+            "composition": (self.composition if self.composition_axis is None else
+                            {**self.composition, "axis": self.composition_axis.to_mapping()}),
             "physics": dict(self.physics),
             "outputs": self.outputs.to_mapping(),
         }
@@ -342,58 +648,100 @@ class TableSpec:
 
     def describe(self) -> str:
         t, p = self.temperature.array, self.pressure.array
-        return (f"{len(t)} x {len(p)} grid: T {t[0]:g}..{t[-1]:g} K, {self.pressure.name} "
+        text = (f"{len(t)} x {len(p)} grid: T {t[0]:g}..{t[-1]:g} K, {self.pressure.name} "
                 f"{p[0]:g}..{p[-1]:g} {self.pressure.unit}")
+        ax = self.composition_axis
+        if ax is not None:
+            c = ax.array
+            text = (f"{len(c)} x {text}, {ax.name} {c[0]:g}..{c[-1]:g}"
+                    f"{' ' + ax.unit if ax.unit != '1' else ''}")
+        return text
 
 
 def normalize_composition(c: Any) -> dict:
-    """A spec's composition table, checked: {"name": ..., [M/H], [alpha/Fe]} or {"abundances": ...}."""
+    """A spec's fixed composition, checked: a base -- ``{"name": "solar"}`` or
+    ``{"abundances": {...}}`` (number ratios) -- and optional modifiers applied in this order:
+    ``metallicity`` [M/H] and ``alpha_enhancement`` [alpha/Fe] (dex), ``abundance_offsets``
+    (element -> dex), ``helium_mass_fraction`` Y (metal mass fractions kept).  Modifiers that
+    change nothing (0 dex) are dropped, so equal mixtures get equal keys."""
     if isinstance(c, str):
         c = {"name": c}
     if not isinstance(c, Mapping):
         raise InputError("composition must be a name like 'solar' or a table of abundances")
+    c = dict(c)
+    c.pop("axis", None)  # the composition axis is read by TableSpec.from_mapping
     if "abundances" in c:
+        if "name" in c:
+            raise InputError("composition: give either a name or abundances, not both")
         ab = {}
-        for sym, val in dict(c["abundances"]).items():
-            val = float(val)
-            if not (val > 0 and math.isfinite(val)):
+        for sym, val in _table(c["abundances"], "composition.abundances").items():
+            val = _number(val, f"composition.abundances.{sym}")
+            if not val > 0:
                 raise InputError(f"composition: abundance of {sym} must be positive, got {val}")
             ab[SYMBOLS[atomic_number(sym)]] = val
         if not ab:
             raise InputError("composition.abundances is empty")
-        out = {"abundances": dict(sorted(ab.items(), key=lambda kv: atomic_number(kv[0])))}
-        extra = set(c) - {"abundances"}
+        out: dict[str, Any] = {"abundances": dict(sorted(ab.items(),
+                                                         key=lambda kv: atomic_number(kv[0])))}
     else:
-        out = {"name": str(c.get("name", "solar"))}
-        for k in ("metallicity", "alpha_enhancement"):  # [M/H], [alpha/Fe] in dex
-            if float(c.get(k, 0.0)) != 0.0:
-                out[k] = float(c[k])
-        extra = set(c) - {"name", "metallicity", "alpha_enhancement"}
+        name = c.get("name", "solar")
+        if not isinstance(name, str):
+            raise InputError(f"composition.name must be text such as 'solar', got {_shown(name)}")
+        out = {"name": name}
+    for k in ("metallicity", "alpha_enhancement"):  # [M/H], [alpha/Fe] in dex
+        if k in c and _number(c[k], f"composition.{k}") != 0.0:
+            out[k] = float(c[k])
+    offsets = {}
+    for sym, val in dict(c.get("abundance_offsets", {})).items():
+        z = atomic_number(sym)
+        if z == 1:
+            raise InputError("composition.abundance_offsets: offsets are relative to hydrogen; "
+                             "hydrogen cannot have one")
+        if _number(val, f"composition.abundance_offsets.{sym}") != 0.0:
+            offsets[SYMBOLS[z]] = float(val)
+    if offsets:
+        out["abundance_offsets"] = dict(sorted(offsets.items(),
+                                               key=lambda kv: atomic_number(kv[0])))
+    if "helium_mass_fraction" in c:
+        y = _number(c["helium_mass_fraction"], "composition.helium_mass_fraction")
+        if not 0 < y < 1:
+            raise InputError(f"composition.helium_mass_fraction: Y must lie in (0, 1), got {y}")
+        out["helium_mass_fraction"] = y
+    extra = set(c) - {"name", "abundances", "metallicity", "alpha_enhancement",
+                      "abundance_offsets", "helium_mass_fraction"}
     if extra:
-        raise InputError(f"composition: unknown key(s) {sorted(extra)}; give 'name' or 'abundances'")
+        raise InputError(f"composition: unknown key(s) {sorted(extra)}; give 'name' or "
+                         f"'abundances', optionally metallicity, alpha_enhancement, "
+                         f"abundance_offsets, helium_mass_fraction, and an [composition.axis]")
     return out
 
 
 def _physics(p: Mapping[str, Any]) -> dict:
+    p = _table(p, "physics")
     known = {"truncation", "lowering", "molecules", "condensates", "completion", "h_minus",
              "radiation"}
     extra = set(p) - known
     if extra:
         raise InputError(f"physics: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
-    lowering = bool(p.get("lowering", False))
+    lowering = _boolean(p.get("lowering", False), "physics.lowering")
+    truncation = p.get("truncation") or None
+    if truncation is not None and not isinstance(truncation, str):
+        raise InputError(f"physics.truncation must be text such as 'occupation', got "
+                         f"{_shown(truncation)}")
     try:  # the solver's rule, from the registry: the scheme it would use for these options
-        trunc = _truncation.resolve(p.get("truncation") or None, lowering).key
+        trunc = _truncation.resolve(truncation, lowering).key
     except InputError as exc:
         raise InputError(f"physics.truncation: {exc}") from None
     molecules = _molecule_set(p.get("molecules", False))
-    condensates = bool(p.get("condensates", False))
+    condensates = _boolean(p.get("condensates", False), "physics.condensates")
     if condensates and molecules == "none":
         raise InputError("physics.condensates needs molecules (e.g. molecules = \"default\")")
     out = {"truncation": trunc, "lowering": lowering, "molecules": molecules,
-           "condensates": condensates, "completion": bool(p.get("completion", False)),
-           "h_minus": bool(p.get("h_minus", True))}
-    if p.get("radiation"):   # only when asked for: the keys of existing specs stay as they were
-        out["radiation"] = True
+           "condensates": condensates,
+           "completion": _boolean(p.get("completion", False), "physics.completion"),
+           "h_minus": _boolean(p.get("h_minus", True), "physics.h_minus")}
+    if _boolean(p.get("radiation", False), "physics.radiation"):
+        out["radiation"] = True   # only when asked for: existing specs keep their keys
     return out
 
 
@@ -403,6 +751,9 @@ def _molecule_set(value: Any) -> str:
     mean "default" / "none")."""
     if value is True or value is False:
         return "default" if value else "none"
+    if not isinstance(value, str):
+        raise InputError(f"physics.molecules must be true, false or a name such as 'default', "
+                         f"got {_shown(value)}")
     if value in ("none", "default"):
         return value
     # the other names only when a spec gives one (a cache hit needs no molecule code)
@@ -413,22 +764,23 @@ def _molecule_set(value: Any) -> str:
                      f"{', '.join(repr(m) for m in MOLECULE_SETS)}, got {value!r}")
 
 
-def axis_from_text(name: str, unit: str, text: str, scale: str = "log") -> Axis:
-    """Parse a command-line axis: ``MIN:MAX:NUM`` or a comma-separated list of values."""
-    if ":" in text:
-        parts = text.split(":")
-        if len(parts) != 3:
-            raise InputError(f"{name}: write MIN:MAX:NUM, e.g. 3000:30000:100, got {text!r}")
-        try:
-            lo, hi, num = float(parts[0]), float(parts[1]), int(parts[2])
-        except ValueError:
-            raise InputError(f"{name}: MIN:MAX:NUM must be numbers, got {text!r}") from None
+def axis_from_text(name: str, unit: str, text: str, scale: str = "log",
+                   option: str | None = None) -> Axis:
+    """Parse a command-line axis: ``MIN:MAX:NUM`` or a comma-separated list of values, each
+    optionally with a unit ("1e2:1e6:9 Pa", "5726.85 degC,8000 K"); ``option`` (e.g.
+    ``--pressure``) names it in errors."""
+    from sahaboltz.quantities import parse_range_text, parse_values_text
+
+    where = option or name
+    rng = parse_range_text(text, where, unit)
+    if rng is not None:
+        lo, hi, num = rng
         return Axis.from_mapping(name, unit, {"scale": scale, "min": lo, "max": hi, "num": num})
+    vals = parse_values_text(text, where, unit=unit)
     try:
-        vals = [float(x) for x in text.split(",") if x.strip()]
-    except ValueError:
-        raise InputError(f"{name}: give MIN:MAX:NUM or comma-separated numbers, got {text!r}") from None
-    return Axis.from_mapping(name, unit, {"scale": "values", "values": vals})
+        return Axis.from_mapping(name, unit, {"scale": "values", "values": list(vals)})
+    except InputError as exc:
+        raise InputError(f"{where}: {exc}") from None
 
 
 def spec_from_options(temperature: str | None = None, pressure: str | None = None, *,
@@ -439,15 +791,18 @@ def spec_from_options(temperature: str | None = None, pressure: str | None = Non
                       completion: bool = False, h_minus: bool = True,
                       fractions: str | Sequence[str] = "all", levels: Sequence[str] = (),
                       partition_functions: Sequence[str] = (),
-                      quantities: Sequence[str] | None = None) -> TableSpec:
-    """Build a spec from command-line style options (defaults: :data:`DEFAULT_TEMPERATURE`, ...)."""
+                      quantities: Sequence[str] | None = None,
+                      composition_axis: str | None = None) -> TableSpec:
+    """Build a spec from command-line style options (defaults: :data:`DEFAULT_TEMPERATURE`, ...);
+    ``composition_axis`` as for ``--composition-axis`` (:func:`composition_axis_from_text`)."""
     if pressure_quantity not in PRESSURE_QUANTITIES:
         raise InputError(f"pressure quantity must be one of {list(PRESSURE_QUANTITIES)}")
     punit = PRESSURE_QUANTITIES[pressure_quantity]
-    t_axis = (axis_from_text("temperature", "K", temperature, temperature_scale) if temperature
+    t_axis = (axis_from_text("temperature", "K", temperature, temperature_scale,
+                             "-T/--temperature") if temperature
               else Axis.from_mapping("temperature", "K", DEFAULT_TEMPERATURE))
     if pressure:
-        p_axis = axis_from_text(pressure_quantity, punit, pressure, pressure_scale)
+        p_axis = axis_from_text(pressure_quantity, punit, pressure, pressure_scale, "--pressure")
     else:
         d = {k: v for k, v in DEFAULT_PRESSURE.items() if k != "quantity"}
         if pressure_quantity != "gas_pressure":
@@ -472,4 +827,5 @@ def spec_from_options(temperature: str | None = None, pressure: str | None = Non
                                "molecules": molecules, "condensates": condensates,
                                "completion": completion,
                                "h_minus": h_minus}),
-                     Outputs.from_mapping(out))
+                     Outputs.from_mapping(out),
+                     composition_axis_from_text(composition_axis) if composition_axis else None)

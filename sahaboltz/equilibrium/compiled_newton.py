@@ -1,0 +1,613 @@
+"""The charge balance solved state by state in one compiled loop (numba).
+
+The same method as the numpy engine of :mod:`sahaboltz.equilibrium.atomic` (safeguarded,
+bracketed Newton in x = ln n_e on g(x) = ln(N Zbar) - x, the same start, windows and
+acceptance rules), written per state: each state walks the element chains with its own
+window of significant stages, found by two binary searches in the significance intervals
+(:func:`sahaboltz.equilibrium.atomic._significance_intervals`), and only those stages cost an
+exponential.  A numpy pass over all states and all window stages needs a dozen temporaries per
+chain and per pass; here every quantity stays in registers, which is what makes the compiled
+path several times faster (benchmarks/bench_solver.py).
+
+Density-dependent partition functions (occupation probabilities, charged perturbers) are
+summed in the loop too.  The Boltzmann terms g exp(-E/kT) of a species depend on T alone and
+are tabulated once per (temperature, species) that occurs.  A level's weight is
+w = 1 / (1 + B s + A s^2) with s = P q (P, A, B from the state, q from the level; q rises
+with the level energy).  For the low levels (s below a tenth of the radius of convergence of
+the series of w in s) the weights are summed as that series from running sums
+S_m = sum term q^m; for the high ones (s ten times beyond it) as the series in 1/s from sums
+from the top; only the levels in between one by one.  Each series stops when a term falls
+below 1e-17 of the sum; SERIES_ORDER terms bound it at about 1e-13.  Species whose highest
+level still has weight 1 to 1e-17 take the low-density limit directly.  Stages whose share
+of the mean charge stays below e^-39 of it are left out (see :func:`_moments`).
+
+Used by :func:`sahaboltz.equilibrium.atomic.solve_atomic` whenever numba is available (and
+``SAHABOLTZ_NO_NUMBA`` is not set); tests/test_compiled_newton.py checks it against the numpy
+engine.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from sahaboltz.constants import K_B_EV as _K_B_EV
+from sahaboltz.kernels import compiled
+from sahaboltz.kernels.compiled import numba
+from sahaboltz.kernels.occupation import (RYDBERG_EV, stark_level_factor, stark_state_factors,
+                                          stark_state_slopes)
+from sahaboltz.kernels.saha import H_MINUS_AFFINITY_EV
+
+__all__ = ["available", "CompiledSolver", "SERIES_ORDER"]
+
+#: closure kinds of the kernel
+FIXED_NUCLEI, FIXED_PARTICLES, FIXED_ELECTRONS = 0, 1, 2
+#: terms of the series of the level weights in s (see _log_u)
+SERIES_ORDER = 12
+# a series stops at a term below this fraction of the sum
+_NEGLIGIBLE = 1e-17
+# a stage whose share of the mean charge stays below e^-_LN_SHARE is left out of the sums
+_LN_SHARE = 34.0
+# margin of that test when U depends on n_e: judged with the low-density-limit U (the largest)
+_DENSITY_MARGIN = 5.0
+# Boltzmann pruning of the level sums, as in PartitionModel.evaluate_pairs
+_CUT = 50.0
+# a Newton step may move ln n_e by at most this much while no lower bracket is known
+_MAX_STEP = 20.0
+
+
+def available() -> bool:
+    return compiled.available()
+
+
+def _weight(sv, a_, b_, aa, ab):
+    """1/(1+F) and d ln w / d ln n_e of a level with s = sv (charged perturbers)."""
+    inv = 1.0 / (1.0 + sv * (a_ * sv + b_))
+    return inv, -inv * sv * (sv * (2.0 * a_ + aa / 6.0) + b_ + ab / 6.0)
+
+
+def _fill(tl, row, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, cnt_t,
+          pool_base, stride):
+    """Boltzmann terms of species ``row`` at temperature ``tl`` and their running sums
+    S_m = sum_(i < j) term q^m, m = 0 .. SERIES_ORDER (see _fill_top for the sums from the
+    top, V_m = sum_(i >= j) term q^-(m+2))."""
+    s = lv_start[row]
+    c = lv_count[row]
+    cut = (_CUT + lng_max[row]) / beta
+    # levels below the Boltzmann cut (energies ascending): a prefix
+    lo, hi = 0, c
+    while lo < hi:
+        mid = (lo + hi) // 2
+        if e[s + mid] < cut:
+            lo = mid + 1
+        else:
+            hi = mid
+    cnt = min(max(lo, 1), c)
+    cnt_t[tl * stride + row] = cnt
+    b = tl * pool_base + s + row
+    m1 = SERIES_ORDER + 1
+    for m in range(m1):
+        pre[b * m1 + m] = 0.0
+    for j in range(cnt):
+        lv = s + j
+        tv = np.exp(lng[lv] - beta * e[lv])
+        term[b + j] = tv
+        q = qs[lv]
+        o = (b + j) * m1
+        for m in range(m1):
+            pre[o + m1 + m] = pre[o + m] + tv
+            tv *= q
+
+
+def _fill_top(tl, row, lv_start, qs, term, suf, cnt, pool_base):
+    """The sums from the top V_m of species ``row`` at temperature ``tl`` (on first need)."""
+    s = lv_start[row]
+    b = tl * pool_base + s + row
+    m1 = SERIES_ORDER + 1
+    for m in range(m1):
+        suf[(b + cnt) * m1 + m] = 0.0
+    for j in range(cnt - 1, -1, -1):
+        q = qs[s + j]
+        o = (b + j) * m1
+        if q > 0.0:
+            r = 1.0 / q
+            tv = term[b + j] * r * r
+            for m in range(m1):
+                suf[o + m] = suf[o + m1 + m] + tv
+                tv *= r
+        else:
+            for m in range(m1):
+                suf[o + m] = suf[o + m1 + m]
+
+
+def _log_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start, lv_count, e, lng,
+           lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride):
+    """(ln U, d ln U / d ln n_e) of species ``row`` at one state.
+
+    A level's weight is w = 1 / (1 + B s + A s^2), s = P q.  For s <= s_lo it is summed as
+    its series in s (running sums S_m), for s >= s_hi as its series in 1/s (sums V_m from the
+    top), and only the levels in between one by one.
+    """
+    key = tl * stride + row
+    if filled[key] == 0:
+        _fill(tl, row, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, cnt_t,
+              pool_base, stride)
+        filled[key] = 1
+        jpos[2 * key] = 0
+        jpos[2 * key + 1] = 0
+    s = lv_start[row]
+    cnt = cnt_t[key]
+    b = tl * pool_base + s + row
+    m1 = SERIES_ORDER + 1
+    # the levels with s <= s_lo: [0, j0); with s >= s_hi: [j1, cnt).  Walked from where the
+    # previous state of this temperature left them (the states come in density order).
+    q_lo = s_lo / p_
+    q_hi = s_hi / p_
+    j0 = jpos[2 * key]
+    while j0 < cnt and qs[s + j0] <= q_lo:
+        j0 += 1
+    while j0 > 0 and qs[s + j0 - 1] > q_lo:
+        j0 -= 1
+    j1 = max(jpos[2 * key + 1], j0)
+    while j1 < cnt and qs[s + j1] < q_hi:
+        j1 += 1
+    while j1 > j0 and qs[s + j1 - 1] >= q_hi:
+        j1 -= 1
+    jpos[2 * key] = j0
+    jpos[2 * key + 1] = j1
+    # series in s: coefficients t_m of 1 / (1 + bt q + at q^2), t_0 = 1, t_1 = -bt,
+    # t_m = -bt t_(m-1) - at t_(m-2), and their derivatives in ln n_e (P is proportional
+    # to n_e; d A / d ln n_e = aa / 6, d B / d ln n_e = ab / 6)
+    o = (b + j0) * m1
+    bt = b_ * p_
+    at = a_ * p_ * p_
+    dbt = (b_ + ab / 6.0) * p_
+    dat = (2.0 * a_ + aa / 6.0) * p_ * p_
+    t2, t1 = 1.0, -bt
+    d2, d1 = 0.0, -dbt
+    u = pre[o] + t1 * pre[o + 1]
+    du = d1 * pre[o + 1]
+    for m in range(2, m1):
+        t0 = -bt * t1 - at * t2
+        d0 = -dbt * t1 - bt * d1 - dat * t2 - at * d2
+        sm = pre[o + m]
+        u += t0 * sm
+        du += d0 * sm
+        if abs(t0 * sm) <= _NEGLIGIBLE * u:   # the terms fall at least tenfold each
+            break
+        t2, t1 = t1, t0
+        d2, d1 = d1, d0
+    if j1 < cnt:
+        if filled[key] == 1:
+            _fill_top(tl, row, lv_start, qs, term, suf, cnt, pool_base)
+            filled[key] = 2
+        # series in 1/q: w = e_0 q^-2 + e_1 q^-3 + ..., e_0 = 1 / (A P^2),
+        # e_m = -bu e_(m-1) - au e_(m-2), bu = B / (A P), au = 1 / (A P^2)
+        o = (b + j1) * m1
+        da_a = aa / (6.0 * a_)                   # d ln A / d ln n_e
+        au = 1.0 / (a_ * p_ * p_)
+        bu = b_ / (a_ * p_)
+        dau = -au * (da_a + 2.0)
+        dbu = ab / (6.0 * a_ * p_) - bu * (da_a + 1.0)
+        t2 = au
+        d2 = dau
+        t1 = -bu * t2
+        d1 = -dbu * t2 - bu * d2
+        u += t2 * suf[o] + t1 * suf[o + 1]
+        du += d2 * suf[o] + d1 * suf[o + 1]
+        for m in range(2, m1):
+            t0 = -bu * t1 - au * t2
+            d0 = -dbu * t1 - bu * d1 - dau * t2 - au * d2
+            sm = suf[o + m]
+            u += t0 * sm
+            du += d0 * sm
+            if abs(t0 * sm) <= _NEGLIGIBLE * u:
+                break
+            t2, t1 = t1, t0
+            d2, d1 = d1, d0
+    for j in range(j0, j1):
+        inv, dlw = _weight(p_ * qs[s + j], a_, b_, aa, ab)
+        tv = term[b + j] * inv
+        u += tv
+        du += tv * dlw
+    return np.log(u), du / u
+
+
+def _unweighted(row, p_, a_, b_, lv_start, lv_count, qs):
+    """Whether every level of species ``row`` has F = s (A s + B) below 1e-17 (w = 1)."""
+    sv = p_ * qs[lv_start[row] + lv_count[row] - 1]     # the highest level has the largest s
+    return sv * (a_ * sv + b_) < _NEGLIGIBLE
+
+
+def _series_limits(a_, b_):
+    """(s_lo, s_hi): a tenth of the radius of convergence of the series of w in s and ten
+    times its counterpart for the series in 1/s (the roots of A s^2 + B s + 1), so that
+    SERIES_ORDER terms leave ~1e-13."""
+    disc = b_ * b_ - 4.0 * a_
+    if disc < 0.0:
+        r_small = r_big = 1.0 / np.sqrt(a_)
+    else:
+        root = np.sqrt(disc)
+        r_small = 2.0 / (b_ + root)              # |smaller root| in s
+        r_big = (b_ + root) / (2.0 * a_)         # |larger root| in s
+    return 0.1 * r_small, 10.0 * r_big
+
+
+def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n,
+             ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
+             lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
+             scratch_a, scratch_d, wpos):
+    """(Zbar, -dZbar/dx, sum alpha <|q|>, sum alpha <q^2>) at x for one state.
+
+    ``zref`` is the mean charge the balance needs at x (n_e / N): a stage of element k below
+    e^-thr of the element's largest, thr = ln(alpha_k Z_k / zref) + _LN_SHARE, changes Zbar by
+    less than e^-39 (1e-17) of it and is left out (the significance intervals bound the
+    window first).
+    """
+    zbar = 0.0
+    slope = 0.0
+    zabs = 0.0
+    z2 = 0.0
+    p_ = a_ = b_ = aa = ab = s_lo = s_hi = 0.0
+    if density:
+        ne = np.exp(x)
+        p_, a_, b_ = _state_factors(t, ne)
+        aa, ab = _state_slopes(t, ne)
+        s_lo, s_hi = _series_limits(a_, b_)
+    ln_zref = np.log(zref) if zref > 0.0 else -np.inf
+    for k in range(ch_off.size):
+        o = ch_off[k]
+        n = ch_n[k]
+        if ch_whole[k]:
+            lo = 0
+            hi = n - 1
+        else:
+            # the intervals are non-increasing in the stage: the stages with xl > x come first,
+            # those with xr < x last; both counts by binary search at a state's first pass,
+            # then walked from the last pass (Newton steps rarely move them)
+            lo = wpos[2 * k]
+            a = wpos[2 * k + 1]
+            if lo < 0:
+                lo, b = 0, n
+                while lo < b:
+                    mid = (lo + b) // 2
+                    if xl[ti, o + mid] > x:
+                        lo = mid + 1
+                    else:
+                        b = mid
+                a, b = 0, n
+                while a < b:
+                    mid = (a + b) // 2
+                    if xr[ti, o + mid] >= x:
+                        a = mid + 1
+                    else:
+                        b = mid
+            else:
+                while lo > 0 and xl[ti, o + lo - 1] <= x:
+                    lo -= 1
+                while lo < n and xl[ti, o + lo] > x:
+                    lo += 1
+                while a > 0 and xr[ti, o + a - 1] < x:
+                    a -= 1
+                while a < n and xr[ti, o + a] >= x:
+                    a += 1
+            wpos[2 * k] = lo
+            wpos[2 * k + 1] = a
+            # and one stage beyond (each end when U depends on n_e, as the numpy engine):
+            # in an almost neutral gas the first ion carries the charge however small its
+            # share of the element
+            hi = min(a, n - 1)
+            if density:
+                lo = max(lo - 1, 0)
+            if hi < lo:
+                hi = lo
+        thr = ch_lnaz[k] - ln_zref + _LN_SHARE
+        if density:
+            # which stages to sum, judged with the low-density-limit tables
+            a0max = -np.inf
+            for r in range(lo, hi + 1):
+                av = ctab[ti, o + r] - q_flat[o + r] * x
+                scratch_a[r] = av
+                if av > a0max:
+                    a0max = av
+            cut0 = a0max - thr - _DENSITY_MARGIN
+        amax = -np.inf
+        for r in range(lo, hi + 1):
+            i = o + r
+            q = q_flat[i]
+            d = 0.0
+            if density:
+                if scratch_a[r] < cut0:
+                    scratch_a[r] = -np.inf
+                    scratch_d[r] = 0.0
+                    continue
+                av = bare[ti, i]   # the T-only part of C
+                m = mrow[i]
+                if m >= 0 and _unweighted(m, p_, a_, b_, lv_start, lv_count, qs):
+                    # every weight is 1 to 1e-17: the limit U (C of the limit tables counts
+                    # from the first stage, C_q = K_q + ln U_q - ln U_first)
+                    av = ctab[ti, i] + lu_first[ti, k]
+                elif m >= 0:
+                    lu, d = _log_u(tl, m, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start,
+                                   lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t, jpos,
+                                   filled, pool_base, stride)
+                    av += lu
+                elif q < 0.0:      # a negative ion: one bound state with its own weight
+                    inv, d = _weight(p_ * hm_q, a_, b_, aa, ab)
+                    av += np.log(inv)
+            else:
+                av = ctab[ti, i]
+            av -= q * x
+            scratch_a[r] = av
+            scratch_d[r] = d
+            if av > amax:
+                amax = av
+        s0 = s1 = s2 = sd = sqd = sab = 0.0
+        cut = amax - thr
+        for r in range(lo, hi + 1):
+            arg = scratch_a[r]
+            if arg < cut:
+                continue
+            q = q_flat[o + r]
+            arg -= amax
+            if arg < -300.0:
+                arg = -300.0
+            p = np.exp(arg)
+            s0 += p
+            s1 += p * q
+            s2 += p * q * q
+            sab += p * abs(q)
+            if density:
+                d = scratch_d[r]
+                sd += p * d
+                sqd += p * q * d
+        inv = 1.0 / s0
+        mq = s1 * inv
+        mq2 = s2 * inv
+        var = mq2 - mq * mq
+        if var < 0.0:
+            var = 0.0
+        cov = (sqd - mq * sd) * inv
+        f = ch_frac[k]
+        zbar += f * mq
+        slope += f * (var - cov)
+        zabs += f * sab * inv
+        z2 += f * mq2
+    return zbar, slope, zabs, z2
+
+
+def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, density, ctab,
+            bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
+            hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
+            jpos, filled,
+            pool_base, stride, scratch_a, scratch_d, wpos, out_x, out_nuc, out_passes, out_resid,
+            out_done):
+    """Safeguarded Newton for state ``i`` from x (see _ChunkSolver.run, the same rules)."""
+    prev = np.inf
+    for _ in range(max_passes):
+        ne = np.exp(x)
+        zref = 0.0         # the mean charge the balance needs here (0: not known)
+        if kind == FIXED_NUCLEI:
+            zref = ne / nref
+        elif kind == FIXED_PARTICLES and nref > ne:
+            zref = ne / (nref - ne)
+        zbar, var, zabs, _z2 = _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr,
+                                        ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
+                                        hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs,
+                                        term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
+                                        scratch_a, scratch_d, wpos)
+        out_passes[i] += 1
+        if kind == FIXED_ELECTRONS:     # n_e is given: one evaluation decides
+            out_x[i] = x
+            if zbar > 0.0:
+                nn = ne / zbar
+                out_nuc[i] = nn
+                out_resid[i] = 0.0
+                out_done[i] = nn > 0.0 and np.isfinite(nn)
+            else:
+                out_resid[i] = np.inf
+            return
+        nn = nref if kind == FIXED_NUCLEI else nref - ne
+        rel = abs(nn * zbar - ne) / (nn * zabs + ne)
+        ok = rel <= tol
+        # stalled at machine precision inside a collapsed bracket: accept if still good
+        if (hi - lo) <= 8e-16 * max(1.0, abs(x)) and rel <= 1e-10:
+            ok = True
+        out_x[i] = x
+        out_resid[i] = rel
+        if ok:
+            out_done[i] = True
+            out_nuc[i] = nn
+            return
+        valid = nn > 0.0 and zbar > 0.0
+        g = np.log(nn * zbar) - x if valid else -np.inf
+        dg = -var / zbar - 1.0
+        if kind == FIXED_PARTICLES:
+            dg -= ne / nn
+        xn = x - g / dg
+        if nn > 0.0 and not valid:
+            # Zbar <= 0 (negative ions outweigh the positive ones): Newton on N Zbar / n_e - 1
+            f_lin = nn * zbar / ne - 1.0
+            df_lin = -(nn / ne) * (var + zbar)
+            if kind == FIXED_PARTICLES:
+                df_lin -= zbar
+            xn = x - f_lin / df_lin
+        if g > 0.0:
+            lo = max(lo, x)
+        if g < 0.0:
+            hi = min(hi, x)
+        outside = not (nn > 0.0) or not np.isfinite(xn) or not (xn > lo) or not (xn < hi)
+        if np.isfinite(lo) and abs(xn - x) > 0.5 * prev:
+            outside = True     # too slow a decrease (Newton cycling): bisect, as rtsafe
+        if outside:
+            xn = 0.5 * (lo + hi) if np.isfinite(lo) else hi - _MAX_STEP
+        if not np.isfinite(lo):
+            xn = max(xn, x - _MAX_STEP)
+        step = abs(xn - x)
+        prev = step
+        x = xn
+        if final_step > 0.0 and not outside and step <= final_step and (
+                kind != FIXED_PARTICLES or nref > np.exp(xn)):
+            out_done[i] = True
+            out_x[i] = xn
+            out_nuc[i] = nref if kind == FIXED_NUCLEI else nref - np.exp(xn)
+            out_resid[i] = max(rel * step, step * step)
+            return
+
+
+def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_passes,
+                  final_step, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac,
+                  ch_lnaz, ch_whole, q_flat, mrow, hm_q, lv_start, lv_count, e, lng, lng_max, qs,
+                  term, pre, suf, cnt_t, jpos, filled, n_group, out_x, out_nuc,
+                  out_passes, out_resid,
+                  out_done):
+    """Solve the states ``order`` (sorted by temperature); ``tpos`` their temperature index.
+
+    With ``density``, each state first converges with the low-density-limit tables ``ctab``
+    to ``start_tol`` and then with the occupation-weighted sums (``bare`` the T-only part of
+    C), accepting after a final step below ``final_step``.  The level tables (``term``,
+    ``pre``, ``suf``) hold ``n_group`` consecutive temperatures at a time.
+    """
+    stride = lv_start.size
+    pool_base = e.size + stride
+    nstage = q_flat.size
+    scratch_a = np.empty(nstage)
+    scratch_d = np.empty(nstage)
+    wpos = np.empty(2 * ch_off.size, dtype=np.int64)
+    group = -1
+    t_first = tpos[order[0]] if order.size else 0
+    for j in range(order.size):
+        i = order[j]
+        ti = tpos[i]
+        t = t_u[ti]
+        beta = 1.0 / (_K_B_EV * t)
+        tl = 0
+        if density:
+            g = (ti - t_first) // n_group
+            if g != group:
+                group = g
+                filled[:] = 0
+            tl = (ti - t_first) - g * n_group
+        lo = -np.inf
+        hi = x_hi[i]
+        x = hi if kind == FIXED_ELECTRONS else min(x0[i], hi - 1e-9)
+        out_passes[i] = 0
+        out_done[i] = False
+        out_nuc[i] = np.nan
+        wpos[:] = -1
+        first_tol = start_tol if density else tol
+        first_step = 0.0 if density else final_step
+        _newton(i, x, lo, hi, kind, nref[i], first_tol, max_passes, first_step, t, tl, ti, False,
+                ctab, ctab, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
+                mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
+                cnt_t, jpos,
+                filled, pool_base, stride, scratch_a, scratch_d, wpos, out_x, out_nuc, out_passes,
+                out_resid, out_done)
+        if not density:
+            continue
+        x = out_x[i]
+        if not np.isfinite(x):
+            x = hi - 1.0
+        x = hi if kind == FIXED_ELECTRONS else min(x, hi - 1e-9)
+        start_passes = out_passes[i]
+        out_passes[i] = 0
+        out_done[i] = False
+        out_nuc[i] = np.nan
+        _newton(i, x, lo, hi, kind, nref[i], tol, max_passes, final_step, t, tl, ti, True,
+                ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
+                mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
+                cnt_t, jpos,
+                filled, pool_base, stride, scratch_a, scratch_d, wpos, out_x, out_nuc, out_passes,
+                out_resid, out_done)
+        out_passes[i] += start_passes
+
+
+if numba is not None:  # pragma: no branch
+    _jit = numba.njit(cache=True, nogil=True, error_model="numpy")
+    # the level sums may be reordered (vectorized): no NaN or inf arises in them
+    _sums = numba.njit(cache=True, nogil=True, error_model="numpy",
+                       fastmath={"reassoc", "contract", "arcp", "nsz"})
+    _state_factors = _jit(stark_state_factors)
+    _state_slopes = _jit(stark_state_slopes)
+    _weight = _sums(_weight)
+    _fill = _sums(_fill)
+    _fill_top = _sums(_fill_top)
+    _series_limits = _jit(_series_limits)
+    _unweighted = _jit(_unweighted)
+    _log_u = _sums(_log_u)
+    _moments = _jit(_moments)
+    _newton = _jit(_newton)
+    _solve_states_jit = _jit(_solve_states)
+
+
+class CompiledSolver:
+    """The compiled charge-balance solve over the unique temperatures ``ut`` of a grid.
+
+    ``c_unique``: per chain C at ``ut`` (shape (n_stages, n_T)), or, with ``bare`` given, its
+    low-density limit; ``intervals`` the chains' significance intervals from those tables;
+    ``bare``: per chain the T-only part of C when U depends on n_e (occupation
+    probabilities, charged perturbers), else None.
+    """
+
+    def __init__(self, network, ut, c_unique, intervals, bare=None):
+        chains = network.chains
+        self.t_u = np.ascontiguousarray(ut, dtype=float)
+        self.ctab = np.ascontiguousarray(np.concatenate(c_unique, axis=0).T)
+        self.xl = np.ascontiguousarray(np.concatenate([iv[0] for iv in intervals], axis=1))
+        self.xr = np.ascontiguousarray(np.concatenate([iv[1] for iv in intervals], axis=1))
+        n = np.array([c.n for c in chains], dtype=np.int64)
+        frac = np.array([c.fraction for c in chains])
+        top = np.array([max(abs(c.charges[0]), c.charges[-1]) for c in chains])
+        self.chains = (np.concatenate([[0], np.cumsum(n)[:-1]]).astype(np.int64), n, frac,
+                       np.log(frac * top), n <= WHOLE_CHAIN)
+        self.q_flat = np.concatenate([c.charges for c in chains]).astype(float)
+        self.density = bare is not None
+        model = network.model
+        if self.density and model is not None:
+            self.mrow = np.concatenate([np.where(c.model_rows >= 0,
+                                                 c.model_rows + c.model_offset, -1)
+                                        for c in chains]).astype(np.int64)
+            self.bare = np.ascontiguousarray(np.concatenate(bare, axis=0).T)
+            self.lu_first = np.ascontiguousarray(
+                np.stack([network.log_u(c, self.t_u)[0] for c in chains], axis=1))
+            self.levels = (model._starts.astype(np.int64), model._counts.astype(np.int64),
+                           model._e, model._lng, model._lng_max, model._q_stark)
+        else:
+            self.mrow = np.full(self.q_flat.size, -1, dtype=np.int64)
+            self.bare = self.ctab
+            self.lu_first = np.zeros((1, len(chains)))
+            one = np.zeros(1)
+            self.levels = (np.zeros(1, dtype=np.int64), np.zeros(1, dtype=np.int64),
+                           one, one, one, one)
+        # the H- bound state as a hydrogenic level of its binding energy (as the scheme does)
+        self.hm_q = float(stark_level_factor(np.sqrt(RYDBERG_EV / H_MINUS_AFFINITY_EV), 1.0))
+        # level tables for this many temperatures at once (about 50 MB), kept between calls
+        rows = self.levels[0].size
+        base = self.levels[2].size + rows
+        m1 = SERIES_ORDER + 1
+        self.n_group = max(1, (6 << 20) // (base * (2 * m1 + 1))) if self.density else 0
+        g = self.n_group
+        self.pool = (np.empty(g * base), np.empty(g * base * m1), np.empty(g * base * m1),
+                     np.zeros(g * rows, dtype=np.int64), np.zeros(2 * g * rows, dtype=np.int64),
+                     np.zeros(g * rows, dtype=np.int8))
+
+    def run(self, tpos, kind, nref, x0, x_hi, tol, start_tol, max_passes, final_step):
+        """(x, nuc, passes, resid, done) of the states with temperature indices ``tpos``."""
+        n = tpos.size
+        tpos = np.ascontiguousarray(tpos, dtype=np.int64)
+        order = np.argsort(tpos, kind="stable").astype(np.int64)
+        out_x, out_nuc, out_resid = np.empty(n), np.full(n, np.nan), np.full(n, np.inf)
+        out_passes = np.zeros(n, dtype=np.int64)
+        out_done = np.zeros(n, dtype=np.bool_)
+        f64 = np.ascontiguousarray
+        _solve_states_jit(order, tpos, self.t_u, int(kind), f64(nref, dtype=float),
+                          f64(x0, dtype=float), f64(x_hi, dtype=float), float(tol),
+                          float(start_tol), int(max_passes), float(final_step), self.density,
+                          self.ctab, self.bare, self.lu_first, self.xl, self.xr, *self.chains,
+                          self.q_flat,
+                          self.mrow, self.hm_q, *self.levels, *self.pool, max(self.n_group, 1),
+                          out_x, out_nuc, out_passes, out_resid, out_done)
+        return out_x, out_nuc, out_passes, out_resid, out_done
+
+
+#: chains this short are always taken whole (as the numpy windows do; H with H- needs it)
+WHOLE_CHAIN = 4
