@@ -29,3 +29,5 @@ HC_EV_CM = (_c.h * _c.c).to(_u.eV * _u.cm).value
 N_A = _c.N_A.value
 #: gas constant [J mol^-1 K^-1]
 R_GAS = _c.R.si.value
+#: radiation constant a = 4 sigma / c [erg cm^-3 K^-4]
+A_RAD = (4 * _c.sigma_sb / _c.c).cgs.value

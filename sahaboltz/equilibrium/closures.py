@@ -29,7 +29,8 @@ from sahaboltz.errors import InputError
 # sahaboltz.constants (astropy) is imported where a value is computed, not here: reading the
 # registry (names, units, flags) stays cheap for the command line and the table cache
 
-__all__ = ["Closure", "CLOSURES", "register", "get", "FIXES"]
+__all__ = ["Closure", "CLOSURES", "register", "get", "FIXES", "ThermalClosure", "THERMAL_CLOSURES",
+           "register_thermal"]
 
 #: the kinds of density a closure can fix (see the module docstring)
 FIXES = ("particles", "nuclei", "electrons")
@@ -139,3 +140,55 @@ register(Closure("nuclei_density", "cm-3", "N", r"N", "--nuclei-density",
                  "nuclei", nuclei_per_value=lambda comp: 1.0))
 register(Closure("electron_pressure", "dyn cm-2", "P_e", r"P_\mathrm{e}", "--electron-pressure",
                  "electron pressure", "electron pressure P_e = n_e k T", "electrons"))
+
+
+# -- closures that replace the temperature ------------------------------------------------
+@dataclass(frozen=True)
+class ThermalClosure:
+    """A thermodynamic quantity that, with a partner closure, fixes a state in place of T.
+
+    Attributes
+    ----------
+    name : str
+        Keyword of the solver (``"internal_energy"``) and a table axis name.
+    unit, symbol, tex, flag, label, long_name : str
+        As for :class:`Closure`.
+    partner : str
+        The closure of :data:`CLOSURES` given with it (``"mass_density"``).
+    slope : str
+        The attribute of :class:`~sahaboltz.equilibrium.thermodynamics.Thermodynamics` that is
+        d(value)/d ln T at fixed partner: the Newton slope of the inverse solve.
+    """
+
+    name: str
+    unit: str
+    symbol: str
+    tex: str
+    flag: str
+    label: str
+    long_name: str
+    partner: str
+    slope: str
+
+
+#: name -> ThermalClosure: the state is then found by solving for T
+#: (:mod:`sahaboltz.equilibrium.inverse`)
+THERMAL_CLOSURES: dict[str, ThermalClosure] = {}
+
+
+def register_thermal(closure: ThermalClosure) -> ThermalClosure:
+    """Add a closure that replaces the temperature (its partner must be registered)."""
+    if closure.partner not in CLOSURES:
+        raise ValueError(f"thermal closure {closure.name}: unknown partner {closure.partner}")
+    THERMAL_CLOSURES[closure.name] = closure
+    return closure
+
+
+register_thermal(ThermalClosure(
+    "internal_energy", "erg g-1", "u", r"u", "--internal-energy", "specific internal energy",
+    "specific internal energy (zero point: neutral ground-state atoms and electrons at rest)",
+    partner="mass_density", slope="du_dlnt"))
+register_thermal(ThermalClosure(
+    "entropy", "erg g-1 K-1", "s", r"s", "--entropy", "specific entropy",
+    "specific entropy (Sackur-Tetrode with internal partition functions)",
+    partner="gas_pressure", slope="ds_dlnt_p"))

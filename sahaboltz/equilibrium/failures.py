@@ -57,3 +57,23 @@ def convergence_error(state, what: str) -> ConvergenceError:
     err.indices = [tuple(int(j) for j in np.unravel_index(i, shape)) for i in where]
     err.state = state
     return err
+
+
+def mark_failed(state, flat_index, reasons, status: int = 3) -> None:
+    """Mark states of a result as failed after the fact (a closure search found no state
+    there): status, reason, and NaN values in place of their populations."""
+    idx = np.asarray(flat_index, dtype=np.intp)
+    if not idx.size:
+        return
+    state.status.reshape(-1)[idx] = status
+    reason = state.reason.reshape(-1)
+    for i, why in zip(idx, reasons):
+        reason[i] = why
+    for name in ("log_ne", "n_e", "nuclei_density"):
+        arr = np.array(getattr(state, name), dtype=float)
+        arr.reshape(-1)[idx] = np.nan
+        setattr(state, name, arr)
+    if getattr(state, "_n_mol", None) is not None:
+        state._n_mol.reshape(state._n_mol.shape[0], -1)[:, idx] = np.nan
+    state._cache.clear()
+    state.__dict__.pop("_thermo_cache", None)

@@ -18,7 +18,7 @@ from sahaboltz.data.composition import Composition
 from sahaboltz.equilibrium import closures as _closures
 from sahaboltz.equilibrium.atomic import DEFAULT_TOLERANCE, solve_atomic
 from sahaboltz.equilibrium.closures import Closure
-from sahaboltz.equilibrium.failures import check_mode, raise_or_keep
+from sahaboltz.equilibrium.failures import check_mode, mark_failed, raise_or_keep
 from sahaboltz.equilibrium.molecular import solve_molecular
 from sahaboltz.equilibrium.network import AtomicNetwork
 from sahaboltz.equilibrium.validity import warn_plain, warn_validity
@@ -67,13 +67,14 @@ def checked_inputs(composition, temperature, closure_values: dict, truncation,
     return closure, t, v, scheme
 
 
-def solve_equilibrium(composition: Composition, temperature: Any, *,
+def solve_equilibrium(composition: Composition, temperature: Any = None, *,
                       truncation: str | TruncationScheme | None = None,
                       lowering: bool = False, completion: bool = False, h_minus: bool = True,
                       molecules=None, database=None, missing_levels: str = "unit",
                       tolerance: float = DEFAULT_TOLERANCE, max_passes: int = 200,
                       network: AtomicNetwork | None = None, molecule_database=None,
-                      errors: str = "raise", condensates=False, **closure: Any):
+                      errors: str = "raise", condensates=False, radiation: bool = False,
+                      temperature_range=None, **closure: Any):
     """Solve the LTE ionization balance of a mixture at one or many states.
 
     Parameters
@@ -120,6 +121,19 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
         result (``.state``); "mask" returns the state with ``status`` (converged, unreachable,
         strongly coupled, not converged) and ``reason`` per state, and NaN values only there.
 
+    internal_energy, entropy : array_like or Quantity, optional
+        In place of ``temperature`` (which is then None): the specific internal energy
+        [erg g^-1] with ``mass_density``, or the specific entropy [erg g^-1 K^-1] with
+        ``gas_pressure`` (:data:`~sahaboltz.equilibrium.closures.THERMAL_CLOSURES`); the
+        temperature is solved for (:mod:`sahaboltz.equilibrium.inverse`) within
+        ``temperature_range`` (K, default (1000, 1e8); from 500 K with molecules), and the
+        state returned has it as ``temperature``.
+    radiation : bool
+        Include black-body radiation at T in the thermodynamic properties of the result
+        (``state.internal_energy``, ``state.gamma1`` ...; see
+        :mod:`sahaboltz.equilibrium.thermodynamics`); default off.  The populations and the
+        gas-pressure closure are not affected.
+
     Returns
     -------
     EquilibriumState (MolecularEquilibriumState with molecules)
@@ -132,6 +146,20 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
         With ``errors="raise"``, when some states could not be solved.
     """
     check_mode(errors)
+    thermal = [k for k, val in closure.items()
+               if k in _closures.THERMAL_CLOSURES and val is not None]
+    if thermal:
+        return _solve_thermal_front(
+            composition, temperature, thermal, closure, truncation=truncation,
+            lowering=lowering, completion=completion, h_minus=h_minus, molecules=molecules,
+            database=database, missing_levels=missing_levels, tolerance=tolerance,
+            max_passes=max_passes, network=network, molecule_database=molecule_database,
+            errors=errors, condensates=condensates, radiation=radiation,
+            temperature_range=temperature_range)
+    if temperature is None:
+        raise InputError("temperature is missing: give it, or replace it by one of "
+                         + ", ".join(f"{c.name} (with {c.partner})"
+                                     for c in _closures.THERMAL_CLOSURES.values()))
     closure_def, t, v, scheme = checked_inputs(composition, temperature, closure, truncation,
                                                lowering)
     if not (isinstance(max_passes, (int, np.integer)) and not isinstance(max_passes, bool)
@@ -156,7 +184,81 @@ def solve_equilibrium(composition: Composition, temperature: Any, *,
     else:
         state = raise_or_keep(solve_atomic(network, t, v, closure_def, lowering=lowering,
                                            tolerance=tolerance, max_passes=max_passes), errors)
+    state.radiation = bool(radiation)
     warn_validity(state)
     if scheme.key == "plain" and truncation is not None:
         warn_plain(state)
+    return state
+
+
+def _solve_thermal_front(composition, temperature, thermal, given, *, truncation, lowering,
+                         completion, h_minus, molecules, database, missing_levels, tolerance,
+                         max_passes, network, molecule_database, errors, condensates,
+                         radiation, temperature_range):
+    """solve_equilibrium with a thermal closure: find T, then the state there."""
+    from sahaboltz.equilibrium.inverse import DEFAULT_TEMPERATURE_RANGE, solve_thermal
+    from sahaboltz.equilibrium.molecular import T_MIN
+    from sahaboltz.quantities import as_array
+    if len(thermal) > 1:
+        raise InputError(f"give one of {', '.join(thermal)}, not several")
+    tc = _closures.THERMAL_CLOSURES[thermal[0]]
+    if temperature is not None:
+        raise InputError(f"{tc.name} replaces the temperature: give temperature=None (or "
+                         f"drop {tc.name})")
+    others = {k: v for k, v in given.items() if k != tc.name and v is not None}
+    if set(others) != {tc.partner}:
+        raise InputError(f"{tc.name} goes with {tc.partner} (and no other closure); got "
+                         f"{', '.join(others) if others else 'none'}")
+    if lowering:
+        raise InputError(f"{tc.name}: the thermodynamics does not cover Debye-Hueckel lowering "
+                         "yet; solve without lowering=True")
+    if not (condensates is None or condensates is False
+            or (isinstance(condensates, str) and condensates == "none")):
+        raise InputError(f"{tc.name}: the thermodynamics does not cover condensates yet")
+    if temperature_range is None:
+        lo, hi = DEFAULT_TEMPERATURE_RANGE
+        if molecules is not None:
+            lo = max(lo, T_MIN)
+    else:
+        lo, hi = (float(v) for v in as_array(temperature_range, "K", "temperature_range"))
+    if not (0 < lo < hi and np.isfinite(hi)):
+        raise InputError(f"temperature_range must be (low, high) with 0 < low < high, got "
+                         f"{temperature_range!r}")
+    target = as_array(given[tc.name], tc.unit, tc.name)
+    part_def, _, pv, scheme = checked_inputs(composition, 1.0, {tc.partner: others[tc.partner]},
+                                             truncation, lowering)
+    try:
+        target, pv = np.broadcast_arrays(target, pv)
+    except ValueError:
+        raise InputError(f"{tc.name} {target.shape} and {tc.partner} {pv.shape} do not "
+                         "broadcast") from None
+    if not np.isfinite(target).all():
+        raise InputError(f"{tc.name} must be finite")
+    if network is None:
+        network = AtomicNetwork(composition, database, scheme, completion, h_minus,
+                                missing_levels)
+    elif network.composition is not composition or network.scheme != scheme:
+        raise InputError("network was built for another composition or truncation")
+
+    def forward(t, v):
+        if molecules is not None:
+            st = solve_molecular(network, t, v, part_def, molecules=molecules, lowering=False,
+                                 tolerance=tolerance, max_passes=max_passes,
+                                 molecule_database=molecule_database, condensates=False)
+        else:
+            st = solve_atomic(network, t, v, part_def, lowering=False, tolerance=tolerance,
+                              max_passes=max_passes)
+        st.radiation = bool(radiation)
+        return st
+
+    shape = target.shape
+    t, status, reason = solve_thermal(forward, tc, target.ravel().astype(float),
+                                      pv.ravel().astype(float), (lo, hi))
+    state = forward(t.reshape(shape), pv.copy())
+    bad = np.flatnonzero(status != 0)
+    mark_failed(state, bad, reason[bad])
+    state.thermal_closure = tc.name
+    state.thermal_value = target.copy()
+    state = raise_or_keep(state, errors, f"the search for T from {tc.name}")
+    warn_validity(state)
     return state

@@ -15,6 +15,8 @@ import numpy as np
 
 from sahaboltz.constants import AMU, K_B
 from sahaboltz.equilibrium.network import AtomicNetwork, Chain
+from sahaboltz.equilibrium.thermodynamics import QUANTITIES as _THERMO_QUANTITIES
+from sahaboltz.equilibrium.thermodynamics import Thermodynamics, thermodynamics
 from sahaboltz.errors import InputError, NoDataError
 from sahaboltz.kernels import truncation as _truncation
 from sahaboltz.kernels.plasma import (_coupling, _debye_length, _degeneracy, _lowering_ev,
@@ -166,6 +168,24 @@ class EquilibriumState:
     def element_density(self, element) -> np.ndarray:
         """Nuclei of one element [cm^-3]."""
         return self.nuclei_density * self.network.chain_of(element).fraction
+
+    # -- thermodynamics ------------------------------------------------------------------
+    #: whether the thermodynamic properties include black-body radiation at T (the solve
+    #: front sets it from ``radiation=``; :meth:`thermodynamics` can override it)
+    radiation = False
+
+    def thermodynamics(self, radiation: bool | None = None) -> Thermodynamics:
+        """Energy, entropy and response functions of every state
+        (:mod:`sahaboltz.equilibrium.thermodynamics`), computed once and kept.
+
+        ``radiation``: include a T^4 radiation field (default: the state's own
+        :attr:`radiation`, off unless the solve asked for it).
+        """
+        rad = self.radiation if radiation is None else bool(radiation)
+        cache = self.__dict__.setdefault("_thermo_cache", {})
+        if rad not in cache:
+            cache[rad] = thermodynamics(self, radiation=rad)
+        return cache[rad]
 
     # -- populations -----------------------------------------------------------------------
     def _chain_fractions(self, chain: Chain) -> np.ndarray:
@@ -461,3 +481,16 @@ class EquilibriumState:
     def __repr__(self) -> str:
         return (f"EquilibriumState({self.composition.name!r}, shape={self.shape}, "
                 f"closure={self.closure}, {self.network.n_species} species)")
+
+
+def _thermo_property(name: str) -> property:
+    unit, what = _THERMO_QUANTITIES[name]
+    return property(lambda self: self.thermodynamics().get(name),
+                    doc=f"{what}{f' [{unit}]' if unit else ''} (see :meth:`thermodynamics`).")
+
+
+for _name in _THERMO_QUANTITIES:
+    if _name not in ("mean_molecular_weight", "pressure"):
+        setattr(EquilibriumState, _name, _thermo_property(_name))
+EquilibriumState.total_pressure = _thermo_property("pressure")
+del _name

@@ -5,6 +5,7 @@
     sahaboltz plot partition "Fe I" "Fe II" --truncations plain,occupation --electron-density 1e15
     sahaboltz plot electron-pressure --temperature 3000:12000:100 --gas-pressure 1e2,1e4,1e6
     sahaboltz plot levels "Fe I" --temperature 4600,6000 --gas-pressure 1e5
+    sahaboltz plot thermo --temperature 1500:1e6:121 --gas-pressure 1e-2:1e10:61 --molecules default
 
 Temperatures (-T/--temperature) and pressures are MIN:MAX:NUM or comma-separated values, in
 K and cgs units unless a unit is written ('1 atm', '1e2:1e6:9 Pa', '5000 K,8000 K').  The
@@ -69,6 +70,18 @@ def register(subparsers) -> None:
                         values="MIN:MAX:NUM|V1,V2,..")
     _state(d)
     _finish(d, _dominant)
+
+    m = sub.add_parser("thermo", help="map of the adiabatic gradient (or Gamma_1, Gamma_3) "
+                                      "over T and P")
+    m.add_argument("--quantity", default="adiabatic_gradient",
+                   choices=("adiabatic_gradient", "gamma1", "gamma3"),
+                   help="what to map (default adiabatic_gradient)")
+    _temperature(m, "1500:1e6:121", "log")
+    add_closure_options(m, default=("gas_pressure", "1e-2:1e10:61"),
+                        values="MIN:MAX:NUM|V1,V2,..")
+    m.add_argument("--radiation", action="store_true", help="include radiation (a T^4)")
+    _state(m)
+    _finish(m, _thermo)
 
     u = sub.add_parser("partition", help="partition functions against temperature")
     u.add_argument("species", nargs="+", help="species, e.g. 'Fe I' 'Fe II' or Fe Fe+")
@@ -181,6 +194,18 @@ def _dominant(args) -> int:
                               pressure_quantity=closure, **solver_options(args),
                               annotate=args.annotate)
     return _write(args, fig, f"dominant_{_safe(args.element)}", "dominant stage", t0)
+
+
+def _thermo(args) -> int:
+    from sahaboltz.faces.plots import thermo_map_plot
+
+    t0 = time.perf_counter()
+    closure, text = closure_from_args(args)
+    fig = thermo_map_plot(parse_values(args.temperature, "--temperature"),
+                          parse_values(text, closure), quantity=args.quantity,
+                          composition=composition_from_args(args), pressure_quantity=closure,
+                          radiation=args.radiation, **solver_options(args))
+    return _write(args, fig, args.quantity, args.quantity.replace("_", " "), t0)
 
 
 def _partition(args) -> int:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from sahaboltz.data.elements import atomic_number, spectroscopic_name
+from sahaboltz.equilibrium.closures import CLOSURES, THERMAL_CLOSURES
 from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
 from sahaboltz.faces.state_options import (CLOSURE_FLAGS, CLOSURE_UNITS, add_mixture_options,
@@ -23,6 +24,16 @@ def register(sub) -> None:
     for dest, flag, text in CLOSURE_FLAGS:
         grp.add_argument(flag, dest=dest, type=quantity_option(CLOSURE_UNITS[dest]),
                          metavar="X", help=text)
+    thermal = p.add_mutually_exclusive_group()
+    for c in THERMAL_CLOSURES.values():
+        thermal.add_argument(c.flag, dest=c.name, default=None, metavar="X",
+                             type=quantity_option(c.unit, positive=False),
+                             help=f"in place of -T: {c.long_name} [{c.unit}], with "
+                                  f"{CLOSURES[c.partner].flag}")
+    p.add_argument("--temperature-range", default=None, metavar="LO,HI",
+                   help="temperatures searched with a thermal option [K] (default 1000,1e8)")
+    p.add_argument("--radiation", action="store_true",
+                   help="include black-body radiation at T in the thermodynamics block")
     add_mixture_options(p)
     p.add_argument("--elements", default=None, metavar="LIST",
                    help="comma-separated elements to list (default: all of a custom mix; "
@@ -109,18 +120,34 @@ def run_state(args) -> int:
             raise InputError(f"--{opt.replace('_', '-')} goes with --from FILE")
     if args.levels:
         raise InputError("--levels goes with --from FILE")
-    if args.temperature is None:
-        raise InputError("-T/--temperature is needed (or --from FILE for a structure)")
-    temperature = parse_quantity(args.temperature, "K", "-T/--temperature")
-    if not temperature > 0:
-        raise InputError(f"-T/--temperature must be positive, got {args.temperature!r}")
+    thermal = {name: getattr(args, name) for name in THERMAL_CLOSURES
+               if getattr(args, name, None) is not None}
+    if args.temperature is None and not thermal:
+        raise InputError("-T/--temperature is needed (or --from FILE for a structure, or "
+                         + " / ".join(c.flag for c in THERMAL_CLOSURES.values())
+                         + " with its partner closure)")
+    temperature = None
+    if args.temperature is not None:
+        temperature = parse_quantity(args.temperature, "K", "-T/--temperature")
+        if not temperature > 0:
+            raise InputError(f"-T/--temperature must be positive, got {args.temperature!r}")
+    extra = {}
+    if args.temperature_range:
+        try:
+            extra["temperature_range"] = tuple(float(v) for v in
+                                               args.temperature_range.split(","))
+        except ValueError:
+            raise InputError(f"--temperature-range: give LO,HI in K, got "
+                             f"{args.temperature_range!r}") from None
     comp = parse_mix(args.mix, args.by, args.metallicity, args.alpha)
     closure = {dest: getattr(args, dest) for dest, _, _ in CLOSURE_FLAGS
                if getattr(args, dest) is not None}
     if not closure:
         raise InputError("give one of " + ", ".join(f for _, f, _ in CLOSURE_FLAGS)
                          + " (e.g. --gas-pressure 1e5 or --gas-pressure '1 atm')")
-    state = solve_equilibrium(comp, temperature, **closure, **solver_options(args))
+    state = solve_equilibrium(comp, temperature, **closure, **thermal, **extra,
+                              radiation=args.radiation, **solver_options(args))
+    temperature = float(state.temperature)
     elements = _elements(args, comp)
     meta = state.summary()
     meta["mixture"] = comp.name
@@ -138,6 +165,7 @@ def run_state(args) -> int:
         meta["coupling_parameter"] = float(state.coupling_parameter)
         meta["mcwhirter_min_n_e_cm-3"] = float(state.mcwhirter_density())
         meta["lte_mcwhirter"] = bool(state.lte_valid())
+    meta.update(thermo_summary(state))
     if args.format == "table":
         for r in rows:
             r["dominant"] = "*" if r["dominant"] else ""
@@ -146,6 +174,25 @@ def run_state(args) -> int:
     emit(rows, args.format, title=f"LTE ionization balance at T = {temperature:g} K",
          meta=meta)
     return 0
+
+
+def thermo_summary(state, index=None) -> dict:
+    """The thermodynamics block of one state (``index``; scalar states: None), keyed with
+    units; says whether radiation is included, or why there is no block."""
+    from sahaboltz.equilibrium.thermodynamics import QUANTITIES
+    try:
+        th = state.thermodynamics()
+    except InputError as exc:
+        return {"thermodynamics": f"not available ({exc})"}
+    idx = () if index is None else index
+    out = {"thermodynamics": ("gas and radiation (a T^4)" if th.radiation else
+                              "gas only (radiation not included; --radiation adds it)")}
+    for name, (unit, _) in QUANTITIES.items():
+        if name == "mean_molecular_weight":
+            continue
+        key = f"{name}_{unit.replace(' ', '_')}" if unit else name
+        out[key] = float(th.get(name)[idx])
+    return out
 
 
 #: the conditions every CSV row of ``state`` repeats (the CSV has no place for metadata)

@@ -966,3 +966,84 @@ __all__ = ["save_figure", "new_figure", "diagnostic_fit_plot", "add_note", "draw
            "stage_fractions_plot", "dominant_stage_plot", "partition_function_plot",
            "electron_pressure_plot", "level_population_data", "level_population_plot",
            "log_ticks", "plain_log_ticks", "set_title"]
+
+
+# -- thermodynamic maps ----------------------------------------------------------------------
+#: quantities a thermodynamic map can show: name -> (label, contour levels)
+THERMO_MAP_QUANTITIES = {
+    "adiabatic_gradient": (r"adiabatic gradient $\nabla_\mathrm{ad}$",
+                           [0.05, 0.1, 0.15, 0.2, 0.25, 0.3, 0.35, 0.39]),
+    "gamma1": (r"$\Gamma_1$", [1.1, 1.2, 1.3, 1.4, 1.5, 1.6, 1.65]),
+    "gamma3": (r"$\Gamma_3$", [1.1, 1.2, 1.3, 1.4, 1.5, 1.6, 1.65]),
+}
+
+
+def draw_thermo_map(temperature, pressure, field, *, quantity: str, title: str, note: str = "",
+                    pressure_quantity: str = "gas_pressure") -> Figure:
+    """Colour map of a thermodynamic quantity (shape (nT, nP)) over the (T, P) plane, with
+    labelled contours (the ionization and dissociation zones show as its valleys)."""
+    from matplotlib import cm
+
+    label, levels = THERMO_MAP_QUANTITIES[quantity]
+    t = np.asarray(temperature, dtype=float)
+    p = np.asarray(pressure, dtype=float)
+    f = np.asarray(field, dtype=float)
+    if f.shape != (t.size, p.size):
+        raise InputError(f"field must have shape ({t.size}, {p.size}), got {f.shape}")
+    fig, ax = new_figure(7.2, 5.4)
+    lt, lp = np.log10(t), np.log10(p)
+    tt, pp = np.meshgrid(lt, lp, indexing="ij")
+    mesh = ax.pcolormesh(tt, pp, f, cmap=cm.viridis, shading="nearest", rasterized=True)
+    fig.colorbar(mesh, ax=ax, label=label)
+    good = np.isfinite(f)
+    inside = [lv for lv in levels if good.any() and f[good].min() < lv < f[good].max()]
+    if inside:
+        cs = ax.contour(tt, pp, np.where(good, f, np.nan), levels=inside, colors="w",
+                        linewidths=0.8)
+        ax.clabel(cs, fmt="%g", inline=True, fontsize=7.5)
+    ax.set_xlim(lt[0], lt[-1])
+    ax.set_ylim(lp[0], lp[-1])
+    log_ticks(ax.xaxis, t[0], t[-1], plain=True)
+    log_ticks(ax.yaxis, p[0], p[-1], plain=False)
+    ax.set_xlabel("temperature $T$ [K]")
+    ax.set_ylabel(_pressure_axis_label(pressure_quantity))
+    set_title(fig, ax, title)
+    if note:
+        add_note(fig, note)
+    return fig
+
+
+def thermo_map_plot(temperature: Any, pressure: Any, *, quantity: str = "adiabatic_gradient",
+                    composition=None, pressure_quantity: str = "gas_pressure",
+                    radiation: bool = False, **solver_options) -> Figure:
+    """Map of the adiabatic gradient (or Gamma_1, Gamma_3) over a T x P grid.
+
+    ``solver_options`` go to :func:`~sahaboltz.equilibrium.solve_equilibrium` (truncation,
+    lowering, h_minus, molecules ...).
+    """
+    from sahaboltz.equilibrium import solve_equilibrium
+
+    if quantity not in THERMO_MAP_QUANTITIES:
+        raise InputError(f"quantity must be one of {', '.join(THERMO_MAP_QUANTITIES)}, "
+                         f"got {quantity!r}")
+    comp = _default_composition(composition)
+    t = _sorted_temperature(temperature)
+    unit = CLOSURE_UNITS.get(pressure_quantity, "")
+    p = np.sort(np.atleast_1d(as_positive_array(pressure, unit, pressure_quantity)).ravel())
+    if p.size < 2:
+        raise InputError(f"{pressure_quantity}: give at least 2 values for a map "
+                         "(e.g. 1e2:1e6:41)")
+    state = solve_equilibrium(comp, t[:, None], **{pressure_quantity: p[None, :]},
+                              radiation=radiation, errors="mask", **solver_options)
+    field = state.thermodynamics().get(quantity)
+    label = THERMO_MAP_QUANTITIES[quantity][0]
+    note = (describe_state(comp, closure=pressure_quantity, value=p,
+                           truncation=solver_options.get("truncation"),
+                           lowering=bool(solver_options.get("lowering")),
+                           h_minus=solver_options.get("h_minus", True))
+            + ("; molecules " + str(solver_options["molecules"])
+               if solver_options.get("molecules") else "")
+            + ("; radiation included" if radiation else "; gas only (no radiation)"))
+    return draw_thermo_map(t, p, field, quantity=quantity,
+                           title=f"{label.split(' $')[0] if ' $' in label else label} of the "
+                                 "LTE gas", note=note, pressure_quantity=pressure_quantity)

@@ -196,6 +196,23 @@ class EquilibriumConstants:
         out = self.dln_kp_dln_t(t) - 1.0
         return out if self.above_range == "extrapolate" else np.where(above, 0.0, out)
 
+    def ln_kn_derivatives(self, temperature: Any) -> tuple[np.ndarray, np.ndarray]:
+        """d ln K_n / d ln T and d2 ln K_n / d ln T^2 from the spline of the reduced function:
+        ln K_n = r(ln T) - D0/kT + (3/2) ln T + const, so the first is r' + D0/kT + 3/2 and
+        the second r'' - D0/kT (both 0 where molecules are absent; with "extrapolate" r is
+        frozen above the table)."""
+        t, x, above = self._prepare(temperature)
+        d0 = self.dissociation_energy_ev.reshape((-1,) + (1,) * t.ndim) / (K_B_EV * t)
+        d1 = self._interp(x, 0, nu=1) + d0 + 1.5
+        d2 = self._interp(x, 0, nu=2) - d0
+        if self.above_range == "extrapolate":
+            d1 = np.where(above, d0 + 1.5, d1)
+            d2 = np.where(above, -d0, d2)
+        else:
+            d1 = np.where(above, 0.0, d1)
+            d2 = np.where(above, 0.0, d2)
+        return d1, d2
+
     def partition_function(self, temperature: Any) -> np.ndarray:
         """Molecular partition function U_AB (PCHIP in ln T on ln U; above the table it is held at
         its value at the highest tabulated temperature)."""
@@ -260,6 +277,16 @@ class MoleculeConstants:
         if self.formation is not None:
             out[self._th] = self.formation.ln_kn(t)
         return out
+
+    def ln_kn_derivatives(self, temperature: Any) -> tuple[np.ndarray, np.ndarray]:
+        """d ln K_n / d ln T and d2 ln K_n / d ln T^2, (n,) + T.shape each (0 where absent)."""
+        t = as_positive_array(temperature, "K", "temperature")
+        d1 = np.zeros((len(self.molecules),) + t.shape)
+        d2 = np.zeros_like(d1)
+        for idx, model in ((self._bc, self.diatomic), (self._th, self.formation)):
+            if model is not None:
+                d1[idx], d2[idx] = model.ln_kn_derivatives(t)
+        return d1, d2
 
     def absent(self, temperature: Any) -> np.ndarray:
         """True where a molecule has no constant (outside its data): (n,) + T.shape."""

@@ -40,6 +40,7 @@ from sahaboltz.quantities import as_array, as_positive_array
 
 __all__ = ["RYDBERG_EV", "BOHR_RADIUS_CM", "effective_n", "stark_k", "hydrogenic_radius",
            "stark_level_factor", "stark_state_factors", "stark_state_slopes",
+           "stark_state_curvatures", "log_w_charged_derivatives",
            "w_charged", "w_neutral", "occupation_probability", "log_w_charged", "log_w_neutral"]
 
 #: Rydberg energy for infinite nuclear mass [eV]
@@ -133,6 +134,53 @@ def stark_state_slopes(temperature: np.ndarray, electron_density: np.ndarray
     da_a = -ddenom / denom**2
     db_a = _F_C2 * (dx * denom - x * ddenom) / denom**2
     return a * da_a, a * db_a
+
+
+def stark_state_curvatures(temperature: np.ndarray, electron_density: np.ndarray
+                           ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """First and second logarithmic derivatives of A and B of :func:`stark_state_factors`
+    with respect to a = 0.09 n_e^(1/6) / sqrt(T): (a A', a B', a^2 A'', a^2 B'').
+
+    With D = c1 (x + 4 a^3), x = (1 + a)^3.15: A = 1/D, B = c2 x / D, so
+    A' = -D'/D^2, A'' = 2 D'^2/D^3 - D''/D^2, B' = c2 (x'/D - x D'/D^2),
+    B'' = c2 (x''/D - 2 x' D'/D^2 - x D''/D^2 + 2 x D'^2/D^3).  (Unchecked arrays.)
+    """
+    a = _A_COEFF * electron_density ** (1.0 / 6.0) / np.sqrt(temperature)
+    x = (1.0 + a) ** _X_EXP
+    x1 = _X_EXP * (1.0 + a) ** (_X_EXP - 1.0)
+    x2 = _X_EXP * (_X_EXP - 1.0) * (1.0 + a) ** (_X_EXP - 2.0)
+    d = _F_C1 * (x + 4.0 * a**3)
+    d1 = _F_C1 * (x1 + 12.0 * a * a)
+    d2 = _F_C1 * (x2 + 24.0 * a)
+    a1 = -d1 / d**2
+    a2 = 2.0 * d1**2 / d**3 - d2 / d**2
+    b1 = _F_C2 * (x1 / d - x * d1 / d**2)
+    b2 = _F_C2 * (x2 / d - 2.0 * x1 * d1 / d**2 - x * d2 / d**2 + 2.0 * x * d1**2 / d**3)
+    return a * a1, a * b1, a * a * a2, a * a * b2
+
+
+def log_w_charged_derivatives(s, a_, b_, a_a1, b_a1, a_a2, b_a2):
+    """ln w of the charged-perturber fit and its derivatives in (ln T, ln n_e).
+
+    ln w = -ln(1 + g), g = A s^2 + B s with s = P(n_e) Q (P proportional to n_e) and A, B
+    functions of a (d ln a / d ln T = -1/2, d ln a / d ln n_e = 1/6); the arguments are s,
+    A, B and the output of :func:`stark_state_curvatures` (broadcasting arrays).
+
+    Returns (ln w, d ln w/d ln T, d ln w/d ln n_e, d2 ln w/d ln T^2, d2 ln w/d ln T d ln n_e).
+    """
+    s2 = s * s
+    g = s * (a_ * s + b_)
+    g_s = 2.0 * a_ * s2 + b_ * s                   # d g / d ln s
+    g_a = a_a1 * s2 + b_a1 * s                     # d g / d ln a
+    g_aa = (a_a1 + a_a2) * s2 + (b_a1 + b_a2) * s  # d2 g / d ln a^2
+    g_sa = 2.0 * a_a1 * s2 + b_a1 * s
+    g_t = -0.5 * g_a
+    g_n = g_s + g_a / 6.0
+    g_tt = 0.25 * g_aa
+    g_tn = -0.5 * (g_sa + g_aa / 6.0)
+    inv = 1.0 / (1.0 + g)
+    return (-np.log1p(g), -g_t * inv, -g_n * inv, -g_tt * inv + (g_t * inv) ** 2,
+            -g_tn * inv + g_t * g_n * inv * inv)
 
 
 def log_w_neutral(n: np.ndarray, z: np.ndarray, neutral_density: np.ndarray,

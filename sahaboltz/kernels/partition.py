@@ -404,6 +404,102 @@ class PartitionModel:
                 u1[p0:p1] = np.add.reduceat(terms * energy, off)
         return u, None if u1 is None else u1 / u, u2 / u
 
+    def pair_log_derivatives(self, temperature: np.ndarray, n_e: np.ndarray | None,
+                             rows: np.ndarray, states: np.ndarray | None = None
+                             ) -> tuple[np.ndarray, ...]:
+        """ln U and its first and second derivatives in (ln T, ln n_e) for the flat pairs
+        (state, species ``rows[p]``), unchecked float arrays as in :meth:`evaluate_pairs`.
+
+        With the level terms t_i = g_i w_i exp(-E_i/kT), e_i = E_i/kT + d ln w_i/d ln T and
+        d_i = d ln w_i / d ln n_e (angle brackets: means weighted by t_i):
+
+            d ln U/d ln T = <e>,             d ln U/d ln n_e = <d>,
+            d2 ln U/d ln T^2 = Var(e) + <-E/kT + d2 ln w/d ln T^2>,
+            d2 ln U/d ln T d ln n_e = Cov(e, d) + <d2 ln w/d ln T d ln n_e>.
+
+        Returns (ln U, U_T, U_n, U_TT, U_Tn), each of shape ``rows.shape``; the density
+        derivatives are 0 for schemes whose weights do not depend on n_e.  Schemes with a
+        per-state lowering are not supported.
+        """
+        if "lowering_ev" in self.scheme.inputs:
+            raise InputError("pair_log_derivatives: a lowering per state is not supported")
+        t = np.asarray(temperature, dtype=float)
+        rows = np.asarray(rows, dtype=np.intp)
+        npair = rows.size
+        out = tuple(np.zeros(npair) for _ in range(5))
+        if not npair:
+            return out
+        pst = {"T": t, "ne": (np.full(t.shape, 1e-30) if n_e is None
+                              else np.asarray(n_e, dtype=float))}
+        dens = self.scheme.density_dependent and n_e is not None
+        if dens:
+            self.scheme.prepare_curvature_pairs(self, pst)
+        if states is not None:
+            states = np.asarray(states, dtype=np.intp)
+            pst = {k: tuple(a[states] for a in v) if isinstance(v, tuple) else v[states]
+                   for k, v in pst.items()}
+        t = pst["T"]
+        beta = 1.0 / (K_B_EV * t)
+        if not hasattr(self, "_pair_keys"):
+            self._pair_keys = self._sp * _PAIR_KEY_STRIDE + self._e
+        cut = (_CUT + self._lng_max[rows]) / beta
+        start = self._starts[rows]
+        count = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
+        count = np.clip(count, 1, self._counts[rows])
+        if dens:
+            fast = self.scheme.pair_log_derivative_sums(self, rows, beta, start, count, pst)
+            if fast is not None:
+                return fast
+        else:   # every weight 1 here
+            from sahaboltz.kernels import compiled_thermo
+            if compiled_thermo.available():
+                beta_u, tidx = np.unique(beta, return_inverse=True)
+                return compiled_thermo.plain_log_derivative_sums(
+                    tidx.ravel(), rows, beta_u, start, count, self._e, self._lng,
+                    self._lng_max, self._q_stark, self._r3, self.n_species)
+        ln_u, u_t, u_n, u_tt, u_tn = out
+        ends = np.cumsum(count)
+        cuts = np.searchsorted(ends, np.arange(_PAIR_BLOCK, ends[-1], _PAIR_BLOCK))
+        edges = np.unique(np.concatenate([[0], cuts + 1, [npair]]))
+        for p0, p1 in zip(edges[:-1], edges[1:]):
+            cnt = count[p0:p1]
+            off = np.concatenate([[0], np.cumsum(cnt)[:-1]])
+            total = int(ends[p1 - 1] - (ends[p0 - 1] if p0 else 0))
+            lv = np.repeat(start[p0:p1] - off, cnt) + np.arange(total)
+            be = np.repeat(beta[p0:p1], cnt) * self._e[lv]
+            arg = self._lng[lv] - be
+            w = self.scheme.pair_weight_derivatives(self, lv, cnt, slice(p0, p1), pst) \
+                if dens else None
+            e = be
+            de = -be
+            d = dd = None
+            if w is not None:
+                lw, w_t, w_n, w_tt, w_tn = w
+                arg = arg + lw
+                e = be + w_t
+                de = w_tt - be
+                d, dd = w_n, w_tn
+            # scale by the largest term of each pair (no overflow, exact ratios)
+            top = np.maximum.reduceat(arg, off)
+            terms = np.exp(arg - np.repeat(top, cnt))
+            s0 = np.add.reduceat(terms, off)
+            inv = 1.0 / s0
+
+            def mean(v):
+                return np.add.reduceat(terms * v, off) * inv
+
+            m_e = mean(e)
+            ln_u[p0:p1] = np.log(s0) + top
+            u_t[p0:p1] = m_e
+            # the variance about the mean (no cancellation)
+            de_c = e - np.repeat(m_e, cnt)
+            u_tt[p0:p1] = mean(de_c * de_c) + mean(de)
+            if d is not None:
+                m_d = mean(d)
+                u_n[p0:p1] = m_d
+                u_tn[p0:p1] = mean(de_c * (d - np.repeat(m_d, cnt))) + mean(dd)
+        return out
+
     def level_terms(self, species, temperature: Any, n_e: Any = None, lowering_ev: Any = None,
                     n_neutral: Any = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Boltzmann terms g_i w_i exp(-E_i/kT) of one species' packed levels.

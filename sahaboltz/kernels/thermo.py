@@ -56,6 +56,17 @@ def _basis(t: np.ndarray) -> np.ndarray:
                      -t ** 3 / 12, -t ** 4 / 20, 1.0 / t, -np.ones_like(t)], axis=-1)
 
 
+def _basis_derivatives(t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """d b_j / d ln T and d2 b_j / d ln T^2 of :func:`_basis`, each t.shape + (9,)."""
+    lt = np.log(t)
+    z = np.zeros_like(t)
+    d1 = np.stack([t ** -2, -lt / t, -np.ones_like(t), -t / 2, -t ** 2 / 3, -t ** 3 / 4,
+                   -t ** 4 / 5, -1.0 / t, z], axis=-1)
+    d2 = np.stack([-2.0 * t ** -2, (lt - 1.0) / t, z, -t / 2, -2.0 * t ** 2 / 3,
+                   -3.0 * t ** 3 / 4, -4.0 * t ** 4 / 5, 1.0 / t, z], axis=-1)
+    return d1, d2
+
+
 class GibbsTable:
     """G/RT of a fixed list of species, vectorised over temperatures.
 
@@ -76,18 +87,32 @@ class GibbsTable:
             self._coef[i, :k] = s.coefficients
 
     def g_over_rt(self, temperature: Any) -> np.ndarray:
+        return self._evaluate(temperature, lambda tb: (_basis(tb),))[0]
+
+    def g_over_rt_derivatives(self, temperature: Any) -> tuple[np.ndarray, np.ndarray]:
+        """d(G/RT)/d ln T and d2(G/RT)/d ln T^2 (the polynomial of the range that holds T),
+        each (n_species,) + t.shape, NaN outside each species' data range."""
+        return self._evaluate(temperature, _basis_derivatives)
+
+    def _evaluate(self, temperature, bases) -> list[np.ndarray]:
         t = as_positive_array(temperature, "K", "temperature")
         flat = t.ravel()
-        g = np.empty((len(self.species), flat.size))
+        outs = None
         for a in range(0, flat.size, _BLOCK):       # blocks keep the (n, m, 9) gather small
             tb = flat[a:a + _BLOCK]
             # range index: how many inner boundaries lie at or below T
             idx = (tb[None, :, None] >= self._edges[:, None, :]).sum(axis=2)     # (n, m)
             coef = np.take_along_axis(self._coef, idx[:, :, None], axis=1)        # (n, m, 9)
-            g[:, a:a + _BLOCK] = np.einsum("nmj,mj->nm", coef, _basis(tb))
+            basis = bases(tb)
+            if outs is None:
+                outs = [np.empty((len(self.species), flat.size)) for _ in basis]
+            for o, b in zip(outs, basis):
+                o[:, a:a + _BLOCK] = np.einsum("nmj,mj->nm", coef, b)
+        if outs is None:
+            outs = [np.empty((len(self.species), 0)) for _ in bases(flat)]
         inside = (flat[None, :] >= self.t_min[:, None]) & (flat[None, :] <= self.t_max[:, None])
-        g = np.where(inside, g, np.nan)
-        return g.reshape((len(self.species),) + t.shape)
+        return [np.where(inside, o, np.nan).reshape((len(self.species),) + t.shape)
+                for o in outs]
 
 
 class FormationConstants:
@@ -162,6 +187,21 @@ class FormationConstants:
         t = as_positive_array(temperature, "K", "temperature")
         sh = (-1,) + (1,) * t.ndim
         return self.ln_kp(t) - self.delta_n.reshape(sh) * np.log(K_B * t)
+
+    def ln_kn_derivatives(self, temperature: Any) -> tuple[np.ndarray, np.ndarray]:
+        """d ln K_n / d ln T and d2 ln K_n / d ln T^2 (0 where the species is absent)."""
+        t = as_positive_array(temperature, "K", "temperature")
+        n = len(self.species)
+        sh = (-1,) + (1,) * t.ndim
+        inside = self.in_range(t).reshape(n, -1)
+        out = []
+        for order, g in enumerate(self._table.g_over_rt_derivatives(t)):
+            g = np.nan_to_num(g.reshape(g.shape[0], -1))
+            d = -(self._nu @ g[n:-1] - np.multiply.outer(self._q, g[-1]) - g[:n])
+            if order == 0:
+                d = d - self.delta_n[:, None]
+            out.append(np.where(inside, d, 0.0).reshape((n,) + t.shape))
+        return out[0], out[1]
 
 
 class CondensateConstants:

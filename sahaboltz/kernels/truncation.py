@@ -124,6 +124,29 @@ class TruncationScheme:
         ``pairs.start + j``; None when every w = 1."""
         return None
 
+    # -- second derivatives (thermodynamics) ----------------------------------------------
+    def prepare_curvature_pairs(self, model, pst: dict) -> None:
+        """For :meth:`PartitionModel.pair_log_derivatives`: per-pair state values into ``pst``."""
+
+    def pair_weight_derivatives(self, model, lv: np.ndarray, counts: np.ndarray, pairs: slice,
+                                pst: dict):
+        """(ln w, w_T, w_n, w_TT, w_Tn) of the flat level terms ``lv`` (``counts[j]`` for pair
+        ``pairs.start + j``): ln w and its first and second derivatives in ln T and ln n_e;
+        None when every w is constant."""
+        return None
+
+    def bound_state_weight_derivatives(self, binding_ev: float, temperature: np.ndarray,
+                                       n_e: np.ndarray):
+        """(ln w, w_T, w_n, w_TT, w_Tn) of a lone bound state (a negative ion), or None when
+        its weight is 1."""
+        return None
+
+    def pair_log_derivative_sums(self, model, rows: np.ndarray, beta: np.ndarray,
+                                 start: np.ndarray, count: np.ndarray, pst: dict):
+        """(ln U, U_T, U_n, U_TT, U_Tn) of every pair by a compiled loop, or None to let the
+        numpy path use :meth:`pair_weight_derivatives`."""
+        return None
+
     def pair_sums(self, model, tidx: np.ndarray, beta_u: np.ndarray, rows: np.ndarray,
                   start: np.ndarray, count: np.ndarray, pst: dict,
                   want_temperature: bool = True):
@@ -319,6 +342,40 @@ class OccupationProbability(TruncationScheme):
         f = sv * (a_ * sv + b_)
         d_n = -(sv * (2.0 * sv * a_ + b_) + sv * (sv * aa + ab) / 6.0) / (1.0 + f)
         return -np.log1p(f), d_n
+
+    def bound_state_weight_derivatives(self, binding_ev, temperature, n_e):
+        from sahaboltz.kernels.occupation import (RYDBERG_EV, log_w_charged_derivatives,
+                                                  stark_level_factor, stark_state_curvatures,
+                                                  stark_state_factors)
+        # the same hydrogenic stand-in as bound_state_weight
+        q = stark_level_factor(np.asarray(np.sqrt(RYDBERG_EV / binding_ev)), np.asarray(1.0))
+        p_, a_, b_ = stark_state_factors(temperature, n_e)
+        return log_w_charged_derivatives(p_ * q, a_, b_, *stark_state_curvatures(temperature,
+                                                                                   n_e))
+
+    def prepare_curvature_pairs(self, model, pst):
+        from sahaboltz.kernels.occupation import stark_state_curvatures, stark_state_factors
+        pst["stark"] = stark_state_factors(pst["T"], pst["ne"])
+        pst["stark_curv"] = stark_state_curvatures(pst["T"], pst["ne"])
+
+    def pair_log_derivative_sums(self, model, rows, beta, start, count, pst):
+        from sahaboltz.kernels import compiled_thermo
+        if not compiled_thermo.available():
+            return None
+        beta_u, tidx = np.unique(beta, return_inverse=True)
+        return compiled_thermo.occupation_log_derivative_sums(
+            tidx.ravel(), rows, beta_u, pst["stark"], pst["stark_curv"], pst.get("nn"), start,
+            count, model._e, model._lng, model._lng_max, model._q_stark, model._r3,
+            model.n_species)
+
+    def pair_weight_derivatives(self, model, lv, counts, pairs, pst):
+        from sahaboltz.kernels.occupation import log_w_charged_derivatives
+        p_, a_, b_ = (np.repeat(v[pairs], counts) for v in pst["stark"])
+        curv = (np.repeat(v[pairs], counts) for v in pst["stark_curv"])
+        out = list(log_w_charged_derivatives(p_ * model._q_stark[lv], a_, b_, *curv))
+        if "nn" in pst:   # hard spheres: independent of T and n_e
+            out[0] = out[0] - (4.0 * np.pi / 3.0) * np.repeat(pst["nn"][pairs], counts) * model._r3[lv]
+        return tuple(out)
 
     def prepare_pairs(self, model, pst):
         from sahaboltz.kernels.occupation import stark_state_factors, stark_state_slopes

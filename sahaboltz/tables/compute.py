@@ -13,7 +13,7 @@ import numpy as np
 
 from sahaboltz.data.elements import atomic_number, spectroscopic_name
 from sahaboltz.errors import InputError
-from sahaboltz.tables.spec import TableSpec
+from sahaboltz.tables.spec import THERMO_OUTPUTS, TableSpec
 
 _SOLAR_NAMES = {"solar": "asplund2009", "asplund2009": "asplund2009"}
 
@@ -138,8 +138,15 @@ def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, A
                "gas_pressure": "gas_pressure", "mass_density": "mass_density",
                "mean_molecular_weight": "mean_molecular_weight", "mean_charge": "mean_charge",
                "status": "status"}
+    thermo = None
     for name in spec.outputs.quantities:
-        out[name] = np.asarray(getattr(state, scalars[name]), dtype=float).reshape(n)
+        if name in THERMO_OUTPUTS:
+            if thermo is None:
+                thermo = state.thermodynamics(radiation=bool(spec.physics.get("radiation")))
+            value = thermo.get("pressure" if name == "total_pressure" else name)
+        else:
+            value = getattr(state, scalars[name])
+        out[name] = np.asarray(value, dtype=float).reshape(n)
     comp = state.composition
     sf = spec.outputs.stage_fractions
     elements = comp.symbols if sf == "all" else list(sf)

@@ -20,6 +20,7 @@ import numpy as np
 
 from sahaboltz.data.elements import SYMBOLS, atomic_number, parse_species, spectroscopic_name
 from sahaboltz.equilibrium.closures import CLOSURES
+from sahaboltz.equilibrium.thermodynamics import QUANTITIES as _THERMO_QUANTITIES
 from sahaboltz.errors import InputError, SahaboltzError
 from sahaboltz.kernels import truncation as _truncation
 
@@ -42,6 +43,14 @@ SCALAR_OUTPUTS = {
     "status": ("1", "solver outcome of the state: 0 converged, 1 unreachable, "
                     "2 strongly coupled, 3 not converged (its other fields are NaN)"),
 }
+
+#: the scalar outputs a table stores unless its spec lists others
+DEFAULT_QUANTITIES = tuple(SCALAR_OUTPUTS)
+#: thermodynamic outputs (on request: ``outputs.quantities``), from the thermodynamics
+#: module's list; "pressure" is stored as ``total_pressure`` (gas plus radiation if asked for)
+THERMO_OUTPUTS = {("total_pressure" if k == "pressure" else k): (u or "1", d)
+                  for k, (u, d) in _THERMO_QUANTITIES.items() if k != "mean_molecular_weight"}
+SCALAR_OUTPUTS.update(THERMO_OUTPUTS)
 
 AXIS_SCALES = ("log", "linear", "values")
 
@@ -103,11 +112,14 @@ completion = false          # hydrogenic completion of the level lists (not with
 h_minus = true              # include H-
 molecules = "none"          # or "default" (every molecule of the data), "diatomics", "abundant"
 condensates = false         # with molecules: gas-condensate equilibrium (condensed_fraction)
+radiation = false           # add a T^4 radiation field to the thermodynamic outputs
 
 [outputs]
 quantities = ["electron_density", "electron_pressure", "gas_pressure", "mass_density",
               "mean_molecular_weight", "mean_charge"]
 stage_fractions = "all"     # or a list of elements, e.g. ["H", "He", "Fe"]
+# thermodynamics on request, e.g. "internal_energy", "entropy", "adiabatic_gradient",
+# "gamma1", "heat_capacity_p", "sound_speed" (docs/thermodynamics.md)
 levels = []                 # e.g. ["Fe II:0-9", "H I:0,1,2"]  (bound-level indices, ground = 0)
 partition_functions = []    # e.g. ["Fe I", "Fe II"]
 """.format(closures=" | ".join(CLOSURES), truncations=" | ".join(_truncation.names()))
@@ -463,7 +475,7 @@ def _parse_levels(entry: str) -> tuple[str, tuple[int, ...]]:
 class Outputs:
     """What to store.  ``stage_fractions`` is ``"all"`` or a tuple of element symbols."""
 
-    quantities: tuple[str, ...] = tuple(SCALAR_OUTPUTS)
+    quantities: tuple[str, ...] = DEFAULT_QUANTITIES
     stage_fractions: str | tuple[str, ...] = "all"
     levels: tuple[tuple[str, tuple[int, ...]], ...] = ()
     partition_functions: tuple[str, ...] = ()
@@ -476,7 +488,7 @@ class Outputs:
         if extra:
             raise InputError(f"outputs: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
         q = tuple(_strings(m["quantities"], "outputs.quantities") if "quantities" in m
-                  else SCALAR_OUTPUTS)
+                  else DEFAULT_QUANTITIES)
         bad = [x for x in q if x not in SCALAR_OUTPUTS]
         if bad:
             raise InputError(f"outputs.quantities: unknown {bad}; choose from {list(SCALAR_OUTPUTS)}")
@@ -706,7 +718,8 @@ def normalize_composition(c: Any) -> dict:
 
 def _physics(p: Mapping[str, Any]) -> dict:
     p = _table(p, "physics")
-    known = {"truncation", "lowering", "molecules", "condensates", "completion", "h_minus"}
+    known = {"truncation", "lowering", "molecules", "condensates", "completion", "h_minus",
+             "radiation"}
     extra = set(p) - known
     if extra:
         raise InputError(f"physics: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
@@ -723,10 +736,13 @@ def _physics(p: Mapping[str, Any]) -> dict:
     condensates = _boolean(p.get("condensates", False), "physics.condensates")
     if condensates and molecules == "none":
         raise InputError("physics.condensates needs molecules (e.g. molecules = \"default\")")
-    return {"truncation": trunc, "lowering": lowering, "molecules": molecules,
-            "condensates": condensates,
-            "completion": _boolean(p.get("completion", False), "physics.completion"),
-            "h_minus": _boolean(p.get("h_minus", True), "physics.h_minus")}
+    out = {"truncation": trunc, "lowering": lowering, "molecules": molecules,
+           "condensates": condensates,
+           "completion": _boolean(p.get("completion", False), "physics.completion"),
+           "h_minus": _boolean(p.get("h_minus", True), "physics.h_minus")}
+    if _boolean(p.get("radiation", False), "physics.radiation"):
+        out["radiation"] = True   # only when asked for: existing specs keep their keys
+    return out
 
 
 def _molecule_set(value: Any) -> str:

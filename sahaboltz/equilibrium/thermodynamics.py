@@ -1,0 +1,538 @@
+"""Thermodynamics of a solved LTE state: energy, entropy and the response functions.
+
+The gas is an ideal mixture of species j (atoms and ions of every stage, H-, molecules,
+electrons) with densities n_j.  Each has a single-particle partition function per volume
+
+    Q_j(T, n_e) = (2 pi m_j k T / h^2)^{3/2} U_j(T, n_e) exp(-E_j / kT),
+
+U_j the internal partition function the solve used (occupation weights included) and E_j the
+energy of the species' ground state above the zero point: **neutral atoms in their ground
+levels and free electrons, all at rest**.  So E = chi_0 + ... + chi_{q-1} for stage q (the
+sum of the ionization energies), E = -0.754 eV for H-, E = -(binding energy) for a molecule;
+for a molecule Q comes from its equilibrium constant, Q_AB = Q_A Q_B / K_n(T).  With
+a_j = d ln Q_j / d ln T (at fixed n_e) = 3/2 + d ln U_j / d ln T + E_j / kT:
+
+    internal energy per volume   E = k T sum_j n_j a_j                  (+ a T^4)
+    pressure                     P = k T sum_j n_j                      (+ a T^4 / 3)
+    entropy per volume           S = k sum_j n_j [1 + a_j - ln(n_j / Q_j)]   (+ 4 a T^3 / 3)
+
+(S is the Sackur-Tetrode sum of every species with its internal partition function; the
+electrons have U = 2, a = 3/2.)  In equilibrium ln(n_j / Q_j) = sum_c nu_jc lambda_c, with
+nu_jc the atoms of element c in j and the charge, and lambda_c the element potentials; so
+sum_j n_j ln(n_j / Q_j) = sum_k N alpha_k lambda_k, which needs one stage per element.
+
+Derivatives
+-----------
+Every derivative is exact: the equilibrium relations ln n_j = ln Q_j(T, n_e) + nu_j . lambda,
+with the element totals N alpha_k and charge neutrality, are differentiated implicitly.  At
+fixed T or fixed N (i.e. rho) a change d ln T, d ln N moves the potentials by the solution of
+
+    sum_j nu_jc n_j [A_j d ln T + (nu_j - D_j e_charge) . d lambda] = N alpha_c d ln N,
+
+A_j = a_j + (3/2) D_j, D_j = d ln U_j / d ln n_e: the Jacobian of the element and charge
+balances (the Gram matrix sum_j n_j nu_j nu_j^T, with the occupation weights' density
+dependence in the charge column).  Elements that are in no molecule are eliminated by hand
+(a diagonal block), so the linear solve per state is 1 x 1 for atoms alone and
+(1 + elements in molecules) for molecules.  c_v then needs the second derivatives of ln U and
+ln K (:meth:`sahaboltz.kernels.partition.PartitionModel.pair_log_derivatives`,
+:meth:`sahaboltz.kernels.molecular.MoleculeConstants.ln_kn_derivatives`).
+
+Response functions follow from u(T, rho) and P(T, rho) and the first law
+dq = du + P d(1/rho): c_v = (du/dT)_rho, Gamma_3 - 1 = (P/rho - (du/d ln rho)_T) / (du/d ln T)_rho,
+Gamma_1 = chi_rho + chi_T (Gamma_3 - 1), nabla_ad = (Gamma_3 - 1) / Gamma_1,
+c_p = c_v + (P/rho - (du/d ln rho)_T) delta / T, delta = chi_T / chi_rho.
+
+Density-dependent weights
+-------------------------
+Saha with U(n_e) is not the minimum of an ideal free energy, so with occupation probabilities
+the identities that need one (c_p - c_v = P chi_T^2 / (rho T chi_rho), the Maxwell relations,
+T ds = du + P d(1/rho)) hold only to the size of d ln U / d ln n_e.  We take u, P and s as
+defined above on the solver's equilibrium, and every response function from u and P through
+the first law (what a hydrodynamics code conserves); docs/thermodynamics.md gives the measured
+size of the mismatch.  Debye-Hueckel lowering and condensates are not covered yet.
+"""
+
+from __future__ import annotations
+
+import weakref
+from dataclasses import dataclass
+
+import numpy as np
+
+from sahaboltz.constants import A_RAD, AMU, K_B, K_B_EV, M_E
+from sahaboltz.errors import InputError
+from sahaboltz.kernels.plasma import _log_quantum_concentration
+
+__all__ = ["Thermodynamics", "thermodynamics", "QUANTITIES"]
+
+#: name -> (unit, description) of every quantity of :class:`Thermodynamics`
+QUANTITIES = {
+    "pressure": ("dyn cm-2", "total pressure (gas, and radiation when included)"),
+    "internal_energy": ("erg g-1", "specific internal energy (zero point: neutral ground-state "
+                                   "atoms and free electrons at rest)"),
+    "enthalpy": ("erg g-1", "specific enthalpy u + P / rho"),
+    "entropy": ("erg g-1 K-1", "specific entropy (Sackur-Tetrode with internal partition "
+                               "functions)"),
+    "heat_capacity_v": ("erg g-1 K-1", "specific heat at constant volume"),
+    "heat_capacity_p": ("erg g-1 K-1", "specific heat at constant pressure"),
+    "adiabatic_gradient": ("", "nabla_ad = (d ln T / d ln P) at constant entropy"),
+    "gamma1": ("", "Gamma_1 = (d ln P / d ln rho) adiabatic"),
+    "gamma3": ("", "Gamma_3 = 1 + (d ln T / d ln rho) adiabatic"),
+    "chi_t": ("", "chi_T = (d ln P / d ln T) at constant rho"),
+    "chi_rho": ("", "chi_rho = (d ln P / d ln rho) at constant T"),
+    "delta": ("", "delta = -(d ln rho / d ln T) at constant P"),
+    "sound_speed": ("cm s-1", "adiabatic sound speed sqrt(Gamma_1 P / rho)"),
+    "mean_molecular_weight": ("", "mu = rho / (m_u n_particles), gas particles only"),
+    "dlnmu_dlnt": ("", "(d ln mu / d ln T) at constant P"),
+}
+
+# stages below e^-_THR of their element's largest stage are left out (they cannot change a
+# double-precision sum); the density-dependent U are bounded by their low-density limit
+_THR = 40.0
+# and a stage below e^-_THR_ALL of all nuclei too (rare elements)
+_THR_ALL = 40.0
+# (species x states) elements per chunk
+_CHUNK_ELEMENTS = 1 << 24
+
+
+@dataclass
+class Thermodynamics:
+    """Thermodynamic quantities of every state (arrays of the state shape; NaN where the
+    state was not solved).  Units: cgs per gram (see :data:`QUANTITIES`).
+
+    Besides the quantities of :data:`QUANTITIES` it holds the partial derivatives they are
+    built from: ``du_dlnt`` = (du/d ln T)_rho, ``du_dlnrho`` = (du/d ln rho)_T, ``ds_dlnt``,
+    ``ds_dlnrho`` (the same of s, differentiated from its own formula), ``gas_pressure``,
+    ``chi_t_gas``, ``chi_rho_gas`` (the gas alone) and ``radiation`` (whether a T^4 field
+    is included).
+    """
+
+    radiation: bool
+    pressure: np.ndarray
+    gas_pressure: np.ndarray
+    mass_density: np.ndarray
+    internal_energy: np.ndarray
+    entropy: np.ndarray
+    du_dlnt: np.ndarray
+    du_dlnrho: np.ndarray
+    ds_dlnt: np.ndarray
+    ds_dlnrho: np.ndarray
+    chi_t: np.ndarray
+    chi_rho: np.ndarray
+    chi_t_gas: np.ndarray
+    chi_rho_gas: np.ndarray
+    mean_molecular_weight: np.ndarray
+    temperature: np.ndarray
+
+    # -- derived through the first law --------------------------------------------------
+    @property
+    def enthalpy(self) -> np.ndarray:
+        return self.internal_energy + self.pressure / self.mass_density
+
+    @property
+    def heat_capacity_v(self) -> np.ndarray:
+        return self.du_dlnt / self.temperature
+
+    @property
+    def _heat_per_dlnrho(self) -> np.ndarray:
+        """-(dq / d ln rho)_T = P/rho - (du/d ln rho)_T."""
+        return self.pressure / self.mass_density - self.du_dlnrho
+
+    @property
+    def delta(self) -> np.ndarray:
+        return self.chi_t / self.chi_rho
+
+    @property
+    def heat_capacity_p(self) -> np.ndarray:
+        return (self.du_dlnt + self._heat_per_dlnrho * self.delta) / self.temperature
+
+    @property
+    def gamma3(self) -> np.ndarray:
+        return 1.0 + self._heat_per_dlnrho / self.du_dlnt
+
+    @property
+    def gamma1(self) -> np.ndarray:
+        return self.chi_rho + self.chi_t * (self.gamma3 - 1.0)
+
+    @property
+    def adiabatic_gradient(self) -> np.ndarray:
+        return (self.gamma3 - 1.0) / self.gamma1
+
+    @property
+    def sound_speed(self) -> np.ndarray:
+        return np.sqrt(self.gamma1 * self.pressure / self.mass_density)
+
+    @property
+    def dlnmu_dlnt(self) -> np.ndarray:
+        """(d ln mu / d ln T) at constant total P: mu = rho / (m_u n), n = P_gas / kT."""
+        d = self.delta
+        dln_n = (self.chi_t_gas - 1.0) - self.chi_rho_gas * d
+        return -d - dln_n
+
+    @property
+    def ds_dlnt_p(self) -> np.ndarray:
+        """(ds / d ln T) at constant gas pressure (the slope the (P, s) closure needs)."""
+        return self.ds_dlnt - self.ds_dlnrho * self.chi_t_gas / self.chi_rho_gas
+
+    def get(self, name: str) -> np.ndarray:
+        """A quantity of :data:`QUANTITIES` by name."""
+        if name not in QUANTITIES:
+            raise InputError(f"unknown thermodynamic quantity {name!r}; choose one of "
+                             f"{', '.join(QUANTITIES)}")
+        return getattr(self, name)
+
+
+def check_supported(state) -> None:
+    """Raise InputError for the options the thermodynamics does not cover yet."""
+    if state.lowering or "lowering_ev" in state.network.scheme.inputs:
+        raise InputError("thermodynamics with Debye-Hueckel lowering is not implemented: solve "
+                         "without lowering=True (and without the 'lowered' truncation)")
+    system = getattr(state, "system", None)
+    if system is not None and system.n_cond:
+        raise InputError("thermodynamics with condensates is not implemented: solve with "
+                         "condensates=False")
+
+
+def thermodynamics(state, radiation: bool = False) -> Thermodynamics:
+    """The thermodynamic quantities of a solved state (see the module docstring).
+
+    Parameters
+    ----------
+    state : EquilibriumState or MolecularEquilibriumState
+    radiation : bool
+        Add black-body radiation at T: a T^4 / 3 to P, a T^4 to the energy per volume,
+        4 a T^3 / 3 to the entropy per volume (default off).
+    """
+    check_supported(state)
+    net = state.network
+    shape = state.shape
+    ok = state.converged.ravel()
+    t_all = state.temperature.ravel()
+    keys = ("n_tot", "dn_t", "dn_n", "ea", "dea_t", "dea_n", "s_corr", "ds_corr_t", "ds_corr_n")
+    acc = {k: np.full(t_all.size, np.nan) for k in keys}
+    idx_ok = np.flatnonzero(ok)
+    if idx_ok.size:
+        order = idx_ok[np.argsort(t_all[idx_ok], kind="stable")]
+        n_sp = net.n_species + len(getattr(getattr(state, "system", None), "molecules", ()))
+        chunk = max(1, _CHUNK_ELEMENTS // max(1, n_sp))
+        for c0 in range(0, order.size, chunk):
+            sel = order[c0:c0 + chunk]
+            out = _chunk(state, sel)
+            for k in keys:
+                acc[k][sel] = out[k]
+    t = t_all
+    nuc = state.nuclei_density.ravel()
+    rho = nuc * state.composition.mean_mass_amu * AMU
+    kt = K_B * t
+    n_tot = acc["n_tot"]
+    p_gas = n_tot * kt
+    chi_t_gas = 1.0 + acc["dn_t"] / n_tot
+    chi_rho_gas = acc["dn_n"] / n_tot
+    e_vol = kt * acc["ea"]
+    e_t = kt * (acc["ea"] + acc["dea_t"])
+    e_n = kt * acc["dea_n"]
+    s_vol = K_B * (n_tot + acc["ea"] - acc["s_corr"])
+    s_t = K_B * (acc["dn_t"] + acc["dea_t"] - acc["ds_corr_t"])
+    s_n = K_B * (acc["dn_n"] + acc["dea_n"] - acc["ds_corr_n"])
+    p = p_gas.copy()
+    chi_t = chi_t_gas.copy()
+    chi_rho = chi_rho_gas.copy()
+    if radiation:
+        at4 = A_RAD * t**4
+        p = p_gas + at4 / 3.0
+        chi_t = (p_gas * chi_t_gas + 4.0 * at4 / 3.0) / p
+        chi_rho = p_gas * chi_rho_gas / p
+        e_vol = e_vol + at4
+        e_t = e_t + 4.0 * at4
+        s_rad = 4.0 * at4 / (3.0 * t)
+        s_vol = s_vol + s_rad
+        s_t = s_t + 3.0 * s_rad
+    u = e_vol / rho
+    s = s_vol / rho
+
+    def sh(a):
+        return a.reshape(shape)
+
+    return Thermodynamics(
+        radiation=bool(radiation), pressure=sh(p), gas_pressure=sh(p_gas), mass_density=sh(rho),
+        internal_energy=sh(u), entropy=sh(s), du_dlnt=sh(e_t / rho),
+        du_dlnrho=sh(e_n / rho - u), ds_dlnt=sh(s_t / rho), ds_dlnrho=sh(s_n / rho - s),
+        chi_t=sh(chi_t), chi_rho=sh(chi_rho), chi_t_gas=sh(chi_t_gas),
+        chi_rho_gas=sh(chi_rho_gas), mean_molecular_weight=sh(rho / (AMU * n_tot)),
+        temperature=sh(t.copy()))
+
+
+# ------------------------------------------------------------------------------ the work
+def _stage_energies(chain) -> np.ndarray:
+    """E of every stage of a chain above its neutral atom [eV] (H-: minus the affinity)."""
+    cum = np.concatenate([[0.0], np.cumsum(chain.chi_ev)])
+    i0 = int(np.flatnonzero(chain.charges == 0)[0])
+    return cum - cum[i0]
+
+
+def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut):
+    """(ln U, U_T, U_n, U_TT, U_Tn) of a chain's stages ``rows`` (W, m) where ``inside``;
+    the density derivatives only with density-dependent weights."""
+    w, m = rows.shape
+    out = [np.zeros((w, m)) for _ in range(5)]
+    mrow = chain.model_rows[rows]
+    has = (mrow >= 0) & inside
+    if chain.model is not None and has.any():
+        model = net.model
+        r, j = np.nonzero(has)
+        if net.ideal:
+            # the partition functions depend on T alone: once per (stage, distinct T)
+            key, inv = np.unique(mrow[r, j] * ut.size + tinv[j], return_inverse=True)
+            vals = model.pair_log_derivatives(ut[key % ut.size], None,
+                                              chain.model_offset + key // ut.size)
+            for a, v in zip(out, vals):
+                a[r, j] = v[inv]
+        else:
+            vals = model.pair_log_derivatives(t, ne, chain.model_offset + mrow[r, j],
+                                              states=j)
+            for a, v in zip(out, vals):
+                a[r, j] = v
+    if chain.charges[0] < 0 and not net.ideal:
+        wts = net.scheme.bound_state_weight_derivatives(float(chain.chi_ev[0]), t, ne)
+        if wts is not None:
+            neg = (rows == 0) & inside
+            for a, v in zip(out, wts):
+                a[neg] = np.broadcast_to(v, (w, m))[neg]
+    return out
+
+
+_BOUNDS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+
+
+def _log_u_bounds(net, chain) -> tuple[np.ndarray, np.ndarray]:
+    """Bounds ln g_ground <= ln U <= ln sum_i g_i of every stage of a chain for partition
+    functions that depend on T alone (U = 1 for stages without levels and H-)."""
+    per_net = _BOUNDS.setdefault(net, {})
+    if chain.k not in per_net:
+        lo = np.zeros(chain.n)
+        hi = np.zeros(chain.n)
+        model = net.model
+        for r, row in enumerate(chain.model_rows):
+            if row < 0:
+                continue
+            i = chain.model_offset + row
+            lng = model._lng[model._starts[i]:model._starts[i] + model._counts[i]]
+            lo[r] = lng[np.isfinite(lng)][0]
+            top = lng.max()
+            hi[r] = top + np.log(np.exp(lng - top).sum())
+        per_net[chain.k] = (lo, hi)
+    return per_net[chain.k]
+
+
+def _window(sig: np.ndarray, forced: list) -> np.ndarray:
+    """Rows (W, m) of the smallest common-width windows that hold every significant stage
+    (``sig``, (n, m)) and the ``forced`` ones."""
+    n = sig.shape[0]
+    lo = np.argmax(sig, axis=0)
+    hi = n - 1 - np.argmax(sig[::-1], axis=0)
+    if forced:
+        lo = np.minimum(lo, min(forced))
+        hi = np.maximum(hi, max(forced))
+    width = int((hi - lo).max()) + 1
+    s0 = np.minimum(lo, n - width)
+    return s0[None, :] + np.arange(width)[:, None]
+
+
+def _chunk(state, sel) -> dict:
+    net = state.network
+    comp = state.composition
+    system = getattr(state, "system", None)
+    t = state.temperature.ravel()[sel]
+    x = state.log_ne.ravel()[sel]
+    ne = np.exp(x)
+    nuc = state.nuclei_density.ravel()[sel]
+    m = t.size
+    ut, tinv = np.unique(t, return_inverse=True)
+    beta = 1.0 / (K_B_EV * t)
+    lq = _log_quantum_concentration(t)                 # ln (2 pi m_e k T / h^2)^{3/2}
+    ln_qe = np.log(2.0) + lq
+    lam_ch = ln_qe - x
+    weights = comp.atomic_weights()
+    mol_pos = {} if system is None else {c.k: i for i, c in enumerate(system.mol_chains)}
+    km = len(mol_pos)
+    r_dim = km + 1
+    ch = km                                             # the charge row / column
+    y = (None if system is None else
+         state.log_neutral.reshape(km, -1)[:, sel])
+    comp_rows = {}                                      # chain position -> component stages
+    if system is not None:
+        for comps in system._comp:
+            for p, row in comps:
+                comp_rows.setdefault(p, set()).add(row)
+    mat = np.zeros((m, r_dim, r_dim))
+    rhs = np.zeros((m, r_dim, 2))
+    elim = []                                           # eliminated chains' sums
+    kept = {}                                           # position -> per-stage arrays
+    s_corr = np.zeros(m)
+    for c in net.chains:
+        i0 = int(np.flatnonzero(c.charges == 0)[0])
+        bare = net.bare_log_c(c, ut)
+        # significant: within e^-_THR of the element's largest stage and (for rare elements)
+        # above e^-_THR_ALL of all nuclei
+        thr = max(2.0, min(_THR, _THR_ALL + np.log(c.fraction)))
+        if net.ideal and ut.size * 8 > m:
+            # temperatures hardly shared: rather than every U at every temperature, bounds of
+            # ln U decide (a superset of the stages)
+            u_lo, u_hi = _log_u_bounds(net, c)
+            a0 = bare[:, tinv] - np.multiply.outer(c.charges, x)
+            sig = a0 + u_hi[:, None] >= (a0 + u_lo[:, None]).max(axis=0) - thr
+        else:
+            # ln U at each distinct T (exact for T-only U; for density-dependent U their
+            # low-density limit, which bounds each from above)
+            lim = net.log_c(c, ut)
+            a0 = lim[:, tinv] - np.multiply.outer(c.charges, x)
+            sig = a0 >= a0.max(axis=0) - thr
+        p = mol_pos.get(c.k)
+        forced = [] if p is None else sorted({i0} | comp_rows.get(p, set()))
+        rows = _window(sig, forced)
+        inside = np.take_along_axis(sig, rows, axis=0)
+        for row in forced:
+            inside |= rows == row
+        q = c.charges[rows]
+        lu, u_t, u_n, u_tt, u_tn = _log_u_terms(net, c, rows, inside, t, ne, tinv, ut)
+        ln_rel = np.take(bare.ravel(), rows * ut.size + tinv[None, :]) + lu - q * x[None, :]
+        ln_rel = np.where(inside, ln_rel, -np.inf)
+        if p is None:
+            top = ln_rel.max(axis=0)
+            ln_n = ln_rel - (top + np.log(np.exp(ln_rel - top).sum(axis=0)))
+            ln_n += np.log(nuc * c.fraction)[None, :]
+        else:
+            at0 = np.take_along_axis(ln_rel, (i0 - rows[0])[None, :], axis=0)[0]
+            ln_n = y[p][None, :] + ln_rel - at0[None, :]
+        n = np.exp(ln_n)
+        eb = _stage_energies(c)[rows] * beta[None, :]
+        a = np.where(inside, 1.5 + u_t + eb, 0.0)
+        b = np.where(inside, u_tt - eb, 0.0)
+        d = u_n
+        cc = u_tn
+        big_a = a + 1.5 * d
+        # element potential from the most populated stage: lambda_k = ln(n_r/Q_r) - q_r lambda_ch
+        r = np.argmax(ln_n, axis=0)[None, :]
+
+        def take(arr):
+            return np.take_along_axis(arr, r, axis=0)[0]
+
+        ln_q_r = lq + 1.5 * np.log(weights[c.k] * AMU / M_E) + take(lu) - take(eb)
+        lam_k = take(ln_n) - ln_q_r - take(q) * lam_ch
+        s_corr += nuc * c.fraction * lam_k
+        nq = n * q
+        nd = n * d
+        na = n * a
+        st = {"rows": rows, "charges": c.charges, "q": q, "a": a, "b": b, "d": d, "c": cc, "lam": lam_k,
+              "Na": nuc * c.fraction,
+              "S0": n.sum(axis=0), "Sq": nq.sum(axis=0), "Sqq": (nq * q).sum(axis=0),
+              "SD": nd.sum(axis=0), "SqD": (nq * d).sum(axis=0),
+              "SA": (n * big_a).sum(axis=0), "SqA": (nq * big_a).sum(axis=0),
+              "Sa": na.sum(axis=0), "SaA": (na * big_a).sum(axis=0),
+              "Saq": (na * (q - d)).sum(axis=0), "Sb": (n * b).sum(axis=0),
+              "Sc": (n * cc).sum(axis=0)}
+        if p is None:
+            s0 = st["S0"]
+            mat[:, ch, ch] += (st["Sqq"] - st["SqD"]) - st["Sq"] * (st["Sq"] - st["SD"]) / s0
+            rhs[:, ch, 0] -= st["SqA"] - st["Sq"] * st["SA"] / s0
+            rhs[:, ch, 1] -= st["Sq"] * st["Na"] / s0
+            elim.append(st)
+        else:
+            mat[:, p, p] += st["S0"]
+            mat[:, p, ch] += st["Sq"] - st["SD"]
+            mat[:, ch, p] += st["Sq"]
+            mat[:, ch, ch] += st["Sqq"] - st["SqD"]
+            rhs[:, p, 0] -= st["SA"]
+            rhs[:, ch, 0] -= st["SqA"]
+            rhs[:, p, 1] += st["Na"]
+            kept[p] = st
+    # molecules
+    mol = None
+    if system is not None and len(system.molecules):
+        n_m = np.nan_to_num(state.molecule_densities().reshape(len(system.molecules), -1)[:, sel])
+        d1, d2 = system.constants.ln_kn_derivatives(t)
+        d1 = d1.reshape(len(system.molecules), m)
+        d2 = d2.reshape(len(system.molecules), m)
+        a_m = -d1.copy()
+        b_m = -d2.copy()
+        d_m = np.zeros_like(a_m)
+        c_m = np.zeros_like(a_m)
+        qm = system.q_mol
+        for i, comps in enumerate(system._comp):
+            qsum = 0.0
+            for p, row in comps:
+                st = kept[p]
+                at = (row - st["rows"][0])[None, :]
+                a_m[i] += np.take_along_axis(st["a"], at, axis=0)[0]
+                b_m[i] += np.take_along_axis(st["b"], at, axis=0)[0]
+                d_m[i] += np.take_along_axis(st["d"], at, axis=0)[0]
+                c_m[i] += np.take_along_axis(st["c"], at, axis=0)[0]
+                qsum += float(kept[p]["charges"][row])
+            a_m[i] += 1.5 * (qsum - qm[i])
+        big_am = a_m + 1.5 * d_m
+        nu_hat = np.concatenate([system.nu, qm[:, None]], axis=1)          # (nm, R)
+        # sum_M nu_hat_Mr n_M nu_tilde_Ms, nu_tilde = nu_hat - D_M e_charge
+        mat += np.einsum("im,ir,is->mrs", n_m, nu_hat, nu_hat)
+        mat[:, :, ch] -= np.einsum("im,ir->mr", n_m * d_m, nu_hat)
+        rhs[:, :, 0] -= np.einsum("im,ir->mr", n_m * big_am, nu_hat)
+        mol = {"n": n_m, "a": a_m, "b": b_m, "d": d_m, "c": c_m, "A": big_am, "nu": nu_hat}
+    # electrons
+    mat[:, ch, ch] += ne
+    rhs[:, ch, 0] += 1.5 * ne
+    # row equilibration, then the batched solve
+    scale = np.abs(mat).max(axis=2)
+    scale[scale == 0] = 1.0
+    dl = np.linalg.solve(mat / scale[:, :, None], rhs / scale[:, :, None])   # (m, R, 2)
+    dlam_ch = dl[:, ch, :]                                                  # (m, 2)
+    et = np.array([1.0, 0.0])
+    dz = et[None, :] * 1.5 - dlam_ch
+    out_n = np.zeros((m, 2))
+    out_ea = np.zeros((m, 2))
+    out_lam = np.zeros((m, 2))
+    n_tot = ne.copy()
+    ea = 1.5 * ne
+    out_n += ne[:, None] * dz
+    out_ea += 1.5 * ne[:, None] * dz
+
+    def chain_terms(st, dlam_k):
+        # d ln n = A eT + dlam_k + (q - D) dlam_ch over the stages, summed with weights
+        dn = (st["SA"][:, None] * et[None, :] + st["S0"][:, None] * dlam_k
+              + (st["Sq"] - st["SD"])[:, None] * dlam_ch)
+        dea = ((st["SaA"] + st["Sb"])[:, None] * et[None, :] + st["Sa"][:, None] * dlam_k
+               + st["Saq"][:, None] * dlam_ch + st["Sc"][:, None] * dz)
+        return dn, dea
+
+    for st in elim:
+        dlam_k = (np.stack([-st["SA"], st["Na"]], axis=1)
+                  - (st["Sq"] - st["SD"])[:, None] * dlam_ch) / st["S0"][:, None]
+        dn, dea = chain_terms(st, dlam_k)
+        out_n += dn
+        out_ea += dea
+        out_lam += st["Na"][:, None] * dlam_k
+        n_tot += st["S0"]
+        ea += st["Sa"]
+    for p, st in kept.items():
+        dlam_k = dl[:, p, :]
+        dn, dea = chain_terms(st, dlam_k)
+        out_n += dn
+        out_ea += dea
+        out_lam += st["Na"][:, None] * dlam_k
+        n_tot += st["S0"]
+        ea += st["Sa"]
+    if mol is not None:
+        n_m = mol["n"]
+        nu_lam = np.einsum("ir,mrk->imk", mol["nu"], dl)                 # (nm, m, 2)
+        dln = (mol["A"][:, :, None] * et[None, None, :] + nu_lam
+               - mol["d"][:, :, None] * dlam_ch[None, :, :])
+        out_n += np.einsum("im,imk->mk", n_m, dln)
+        out_ea += (np.einsum("im,imk->mk", n_m * mol["a"], dln)
+                   + (n_m * mol["b"]).sum(axis=0)[:, None] * et[None, :]
+                   + (n_m * mol["c"]).sum(axis=0)[:, None] * dz)
+        n_tot += n_m.sum(axis=0)
+        ea += (n_m * mol["a"]).sum(axis=0)
+    lam_sum = np.zeros(m)
+    for st in elim + list(kept.values()):
+        lam_sum += st["Na"] * st["lam"]
+    return {"n_tot": n_tot, "dn_t": out_n[:, 0], "dn_n": out_n[:, 1], "ea": ea,
+            "dea_t": out_ea[:, 0], "dea_n": out_ea[:, 1], "s_corr": s_corr,
+            "ds_corr_t": out_lam[:, 0], "ds_corr_n": out_lam[:, 1] + lam_sum}
