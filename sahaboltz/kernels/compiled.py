@@ -33,18 +33,10 @@ def available() -> bool:
     return numba is not None and not os.environ.get("SAHABOLTZ_NO_NUMBA")
 
 
-def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, count, e, lng,
-                          q, r3, n_rows, want_temperature, u, u1, u2):
-    """Per pair k: U = sum_l g_l w_l exp(-beta E_l) over levels start[k] .. start[k]+count[k],
-    U1 = sum term (beta E + d ln w / d ln T), U2 = sum term d ln w / d ln n_e.
-
-    w = exp(-nn4 r3) / (1 + s (A s + B)) with s = P Q_l (charged perturbers, the state
-    factors P, A, B and their slopes aa = a dA/da, ab = a dB/da; neutral hard spheres
-    with nn4 = 4 pi n_neutral / 3).  The Boltzmann factors g exp(-beta E) depend on the
-    temperature and the level alone: they are computed once for each (temperature
-    ``tidx[k]``, species ``rows[k]``) that occurs, so the loop over the pairs needs no
-    exponential at all.
-    """
+def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows):
+    """The Boltzmann factors exp(ln g - beta E - shift[row]) of the levels of each
+    (temperature ``tidx[k]``, species ``rows[k]``) that occurs among the pairs k, once each:
+    (offset of each pair's levels in the table, table)."""
     npair = tidx.size
     slot = np.full(beta_u.size * n_rows, -1, dtype=np.int64)
     offset = np.empty(npair, dtype=np.int64)
@@ -63,9 +55,28 @@ def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, co
             filled[key] = True
             bk = beta_u[tidx[k]]
             o = offset[k]
+            top = shift[rows[k]]
             for j in range(count[k]):
                 lv = start[k] + j
-                table[o + j] = np.exp(lng[lv] - bk * e[lv])
+                table[o + j] = np.exp(lng[lv] - bk * e[lv] - top)
+    return offset, table
+
+
+def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, count, e, lng,
+                          q, r3, n_rows, want_temperature, u, u1, u2):
+    """Per pair k: U = sum_l g_l w_l exp(-beta E_l) over levels start[k] .. start[k]+count[k],
+    U1 = sum term (beta E + d ln w / d ln T), U2 = sum term d ln w / d ln n_e.
+
+    w = exp(-nn4 r3) / (1 + s (A s + B)) with s = P Q_l (charged perturbers, the state
+    factors P, A, B and their slopes aa = a dA/da, ab = a dB/da; neutral hard spheres
+    with nn4 = 4 pi n_neutral / 3).  The Boltzmann factors g exp(-beta E) depend on the
+    temperature and the level alone: they are computed once for each (temperature
+    ``tidx[k]``, species ``rows[k]``) that occurs, so the loop over the pairs needs no
+    exponential at all.
+    """
+    npair = tidx.size
+    offset, table = _boltzmann_table(tidx, rows, beta_u, start, count, e, lng,
+                                     np.zeros(n_rows), n_rows)
     for k in range(npair):
         bk = beta_u[tidx[k]]
         pk, ak, bbk, aak, abk, nk = p_[k], a_[k], b_[k], aa[k], ab[k], nn4[k]
@@ -97,6 +108,7 @@ def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, co
 
 
 if numba is not None:  # pragma: no branch
+    _boltzmann_table = numba.njit(cache=True, nogil=True)(_boltzmann_table)
     _occupation_pair_sums_jit = numba.njit(
         cache=True, nogil=True, fastmath={"reassoc", "contract", "arcp", "nsz"})(
         _occupation_pair_sums)

@@ -29,27 +29,8 @@ def _sums(tidx, rows, beta_u, p_, a_, b_, a1, b1, a2, b2, nn4, start, count, e, 
     that occurs (as in :mod:`sahaboltz.kernels.compiled`), then every pair's loop needs no
     exponential."""
     npair = tidx.size
-    slot = np.full(beta_u.size * n_rows, -1, dtype=np.int64)
-    offset = np.empty(npair, dtype=np.int64)
-    total = 0
-    for k in range(npair):
-        key = tidx[k] * n_rows + rows[k]
-        if slot[key] < 0:
-            slot[key] = total
-            total += count[k]
-        offset[k] = slot[key]
-    table = np.empty(total)
-    filled = np.zeros(beta_u.size * n_rows, dtype=np.bool_)
-    for k in range(npair):
-        key = tidx[k] * n_rows + rows[k]
-        if not filled[key]:
-            filled[key] = True
-            bk = beta_u[tidx[k]]
-            o = offset[k]
-            top = lng_max[rows[k]]
-            for j in range(count[k]):
-                lv = start[k] + j
-                table[o + j] = np.exp(lng[lv] - bk * e[lv] - top)
+    offset, table = _compiled._boltzmann_table(tidx, rows, beta_u, start, count, e, lng,
+                                               lng_max, n_rows)
     for k in range(npair):
         bk = beta_u[tidx[k]]
         pk, ak, bbk = p_[k], a_[k], b_[k]
