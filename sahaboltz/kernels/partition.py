@@ -325,6 +325,16 @@ class PartitionModel:
                               want_density=True)
         return u, u1 / u, u2 / u
 
+    def _pair_levels(self, rows: np.ndarray, beta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(first level, number of levels) of each pair's species that pass the Boltzmann
+        pruning at 1/kT = ``beta`` [eV^-1] (a prefix: levels are sorted by energy)."""
+        if not hasattr(self, "_pair_keys"):
+            self._pair_keys = self._sp * _PAIR_KEY_STRIDE + self._e
+        cut = (_CUT + self._lng_max[rows]) / beta
+        start = self._starts[rows]
+        count = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
+        return start, np.clip(count, 1, self._counts[rows])
+
     def evaluate_pairs(self, temperature: np.ndarray, n_e: np.ndarray, rows: np.ndarray,
                        n_neutral: np.ndarray | None = None, *, want_temperature: bool = True,
                        temperature_index: np.ndarray | None = None,
@@ -352,20 +362,12 @@ class PartitionModel:
             pst["nn"] = np.asarray(n_neutral, dtype=float)
         self.scheme.prepare_pairs(self, pst)
         if states is not None:   # from per-state to per-pair values
-            states = np.asarray(states, dtype=np.intp)
-            pst = {k: tuple(a[states] for a in v) if isinstance(v, tuple) else v[states]
-                   for k, v in pst.items()}
+            pst = _per_pair(pst, states)
             t = pst["T"]
             if temperature_index is not None:
                 temperature_index = np.asarray(temperature_index)[states]
         beta = 1.0 / (K_B_EV * t)
-        # levels of each pair's species that pass the Boltzmann pruning (a prefix: sorted by E)
-        if not hasattr(self, "_pair_keys"):
-            self._pair_keys = self._sp * _PAIR_KEY_STRIDE + self._e
-        cut = (_CUT + self._lng_max[rows]) / beta
-        start = self._starts[rows]
-        count = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
-        count = np.clip(count, 1, self._counts[rows])
+        start, count = self._pair_levels(rows, beta)
         if temperature_index is None:
             t_u, tidx = np.unique(t, return_inverse=True)
         else:
@@ -435,17 +437,10 @@ class PartitionModel:
         if dens:
             self.scheme.prepare_curvature_pairs(self, pst)
         if states is not None:
-            states = np.asarray(states, dtype=np.intp)
-            pst = {k: tuple(a[states] for a in v) if isinstance(v, tuple) else v[states]
-                   for k, v in pst.items()}
+            pst = _per_pair(pst, states)
         t = pst["T"]
         beta = 1.0 / (K_B_EV * t)
-        if not hasattr(self, "_pair_keys"):
-            self._pair_keys = self._sp * _PAIR_KEY_STRIDE + self._e
-        cut = (_CUT + self._lng_max[rows]) / beta
-        start = self._starts[rows]
-        count = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
-        count = np.clip(count, 1, self._counts[rows])
+        start, count = self._pair_levels(rows, beta)
         if dens:
             fast = self.scheme.pair_log_derivative_sums(self, rows, beta, start, count, pst)
             if fast is not None:
@@ -727,3 +722,11 @@ def log_derivative(species, temperature: Any, *, truncation: str | None = None,
     model = _model_for(species, default_truncation(truncation, n_e, lowering_ev), completion)
     return model.log_derivative(temperature, n_e, species_lowering(model, lowering_ev),
                                 n_neutral)[0]
+
+
+def _per_pair(pst: dict, states) -> dict:
+    """State arguments given once per state, taken to the pairs (pair p belongs to state
+    ``states[p]``); tuples of arrays element by element."""
+    states = np.asarray(states, dtype=np.intp)
+    return {k: tuple(a[states] for a in v) if isinstance(v, tuple) else v[states]
+            for k, v in pst.items()}
