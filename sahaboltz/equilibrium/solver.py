@@ -168,11 +168,8 @@ def solve_equilibrium(composition: Composition, temperature: Any = None, *,
     if not (isinstance(tolerance, (int, float)) and not isinstance(tolerance, bool)
             and 1e-15 <= tolerance < 1e-2):
         raise InputError(f"tolerance must be a number in [1e-15, 1e-2), got {tolerance!r}")
-    if network is None:
-        network = AtomicNetwork(composition, database, scheme, completion, h_minus,
-                                missing_levels)
-    elif network.composition is not composition or network.scheme != scheme:
-        raise InputError("network was built for another composition or truncation")
+    network = _network_for(network, composition, database, scheme, completion, h_minus,
+                           missing_levels)
     if molecules is None and not (condensates is None or condensates is False
                                   or (isinstance(condensates, str) and condensates == "none")):
         raise InputError("condensates need molecules in the gas: add molecules='default'")
@@ -234,11 +231,8 @@ def _solve_thermal_front(composition, temperature, thermal, given, *, truncation
                          "broadcast") from None
     if not np.isfinite(target).all():
         raise InputError(f"{tc.name} must be finite")
-    if network is None:
-        network = AtomicNetwork(composition, database, scheme, completion, h_minus,
-                                missing_levels)
-    elif network.composition is not composition or network.scheme != scheme:
-        raise InputError("network was built for another composition or truncation")
+    network = _network_for(network, composition, database, scheme, completion, h_minus,
+                           missing_levels)
 
     def forward(t, v):
         if molecules is not None:
@@ -262,3 +256,13 @@ def _solve_thermal_front(composition, temperature, thermal, given, *, truncation
     state = raise_or_keep(state, errors, f"the search for T from {tc.name}")
     warn_validity(state)
     return state
+
+
+def _network_for(network, composition, database, scheme, completion, h_minus, missing_levels):
+    """The given network, checked against the composition and truncation, or a new one."""
+    if network is None:
+        return AtomicNetwork(composition, database, scheme, completion, h_minus,
+                             missing_levels)
+    if network.composition is not composition or network.scheme != scheme:
+        raise InputError("network was built for another composition or truncation")
+    return network

@@ -502,17 +502,10 @@ def _chunk(state, sel) -> dict:
                + st["Saq"][:, None] * dlam_ch + st["Sc"][:, None] * dz)
         return dn, dea
 
-    for st in elim:
-        dlam_k = (np.stack([-st["SA"], st["Na"]], axis=1)
-                  - (st["Sq"] - st["SD"])[:, None] * dlam_ch) / st["S0"][:, None]
-        dn, dea = chain_terms(st, dlam_k)
-        out_n += dn
-        out_ea += dea
-        out_lam += st["Na"][:, None] * dlam_k
-        n_tot += st["S0"]
-        ea += st["Sa"]
-    for p, st in kept.items():
-        dlam_k = dl[:, p, :]
+    eliminated = [(st, (np.stack([-st["SA"], st["Na"]], axis=1)
+                        - (st["Sq"] - st["SD"])[:, None] * dlam_ch) / st["S0"][:, None])
+                  for st in elim]
+    for st, dlam_k in eliminated + [(st, dl[:, p, :]) for p, st in kept.items()]:
         dn, dea = chain_terms(st, dlam_k)
         out_n += dn
         out_ea += dea

@@ -592,6 +592,16 @@ def _default_composition(composition):
     return solar()
 
 
+def _map_pressures(pressure, pressure_quantity: str) -> np.ndarray:
+    """The sorted pressure-like axis of a T-P map (at least two values, in cgs)."""
+    unit = CLOSURE_UNITS.get(pressure_quantity, "")
+    p = np.sort(np.atleast_1d(as_positive_array(pressure, unit, pressure_quantity)).ravel())
+    if p.size < 2:
+        raise InputError(f"{pressure_quantity}: give at least 2 values for a map "
+                         "(e.g. 1e2:1e6:41)")
+    return p
+
+
 def _sorted_temperature(temperature, minimum: int = 2) -> np.ndarray:
     t = np.sort(np.atleast_1d(as_positive_array(temperature, "K", "temperature")).ravel())
     if t.size < minimum:
@@ -711,11 +721,7 @@ def dominant_stage_plot(element: str, temperature: Any, pressure: Any, *, compos
     """
     comp = _default_composition(composition)
     t = _sorted_temperature(temperature)
-    unit = CLOSURE_UNITS.get(pressure_quantity, "")
-    p = np.sort(np.atleast_1d(as_positive_array(pressure, unit, pressure_quantity)).ravel())
-    if p.size < 2:
-        raise InputError(f"{pressure_quantity}: give at least 2 values for a map "
-                         "(e.g. 1e2:1e6:41)")
+    p = _map_pressures(pressure, pressure_quantity)
     state = _solve(comp, t[:, None], pressure_quantity, p[None, :], truncation, lowering,
                    h_minus)
     d = state.dominant_stage(element, negative=False)
@@ -1028,11 +1034,7 @@ def thermo_map_plot(temperature: Any, pressure: Any, *, quantity: str = "adiabat
                          f"got {quantity!r}")
     comp = _default_composition(composition)
     t = _sorted_temperature(temperature)
-    unit = CLOSURE_UNITS.get(pressure_quantity, "")
-    p = np.sort(np.atleast_1d(as_positive_array(pressure, unit, pressure_quantity)).ravel())
-    if p.size < 2:
-        raise InputError(f"{pressure_quantity}: give at least 2 values for a map "
-                         "(e.g. 1e2:1e6:41)")
+    p = _map_pressures(pressure, pressure_quantity)
     state = solve_equilibrium(comp, t[:, None], **{pressure_quantity: p[None, :]},
                               radiation=radiation, errors="mask", **solver_options)
     field = state.thermodynamics().get(quantity)
