@@ -15,10 +15,18 @@ from __future__ import annotations
 
 from typing import Any
 
-import astropy.units as u
+import sys
+
 import numpy as np
 
 from sahaboltz.errors import InputError
+
+
+def _units():
+    """astropy.units, imported on first need: plain numbers and unit-free option text are
+    parsed without it (a command-line cache hit must not pay its ~0.15 s import)."""
+    import astropy.units as u
+    return u
 
 
 def as_array(value: Any, unit: str | u.UnitBase, name: str, *, allow_zero: bool = True,
@@ -42,8 +50,9 @@ def as_array(value: Any, unit: str | u.UnitBase, name: str, *, allow_zero: bool 
         If the value is not numeric, has incompatible units, or is NaN, infinite, zero or
         negative where that is not allowed.
     """
-    unit = u.Unit(unit)
-    if isinstance(value, u.Quantity):
+    u = sys.modules.get("astropy.units")  # a Quantity implies astropy.units is imported
+    if u is not None and isinstance(value, u.Quantity):
+        unit = u.Unit(unit)
         equivalencies = list(equivalencies or [])
         if unit.physical_type == "temperature":  # Celsius, Fahrenheit ... -> K
             equivalencies += u.temperature()
@@ -75,7 +84,7 @@ def as_positive_array(value: Any, unit: str | u.UnitBase, name: str, **kw) -> np
     """Like :func:`as_array` but every element must be strictly positive."""
     arr = as_array(value, unit, name, **kw)
     if (arr <= 0).any():
-        raise InputError(f"{name} must be positive; got {_first(arr, arr <= 0)} {u.Unit(unit)}")
+        raise InputError(f"{name} must be positive; got {_first(arr, arr <= 0)} {unit}")
     return arr
 
 
@@ -108,6 +117,7 @@ def unit_of(text: str, unit: str, name: str):
     """The astropy unit written in ``text`` (aliases such as 'degC' allowed), checked to be
     convertible to ``unit``."""
     text = _UNIT_ALIASES.get(text.strip(), text.strip())
+    u = _units()
     from astropy.units import cds, imperial
 
     try:  # astropy's standard atmosphere, mmHg and psi live in its cds and imperial sets
@@ -127,6 +137,7 @@ def unit_of(text: str, unit: str, name: str):
 
 def convert(values, given, unit: str):
     """``values`` (float or array) in the astropy unit ``given``, converted to ``unit``."""
+    u = _units()
     target = u.Unit(unit)
     eq = u.temperature() if target.physical_type == "temperature" else []
     return (np.asarray(values, dtype=float) * given).to_value(target, equivalencies=eq)

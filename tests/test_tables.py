@@ -589,3 +589,31 @@ def test_chunks_of_zeros_are_not_stored_and_read_as_zeros(tmp_path):
     pytest.importorskip("h5netcdf")
     with xr.open_dataset(path, engine="h5netcdf") as ds:  # zeros, not missing values
         assert np.array_equal(ds["fraction"].sel(species="H II").values, want)
+
+
+_CLI_HIT = """
+import sys
+from sahaboltz.faces.cli import main
+rc = main(sys.argv[1:])
+heavy = ("scipy", "astropy", "numba", "matplotlib", "xarray", "sahaboltz.equilibrium.solver")
+print("loaded:", ",".join(m for m in heavy if m in sys.modules))
+sys.exit(rc)
+"""
+
+
+def test_cli_cache_hit_imports_no_solver_and_no_heavy_library(cache_env, tmp_path):
+    """A cache hit from the command line parses its options and finds the file without the
+    solver, scipy, astropy or numba (their imports alone take most of a second): issue 14's
+    0.3 s budget for a command-line hit, checked as what is imported, not by a clock."""
+    argv = ["table", "build", "--temperature", "4000:20000:3", "--pressure", "1e2,1e4",
+            "--fractions", "H", "--no-progress", "--workers", "1"]
+    env = _subprocess_env(tmp_path)
+    first = subprocess.run([sys.executable, "-c", _CLI_HIT, *argv], env=env, cwd=tmp_path,
+                           capture_output=True, text=True, timeout=300)
+    assert first.returncode == 0, first.stderr
+    assert " built " in first.stdout and "sahaboltz.equilibrium.solver" in first.stdout
+    hit = subprocess.run([sys.executable, "-c", _CLI_HIT, *argv], env=env, cwd=tmp_path,
+                         capture_output=True, text=True, timeout=300)
+    assert hit.returncode == 0, hit.stderr
+    assert " cached " in hit.stdout
+    assert hit.stdout.strip().splitlines()[-1] == "loaded:", hit.stdout

@@ -52,6 +52,7 @@ from sahaboltz.data.thermo import ThermoDatabase, ThermoSpecies, default_thermo_
 from sahaboltz.data.thermo_import import ELECTRON, formula_counts
 from sahaboltz.equilibrium.atomic import solve_atomic
 from sahaboltz.equilibrium.closures import Closure
+from sahaboltz.equilibrium.molecule_sets import MOLECULE_SETS
 from sahaboltz.equilibrium.network import AtomicNetwork
 from sahaboltz.equilibrium.state import (CONVERGED, NOT_CONVERGED, EquilibriumState,
                                          SolveReport)
@@ -65,8 +66,7 @@ DEFAULT_MOLECULES = ("H2", "H2+", "CH", "NH", "OH", "C2", "CN", "CO", "N2", "NO"
                      "SiS", "CS", "SO", "HS", "MgH", "SiH", "CaH", "FeH", "AlH", "TiO", "AlO")
 #: named molecule sets: "default" (the physically best set: every species of the data, each
 #: where its data reach), "all" (the same species), "diatomics" (Barklem & Collet only),
-#: "abundant" (DEFAULT_MOLECULES), "none"
-MOLECULE_SETS = ("default", "all", "diatomics", "abundant", "none")
+#: "abundant" (DEFAULT_MOLECULES), "none": their names are in molecule_sets (light to import)
 #: lowest temperature the molecular solver accepts [K] (the issue's supported range starts
 #: at 1000 K; below ~500 K solar-mixture densities span more than float64's range)
 T_MIN = 500.0

@@ -15,7 +15,7 @@ import numpy as np
 
 from sahaboltz.constants import AMU, K_B
 from sahaboltz.equilibrium.network import AtomicNetwork, Chain
-from sahaboltz.equilibrium.thermodynamics import QUANTITIES as _THERMO_QUANTITIES
+from sahaboltz.equilibrium.thermo_quantities import QUANTITIES as _THERMO_QUANTITIES
 from sahaboltz.equilibrium.thermodynamics import Thermodynamics, thermodynamics
 from sahaboltz.errors import InputError, NoDataError
 from sahaboltz.kernels import truncation as _truncation

@@ -179,7 +179,7 @@ def run_state(args) -> int:
 def thermo_summary(state, index=None) -> dict:
     """The thermodynamics block of one state (``index``; scalar states: None), keyed with
     units; says whether radiation is included, or why there is no block."""
-    from sahaboltz.equilibrium.thermodynamics import QUANTITIES
+    from sahaboltz.equilibrium.thermo_quantities import QUANTITIES
     try:
         th = state.thermodynamics()
     except InputError as exc:

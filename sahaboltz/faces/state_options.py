@@ -27,7 +27,7 @@ import numpy as np
 
 from sahaboltz.data.composition import Composition, solar
 from sahaboltz.equilibrium.closures import CLOSURES
-from sahaboltz.equilibrium.molecular import MOLECULE_SETS
+from sahaboltz.equilibrium.molecule_sets import MOLECULE_SETS
 from sahaboltz.data.elements import SYMBOLS, atomic_number
 from sahaboltz.errors import InputError, UnknownSpeciesError
 from sahaboltz.kernels import truncation as _truncation

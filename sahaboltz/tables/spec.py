@@ -20,7 +20,7 @@ import numpy as np
 
 from sahaboltz.data.elements import SYMBOLS, atomic_number, parse_species, spectroscopic_name
 from sahaboltz.equilibrium.closures import CLOSURES
-from sahaboltz.equilibrium.thermodynamics import QUANTITIES as _THERMO_QUANTITIES
+from sahaboltz.equilibrium.thermo_quantities import QUANTITIES as _THERMO_QUANTITIES
 from sahaboltz.errors import InputError, SahaboltzError
 from sahaboltz.kernels import truncation as _truncation
 
@@ -747,7 +747,7 @@ def _physics(p: Mapping[str, Any]) -> dict:
 
 def _molecule_set(value: Any) -> str:
     """The molecule set of the solver's ``molecules=`` option, one of
-    :data:`sahaboltz.equilibrium.molecular.MOLECULE_SETS` (``true`` / ``false`` in a spec file
+    :data:`sahaboltz.equilibrium.molecule_sets.MOLECULE_SETS` (``true`` / ``false`` in a spec file
     mean "default" / "none")."""
     if value is True or value is False:
         return "default" if value else "none"
@@ -757,7 +757,7 @@ def _molecule_set(value: Any) -> str:
     if value in ("none", "default"):
         return value
     # the other names only when a spec gives one (a cache hit needs no molecule code)
-    from sahaboltz.equilibrium.molecular import MOLECULE_SETS
+    from sahaboltz.equilibrium.molecule_sets import MOLECULE_SETS
     if value in MOLECULE_SETS:
         return value
     raise InputError(f"physics.molecules must be true, false or one of "
