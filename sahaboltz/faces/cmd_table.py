@@ -292,8 +292,8 @@ def _inspect(args) -> int:
     meta = read_metadata(path)
     tab = open_table(path, check=False)
     keep = ("title", "created", "package_version", "solver_version", "level_data_digest",
-            "cache_key", "composition", "physics", "pressure_quantity", "build_seconds",
-            "size_bytes")
+            "cache_key", "composition", "physics", "temperature_quantity", "pressure_quantity",
+            "build_seconds", "size_bytes")
     info = {k: (meta[k] if isinstance(meta[k], (str, int, float)) else str(meta[k]))
             for k in keep if k in meta}
     info[tab.temperature_quantity] = (f"{tab.temperature[0]:g}..{tab.temperature[-1]:g} "

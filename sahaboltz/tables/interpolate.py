@@ -17,6 +17,12 @@ logarithms, so ln q is interpolated linearly in dex): Lagrange through 4 composi
 where the axis has 4 or more (and the method is not ``linear``), else linearly; where the 4
 values of a logged quantity span more than ``e^50`` it is linear there.
 
+A table whose first axis replaces the temperature (specific internal energy with a mass-density
+axis, specific entropy with gas pressure; root attribute ``temperature_quantity``) is
+interpolated along it in ln of the value or in the value itself, as its coordinate's
+``interpolation`` attribute says (values of any sign need the latter); its temperature is a
+stored field like the others.
+
 Points outside the grid raise :class:`~sahaboltz.errors.InputError` by default; ``outside="clip"``
 clamps them onto the grid edge and ``outside="nan"`` returns NaN there (asked-for, documented NaN).
 """
