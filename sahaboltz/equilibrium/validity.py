@@ -65,19 +65,17 @@ def plain_excess(state) -> dict[str, int]:
     stark = stark_state_factors(t, np.where(ok, ne, 1.0))
     pairs_state, pairs_row, names = [], [], []
     for c in net.chains:
-        f = state._chain_fractions(c).reshape(c.n, -1)
-        for j, row in enumerate(c.model_rows):
-            if row < 0:
-                continue
-            sel = np.flatnonzero(ok & (f[j] >= CHECKED_SHARE))
-            if not sel.size:
-                continue
-            r = c.model_offset + row
-            w_top = occ.top_weight(r, *(v[sel] for v in stark))
-            sel = sel[w_top < 1.0 / PLAIN_EXCESS]
-            pairs_state.append(sel)
-            pairs_row.append(np.full(sel.size, r))
-            names.append(np.full(sel.size, c.offset + j))
+        # every (stage, state) of the chain at once; the fractions are not kept in the state
+        # (all stages of a large grid would be held for this check alone)
+        f = state._chain_fractions(c, keep=False).reshape(c.n, -1)
+        j, sel = np.nonzero((f >= CHECKED_SHARE) & (c.model_rows >= 0)[:, None] & ok[None, :])
+        if not j.size:
+            continue
+        r = c.model_offset + c.model_rows[j]
+        low = occ.top_weight(r, *(v[sel] for v in stark)) < 1.0 / PLAIN_EXCESS
+        pairs_state.append(sel[low])
+        pairs_row.append(r[low])
+        names.append(c.offset + j[low])
     if not pairs_state or not sum(p.size for p in pairs_state):
         return {}
     st_idx = np.concatenate(pairs_state)
