@@ -241,25 +241,53 @@ class EquilibriumState:
         limit = net.log_u(chain, ut)                     # (stages, distinct T)
         bound = self._log_populations(chain, ut, limit)[:, tinv]
         bound -= np.multiply.outer(chain.charges, x)
+        top_bound = bound.max(axis=0)
+        new = bound >= top_bound + _LN_UNDERFLOW
+        # only the rows that some state needs take part below (at a block's temperatures
+        # most high stages of heavy elements are out of reach at every state)
+        rows = np.flatnonzero(new.any(axis=1))
+        r0, r1 = int(rows[0]), int(rows[-1]) + 1
         n_e = np.exp(x)
-        ln_n = bound.copy()
-        keep = np.zeros(bound.shape, dtype=bool)
-        new = bound >= bound.max(axis=0) + _LN_UNDERFLOW
+        ln_n = bound[r0:r1].copy()
+        keep = np.zeros(ln_n.shape, dtype=bool)
+        new = new[r0:r1]
         while True:
             r, c = np.nonzero(new)
             # the exact ln U replaces its bound in the stage's own row only
-            ln_n[r, c] += net.log_u_pairs(chain, t, n_e, r, c, tinv) - limit[r, tinv[c]]
+            ln_n[r, c] += (net.log_u_pairs(chain, t, n_e, r + r0, c, tinv)
+                           - limit[r + r0, tinv[c]])
             keep |= new
             tab = np.where(keep, ln_n, -np.inf)
             top = tab.max(axis=0)
             tab -= top
             np.exp(tab, out=tab)
             total = tab.sum(axis=0)
-            new = ~keep & (bound >= top + np.log(total) + _LN_UNDERFLOW)
-            if not new.any():  # else the sum fell below the first guess (suppressed stages)
+            log_sum = top + np.log(total)
+            # a stage left out has its bound below top_bound - 750, so below log_sum - 750,
+            # unless the exact U of the kept ones fell far below their bounds (pressure
+            # ionization): only those states are looked at again, over the whole chain
+            low = np.flatnonzero(log_sum < top_bound)
+            if not low.size:
+                break
+            reach = bound[:, low] >= log_sum[low] + _LN_UNDERFLOW
+            rows = np.flatnonzero(reach.any(axis=1))
+            n0, n1 = min(r0, int(rows[0])), max(r1, int(rows[-1]) + 1)
+            if (n0, n1) != (r0, r1):   # widen the rows taken part
+                wide = bound[n0:n1].copy()
+                wide[r0 - n0:r1 - n0] = ln_n
+                wider = np.zeros(wide.shape, dtype=bool)
+                wider[r0 - n0:r1 - n0] = keep
+                ln_n, keep, r0, r1 = wide, wider, n0, n1
+            new = np.zeros(keep.shape, dtype=bool)
+            new[:, low] = reach[r0:r1] & ~keep[:, low]
+            if not new.any():
                 break
         tab /= total
-        return tab
+        if (r0, r1) == (0, chain.n):
+            return tab
+        out = np.zeros((chain.n, t.size))
+        out[r0:r1] = tab
+        return out
 
     @staticmethod
     def _log_populations(chain: Chain, t: np.ndarray, ln_u: np.ndarray) -> np.ndarray:
