@@ -212,10 +212,11 @@ def _log_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start, lv_count, e,
     return np.log(u), du / u
 
 
-def _unweighted(row, p_, a_, b_, lv_start, lv_count, qs):
-    """Whether every level of species ``row`` has F = s (A s + B) below 1e-17 (w = 1)."""
+def _unweighted(row, p_, a_, b_, lv_start, lv_count, qs, budget):
+    """Whether every level of species ``row`` has F = s (A s + B) below ``budget``: then
+    0 <= ln U_limit - ln U <= ln(1 + F_top) < budget, the low-density limit's error."""
     sv = p_ * qs[lv_start[row] + lv_count[row] - 1]     # the highest level has the largest s
-    return sv * (a_ * sv + b_) < _NEGLIGIBLE
+    return sv * (a_ * sv + b_) < budget
 
 
 def _series_limits(a_, b_):
@@ -235,7 +236,7 @@ def _series_limits(a_, b_):
 def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n,
              ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
              lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
-             scratch_a, scratch_d, wpos):
+             scratch_a, scratch_d, wpos, lu_at, d_at, x_at):
     """(Zbar, -dZbar/dx, sum alpha <|q|>, sum alpha <q^2>) at x for one state.
 
     ``zref`` is the mean charge the balance needs at x (n_e / N): a stage of element k below
@@ -322,14 +323,30 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
                     continue
                 av = bare[ti, i]   # the T-only part of C
                 m = mrow[i]
-                if m >= 0 and _unweighted(m, p_, a_, b_, lv_start, lv_count, qs):
-                    # every weight is 1 to 1e-17: the limit U (C of the limit tables counts
-                    # from the first stage, C_q = K_q + ln U_q - ln U_first)
+                # the limit U serves where its error, at most ln(1 + F_top), times the
+                # stage's share of the charge is below e^-38, under the e^-34 the cut above
+                # leaves out (judged with the limit tables, an upper bound of the share); its
+                # d ln U / dx, of the same order as the error, is then left out too
+                budget = max(_NEGLIGIBLE, np.exp(cut0 + _DENSITY_MARGIN - 4.0 - scratch_a[r]))
+                if m >= 0 and _unweighted(m, p_, a_, b_, lv_start, lv_count, qs, budget):
+                    # the limit U (C of the limit tables counts from the first stage,
+                    # C_q = K_q + ln U_q - ln U_first)
                     av = ctab[ti, i] + lu_first[ti, k]
                 elif m >= 0:
-                    lu, d = _log_u(tl, m, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start,
-                                   lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t, jpos,
-                                   filled, pool_base, stride)
+                    # an earlier pass's exact ln U, carried to x along its slope, where the
+                    # error (|d2 ln U / dx2| <= 6 |d|: the weights go as n_e to n_e^2) stays
+                    # within the budget
+                    dx = x - x_at[i]
+                    if abs(dx) < 0.5 and 3.0 * abs(d_at[i]) * dx * dx < budget:
+                        lu = lu_at[i] + d_at[i] * dx
+                        d = d_at[i]
+                    else:
+                        lu, d = _log_u(tl, m, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start,
+                                       lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
+                                       jpos, filled, pool_base, stride)
+                        lu_at[i] = lu
+                        d_at[i] = d
+                        x_at[i] = x
                     av += lu
                 elif q < 0.0:      # a negative ion: one bound state with its own weight
                     inv, d = _weight(p_ * hm_q, a_, b_, aa, ab)
@@ -379,8 +396,8 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
             bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
             hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
             jpos, filled,
-            pool_base, stride, scratch_a, scratch_d, wpos, out_x, out_nuc, out_passes, out_resid,
-            out_done):
+            pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, out_x, out_nuc,
+            out_passes, out_resid, out_done):
     """Safeguarded Newton for state ``i`` from x (see _ChunkSolver.run, the same rules)."""
     prev = np.inf
     for _ in range(max_passes):
@@ -394,7 +411,7 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
                                         ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
                                         hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs,
                                         term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
-                                        scratch_a, scratch_d, wpos)
+                                        scratch_a, scratch_d, wpos, lu_at, d_at, x_at)
         out_passes[i] += 1
         if kind == FIXED_ELECTRONS:     # n_e is given: one evaluation decides
             out_x[i] = x
@@ -473,6 +490,11 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
     scratch_a = np.empty(nstage)
     scratch_d = np.empty(nstage)
     wpos = np.empty(2 * ch_off.size, dtype=np.int64)
+    # per stage, the last exact ln U at this temperature, its slope and the x it was taken at
+    lu_at = np.zeros(nstage)
+    d_at = np.zeros(nstage)
+    x_at = np.full(nstage, np.inf)
+    last_ti = -1
     group = -1
     t_first = tpos[order[0]] if order.size else 0
     for j in range(order.size):
@@ -500,8 +522,8 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
                 ctab, ctab, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
-                filled, pool_base, stride, scratch_a, scratch_d, wpos, out_x, out_nuc, out_passes,
-                out_resid, out_done)
+                filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, out_x,
+                out_nuc, out_passes, out_resid, out_done)
         if not density:
             continue
         x = out_x[i]
@@ -509,6 +531,9 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
             x = hi - 1.0
         x = hi if kind == FIXED_ELECTRONS else min(x, hi - 1e-9)
         start_passes = out_passes[i]
+        if ti != last_ti:   # U depends on (T, n_e) alone: the saved values serve one T
+            x_at[:] = np.inf
+            last_ti = ti
         out_passes[i] = 0
         out_done[i] = False
         out_nuc[i] = np.nan
@@ -516,8 +541,8 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
                 ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
-                filled, pool_base, stride, scratch_a, scratch_d, wpos, out_x, out_nuc, out_passes,
-                out_resid, out_done)
+                filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, out_x,
+                out_nuc, out_passes, out_resid, out_done)
         out_passes[i] += start_passes
 
 
