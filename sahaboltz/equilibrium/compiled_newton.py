@@ -19,7 +19,10 @@ S_m = sum term q^m; for the high ones (s ten times beyond it) as the series in 1
 from the top; only the levels in between one by one.  Each series stops when a term falls
 below 1e-17 of the sum; SERIES_ORDER terms bound it at about 1e-13.  Species whose highest
 level still has weight 1 to 1e-17 take the low-density limit directly.  Stages whose share
-of the mean charge stays below e^-39 of it are left out (see :func:`_moments`).
+of the mean charge stays below e^-39 of it are left out (see :func:`_moments`); a stage whose
+share times the error of a cheaper ln U stays below e^-38 takes that one: the low-density
+limit (error at most ln(1 + F) of its highest level), or its last exact ln U at the same
+temperature carried along its slope.
 
 Used by :func:`sahaboltz.equilibrium.atomic.solve_atomic` whenever numba is available (and
 ``SAHABOLTZ_NO_NUMBA`` is not set); tests/test_compiled_newton.py checks it against the numpy
