@@ -474,6 +474,33 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
             return
 
 
+def _push(ys, xs, y, x):
+    """Add the newest solved state (y, x) to a row's last three."""
+    ys[2], xs[2] = ys[1], xs[1]
+    ys[1], xs[1] = ys[0], xs[0]
+    ys[0], xs[0] = y, x
+
+
+def _extrapolated(y, ys, xs):
+    """x at y from the last solved states of a row (``ys``, ``xs``, newest first; NaN where
+    none): quadratic through three, linear through two, within 2 units of ln nref of the
+    newest; NaN otherwise (the caller keeps its own start)."""
+    if not (np.isfinite(ys[0]) and np.isfinite(ys[1])) or abs(y - ys[0]) > 2.0:
+        return np.nan
+    d01 = ys[0] - ys[1]
+    if abs(d01) < 1e-9:
+        return np.nan
+    s01 = (xs[0] - xs[1]) / d01
+    xg = xs[0] + s01 * (y - ys[0])
+    if np.isfinite(ys[2]):
+        d12 = ys[1] - ys[2]
+        d02 = ys[0] - ys[2]
+        if abs(d12) > 1e-9 and abs(d02) > 1e-9:
+            s12 = (xs[1] - xs[2]) / d12
+            xg += (s01 - s12) / d02 * (y - ys[0]) * (y - ys[1])
+    return xg
+
+
 def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_passes,
                   final_step, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac,
                   ch_lnaz, ch_whole, q_flat, mrow, hm_q, lv_start, lv_count, e, lng, lng_max, qs,
@@ -498,6 +525,14 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
     d_at = np.zeros(nstage)
     x_at = np.full(nstage, np.inf)
     last_ti = -1
+    # the last three solved states at the current temperature (ln nref, ideal-phase x): the
+    # next state's start is extrapolated from them along the row of a grid
+    ys = np.full(3, np.nan)
+    xs = np.full(3, np.nan)
+    ysd = np.full(3, np.nan)     # the same of the weighted solutions
+    xsd = np.full(3, np.nan)
+    row_ti = -1
+    shift = np.nan
     group = -1
     t_first = tpos[order[0]] if order.size else 0
     for j in range(order.size):
@@ -515,10 +550,41 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
         lo = -np.inf
         hi = x_hi[i]
         x = hi if kind == FIXED_ELECTRONS else min(x0[i], hi - 1e-9)
+        y = np.log(nref[i]) if kind != FIXED_ELECTRONS else 0.0
+        if ti != row_ti:
+            ys[:] = np.nan
+            ysd[:] = np.nan
+            shift = np.nan
+            row_ti = ti
+        elif kind != FIXED_ELECTRONS:
+            xg = _extrapolated(y, ys, xs)
+            if np.isfinite(xg):
+                x = min(xg, hi - 1e-9)
         out_passes[i] = 0
         out_done[i] = False
         out_nuc[i] = np.nan
         wpos[:] = -1
+        if density and ti == row_ti and kind != FIXED_ELECTRONS and np.isfinite(ysd[2]):
+            # three weighted solutions of this row: their extrapolation starts the weighted
+            # Newton directly, closer than the low-density-limit solve would
+            xg = _extrapolated(y, ysd, xsd)
+            if np.isfinite(xg):
+                if ti != last_ti:
+                    x_at[:] = np.inf
+                    last_ti = ti
+                _newton(i, min(xg, hi - 1e-9), lo, hi, kind, nref[i], tol, max_passes,
+                        final_step, t, tl, ti, True, ctab, bare, lu_first, xl, xr, ch_off,
+                        ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start,
+                        lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t, jpos, filled,
+                        pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at,
+                        out_x, out_nuc, out_passes, out_resid, out_done)
+                if out_done[i]:
+                    _push(ysd, xsd, y, out_x[i])
+                    continue
+                out_passes[i] = 0   # not solved from there: the full sequence below
+                out_done[i] = False
+                out_nuc[i] = np.nan
+                wpos[:] = -1
         first_tol = start_tol if density else tol
         first_step = 0.0 if density else final_step
         _newton(i, x, lo, hi, kind, nref[i], first_tol, max_passes, first_step, t, tl, ti, False,
@@ -527,11 +593,16 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
                 cnt_t, jpos,
                 filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, out_x,
                 out_nuc, out_passes, out_resid, out_done)
+        if out_done[i] and kind != FIXED_ELECTRONS:
+            _push(ys, xs, y, out_x[i])
         if not density:
             continue
         x = out_x[i]
+        x_ideal = x
         if not np.isfinite(x):
             x = hi - 1.0
+        elif np.isfinite(shift):
+            x += shift    # the previous state's density correction (same temperature)
         x = hi if kind == FIXED_ELECTRONS else min(x, hi - 1e-9)
         start_passes = out_passes[i]
         if ti != last_ti:   # U depends on (T, n_e) alone: the saved values serve one T
@@ -547,6 +618,9 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
                 filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, out_x,
                 out_nuc, out_passes, out_resid, out_done)
         out_passes[i] += start_passes
+        shift = out_x[i] - x_ideal if out_done[i] and np.isfinite(x_ideal) else np.nan
+        if out_done[i] and kind != FIXED_ELECTRONS:
+            _push(ysd, xsd, y, out_x[i])
 
 
 if numba is not None:  # pragma: no branch
@@ -560,6 +634,8 @@ if numba is not None:  # pragma: no branch
     _fill = _sums(_fill)
     _fill_top = _sums(_fill_top)
     _series_limits = _jit(_series_limits)
+    _extrapolated = _jit(_extrapolated)
+    _push = _jit(_push)
     _unweighted = _jit(_unweighted)
     _log_u = _sums(_log_u)
     _moments = _jit(_moments)
