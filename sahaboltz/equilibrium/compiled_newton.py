@@ -54,6 +54,8 @@ _LN_SHARE = 34.0
 _DENSITY_MARGIN = 5.0
 # Boltzmann pruning of the level sums, as in PartitionModel.evaluate_pairs
 _CUT = 50.0
+# a chain's moments carried from an earlier x may err by this fraction of the tolerance
+_LAG_SHARE = 1e-3
 # a Newton step may move ln n_e by at most this much while no lower bracket is known
 _MAX_STEP = 20.0
 
@@ -239,13 +241,20 @@ def _series_limits(a_, b_):
 def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n,
              ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
              lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
-             scratch_a, scratch_d, wpos, lu_at, d_at, x_at):
+             scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag, lag_budget):
     """(Zbar, -dZbar/dx, sum alpha <|q|>, sum alpha <q^2>) at x for one state.
 
     ``zref`` is the mean charge the balance needs at x (n_e / N): a stage of element k below
     e^-thr of the element's largest, thr = ln(alpha_k Z_k / zref) + _LN_SHARE, changes Zbar by
     less than e^-39 (1e-17) of it and is left out (the significance intervals bound the
     window first).
+
+    With T-only U (``lag_budget`` > 0) a chain's moments at an earlier x of this temperature
+    (``lag``: x, <q>, Var q, third central moment, <|q|>, <q^2>, charge span of the window,
+    zref)
+    serve again, carried along their Taylor series, where the remainder, at most
+    alpha span^4 |dx|^3 / 6, stays below ``lag_budget`` times zref: the minor elements are
+    summed once per state and temperature, not at every pass.
     """
     zbar = 0.0
     slope = 0.0
@@ -259,6 +268,18 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
         s_lo, s_hi = _series_limits(a_, b_)
     ln_zref = np.log(zref) if zref > 0.0 else -np.inf
     for k in range(ch_off.size):
+        if lag_budget > 0.0 and zref > 0.0:
+            dx = x - lag[k, 0]
+            # (and the stages left out there, below e^-34 of that zref, stay out of reach)
+            if abs(dx) < 1.0 and zref >= 0.1 * lag[k, 7]:
+                sp4 = lag[k, 6] ** 4
+                if ch_frac[k] * sp4 * abs(dx) ** 3 < 6.0 * lag_budget * zref:
+                    f = ch_frac[k]
+                    zbar += f * (lag[k, 1] - lag[k, 2] * dx + 0.5 * lag[k, 3] * dx * dx)
+                    slope += f * (lag[k, 2] - lag[k, 3] * dx)
+                    zabs += f * lag[k, 4]
+                    z2 += f * lag[k, 5]
+                    continue
         o = ch_off[k]
         n = ch_n[k]
         if ch_whole[k]:
@@ -361,7 +382,7 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
             scratch_d[r] = d
             if av > amax:
                 amax = av
-        s0 = s1 = s2 = sd = sqd = sab = 0.0
+        s0 = s1 = s2 = s3 = sd = sqd = sab = 0.0
         cut = amax - thr
         for r in range(lo, hi + 1):
             arg = scratch_a[r]
@@ -375,6 +396,7 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
             s0 += p
             s1 += p * q
             s2 += p * q * q
+            s3 += p * q * q * q
             sab += p * abs(q)
             if density:
                 d = scratch_d[r]
@@ -392,6 +414,15 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
         slope += f * (var - cov)
         zabs += f * sab * inv
         z2 += f * mq2
+        if lag_budget > 0.0:
+            lag[k, 0] = x
+            lag[k, 1] = mq
+            lag[k, 2] = var
+            lag[k, 3] = s3 * inv - 3.0 * mq * mq2 + 2.0 * mq * mq * mq
+            lag[k, 4] = sab * inv
+            lag[k, 5] = mq2
+            lag[k, 6] = q_flat[o + hi] - q_flat[o + lo]
+            lag[k, 7] = zref
     return zbar, slope, zabs, z2
 
 
@@ -399,10 +430,11 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
             bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
             hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
             jpos, filled,
-            pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, out_x, out_nuc,
-            out_passes, out_resid, out_done):
+            pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag, out_x,
+            out_nuc, out_passes, out_resid, out_done):
     """Safeguarded Newton for state ``i`` from x (see _ChunkSolver.run, the same rules)."""
     prev = np.inf
+    lag_budget = -1.0 if density else _LAG_SHARE * tol
     for _ in range(max_passes):
         ne = np.exp(x)
         zref = 0.0         # the mean charge the balance needs here (0: not known)
@@ -414,7 +446,8 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
                                         ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
                                         hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs,
                                         term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
-                                        scratch_a, scratch_d, wpos, lu_at, d_at, x_at)
+                                        scratch_a, scratch_d, wpos, lu_at, d_at, x_at,
+                                        lag, lag_budget)
         out_passes[i] += 1
         if kind == FIXED_ELECTRONS:     # n_e is given: one evaluation decides
             out_x[i] = x
@@ -525,6 +558,9 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
     d_at = np.zeros(nstage)
     x_at = np.full(nstage, np.inf)
     last_ti = -1
+    # per chain, its moments at the last x where they were summed (T-only U, this T)
+    lag = np.empty((ch_off.size, 8))
+    lag[:, 0] = np.inf
     # the last three solved states at the current temperature (ln nref, ideal-phase x): the
     # next state's start is extrapolated from them along the row of a grid
     ys = np.full(3, np.nan)
@@ -556,6 +592,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
             ysd[:] = np.nan
             shift = np.nan
             row_ti = ti
+            lag[:, 0] = np.inf
         elif kind != FIXED_ELECTRONS:
             xg = _extrapolated(y, ys, xs)
             if np.isfinite(xg):
@@ -576,7 +613,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
                         final_step, t, tl, ti, True, ctab, bare, lu_first, xl, xr, ch_off,
                         ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start,
                         lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t, jpos, filled,
-                        pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at,
+                        pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
                         out_x, out_nuc, out_passes, out_resid, out_done)
                 if out_done[i]:
                     _push(ysd, xsd, y, out_x[i])
@@ -591,8 +628,8 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
                 ctab, ctab, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
-                filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, out_x,
-                out_nuc, out_passes, out_resid, out_done)
+                filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
+                out_x, out_nuc, out_passes, out_resid, out_done)
         if out_done[i] and kind != FIXED_ELECTRONS:
             _push(ys, xs, y, out_x[i])
         if not density:
@@ -615,8 +652,8 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
                 ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
-                filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, out_x,
-                out_nuc, out_passes, out_resid, out_done)
+                filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
+                out_x, out_nuc, out_passes, out_resid, out_done)
         out_passes[i] += start_passes
         shift = out_x[i] - x_ideal if out_done[i] and np.isfinite(x_ideal) else np.nan
         if out_done[i] and kind != FIXED_ELECTRONS:
