@@ -223,6 +223,30 @@ class EquilibriumState:
             self._cache[chain.k] = got.reshape((chain.n,) + self.shape)
         return self._cache[chain.k]
 
+    def _large_fractions(self, chain: Chain, share: float
+                         ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(stage rows, flat state indices, fractions) of the chain's stages holding at least
+        ``share`` of the element at the solved states, without forming the others: with
+        T-only U the normalization is summed over the stages within e^-40 of each state's
+        largest (the rest cannot change it in double precision); otherwise from the full
+        fractions.  For checks that look at the major stages of large grids."""
+        ok = self.converged.ravel()
+        if not (self.network.ideal and not self.lowering):
+            f = self._chain_fractions(chain, keep=False).reshape(chain.n, -1)
+            r, c = np.nonzero((f >= share) & ok[None, :])
+            return r, c, f[r, c]
+        t, x = self.temperature.ravel(), self.log_ne.ravel()
+        ut, inv = np.unique(t, return_inverse=True)
+        tab = self.network.log_c(chain, ut)[:, inv]
+        tab -= np.multiply.outer(chain.charges, x)
+        tab -= tab.max(axis=0)
+        r, c = np.nonzero(tab >= -40.0)
+        e = np.exp(tab[r, c])
+        total = np.bincount(c, weights=e, minlength=t.size)
+        f = e / total[c]
+        big = (f >= share) & ok[c]
+        return r[big], c[big], f[big]
+
     def _weighted_chain_fractions(self, chain: Chain, t: np.ndarray, x: np.ndarray
                                   ) -> np.ndarray:
         """A chain's stage fractions at the flat states (t, ln n_e = x) with density-dependent

@@ -65,10 +65,11 @@ def plain_excess(state) -> dict[str, int]:
     stark = stark_state_factors(t, np.where(ok, ne, 1.0))
     pairs_state, pairs_row, names = [], [], []
     for c in net.chains:
-        # every (stage, state) of the chain at once; the fractions are not kept in the state
-        # (all stages of a large grid would be held for this check alone)
-        f = state._chain_fractions(c, keep=False).reshape(c.n, -1)
-        j, sel = np.nonzero((f >= CHECKED_SHARE) & (c.model_rows >= 0)[:, None] & ok[None, :])
+        # the (stage, state) pairs of the chain's major stages at once, without forming the
+        # fractions of all stages of a large grid
+        j, sel, _ = state._large_fractions(c, CHECKED_SHARE)
+        levels = c.model_rows[j] >= 0
+        j, sel = j[levels], sel[levels]
         if not j.size:
             continue
         r = c.model_offset + c.model_rows[j]
