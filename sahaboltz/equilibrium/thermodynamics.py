@@ -320,6 +320,18 @@ def _window(sig: np.ndarray, forced: list) -> np.ndarray:
     return s0[None, :] + np.arange(width)[:, None]
 
 
+def _saha_table(state, chain, ut) -> np.ndarray:
+    """C_q of a chain at the temperatures ``ut`` with the low-density-limit U: the columns
+    of the solver's own tables where the state kept them, else computed."""
+    kept = getattr(state, "saha_tables", None)
+    if kept is not None:
+        t_kept, tables = kept
+        pos = np.searchsorted(t_kept, ut)
+        if pos.size and pos[-1] < t_kept.size and np.array_equal(t_kept[pos], ut):
+            return tables[chain.k][:, pos]
+    return state.network.log_c(chain, ut)
+
+
 def _chunk(state, sel) -> dict:
     net = state.network
     comp = state.composition
@@ -365,8 +377,8 @@ def _chunk(state, sel) -> dict:
             sig = a0 + u_hi[:, None] >= (a0 + u_lo[:, None]).max(axis=0) - thr
         else:
             # ln U at each distinct T (exact for T-only U; for density-dependent U their
-            # low-density limit, which bounds each from above)
-            lim = net.log_c(c, ut)
+            # low-density limit, which bounds each from above): the solver's tables
+            lim = _saha_table(state, c, ut)
             a0 = lim[:, tinv] - np.multiply.outer(c.charges, x)
             sig = a0 >= a0.max(axis=0) - thr
         p = mol_pos.get(c.k)
