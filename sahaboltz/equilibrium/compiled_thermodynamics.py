@@ -58,7 +58,7 @@ def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u
     (W, m) ln U and its derivatives; ``na`` = N alpha; ``lq`` the electron's
     ln (2 pi m_e k T / h^2)^{3/2}, ``mass_term`` = 1.5 ln(m / m_e) of the element."""
     w, m = rows.shape
-    lr = np.empty(w)
+    lr = np.empty(w)                                   # ln of relative populations, then them
     for i in range(m):
         xi = x[i]
         ti = tinv[i]
@@ -74,20 +74,20 @@ def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u
         tot = 0.0
         for j in range(w):
             if inside[j, i]:
-                tot += np.exp(lr[j] - top)
-        shift = np.log(na[i]) - (top + np.log(tot))
+                lr[j] = np.exp(lr[j] - top)          # relative population
+                tot += lr[j]
+        scale = na[i] / tot
         bi = beta[i]
         s0 = sq = sqq = sd = sqd = sa_big = sqa_big = sa = saa_big = saq = sb = sc = 0.0
-        best = -np.inf
+        best = -1.0
         r = 0
         for j in range(w):
             if not inside[j, i]:
                 continue
-            ln_n = lr[j] + shift
-            if ln_n > best:
-                best = ln_n
+            if lr[j] > best:
+                best = lr[j]
                 r = j
-            n = np.exp(ln_n)
+            n = lr[j] * scale
             q = charges[rows[j, i]]
             eb = energies[rows[j, i]] * bi
             a = 1.5 + u_t[j, i] + eb
@@ -109,7 +109,8 @@ def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u
             sb += n * b
             sc += n * u_tn[j, i]
         eb_r = energies[rows[r, i]] * bi
-        lam = best - (lq[i] + mass_term + lu[r, i] - eb_r) - charges[rows[r, i]] * lam_ch[i]
+        ln_n_r = np.log(best * scale)
+        lam = ln_n_r - (lq[i] + mass_term + lu[r, i] - eb_r) - charges[rows[r, i]] * lam_ch[i]
         inc = _increments(s0, sq, sqq, sd, sqd, sa_big, sqa_big, sa, saa_big, saq, sb, sc,
                           na[i], lam)
         for k in range(N_ACC):

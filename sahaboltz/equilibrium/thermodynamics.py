@@ -253,9 +253,10 @@ def _stage_energies(chain) -> np.ndarray:
     return cum - cum[i0]
 
 
-def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut):
+def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut, factors):
     """(ln U, U_T, U_n, U_TT, U_Tn) of a chain's stages ``rows`` (W, m) where ``inside``;
-    the density derivatives only with density-dependent weights."""
+    the density derivatives only with density-dependent weights (``factors``: the weights'
+    state factors, ``PartitionModel.log_derivative_state_factors``)."""
     w, m = rows.shape
     out = [np.zeros((w, m)) for _ in range(5)]
     mrow = chain.model_rows[rows]
@@ -272,7 +273,7 @@ def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut):
                 a[r, j] = v[inv]
         else:
             vals = model.pair_log_derivatives(t, ne, chain.model_offset + mrow[r, j],
-                                              states=j)
+                                              states=j, state_factors=factors)
             for a, v in zip(out, vals):
                 a[r, j] = v
     if chain.charges[0] < 0 and not net.ideal:
@@ -359,6 +360,8 @@ def _chunk(state, sel) -> dict:
         for comps in system._comp:
             for p, row in comps:
                 comp_rows.setdefault(p, set()).add(row)
+    factors = (None if net.ideal or net.model is None
+               else net.model.log_derivative_state_factors(t, ne))
     mat = np.zeros((m, r_dim, r_dim))
     rhs = np.zeros((m, r_dim, 2))
     # the eliminated chains' shares (_compiled_sums.eliminated_increments), summed
@@ -391,7 +394,7 @@ def _chunk(state, sel) -> dict:
         inside = np.take_along_axis(sig, rows, axis=0)
         for row in forced:
             inside |= rows == row
-        terms = _log_u_terms(net, c, rows, inside, t, ne, tinv, ut)
+        terms = _log_u_terms(net, c, rows, inside, t, ne, tinv, ut, factors)
         mass_term = 1.5 * np.log(weights[c.k] * AMU / M_E)
         if p is None:
             frac_elim += c.fraction
