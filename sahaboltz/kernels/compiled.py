@@ -117,9 +117,11 @@ def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, co
 
 if numba is not None:  # pragma: no branch
     _boltzmann_table = numba.njit(cache=True, nogil=True)(_boltzmann_table)
+    # error_model="numpy": a division cannot raise (no branch per level), so the compiler
+    # vectorizes the level loops
     _occupation_pair_sums_jit = numba.njit(
-        cache=True, nogil=True, fastmath={"reassoc", "contract", "arcp", "nsz"})(
-        _occupation_pair_sums)
+        cache=True, nogil=True, error_model="numpy",
+        fastmath={"reassoc", "contract", "arcp", "nsz"})(_occupation_pair_sums)
 
 
 def occupation_pair_sums(tidx, rows, beta_u, stark, slopes, nn, start, count, e, lng, q, r3,
