@@ -175,10 +175,11 @@ def _prefix(name: str) -> str:
     return f"{name}: " if name else ""
 
 
-def parse_range_text(text: str, name: str, unit: str | None = None
+def parse_range_text(text: str, name: str, unit: str | None = None, *, positive: bool = True
                      ) -> tuple[float, float, int] | None:
     """``"MIN:MAX:NUM"`` -> (min, max, num) in ``unit`` (a unit may follow each number or NUM
-    alone: "1:10:5 atm"); None when ``text`` is not a range."""
+    alone: "1:10:5 atm"); None when ``text`` is not a range.  ``positive=False`` lets MIN be
+    zero or negative (a quantity whose zero point is a convention)."""
     text = str(text).strip()
     if ":" not in text:
         return None
@@ -193,13 +194,14 @@ def parse_range_text(text: str, name: str, unit: str | None = None
         raise InputError(f"{name}: NUM of MIN:MAX:NUM must be a whole number, "
                          f"got {parts[2].strip()!r}") from None
     lo, hi = (_one_value(x, name, unit, tail) for x in parts[:2])
-    if not (0 < lo < hi) or num < 2:
-        raise InputError(f"{name}: need 0 < MIN < MAX and NUM >= 2, got {text!r}")
+    if not ((0 < lo or not positive) and lo < hi) or num < 2:
+        raise InputError(f"{name}: need {'0 < ' if positive else ''}MIN < MAX and NUM >= 2, "
+                         f"got {text!r}")
     return lo, hi, num
 
 
-def parse_values_text(text: str, name: str, *, scale: str = "log", unit: str | None = None
-                      ) -> np.ndarray:
+def parse_values_text(text: str, name: str, *, scale: str = "log", unit: str | None = None,
+                      positive: bool = True) -> np.ndarray:
     """Values from ``MIN:MAX:NUM`` (log-spaced unless ``scale='linear'``) or ``V1,V2,..``.
 
     With ``unit`` (the documented cgs unit) every value may carry a unit ("1 atm",
@@ -207,7 +209,7 @@ def parse_values_text(text: str, name: str, *, scale: str = "log", unit: str | N
     applies to the bare numbers before it.  ``name`` (the option, e.g. ``--gas-pressure``)
     starts every error message.
     """
-    rng = parse_range_text(text, name, unit)
+    rng = parse_range_text(text, name, unit, positive=positive)
     if rng is not None:
         lo, hi, num = rng
         if scale not in ("log", "linear"):
@@ -220,7 +222,7 @@ def parse_values_text(text: str, name: str, *, scale: str = "log", unit: str | N
         raise InputError(f"{name}: give MIN:MAX:NUM or comma-separated values, got {text!r}")
     tail = split_number_unit(items[-1])[1] if unit else ""
     vals = np.array([_one_value(x, name, unit, tail) for x in items])
-    if np.any(vals <= 0):
+    if positive and np.any(vals <= 0):
         raise InputError(f"{name}: values must be positive, got {text!r}")
     return vals
 

@@ -281,3 +281,33 @@ def test_lowering_converges_over_the_range(truncation):
     np.testing.assert_allclose(st.gas_pressure, np.broadcast_to(p, st.shape), rtol=1e-12)
     # the lowering is weak where Debye-Hueckel holds: cold dense gas stays almost neutral
     assert float(st.fraction("H I")[0, -1]) > 0.99
+
+
+@pytest.mark.parametrize("case", ["solar grid", "pressure ionized"])
+def test_pruned_stage_fractions_equal_the_full_chain_evaluation(case):
+    """With density-dependent U the state evaluates the exact U only where a stage's fraction
+    can be a nonzero double; every fraction must equal the one from all exact U (the network's
+    full chain, the way the solver defines it) to rounding, and the left-out ones must be
+    those the full evaluation gives as 0 (below the smallest double, 4.9e-324)."""
+    from sahaboltz.kernels.saha import _chain_fractions_inplace
+
+    if case == "solar grid":
+        t = np.geomspace(2000.0, 1.0e6, 24)[:, None] * np.ones((1, 18))
+        p = np.ones((24, 1)) * np.geomspace(1e-4, 1e10, 18)[None, :]
+        state = solve_equilibrium(solar(), t, gas_pressure=p)
+    else:  # near solar-core densities the kept stages' exact U fall far below their bounds
+        mix = Composition.from_number({"H": 1.0, "He": 0.1, "Fe": 3e-5})
+        t = np.array([1.0e6, 3.0e6, 1.57e7, 1.57e7])
+        state = solve_equilibrium(mix, t, hydrogen_density=np.array([1e24, 1e25, 6e25, 1e26]))
+    tf, x = state.temperature.ravel(), state.log_ne.ravel()
+    left_out = 0
+    for chain in state.network.chains:
+        full = state.network.log_c(chain, tf, np.exp(x)) - np.multiply.outer(chain.charges, x)
+        ref = _chain_fractions_inplace(full)
+        got = state._chain_fractions(chain).reshape(chain.n, -1)
+        big = ref > 1e-300
+        np.testing.assert_allclose(got[big], ref[big], rtol=1e-11, atol=0)
+        assert np.all(got[~big] <= 1e-300) and np.all(ref[got == 0] < 1e-320)
+        left_out += int((got == 0).sum())
+    if case == "solar grid":   # most high stages are skipped
+        assert left_out > 0.3 * state.network.n_species * tf.size

@@ -23,6 +23,7 @@ from astropy import units as u
 
 from sahaboltz.data.composition import Composition, solar
 from sahaboltz.data.database import default_database
+from sahaboltz.data.elements import atomic_number, spectroscopic_name
 from sahaboltz.equilibrium import solve_equilibrium
 from sahaboltz.equilibrium.state import (CONVERGED, NOT_CONVERGED, STRONGLY_COUPLED,
                                          UNREACHABLE)
@@ -323,3 +324,36 @@ def test_partition_command_picks_occupation_given_a_density(capsys):
     assert doc["rows"][0]["U(Na I)"] == pytest.approx(float(expect), rel=1e-12)
     code, out, _ = _cli(capsys, "partition", "Na I", "-T", "10000", "--format", "json")
     assert json.loads(out)["meta"]["truncation"] == "plain"
+
+
+def test_plain_sum_counts_equal_an_evaluation_at_every_state():
+    """The plain-sum check counts, per species, the states where the plain U exceeds the
+    occupation-weighted U by more than 10 %; it searches each temperature's states in order
+    of n_e.  Its counts must equal those of the partition model evaluated at every state
+    (species holding at least 1e-3 of their element)."""
+    from sahaboltz.equilibrium.validity import CHECKED_SHARE, PLAIN_EXCESS, plain_excess
+
+    t = np.geomspace(4000.0, 3e4, 9)[:, None] * np.ones((1, 12))
+    p = np.ones((9, 1)) * np.geomspace(1e-2, 1e9, 12)[None, :]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", TruncationWarning)
+        state = solve_equilibrium(solar(), t, gas_pressure=p, truncation="plain")
+    got = plain_excess(state)
+    db = default_database()
+    want = {}
+    for el in state.composition.symbols:
+        frac = state.stage_fractions(el, negative=False)
+        for q, f in enumerate(frac):
+            name = spectroscopic_name(atomic_number(el), q)
+            if name not in state.network.species_names or q == atomic_number(el):
+                continue
+            if name in state.network.unit_partition:   # no levels: U = 1 in both
+                continue
+            sp = db.species(name)
+            u_plain = PartitionModel([sp], "plain").evaluate(t.ravel())[0]
+            u_occ = PartitionModel([sp], "occupation").evaluate(t.ravel(),
+                                                                 n_e=state.n_e.ravel())[0]
+            n = int(((f.ravel() >= CHECKED_SHARE) & (u_plain > PLAIN_EXCESS * u_occ)).sum())
+            if n:
+                want[name] = n
+    assert got == want and sum(want.values()) > 20

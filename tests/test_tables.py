@@ -236,8 +236,9 @@ def test_flipped_bytes_in_data_are_caught_by_checksums(tmp_path):
 
 
 def test_our_chunk_checksum_is_hdf5s(tmp_path):
-    """Chunks the workers encode carry the checksum HDF5's own Fletcher-32 filter writes."""
-    from sahaboltz.tables.hdf5 import encode_chunk
+    """Chunks the workers encode carry the checksum HDF5's own Fletcher-32 filter writes, and
+    HDF5 itself (through h5py) verifies and inflates them back to the values."""
+    from sahaboltz.tables.hdf5 import encode_chunk, fletcher32
     rng = np.random.default_rng(3)
     for shape in [(1, 1), (3, 7), (40, 25), (2, 16, 33)]:
         a = rng.lognormal(size=shape)
@@ -246,8 +247,13 @@ def test_our_chunk_checksum_is_hdf5s(tmp_path):
             d = f.create_dataset("a", data=a, chunks=shape, compression="gzip",
                                  compression_opts=1, shuffle=True, fletcher32=True)
             ref = d.id.read_direct_chunk((0,) * a.ndim)[1]
-        ours = encode_chunk(a, shape)
-        assert ours[-4:] == ref[-4:] and ours == ref
+            mine = f.create_dataset("b", shape=shape, dtype="<f8", chunks=shape,
+                                    compression="gzip", compression_opts=1, shuffle=True,
+                                    fletcher32=True)
+            mine.id.write_direct_chunk((0,) * a.ndim, encode_chunk(a, shape))
+        assert fletcher32(ref[:-4]) == ref[-4:]          # HDF5's checksum of its own chunk
+        with h5py.File(tmp_path / "ref.h5", "r") as f:  # HDF5 checks ours and inflates it
+            np.testing.assert_array_equal(f["b"][...], a)
 
 
 def _zero_middle(path: Path, nbytes: int = 4096) -> None:

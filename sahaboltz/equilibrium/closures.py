@@ -158,6 +158,10 @@ class ThermalClosure:
     slope : str
         The attribute of :class:`~sahaboltz.equilibrium.thermodynamics.Thermodynamics` that is
         d(value)/d ln T at fixed partner: the Newton slope of the inverse solve.
+    signed : bool
+        The value may be zero or negative (its zero point is a convention: u is negative
+        where molecules bind more energy than the gas holds); table axes of it then take
+        values of any sign and are interpolated in the value itself, not its logarithm.
     """
 
     name: str
@@ -169,6 +173,7 @@ class ThermalClosure:
     long_name: str
     partner: str
     slope: str
+    signed: bool = False
 
 
 #: name -> ThermalClosure: the state is then found by solving for T
@@ -187,7 +192,7 @@ def register_thermal(closure: ThermalClosure) -> ThermalClosure:
 register_thermal(ThermalClosure(
     "internal_energy", "erg g-1", "u", r"u", "--internal-energy", "specific internal energy",
     "specific internal energy (zero point: neutral ground-state atoms and electrons at rest)",
-    partner="mass_density", slope="du_dlnt"))
+    partner="mass_density", slope="du_dlnt", signed=True))
 register_thermal(ThermalClosure(
     "entropy", "erg g-1 K-1", "s", r"s", "--entropy", "specific entropy",
     "specific entropy (Sackur-Tetrode with internal partition functions)",

@@ -19,7 +19,10 @@ S_m = sum term q^m; for the high ones (s ten times beyond it) as the series in 1
 from the top; only the levels in between one by one.  Each series stops when a term falls
 below 1e-17 of the sum; SERIES_ORDER terms bound it at about 1e-13.  Species whose highest
 level still has weight 1 to 1e-17 take the low-density limit directly.  Stages whose share
-of the mean charge stays below e^-39 of it are left out (see :func:`_moments`).
+of the mean charge stays below e^-39 of it are left out (see :func:`_moments`); a stage whose
+share times the error of a cheaper ln U stays below e^-38 takes that one: the low-density
+limit (error at most ln(1 + F) of its highest level), or its last exact ln U at the same
+temperature carried along its slope.
 
 Used by :func:`sahaboltz.equilibrium.atomic.solve_atomic` whenever numba is available (and
 ``SAHABOLTZ_NO_NUMBA`` is not set); tests/test_compiled_newton.py checks it against the numpy
@@ -51,6 +54,8 @@ _LN_SHARE = 34.0
 _DENSITY_MARGIN = 5.0
 # Boltzmann pruning of the level sums, as in PartitionModel.evaluate_pairs
 _CUT = 50.0
+# a chain's moments carried from an earlier x may err by this fraction of the tolerance
+_LAG_SHARE = 1e-3
 # a Newton step may move ln n_e by at most this much while no lower bracket is known
 _MAX_STEP = 20.0
 
@@ -212,10 +217,11 @@ def _log_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start, lv_count, e,
     return np.log(u), du / u
 
 
-def _unweighted(row, p_, a_, b_, lv_start, lv_count, qs):
-    """Whether every level of species ``row`` has F = s (A s + B) below 1e-17 (w = 1)."""
+def _unweighted(row, p_, a_, b_, lv_start, lv_count, qs, budget):
+    """Whether every level of species ``row`` has F = s (A s + B) below ``budget``: then
+    0 <= ln U_limit - ln U <= ln(1 + F_top) < budget, the low-density limit's error."""
     sv = p_ * qs[lv_start[row] + lv_count[row] - 1]     # the highest level has the largest s
-    return sv * (a_ * sv + b_) < _NEGLIGIBLE
+    return sv * (a_ * sv + b_) < budget
 
 
 def _series_limits(a_, b_):
@@ -235,13 +241,20 @@ def _series_limits(a_, b_):
 def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n,
              ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
              lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
-             scratch_a, scratch_d, wpos):
+             scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag, lag_budget):
     """(Zbar, -dZbar/dx, sum alpha <|q|>, sum alpha <q^2>) at x for one state.
 
     ``zref`` is the mean charge the balance needs at x (n_e / N): a stage of element k below
     e^-thr of the element's largest, thr = ln(alpha_k Z_k / zref) + _LN_SHARE, changes Zbar by
     less than e^-39 (1e-17) of it and is left out (the significance intervals bound the
     window first).
+
+    With T-only U (``lag_budget`` > 0) a chain's moments at an earlier x of this temperature
+    (``lag``: x, <q>, Var q, third central moment, <|q|>, <q^2>, charge span of the window,
+    zref)
+    serve again, carried along their Taylor series, where the remainder, at most
+    alpha span^4 |dx|^3 / 6, stays below ``lag_budget`` times zref: the minor elements are
+    summed once per state and temperature, not at every pass.
     """
     zbar = 0.0
     slope = 0.0
@@ -255,6 +268,18 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
         s_lo, s_hi = _series_limits(a_, b_)
     ln_zref = np.log(zref) if zref > 0.0 else -np.inf
     for k in range(ch_off.size):
+        if lag_budget > 0.0 and zref > 0.0:
+            dx = x - lag[k, 0]
+            # (and the stages left out there, below e^-34 of that zref, stay out of reach)
+            if abs(dx) < 1.0 and zref >= 0.1 * lag[k, 7]:
+                sp4 = lag[k, 6] ** 4
+                if ch_frac[k] * sp4 * abs(dx) ** 3 < 6.0 * lag_budget * zref:
+                    f = ch_frac[k]
+                    zbar += f * (lag[k, 1] - lag[k, 2] * dx + 0.5 * lag[k, 3] * dx * dx)
+                    slope += f * (lag[k, 2] - lag[k, 3] * dx)
+                    zabs += f * lag[k, 4]
+                    z2 += f * lag[k, 5]
+                    continue
         o = ch_off[k]
         n = ch_n[k]
         if ch_whole[k]:
@@ -322,14 +347,30 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
                     continue
                 av = bare[ti, i]   # the T-only part of C
                 m = mrow[i]
-                if m >= 0 and _unweighted(m, p_, a_, b_, lv_start, lv_count, qs):
-                    # every weight is 1 to 1e-17: the limit U (C of the limit tables counts
-                    # from the first stage, C_q = K_q + ln U_q - ln U_first)
+                # the limit U serves where its error, at most ln(1 + F_top), times the
+                # stage's share of the charge is below e^-38, under the e^-34 the cut above
+                # leaves out (judged with the limit tables, an upper bound of the share); its
+                # d ln U / dx, of the same order as the error, is then left out too
+                budget = max(_NEGLIGIBLE, np.exp(cut0 + _DENSITY_MARGIN - 4.0 - scratch_a[r]))
+                if m >= 0 and _unweighted(m, p_, a_, b_, lv_start, lv_count, qs, budget):
+                    # the limit U (C of the limit tables counts from the first stage,
+                    # C_q = K_q + ln U_q - ln U_first)
                     av = ctab[ti, i] + lu_first[ti, k]
                 elif m >= 0:
-                    lu, d = _log_u(tl, m, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start,
-                                   lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t, jpos,
-                                   filled, pool_base, stride)
+                    # an earlier pass's exact ln U, carried to x along its slope, where the
+                    # error (|d2 ln U / dx2| <= 6 |d|: the weights go as n_e to n_e^2) stays
+                    # within the budget
+                    dx = x - x_at[i]
+                    if abs(dx) < 0.5 and 3.0 * abs(d_at[i]) * dx * dx < budget:
+                        lu = lu_at[i] + d_at[i] * dx
+                        d = d_at[i]
+                    else:
+                        lu, d = _log_u(tl, m, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start,
+                                       lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
+                                       jpos, filled, pool_base, stride)
+                        lu_at[i] = lu
+                        d_at[i] = d
+                        x_at[i] = x
                     av += lu
                 elif q < 0.0:      # a negative ion: one bound state with its own weight
                     inv, d = _weight(p_ * hm_q, a_, b_, aa, ab)
@@ -341,7 +382,7 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
             scratch_d[r] = d
             if av > amax:
                 amax = av
-        s0 = s1 = s2 = sd = sqd = sab = 0.0
+        s0 = s1 = s2 = s3 = sd = sqd = sab = 0.0
         cut = amax - thr
         for r in range(lo, hi + 1):
             arg = scratch_a[r]
@@ -355,6 +396,7 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
             s0 += p
             s1 += p * q
             s2 += p * q * q
+            s3 += p * q * q * q
             sab += p * abs(q)
             if density:
                 d = scratch_d[r]
@@ -372,6 +414,15 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
         slope += f * (var - cov)
         zabs += f * sab * inv
         z2 += f * mq2
+        if lag_budget > 0.0:
+            lag[k, 0] = x
+            lag[k, 1] = mq
+            lag[k, 2] = var
+            lag[k, 3] = s3 * inv - 3.0 * mq * mq2 + 2.0 * mq * mq * mq
+            lag[k, 4] = sab * inv
+            lag[k, 5] = mq2
+            lag[k, 6] = q_flat[o + hi] - q_flat[o + lo]
+            lag[k, 7] = zref
     return zbar, slope, zabs, z2
 
 
@@ -379,10 +430,11 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
             bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
             hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
             jpos, filled,
-            pool_base, stride, scratch_a, scratch_d, wpos, out_x, out_nuc, out_passes, out_resid,
-            out_done):
+            pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag, out_x,
+            out_nuc, out_passes, out_resid, out_done):
     """Safeguarded Newton for state ``i`` from x (see _ChunkSolver.run, the same rules)."""
     prev = np.inf
+    lag_budget = -1.0 if density else _LAG_SHARE * tol
     for _ in range(max_passes):
         ne = np.exp(x)
         zref = 0.0         # the mean charge the balance needs here (0: not known)
@@ -394,7 +446,8 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
                                         ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
                                         hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs,
                                         term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
-                                        scratch_a, scratch_d, wpos)
+                                        scratch_a, scratch_d, wpos, lu_at, d_at, x_at,
+                                        lag, lag_budget)
         out_passes[i] += 1
         if kind == FIXED_ELECTRONS:     # n_e is given: one evaluation decides
             out_x[i] = x
@@ -454,6 +507,33 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
             return
 
 
+def _push(ys, xs, y, x):
+    """Add the newest solved state (y, x) to a row's last three."""
+    ys[2], xs[2] = ys[1], xs[1]
+    ys[1], xs[1] = ys[0], xs[0]
+    ys[0], xs[0] = y, x
+
+
+def _extrapolated(y, ys, xs):
+    """x at y from the last solved states of a row (``ys``, ``xs``, newest first; NaN where
+    none): quadratic through three, linear through two, within 2 units of ln nref of the
+    newest; NaN otherwise (the caller keeps its own start)."""
+    if not (np.isfinite(ys[0]) and np.isfinite(ys[1])) or abs(y - ys[0]) > 2.0:
+        return np.nan
+    d01 = ys[0] - ys[1]
+    if abs(d01) < 1e-9:
+        return np.nan
+    s01 = (xs[0] - xs[1]) / d01
+    xg = xs[0] + s01 * (y - ys[0])
+    if np.isfinite(ys[2]):
+        d12 = ys[1] - ys[2]
+        d02 = ys[0] - ys[2]
+        if abs(d12) > 1e-9 and abs(d02) > 1e-9:
+            s12 = (xs[1] - xs[2]) / d12
+            xg += (s01 - s12) / d02 * (y - ys[0]) * (y - ys[1])
+    return xg
+
+
 def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_passes,
                   final_step, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac,
                   ch_lnaz, ch_whole, q_flat, mrow, hm_q, lv_start, lv_count, e, lng, lng_max, qs,
@@ -473,6 +553,22 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
     scratch_a = np.empty(nstage)
     scratch_d = np.empty(nstage)
     wpos = np.empty(2 * ch_off.size, dtype=np.int64)
+    # per stage, the last exact ln U at this temperature, its slope and the x it was taken at
+    lu_at = np.zeros(nstage)
+    d_at = np.zeros(nstage)
+    x_at = np.full(nstage, np.inf)
+    last_ti = -1
+    # per chain, its moments at the last x where they were summed (T-only U, this T)
+    lag = np.empty((ch_off.size, 8))
+    lag[:, 0] = np.inf
+    # the last three solved states at the current temperature (ln nref, ideal-phase x): the
+    # next state's start is extrapolated from them along the row of a grid
+    ys = np.full(3, np.nan)
+    xs = np.full(3, np.nan)
+    ysd = np.full(3, np.nan)     # the same of the weighted solutions
+    xsd = np.full(3, np.nan)
+    row_ti = -1
+    shift = np.nan
     group = -1
     t_first = tpos[order[0]] if order.size else 0
     for j in range(order.size):
@@ -490,25 +586,65 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
         lo = -np.inf
         hi = x_hi[i]
         x = hi if kind == FIXED_ELECTRONS else min(x0[i], hi - 1e-9)
+        y = np.log(nref[i]) if kind != FIXED_ELECTRONS else 0.0
+        if ti != row_ti:
+            ys[:] = np.nan
+            ysd[:] = np.nan
+            shift = np.nan
+            row_ti = ti
+            lag[:, 0] = np.inf
+        elif kind != FIXED_ELECTRONS:
+            xg = _extrapolated(y, ys, xs)
+            if np.isfinite(xg):
+                x = min(xg, hi - 1e-9)
         out_passes[i] = 0
         out_done[i] = False
         out_nuc[i] = np.nan
         wpos[:] = -1
+        if density and ti == row_ti and kind != FIXED_ELECTRONS and np.isfinite(ysd[2]):
+            # three weighted solutions of this row: their extrapolation starts the weighted
+            # Newton directly, closer than the low-density-limit solve would
+            xg = _extrapolated(y, ysd, xsd)
+            if np.isfinite(xg):
+                if ti != last_ti:
+                    x_at[:] = np.inf
+                    last_ti = ti
+                _newton(i, min(xg, hi - 1e-9), lo, hi, kind, nref[i], tol, max_passes,
+                        final_step, t, tl, ti, True, ctab, bare, lu_first, xl, xr, ch_off,
+                        ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start,
+                        lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t, jpos, filled,
+                        pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
+                        out_x, out_nuc, out_passes, out_resid, out_done)
+                if out_done[i]:
+                    _push(ysd, xsd, y, out_x[i])
+                    continue
+                out_passes[i] = 0   # not solved from there: the full sequence below
+                out_done[i] = False
+                out_nuc[i] = np.nan
+                wpos[:] = -1
         first_tol = start_tol if density else tol
         first_step = 0.0 if density else final_step
         _newton(i, x, lo, hi, kind, nref[i], first_tol, max_passes, first_step, t, tl, ti, False,
                 ctab, ctab, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
-                filled, pool_base, stride, scratch_a, scratch_d, wpos, out_x, out_nuc, out_passes,
-                out_resid, out_done)
+                filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
+                out_x, out_nuc, out_passes, out_resid, out_done)
+        if out_done[i] and kind != FIXED_ELECTRONS:
+            _push(ys, xs, y, out_x[i])
         if not density:
             continue
         x = out_x[i]
+        x_ideal = x
         if not np.isfinite(x):
             x = hi - 1.0
+        elif np.isfinite(shift):
+            x += shift    # the previous state's density correction (same temperature)
         x = hi if kind == FIXED_ELECTRONS else min(x, hi - 1e-9)
         start_passes = out_passes[i]
+        if ti != last_ti:   # U depends on (T, n_e) alone: the saved values serve one T
+            x_at[:] = np.inf
+            last_ti = ti
         out_passes[i] = 0
         out_done[i] = False
         out_nuc[i] = np.nan
@@ -516,9 +652,12 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
                 ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
-                filled, pool_base, stride, scratch_a, scratch_d, wpos, out_x, out_nuc, out_passes,
-                out_resid, out_done)
+                filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
+                out_x, out_nuc, out_passes, out_resid, out_done)
         out_passes[i] += start_passes
+        shift = out_x[i] - x_ideal if out_done[i] and np.isfinite(x_ideal) else np.nan
+        if out_done[i] and kind != FIXED_ELECTRONS:
+            _push(ysd, xsd, y, out_x[i])
 
 
 if numba is not None:  # pragma: no branch
@@ -532,6 +671,8 @@ if numba is not None:  # pragma: no branch
     _fill = _sums(_fill)
     _fill_top = _sums(_fill_top)
     _series_limits = _jit(_series_limits)
+    _extrapolated = _jit(_extrapolated)
+    _push = _jit(_push)
     _unweighted = _jit(_unweighted)
     _log_u = _sums(_log_u)
     _moments = _jit(_moments)

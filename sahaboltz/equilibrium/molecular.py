@@ -1172,13 +1172,14 @@ class MolecularEquilibriumState(EquilibriumState):
         return out.reshape(self.shape)
 
     # -- overrides: atoms scaled to the part of each element not in molecules ---------------
-    def _chain_fractions(self, chain):
+    def _chain_fractions(self, chain, keep: bool = True):
+        keep = keep or chain.k in self._cache   # what was kept stays kept
         if chain.k not in self._cache:
             f = super()._chain_fractions(chain)
             share = self._atomic_share.get(chain.k)
             if share is not None:
                 self._cache[chain.k] = f * share
-        return self._cache[chain.k]
+        return self._cache[chain.k] if keep else self._cache.pop(chain.k)
 
     @property
     def particle_density(self) -> np.ndarray:

@@ -264,6 +264,27 @@ class AtomicNetwork:
         ln_u[pick] = np.log(u if pick is has else u[chain.model_rows[pick]])
         return ln_u
 
+    def log_u_pairs(self, chain: Chain, t: np.ndarray, n_e: np.ndarray, rows: np.ndarray,
+                    states: np.ndarray, temperature_index: np.ndarray | None = None
+                    ) -> np.ndarray:
+        """ln U of the flat pairs (stage ``rows[p]`` of the chain, state ``states[p]``) at the
+        states' (t, n_e), with the density-dependent scheme (no lowering): the values
+        :meth:`log_u` gives at those pairs, for a caller that needs only some of them."""
+        out = np.zeros(rows.size)
+        neg = chain.charges[rows] < 0
+        if neg.any():
+            out[neg] = self.negative_ion_log_u(chain, t[states[neg]], n_e[states[neg]])[0]
+        if chain.model is None:
+            return out
+        mrows = chain.model_rows[rows]
+        has = mrows >= 0
+        if has.any():
+            u = chain.model.evaluate_pairs(t, n_e, mrows[has], want_temperature=False,
+                                           temperature_index=temperature_index,
+                                           states=states[has])[0]
+            out[has] = np.log(u)
+        return out
+
     def log_c(self, chain: Chain, t: np.ndarray, n_e: np.ndarray | None = None,
               debye_length: np.ndarray | None = None) -> np.ndarray:
         """C_q (see module docstring) for the states given as flat arrays.

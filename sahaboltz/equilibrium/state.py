@@ -21,8 +21,12 @@ from sahaboltz.errors import InputError, NoDataError
 from sahaboltz.kernels import truncation as _truncation
 from sahaboltz.kernels.plasma import (_coupling, _debye_length, _degeneracy, _lowering_ev,
                                       _mcwhirter)
-from sahaboltz.kernels.saha import _chain_fractions_inplace
+from sahaboltz.kernels.saha import _chain_fractions_inplace, _log_saha_steps
 from sahaboltz.quantities import as_positive_array
+
+# e^-750 is below the smallest positive double (4.9e-324 = e^-744.4): a stage whose fraction
+# is bounded by it is exactly 0 in double precision
+_LN_UNDERFLOW = -750.0
 
 
 #: names of :meth:`EquilibriumState.quantity` and their units
@@ -193,27 +197,116 @@ class EquilibriumState:
         return cache[rad]
 
     # -- populations -----------------------------------------------------------------------
-    def _chain_fractions(self, chain: Chain) -> np.ndarray:
+    def _chain_fractions(self, chain: Chain, keep: bool = True) -> np.ndarray:
+        if not keep and chain.k not in self._cache:
+            got = self._chain_fractions(chain)
+            del self._cache[chain.k]
+            return got
         if chain.k not in self._cache:
             ok = self.converged.ravel()
-            t = self.temperature.ravel()[ok]
-            x = self.log_ne.ravel()[ok]
-            out = np.full((chain.n, ok.size), np.nan)
-            if not ok.any():
-                self._cache[chain.k] = out.reshape((chain.n,) + self.shape)
-                return self._cache[chain.k]
-            if self.network.ideal and not self.lowering:
+            every = bool(ok.all())
+            t = self.temperature.ravel() if every else self.temperature.ravel()[ok]
+            x = self.log_ne.ravel() if every else self.log_ne.ravel()[ok]
+            if t.size == 0:
+                got = np.empty((chain.n, 0))
+            elif self.network.ideal and not self.lowering:
                 ut, inv = np.unique(t, return_inverse=True)
                 tab = self.network.log_c(chain, ut)[:, inv]
+                tab -= np.multiply.outer(chain.charges, x)
+                got = _chain_fractions_inplace(tab)
+            elif self.network.scheme.density_dependent and self._debye is None:
+                got = self._weighted_chain_fractions(chain, t, x)
             else:
                 lam = None if self._debye is None else self._debye.ravel()[ok]
                 tab = self.network.log_c(chain, t, np.exp(x), lam)
-            tab -= np.multiply.outer(chain.charges, x)     # tab is this call's own array
-            out[:, ok] = _chain_fractions_inplace(tab)
-            self._cache[chain.k] = out.reshape((chain.n,) + self.shape)
+                tab -= np.multiply.outer(chain.charges, x)     # tab is this call's own array
+                got = _chain_fractions_inplace(tab)
+            if not every:  # NaN at the states not solved
+                out = np.full((chain.n, ok.size), np.nan)
+                out[:, ok] = got
+                got = out
+            self._cache[chain.k] = got.reshape((chain.n,) + self.shape)
         return self._cache[chain.k]
 
-    def stage_fractions(self, element, negative: bool = False) -> np.ndarray:
+    def _weighted_chain_fractions(self, chain: Chain, t: np.ndarray, x: np.ndarray
+                                  ) -> np.ndarray:
+        """A chain's stage fractions at the flat states (t, ln n_e = x) with density-dependent
+        U, evaluating the exact U only where a stage's fraction can be a nonzero double.
+
+        ln n_q = ln U_q + a_q(T) - q ln n_e up to a constant of each state (the Saha chain).
+        The low-density limit of every U (one value per temperature) bounds it from above,
+        so it bounds every ln n_q from above; a stage whose bound lies more than 750 below
+        the log of the sum over the exactly evaluated stages has a fraction below e^-750,
+        which is 0 in double precision (as it is in the full evaluation).  Most high stages
+        of heavy elements are such: a solar table's stage fractions need their exact U at
+        about a quarter of the (stage, state) pairs.
+        """
+        net = self.network
+        ut, tinv = np.unique(t, return_inverse=True)
+        limit = net.log_u(chain, ut)                     # (stages, distinct T)
+        bound = self._log_populations(chain, ut, limit)[:, tinv]
+        bound -= np.multiply.outer(chain.charges, x)
+        top_bound = bound.max(axis=0)
+        new = bound >= top_bound + _LN_UNDERFLOW
+        # only the rows that some state needs take part below (at a block's temperatures
+        # most high stages of heavy elements are out of reach at every state)
+        rows = np.flatnonzero(new.any(axis=1))
+        r0, r1 = int(rows[0]), int(rows[-1]) + 1
+        n_e = np.exp(x)
+        ln_n = bound[r0:r1].copy()
+        keep = np.zeros(ln_n.shape, dtype=bool)
+        new = new[r0:r1]
+        while True:
+            r, c = np.nonzero(new)
+            # the exact ln U replaces its bound in the stage's own row only
+            ln_n[r, c] += (net.log_u_pairs(chain, t, n_e, r + r0, c, tinv)
+                           - limit[r + r0, tinv[c]])
+            keep |= new
+            tab = np.where(keep, ln_n, -np.inf)
+            top = tab.max(axis=0)
+            tab -= top
+            np.exp(tab, out=tab)
+            total = tab.sum(axis=0)
+            log_sum = top + np.log(total)
+            # a stage left out has its bound below top_bound - 750, so below log_sum - 750,
+            # unless the exact U of the kept ones fell far below their bounds (pressure
+            # ionization): only those states are looked at again, over the whole chain
+            low = np.flatnonzero(log_sum < top_bound)
+            if not low.size:
+                break
+            reach = bound[:, low] >= log_sum[low] + _LN_UNDERFLOW
+            rows = np.flatnonzero(reach.any(axis=1))
+            n0, n1 = min(r0, int(rows[0])), max(r1, int(rows[-1]) + 1)
+            if (n0, n1) != (r0, r1):   # widen the rows taken part
+                wide = bound[n0:n1].copy()
+                wide[r0 - n0:r1 - n0] = ln_n
+                wider = np.zeros(wide.shape, dtype=bool)
+                wider[r0 - n0:r1 - n0] = keep
+                ln_n, keep, r0, r1 = wide, wider, n0, n1
+            new = np.zeros(keep.shape, dtype=bool)
+            new[:, low] = reach[r0:r1] & ~keep[:, low]
+            if not new.any():
+                break
+        tab /= total
+        if (r0, r1) == (0, chain.n):
+            return tab
+        out = np.zeros((chain.n, t.size))
+        out[r0:r1] = tab
+        return out
+
+    @staticmethod
+    def _log_populations(chain: Chain, t: np.ndarray, ln_u: np.ndarray) -> np.ndarray:
+        """ln n_q + q ln n_e up to a constant of each state, ln U_q + a_q(T), from the chain's
+        ln U (shape (chain.n, t.size)): the Saha chain's steps, summed."""
+        steps = _log_saha_steps(t, chain.chi_ev, ln_u, None)
+        out = np.empty_like(ln_u)
+        out[0] = ln_u[0]
+        np.cumsum(steps, axis=0, out=out[1:])
+        out[1:] += ln_u[0]
+        return out
+
+    def stage_fractions(self, element, negative: bool = False, keep: bool = True
+                        ) -> np.ndarray:
         """Fractions n_q / N_element of the stages q = 0 .. Z of one element.
 
         Parameters
@@ -221,13 +314,17 @@ class EquilibriumState:
         element : str or int
         negative : bool
             Prepend the negative ion (H- for hydrogen) when the mixture has one.
+        keep : bool
+            Keep the result in the state for later calls (default).  False for a caller that
+            stores it elsewhere (a table build: the fractions of all elements of a large
+            block would otherwise be held twice).
 
         Returns
         -------
         ndarray, shape (n_stages,) + state shape
         """
         chain = self.network.chain_of(element)
-        f = self._chain_fractions(chain)
+        f = self._chain_fractions(chain, keep)
         return f if negative else f[chain.charges >= 0]
 
     def stage_charges(self, element, negative: bool = False) -> np.ndarray:

@@ -65,31 +65,48 @@ def plain_excess(state) -> dict[str, int]:
     stark = stark_state_factors(t, np.where(ok, ne, 1.0))
     pairs_state, pairs_row, names = [], [], []
     for c in net.chains:
-        f = state._chain_fractions(c).reshape(c.n, -1)
-        for j, row in enumerate(c.model_rows):
-            if row < 0:
-                continue
-            sel = np.flatnonzero(ok & (f[j] >= CHECKED_SHARE))
-            if not sel.size:
-                continue
-            r = c.model_offset + row
-            w_top = occ.top_weight(r, *(v[sel] for v in stark))
-            sel = sel[w_top < 1.0 / PLAIN_EXCESS]
-            pairs_state.append(sel)
-            pairs_row.append(np.full(sel.size, r))
-            names.append(np.full(sel.size, c.offset + j))
+        # every (stage, state) of the chain at once; the fractions are not kept in the state
+        # (all stages of a large grid would be held for this check alone)
+        f = state._chain_fractions(c, keep=False).reshape(c.n, -1)
+        j, sel = np.nonzero((f >= CHECKED_SHARE) & (c.model_rows >= 0)[:, None] & ok[None, :])
+        if not j.size:
+            continue
+        r = c.model_offset + c.model_rows[j]
+        low = occ.top_weight(r, *(v[sel] for v in stark)) < 1.0 / PLAIN_EXCESS
+        pairs_state.append(sel[low])
+        pairs_row.append(r[low])
+        names.append(c.offset + j[low])
     if not pairs_state or not sum(p.size for p in pairs_state):
         return {}
     st_idx = np.concatenate(pairs_state)
     rows = np.concatenate(pairs_row)
-    u_occ = occ.evaluate_pairs(t, ne, rows, want_temperature=False, states=st_idx)[0]
+    names = np.concatenate(names)
     # the plain sums: one table over the distinct temperatures (the state's own partition
     # functions)
     ut, tinv = np.unique(t[st_idx], return_inverse=True)
-    u_plain = net.model.evaluate(ut)[rows, tinv]
-    flagged = u_plain > PLAIN_EXCESS * u_occ
-    which = np.concatenate(names)[flagged]
-    return {net.species_names[i]: int(n) for i, n in zip(*np.unique(which, return_counts=True))}
+    # At one temperature the weighted U of a species falls as n_e rises (every level's
+    # F = s (A s + B) grows with n_e), so the states where the plain U exceeds it form the
+    # top of each (temperature, species) group sorted by n_e: a binary search per group
+    # finds where they start, with ~log2(group size) sums instead of one per state.
+    group = tinv * net.model.n_species + rows
+    order = np.lexsort((ne[st_idx], group))
+    st_idx, rows, names, group, tinv = (a[order] for a in (st_idx, rows, names, group, tinv))
+    starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
+    ends = np.r_[starts[1:], group.size]
+    u_plain = net.model.evaluate(ut)[rows[starts], tinv[starts]]
+    lo, hi = starts.copy(), ends.copy()     # the first flagged position lies in [lo, hi]
+    while True:
+        act = np.flatnonzero(lo < hi)
+        if not act.size:
+            break
+        mid = (lo[act] + hi[act]) // 2
+        u_occ = occ.evaluate_pairs(t, ne, rows[mid], want_temperature=False,
+                                   states=st_idx[mid])[0]
+        flag = u_plain[act] > PLAIN_EXCESS * u_occ
+        hi[act] = np.where(flag, mid, hi[act])
+        lo[act] = np.where(flag, lo[act], mid + 1)
+    counts = np.bincount(names[starts], weights=ends - hi, minlength=net.n_species)
+    return {net.species_names[i]: int(counts[i]) for i in np.flatnonzero(counts > 0)}
 
 
 def warn_plain(state, stacklevel: int = 3) -> None:

@@ -6,14 +6,13 @@ import argparse
 
 import numpy as np
 
-from sahaboltz.data.database import default_database
 from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
 from sahaboltz.faces.state_options import (number_option, quantity_option,
                                            temperatures_from_args, truncation_option)
 from sahaboltz.kernels import truncation as registry
-from sahaboltz.kernels.boltzmann import level_populations, select_levels
-from sahaboltz.kernels.partition import PartitionModel, default_truncation
+# the level data, the partition model and the Boltzmann kernels are imported by the commands
+# that use them, not when the parser is built (`sahaboltz partition -h` stays quick)
 
 
 def _add_truncation_options(p) -> None:
@@ -115,6 +114,8 @@ def _lowering_ev(args):
 
 def _scheme(args) -> str:
     """The truncation to use: the one asked for, else the best for what is given."""
+    from sahaboltz.kernels.partition import default_truncation
+
     low = _lowering_ev(args)
     if args.lowering and args.truncation is None:
         return "lowered"
@@ -129,6 +130,7 @@ def _warn_plain(args, species, t, u) -> None:
 
     from sahaboltz.equilibrium.validity import PLAIN_EXCESS
     from sahaboltz.errors import TruncationWarning
+    from sahaboltz.kernels.partition import PartitionModel
 
     occ = PartitionModel(species, "occupation").evaluate(t, args.n_e, None, args.n_neutral)
     over = [f"{sp.name} (by {100 * (r - 1):.0f} %)" for sp, r in
@@ -148,6 +150,8 @@ def _lowering(args, n_species: int):
 
 
 def run_partition(args) -> int:
+    from sahaboltz.data.database import default_database
+    from sahaboltz.kernels.partition import PartitionModel
     db = default_database()
     species = [db.species(name) for name in args.species]
     t = _temperatures(args)
@@ -175,6 +179,9 @@ def run_partition(args) -> int:
 
 
 def run_populations(args) -> int:
+    from sahaboltz.data.database import default_database
+    from sahaboltz.kernels.boltzmann import level_populations, select_levels
+    from sahaboltz.kernels.partition import PartitionModel
     db = default_database()
     sp = db.species(args.species)
     criteria = {k: v for k, v in (("index", args.index), ("energy_range_ev", args.energy_range),

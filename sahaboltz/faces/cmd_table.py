@@ -4,6 +4,9 @@
     sahaboltz table build grid.toml               # build (or find) it in the cache
     sahaboltz table build --temperature 3000:30000:100 --pressure 1e2:1e6:41 -o t.h5
     sahaboltz table build grid.toml --composition-axis metallicity=-2:0.5:6   # a third axis
+    sahaboltz table template --temperature-quantity internal_energy > rho_u.toml
+    sahaboltz table build --temperature-quantity internal_energy -T 3e11:3e14:31 \
+        --pressure 1e-10:1e-4:7 -o rho_u.h5        # (u, rho) axes; T is stored as a field
     sahaboltz table build grid.toml --scheduler tcp://10.0.0.5:8786   # on a Dask cluster
     sahaboltz table inspect t.h5                  # provenance and stored quantities
     sahaboltz table query t.h5 --at 5800,1e5 -q electron_density,fraction_Fe_II
@@ -23,7 +26,7 @@ from pathlib import Path
 
 import numpy as np
 
-from sahaboltz.equilibrium.closures import CLOSURES
+from sahaboltz.equilibrium.closures import CLOSURES, THERMAL_CLOSURES
 from sahaboltz.errors import InputError
 from sahaboltz.faces.output import add_format_option, emit
 from sahaboltz.faces.state_options import add_mixture_options, number_option, parse_mix
@@ -37,6 +40,11 @@ def register(subparsers) -> None:
     sub.required = True
 
     t = sub.add_parser("template", help="print an annotated table spec (TOML) to start from")
+    t.add_argument("--temperature-quantity", default="temperature",
+                   choices=("temperature",) + tuple(THERMAL_CLOSURES),
+                   help="the first axis: temperature (default) or a quantity that replaces "
+                        "it (internal_energy with a mass_density axis, entropy with "
+                        "gas_pressure)")
     t.set_defaults(func=_template)
 
     b = sub.add_parser("build", help="build a table from a spec file or options")
@@ -44,13 +52,26 @@ def register(subparsers) -> None:
     g = b.add_argument_group("grid (when no spec file is given)")
     g.add_argument("-T", "--temperature", metavar="MIN:MAX:NUM|V1,V2,..",
                    help="temperature axis [K, or with a unit] (default 2000:50000, 100 per "
-                        "decade)")
-    g.add_argument("--temperature-scale", choices=("log", "linear"), default="log")
+                        "decade); with --temperature-quantity, that quantity's axis in its "
+                        "cgs unit or with a unit (a negative MIN: -T=-1e11:1e13:41)")
+    g.add_argument("--temperature-quantity", default="temperature",
+                   choices=("temperature",) + tuple(THERMAL_CLOSURES),
+                   help="the first axis: temperature (default), or internal_energy [erg g-1] "
+                        "(with a mass_density axis) or entropy [erg g-1 K-1] (with "
+                        "gas_pressure), in place of the temperature, which is then solved "
+                        "for and stored as a field")
+    g.add_argument("--temperature-scale", choices=("log", "linear"), default="log",
+                   help="spacing of a MIN:MAX:NUM first axis (default log); a thermal "
+                        "axis is interpolated in ln of its value when log-spaced, else in "
+                        "the value")
+    g.add_argument("--temperature-range", metavar="LO,HI", default=None,
+                   help="with --temperature-quantity: the temperatures searched [K] "
+                        "(default 1000,1e8; from 500 K with molecules)")
     g.add_argument("--pressure", metavar="MIN:MAX:NUM|V1,V2,..",
                    help="pressure-like axis in cgs or with a unit, e.g. '1e2:1e6:9' or "
                         "'1e1:1e5:9 Pa' (default gas pressure 1e-2:1e8 dyn cm-2, 10 per decade)")
-    g.add_argument("--pressure-quantity", default="gas_pressure",
-                   choices=tuple(CLOSURES))
+    g.add_argument("--pressure-quantity", default=None, choices=tuple(CLOSURES),
+                   help="default gas_pressure, or the partner of --temperature-quantity")
     g.add_argument("--pressure-scale", choices=("log", "linear"), default="log")
     add_mixture_options(g)
     g.add_argument("--completion", action="store_true",
@@ -95,7 +116,8 @@ def register(subparsers) -> None:
     q.add_argument("--at", action="append", default=[], metavar="T,P[,C]",
                    help="a point: temperature [K] and the table's pressure-like quantity in cgs, "
                         "or with units ('5800 K,1e4 Pa'), and the composition value for a table "
-                        "with a composition axis (repeatable)")
+                        "with a composition axis (repeatable); for a table whose first axis "
+                        "replaces the temperature, T is its value (e.g. u in erg g-1)")
     q.add_argument("--points", metavar="CSV",
                    help="CSV file with columns T,P (and C with a composition axis; header "
                         "optional)")
@@ -131,8 +153,8 @@ def register(subparsers) -> None:
 
 
 def _template(args) -> int:
-    from sahaboltz.tables.spec import EXAMPLE_TOML
-    sys.stdout.write(EXAMPLE_TOML)
+    from sahaboltz.tables.spec import example_toml
+    sys.stdout.write(example_toml(args.temperature_quantity))
     return 0
 
 
@@ -151,7 +173,9 @@ def _load_compute(text: str | None):
 def _spec_from_args(args):
     from sahaboltz.tables.spec import TableSpec, spec_from_options
 
-    grid_opts = (args.temperature, args.pressure, args.levels, args.partition)
+    grid_opts = (args.temperature, args.pressure, args.levels, args.partition,
+                 args.pressure_quantity, args.temperature_quantity != "temperature",
+                 args.temperature_range)
     physics_opts = (args.mix != "solar", args.metallicity, args.alpha, args.lowering,
                     args.truncation, args.completion, args.no_h_minus, args.molecules != "none",
                     args.condensates,
@@ -170,6 +194,8 @@ def _spec_from_args(args):
         return spec
     spec = spec_from_options(args.temperature, args.pressure,
                              pressure_quantity=args.pressure_quantity,
+                             temperature_quantity=args.temperature_quantity,
+                             temperature_range=_temperature_range(args.temperature_range),
                              temperature_scale=args.temperature_scale,
                              pressure_scale=args.pressure_scale,
                              truncation=args.truncation, lowering=args.lowering,
@@ -179,6 +205,17 @@ def _spec_from_args(args):
                              levels=args.levels, partition_functions=args.partition)
     return replace(spec, composition=_composition_doc(args, axis is not None),
                    composition_axis=axis)
+
+
+def _temperature_range(text: str | None):
+    """``--temperature-range LO,HI`` [K, or each with a unit] as (lo, hi), or None."""
+    if text is None:
+        return None
+    from sahaboltz.quantities import parse_quantity
+    parts = text.split(",")
+    if len(parts) != 2:
+        raise InputError(f"--temperature-range: give LO,HI in K, got {text!r}")
+    return tuple(parse_quantity(x, "K", "--temperature-range") for x in parts)
 
 
 def _composition_doc(args, modifiers: bool = False) -> dict:
@@ -255,11 +292,12 @@ def _inspect(args) -> int:
     meta = read_metadata(path)
     tab = open_table(path, check=False)
     keep = ("title", "created", "package_version", "solver_version", "level_data_digest",
-            "cache_key", "composition", "physics", "pressure_quantity", "build_seconds",
-            "size_bytes")
+            "cache_key", "composition", "physics", "temperature_quantity", "pressure_quantity",
+            "build_seconds", "size_bytes")
     info = {k: (meta[k] if isinstance(meta[k], (str, int, float)) else str(meta[k]))
             for k in keep if k in meta}
-    info["temperature"] = f"{tab.temperature[0]:g}..{tab.temperature[-1]:g} K ({tab.temperature.size})"
+    info[tab.temperature_quantity] = (f"{tab.temperature[0]:g}..{tab.temperature[-1]:g} "
+                                      f"{tab.temperature_unit} ({tab.temperature.size})")
     info[tab.pressure_quantity] = (f"{tab.pressure[0]:g}..{tab.pressure[-1]:g} "
                                    f"{tab.pressure_unit} ({tab.pressure.size})")
     if tab.composition_axis is not None:
@@ -280,9 +318,11 @@ def _inspect(args) -> int:
     return 0
 
 
-def _points(args, ncol: int = 2, pressure_unit: str = "dyn cm-2") -> tuple[np.ndarray, ...]:
+def _points(args, ncol: int = 2, pressure_unit: str = "dyn cm-2",
+            first_unit: str = "K") -> tuple[np.ndarray, ...]:
     """The query points: ``ncol`` values each (T,P, or T,P,C with a composition axis); T and P
-    may carry units."""
+    may carry units.  T is the table's first axis: a temperature, or the value of the
+    quantity that replaces it (``first_unit``, e.g. erg g-1)."""
     from sahaboltz.quantities import parse_quantity
 
     what = "T,P" if ncol == 2 else "T,P,C"
@@ -293,7 +333,8 @@ def _points(args, ncol: int = 2, pressure_unit: str = "dyn cm-2") -> tuple[np.nd
             extra = " (the table has a composition axis)" if ncol == 3 else ""
             raise InputError(f"--at: write {what} ({ncol} values{extra}, T and P each with an "
                              f"optional unit, e.g. 5800,1e5 or '5800 K,1e4 Pa'), got {item!r}")
-        point = [parse_quantity(parts[0], "K", "--at (temperature)"),
+        point = [parse_quantity(parts[0], first_unit,
+                                "--at (temperature)" if first_unit == "K" else "--at (first axis)"),
                  parse_quantity(parts[1], pressure_unit, "--at (pressure)")]
         if ncol == 3:
             try:
@@ -331,12 +372,13 @@ def _query(args) -> int:
     names = [n.strip() for item in args.quantities for n in item.split(",") if n.strip()]
     if not names:
         names = [n for n in tab.quantities if n in SCALAR_OUTPUTS]
-    t, p, *c = _points(args, 2 if tab.composition_axis is None else 3, tab.pressure_unit)
+    t, p, *c = _points(args, 2 if tab.composition_axis is None else 3, tab.pressure_unit,
+                       tab.temperature_unit)
     vals = tab.interpolate(names, t, p, c[0] if c else None, method=args.method,
                            outside=args.outside)
     rows = []
     for k in range(t.size):
-        row = {"temperature": float(t[k]), tab.pressure_quantity: float(p[k])}
+        row = {tab.temperature_quantity: float(t[k]), tab.pressure_quantity: float(p[k])}
         if c:
             row[tab.composition_axis] = float(c[0][k])
         row.update({n: float(vals[n][k]) for n in names})

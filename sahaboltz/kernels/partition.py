@@ -226,13 +226,14 @@ class PartitionModel:
         other.truncation = scheme.key
         return other
 
-    def top_weight(self, row: int, p_: np.ndarray, a_: np.ndarray, b_: np.ndarray
+    def top_weight(self, row, p_: np.ndarray, a_: np.ndarray, b_: np.ndarray
                    ) -> np.ndarray:
         """Charged-perturber occupation probability of the highest packed level of species
-        ``row`` at states given by their factors (P, A, B) of
+        ``row`` (one, or one per state) at states given by their factors (P, A, B) of
         :func:`~sahaboltz.kernels.occupation.stark_state_factors`: the smallest w of its
         levels, so U_occupation >= top_weight * U_plain."""
-        s = p_ * self._q_stark[int(self._starts[row] + self._counts[row] - 1)]
+        row = np.asarray(row, dtype=np.intp)
+        s = p_ * self._q_stark[self._starts[row] + self._counts[row] - 1]
         return 1.0 / (1.0 + s * (a_ * s + b_))
 
     def subset(self, start: int, stop: int) -> "PartitionModel":

@@ -61,7 +61,9 @@ def run_block(compute: ComputeFn, spec: TableSpec, block: Block,
     # a state the solver could not solve is NaN in every field, and says why in "status"
     failed = fields["status"] != 0 if "status" in fields else np.zeros(t.size, bool)
     for name, arr in fields.items():
-        if not np.all(np.isfinite(arr[..., ~failed])):
+        # one sum finds a NaN or an infinity (no physical sum of the values overflows); only
+        # then the states are looked at one by one
+        if not np.isfinite(np.sum(arr)) and not np.all(np.isfinite(arr[..., ~failed])):
             raise TableError(f"compute function returned non-finite {name} in block {block}")
         if chunk_shape is not None:
             fields[name] = encode_field(arr, shape, chunk_shape, name in STACKED)

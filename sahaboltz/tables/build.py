@@ -64,7 +64,14 @@ def _worker_init() -> None:
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     try:  # Linux: prctl(PR_SET_PDEATHSIG, SIGKILL)
         import ctypes
-        ctypes.CDLL("libc.so.6", use_errno=True).prctl(1, int(signal.SIGKILL))
+        libc = ctypes.CDLL("libc.so.6", use_errno=True)
+        libc.prctl(1, int(signal.SIGKILL))
+        # glibc: serve the block-sized arrays from the heap and keep what a block frees for
+        # the next one (M_MMAP_MAX = 0, M_TRIM_THRESHOLD = 1 GiB); otherwise every array is
+        # a fresh mapping whose first touch faults in each page, about 2.5 ms per MB here,
+        # as much as computing the values.  The peak memory is unchanged.
+        libc.mallopt(-4, 0)
+        libc.mallopt(-1, 1 << 30)
     except (OSError, AttributeError):
         pass
 

@@ -94,8 +94,11 @@ def _network_key(spec: TableSpec) -> str:
 def solve_block(spec: TableSpec, T: np.ndarray, P: np.ndarray):
     """Solve the equilibrium of the states ``(T, P)`` with the spec's physics options.
 
-    The solver's prepared network is kept per process and reused for every block (building
-    it costs about a second for the solar mixture; forked workers inherit the parent's).
+    ``T`` holds the values of the first axis: temperatures, or those of the thermal closure
+    that replaces the temperature (``spec.thermal``), which the solver then inverts for T
+    (states it finds no temperature for are masked, not raised).  The solver's prepared
+    network is kept per process and reused for every block (building it costs about a second
+    for the solar mixture; forked workers inherit the parent's).
     """
     from sahaboltz.equilibrium import solve_equilibrium
 
@@ -103,6 +106,12 @@ def solve_block(spec: TableSpec, T: np.ndarray, P: np.ndarray):
     kwargs = {spec.pressure.name: P, "truncation": phys["truncation"],
               "lowering": bool(phys["lowering"]), "completion": bool(phys["completion"]),
               "h_minus": bool(phys["h_minus"]), "errors": "mask"}
+    if spec.thermal is not None:
+        kwargs[spec.temperature.name] = T
+        kwargs["radiation"] = bool(phys.get("radiation"))   # u and s include it, if asked
+        if "temperature_range" in phys:
+            kwargs["temperature_range"] = tuple(phys["temperature_range"])
+        T = None
     if phys["molecules"] != "none":
         kwargs["molecules"] = phys["molecules"]
     if phys.get("condensates"):
@@ -137,7 +146,7 @@ def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, A
     scalars = {"electron_density": "n_e", "electron_pressure": "electron_pressure",
                "gas_pressure": "gas_pressure", "mass_density": "mass_density",
                "mean_molecular_weight": "mean_molecular_weight", "mean_charge": "mean_charge",
-               "status": "status"}
+               "status": "status", "temperature": "temperature"}
     thermo = None
     for name in spec.outputs.quantities:
         if name in THERMO_OUTPUTS:
@@ -147,23 +156,31 @@ def solver_compute(spec: TableSpec, T: np.ndarray, P: np.ndarray) -> dict[str, A
         else:
             value = getattr(state, scalars[name])
         out[name] = np.asarray(value, dtype=float).reshape(n)
+    if "temperature" in out:  # where no temperature was found, NaN like every other field
+        out["temperature"][np.asarray(state.status).reshape(n) != 0] = np.nan
     comp = state.composition
     sf = spec.outputs.stage_fractions
     elements = comp.symbols if sf == "all" else list(sf)
-    fracs, dens, species = [], [], []
     for el in elements:
         if el not in comp:
             raise InputError(f"stage fractions of {el} asked for, but {el} is not in the "
                              f"composition ({', '.join(comp.symbols)})")
-        fr = np.asarray(state.stage_fractions(el, negative=True), dtype=float).reshape(-1, n)
-        z = atomic_number(el)
-        species += [spectroscopic_name(z, int(q)) for q in state.stage_charges(el, negative=True)]
-        fracs.append(fr)
-        dens.append(fr * np.asarray(state.element_density(el), dtype=float).reshape(n))
+    charges = [state.stage_charges(el, negative=True) for el in elements]
+    species = [spectroscopic_name(atomic_number(el), int(q))
+               for el, qs in zip(elements, charges) for q in qs]
     if species:
+        # filled in place, one element at a time (a solar block holds ~3,650 rows of each)
         labels["species"] = species
-        out["fraction"] = np.concatenate(fracs)
-        out["number_density"] = np.concatenate(dens)
+        fraction = out["fraction"] = np.empty((len(species), n))
+        density = out["number_density"] = np.empty((len(species), n))
+        r = 0
+        for el, qs in zip(elements, charges):
+            rows = slice(r, r + len(qs))
+            fraction[rows] = np.asarray(state.stage_fractions(el, negative=True, keep=False),
+                                        dtype=float).reshape(-1, n)
+            np.multiply(fraction[rows], np.asarray(state.element_density(el),
+                                                   dtype=float).reshape(n), out=density[rows])
+            r += len(qs)
     if hasattr(state, "molecule_densities"):  # solved with molecules
         if state.molecule_names:
             labels["molecule"] = list(state.molecule_names)

@@ -17,6 +17,12 @@ logarithms, so ln q is interpolated linearly in dex): Lagrange through 4 composi
 where the axis has 4 or more (and the method is not ``linear``), else linearly; where the 4
 values of a logged quantity span more than ``e^50`` it is linear there.
 
+A table whose first axis replaces the temperature (specific internal energy with a mass-density
+axis, specific entropy with gas pressure; root attribute ``temperature_quantity``) is
+interpolated along it in ln of the value or in the value itself, as its coordinate's
+``interpolation`` attribute says (values of any sign need the latter); its temperature is a
+stored field like the others.
+
 Points outside the grid raise :class:`~sahaboltz.errors.InputError` by default; ``outside="clip"``
 clamps them onto the grid edge and ``outside="nan"`` returns NaN there (asked-for, documented NaN).
 """
@@ -30,7 +36,7 @@ import numpy as np
 
 from sahaboltz.errors import InputError, TableError
 from sahaboltz.tables.hdf5 import (FORMAT_VERSION, _decode, _decode_str, _open, check_table,
-                                   format_error)
+                                   format_error, temperature_quantity)
 from sahaboltz.tables.layout import STACKED, row_names
 from sahaboltz.tables.spec import PRESSURE_QUANTITIES
 
@@ -65,7 +71,16 @@ class PopulationTable:
     Attributes
     ----------
     temperature : ndarray
-        Temperature axis [K].
+        The first axis: temperatures [K], or the values of :attr:`temperature_quantity` when
+        a quantity replaces the temperature (the temperature is then the stored field
+        ``"temperature"``, ``table["temperature"]``).
+    temperature_quantity : str
+        ``temperature``, or ``internal_energy`` (with a ``mass_density`` axis) or ``entropy``
+        (with ``gas_pressure``).
+    temperature_unit : str
+        Its unit (``K``, ``erg g-1``, ``erg g-1 K-1``).
+    temperature_interpolation : {"log", "linear"}
+        The variable along the first axis: ln of the value (temperature always), or the value.
     pressure : ndarray
         Pressure-like axis in the cgs unit of :attr:`pressure_quantity`.
     pressure_quantity : str
@@ -97,7 +112,11 @@ class PopulationTable:
             self.close()
             raise format_error(self.path, self.attrs.get("format_version"))
         self.pressure_quantity = str(self.attrs["pressure_quantity"])
-        self.temperature = f["temperature"][()]
+        self.temperature_quantity = temperature_quantity(f)
+        tq = f[self.temperature_quantity]
+        self.temperature = tq[()]
+        self.temperature_unit = _decode_str(tq.attrs.get("units", b"K"))
+        self.temperature_interpolation = _decode_str(tq.attrs.get("interpolation", b"log"))
         self.pressure = f[self.pressure_quantity][()]
         self.variables: dict[str, list | None] = {}
         for var in self.attrs["variables"]:
@@ -110,7 +129,7 @@ class PopulationTable:
         self.pressure_unit = PRESSURE_QUANTITIES[self.pressure_quantity]
         self._data: dict[str, np.ndarray] = {}
         self._prepared: dict[str, tuple[np.ndarray, bool, np.ndarray | None]] = {}
-        self._lt = np.log(self.temperature)
+        self._lt = self._first_variable(self.temperature)
         self._lp = np.log(self.pressure)
         self._axes = (_Axis(self._lt), _Axis(self._lp))
         ax = self.attrs.get("composition_axis")
@@ -151,7 +170,7 @@ class PopulationTable:
         rows = [("file", str(self.path)),
                 ("title", str(self.attrs.get("title", ""))),
                 ("grid", f"{t.size} x {p.size}"),
-                ("temperature", f"{t[0]:.4g} .. {t[-1]:.4g} K"),
+                (self.temperature_quantity, f"{t[0]:.4g} .. {t[-1]:.4g} {self.temperature_unit}"),
                 (self.pressure_quantity, f"{p[0]:.4g} .. {p[-1]:.4g} {self.pressure_unit}"),
                 ("composition", str(self.attrs.get("composition", ""))),
                 ("physics", str(self.attrs.get("physics", ""))),
@@ -242,7 +261,7 @@ class PopulationTable:
         elif isinstance(names, str):
             names = [names]
         axes = [self.temperature, self.pressure]
-        names_ = ["temperature", self.pressure_quantity]
+        names_ = [self.temperature_quantity, self.pressure_quantity]
         if self.composition is not None:
             axes.insert(0, self.composition)
             names_.insert(0, self.composition_axis)
@@ -254,7 +273,7 @@ class PopulationTable:
                  ) -> tuple[np.ndarray, bool, np.ndarray | None]:
         if name not in self._prepared:
             v = self[name]
-            logged = bool(np.all(v >= 0))
+            logged = bool(np.all((v >= 0) | np.isnan(v)))  # NaN: a state not solved
             g = np.log(np.maximum(v, np.finfo(float).tiny)) if logged else v.astype(float)
             self._prepared[name] = (g, logged, {})
         g, logged, wide = self._prepared[name]
@@ -291,7 +310,8 @@ class PopulationTable:
         names : str or sequence of str
             Quantity name(s), e.g. ``"electron_density"``, ``"fraction_Fe_II"``.
         temperature : float, array_like or Quantity
-            Temperatures [K].
+            Temperatures [K]; for a table whose first axis replaces the temperature, values
+            of that quantity (:attr:`temperature_quantity`, in :attr:`temperature_unit`).
         pressure : float, array_like or Quantity
             Values of the table's pressure-like quantity, in its cgs unit (:attr:`pressure_unit`).
         composition : float or array_like, optional
@@ -308,7 +328,7 @@ class PopulationTable:
         ndarray or dict of ndarray
             Broadcast shape of the inputs; a dict when ``names`` is a sequence.
         """
-        from sahaboltz.quantities import as_positive_array  # astropy: imported when used
+        from sahaboltz.quantities import as_array, as_positive_array  # astropy: when used
 
         if method not in METHODS:
             raise InputError(f"method must be one of {METHODS}, got {method!r}")
@@ -318,12 +338,15 @@ class PopulationTable:
         names = [names] if single else list(names)
         for n in names:
             self._known(n)
-        t = as_positive_array(temperature, "K", "temperature")
+        if self.temperature_quantity == "temperature":
+            t = as_positive_array(temperature, "K", "temperature")
+        else:  # a value the log axis cannot reach (<= 0) is outside the grid
+            t = as_array(temperature, self.temperature_unit, self.temperature_quantity)
         p = as_positive_array(pressure, self.pressure_unit, self.pressure_quantity)
         c = self._composition_values(composition)
         t, p, c = np.broadcast_arrays(t, p, 0.0 if c is None else c)
         shape = t.shape
-        lt, lp, lc = np.log(t).ravel(), np.log(p).ravel(), c.ravel()
+        lt, lp, lc = self._first_variable(t).ravel(), np.log(p).ravel(), c.ravel()
         bad = self._outside(lt, lp, lc, outside)
         lt = np.clip(lt, self._lt[0], self._lt[-1])
         lp = np.clip(lp, self._lp[0], self._lp[-1])
@@ -349,6 +372,19 @@ class PopulationTable:
             out[n] = out[n].reshape(shape)
         return out[names[0]] if single else out
 
+    def _first_variable(self, values) -> np.ndarray:
+        """The interpolation variable of first-axis values: ln (values <= 0 become -inf,
+        outside any log axis) or the values themselves."""
+        v = np.asarray(values, dtype=float)
+        if self.temperature_interpolation == "linear":
+            return v
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(v > 0, np.log(np.where(v > 0, v, 1.0)), -np.inf)
+
+    def _first_value(self, x: float) -> float:
+        """A first-axis value from its interpolation variable."""
+        return float(x) if self.temperature_interpolation == "linear" else float(np.exp(x))
+
     def _composition_values(self, composition):
         if self.composition is None:
             if composition is not None:
@@ -370,7 +406,10 @@ class PopulationTable:
 
     def _outside(self, lt, lp, lc, outside):
         tol = 1e-12
-        bad = ((lt < self._lt[0] - tol) | (lt > self._lt[-1] + tol) |
+        # in ln q an absolute 1e-12 is relative; a linear first axis needs its own scale
+        tt = tol if self.temperature_interpolation == "log" else \
+            tol * float(np.abs(self._lt[[0, -1]]).max())
+        bad = ((lt < self._lt[0] - tt) | (lt > self._lt[-1] + tt) |
                (lp < self._lp[0] - tol) | (lp > self._lp[-1] + tol))
         cx = self._caxis
         if cx is not None:
@@ -384,10 +423,15 @@ class PopulationTable:
                 at_c = f", {self.composition_axis} = {lc[i]:.6g}"
                 covers_c = (f", {self.composition_axis} {cx.x[0]:g}..{cx.x[-1]:g} "
                             f"{self.composition_unit}")
+            first = ("T" if self.temperature_quantity == "temperature"
+                     else self.temperature_quantity)
+            tu = self.temperature_unit
             raise InputError(
-                f"{int(bad.sum())} point(s) outside the table, e.g. T = {np.exp(lt[i]):.6g} K, "
+                f"{int(bad.sum())} point(s) outside the table, e.g. {first} = "
+                f"{self._first_value(lt[i]):.6g} {tu}, "
                 f"{self.pressure_quantity} = {np.exp(lp[i]):.6g} {self.pressure_unit}{at_c}; "
-                f"the grid covers T {self.temperature[0]:g}..{self.temperature[-1]:g} K and "
+                f"the grid covers {first} {self.temperature[0]:g}..{self.temperature[-1]:g} "
+                f"{tu} and "
                 f"{self.pressure[0]:g}..{self.pressure[-1]:g} {self.pressure_unit}{covers_c}. "
                 f"Pass outside='clip' to clamp onto the edge or outside='nan' for NaN there.")
         return bad if outside == "nan" else None

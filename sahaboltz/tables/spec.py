@@ -19,7 +19,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from sahaboltz.data.elements import SYMBOLS, atomic_number, parse_species, spectroscopic_name
-from sahaboltz.equilibrium.closures import CLOSURES
+from sahaboltz.equilibrium.closures import CLOSURES, THERMAL_CLOSURES
 from sahaboltz.equilibrium.thermo_quantities import QUANTITIES as _THERMO_QUANTITIES
 from sahaboltz.errors import InputError, SahaboltzError
 from sahaboltz.kernels import truncation as _truncation
@@ -31,6 +31,13 @@ else:  # pragma: no cover - exercised only on 3.10
 
 #: pressure-like axis quantities and their cgs unit (from the closure registry)
 PRESSURE_QUANTITIES = {name: c.unit for name, c in CLOSURES.items()}
+#: first-axis quantities and their cgs unit: the temperature, or a thermal closure that
+#: replaces it (the registry's THERMAL_CLOSURES; the temperature is then solved for and stored
+#: as a field)
+TEMPERATURE_QUANTITIES = {"temperature": "K",
+                          **{name: c.unit for name, c in THERMAL_CLOSURES.items()}}
+#: how the values of an axis are interpolated: in their logarithm or as they are
+INTERPOLATIONS = ("log", "linear")
 
 #: scalar outputs: name -> (unit, description)
 SCALAR_OUTPUTS = {
@@ -51,6 +58,8 @@ DEFAULT_QUANTITIES = tuple(SCALAR_OUTPUTS)
 THERMO_OUTPUTS = {("total_pressure" if k == "pressure" else k): (u or "1", d)
                   for k, (u, d) in _THERMO_QUANTITIES.items() if k != "mean_molecular_weight"}
 SCALAR_OUTPUTS.update(THERMO_OUTPUTS)
+#: stored as a field when an axis replaces it (always there), else it is the axis
+SCALAR_OUTPUTS["temperature"] = ("K", "temperature")
 
 AXIS_SCALES = ("log", "linear", "values")
 
@@ -125,6 +134,71 @@ partition_functions = []    # e.g. ["Fe I", "Fe II"]
 """.format(closures=" | ".join(CLOSURES), truncations=" | ".join(_truncation.names()))
 
 
+#: the first two sections of the template for a first axis that replaces the temperature
+_THERMAL_EXAMPLES = {
+    "internal_energy": """\
+# sahaboltz table specification: a (specific internal energy, mass density) grid
+[temperature]
+quantity = "internal_energy"  # in place of the temperature, which is solved for and stored
+scale = "log"          # "log" (needs min > 0), "linear" or "values"
+min = 3e11             # erg g-1 (or give unit = "J kg-1"); zero point: neutral ground-state
+max = 3e14             # atoms and electrons at rest, so u < 0 is possible with molecules
+per_decade = 20        # or: num = 61
+# interpolation = "log"  # the reader's variable along this axis: "log" (ln u; the default
+#                        # on a log scale) or "linear" (u itself; the default otherwise)
+
+[pressure]
+quantity = "mass_density"   # the partner of internal_energy
+scale = "log"
+min = 1e-10                 # g cm-3
+max = 1e-4
+per_decade = 10
+""",
+    "entropy": """\
+# sahaboltz table specification: a (specific entropy, gas pressure) grid
+[temperature]
+quantity = "entropy"   # in place of the temperature, which is solved for and stored
+scale = "linear"       # "log", "linear" or "values"
+min = 2e9              # erg g-1 K-1 (or give unit = "J kg-1 K-1")
+max = 4e9
+num = 41
+# interpolation = "linear"  # the reader's variable along this axis: "linear" (s itself; the
+#                           # default on a linear scale) or "log" (ln s)
+
+[pressure]
+quantity = "gas_pressure"   # the partner of entropy
+scale = "log"
+min = 1e2                   # dyn cm-2
+max = 1e6
+per_decade = 10
+""",
+}
+
+
+def example_toml(temperature_quantity: str = "temperature") -> str:
+    """The annotated template spec; with a quantity that replaces the temperature
+    (``internal_energy``, ``entropy``), its first two sections are that axis and its
+    partner, and a (commented) ``physics.temperature_range`` line is added."""
+    if temperature_quantity == "temperature":
+        return EXAMPLE_TOML
+    if temperature_quantity not in _THERMAL_EXAMPLES:
+        raise InputError(f"temperature quantity must be one of {list(TEMPERATURE_QUANTITIES)}, "
+                         f"got {temperature_quantity!r}")
+    rest = EXAMPLE_TOML[EXAMPLE_TOML.index("[composition]"):]
+    rest = rest.replace("lowering = false            # Debye-Hueckel ionization-potential "
+                        "lowering\n",
+                        "lowering = false            # (not with this axis: the thermodynamics "
+                        "does not cover it yet)\n")
+    rest = rest.replace("condensates = false         # with molecules: gas-condensate "
+                        "equilibrium (condensed_fraction)\n",
+                        "condensates = false         # (not with this axis)\n"
+                        "# temperature_range = [1000.0, 1e8]  # K, where T is searched "
+                        "(default; from 500 K with molecules)\n")
+    rest = rest.replace("[outputs]\n", "[outputs]\n# temperature and status are always stored "
+                                        "with this axis\n")
+    return _THERMAL_EXAMPLES[temperature_quantity] + "\n" + rest
+
+
 # -- checked reading of a spec's values (a spec file can hold anything) --------------------
 def _table(value: Any, where: str) -> Mapping[str, Any]:
     """A table (mapping) of a spec, or an InputError naming where it belongs."""
@@ -175,24 +249,47 @@ def _shown(value: Any) -> str:
     return f"{kind} {text if len(text) <= 40 else text[:37] + '...'}"
 
 
+def axis_long_name(name: str) -> str:
+    """The ``long_name`` of an axis coordinate, from the closure registries."""
+    if name in THERMAL_CLOSURES:
+        return THERMAL_CLOSURES[name].long_name
+    return name.replace("_", " ")
+
+
 @dataclass(frozen=True)
 class Axis:
-    """One grid axis: a name, its cgs unit and strictly increasing positive values."""
+    """One grid axis: a name, its cgs unit and strictly increasing values.
+
+    Values are positive unless ``signed`` (a quantity whose zero point is a convention, such
+    as the specific internal energy).  ``interpolation`` says how the reader interpolates
+    along the axis: in ln(value) (``"log"``; temperature and the pressure-like axes always)
+    or in the value (``"linear"``); it is part of the axis' identity.
+    """
 
     name: str
     unit: str
     values: tuple[float, ...]
     scale: str = field(default="values", compare=False)  # how the values were made; not identity
+    interpolation: str = "log"
+    signed: bool = field(default=False, compare=False)
 
     def __post_init__(self):
         v = np.asarray(self.values, dtype=float)
         if v.ndim != 1 or v.size < 2:
             raise InputError(f"{self.name} axis needs at least 2 values, got {v.size}")
-        if not np.all(np.isfinite(v)) or np.any(v <= 0):
-            raise InputError(f"{self.name} axis values must be finite and positive")
+        if not np.all(np.isfinite(v)) or (not self.signed and np.any(v <= 0)):
+            raise InputError(f"{self.name} axis values must be finite"
+                             f"{'' if self.signed else ' and positive'}")
         if np.any(np.diff(v) <= 0):
             raise InputError(f"{self.name} axis values must be strictly increasing; "
                              f"sort them and remove duplicates")
+        if self.interpolation not in INTERPOLATIONS:
+            raise InputError(f"{self.name}.interpolation must be one of {INTERPOLATIONS}, got "
+                             f"{self.interpolation!r}")
+        if self.interpolation == "log" and np.any(v <= 0):
+            raise InputError(f"{self.name} axis: interpolation in the logarithm needs positive "
+                             f"values (got {v[0]:g}..{v[-1]:g}); use scale = \"linear\" or "
+                             f"interpolation = \"linear\"")
 
     @property
     def array(self) -> np.ndarray:
@@ -202,10 +299,17 @@ class Axis:
         return len(self.values)
 
     @classmethod
-    def from_mapping(cls, name: str, unit: str, m: Mapping[str, Any]) -> "Axis":
-        """Build an axis from ``{scale, min, max, num | per_decade, values, unit}``."""
+    def from_mapping(cls, name: str, unit: str, m: Mapping[str, Any], *,
+                     thermal: bool = False, signed: bool = False) -> "Axis":
+        """Build an axis from ``{scale, min, max, num | per_decade, values, unit}``.
+
+        ``thermal``: an axis that replaces the temperature; it also takes ``interpolation``
+        (default: ``"log"`` for a log-spaced axis, else ``"linear"``).  ``signed``: its values
+        may be zero or negative (then on a linear or explicit scale)."""
         m = _table(m, name)
         known = {"scale", "min", "max", "num", "per_decade", "values", "unit", "quantity"}
+        if thermal:
+            known.add("interpolation")
         extra = set(m) - known
         if extra:
             raise InputError(f"{name} axis: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
@@ -224,8 +328,10 @@ class Axis:
                 if k not in m:
                     raise InputError(f"{name} axis: scale {scale!r} needs 'min' and 'max'")
             lo, hi = _number(m["min"], f"{name}.min"), _number(m["max"], f"{name}.max")
-            if not (0 < lo < hi and math.isfinite(hi)):
-                raise InputError(f"{name} axis: need 0 < min < max, got min={lo}, max={hi}")
+            if not (0 < lo < hi and math.isfinite(hi)) and not (
+                    signed and scale == "linear" and lo < hi):
+                raise InputError(f"{name} axis: need 0 < min < max, got min={lo}, max={hi}"
+                                 f"{' (any sign on a linear scale)' if signed else ''}")
             if "num" in m:
                 num = _integer(m["num"], f"{name}.num")
             elif "per_decade" in m and scale == "log":
@@ -249,7 +355,18 @@ class Axis:
                 vals = convert(vals, unit_of(in_unit, unit, f"{name}.unit"), unit)
             except InputError as exc:
                 raise InputError(f"{name} axis: {exc}") from None
-        return cls(name, unit, tuple(float(x) for x in vals), scale)
+        interp = m.get("interpolation", "log" if scale == "log" or not thermal else "linear")
+        if not isinstance(interp, str):
+            raise InputError(f"{name}.interpolation must be one of {INTERPOLATIONS}, got "
+                             f"{_shown(interp)}")
+        return cls(name, unit, tuple(float(x) for x in vals), scale, interp, signed)
+
+    def to_mapping(self) -> dict:
+        """The axis as explicit values (what the canonical spec holds)."""
+        out = {"scale": "values", "values": list(self.values)}
+        if self.name in THERMAL_CLOSURES:  # temperature and pressure axes: as they always were
+            out = {"quantity": self.name, **out, "interpolation": self.interpolation}
+        return out
 
 
 @dataclass(frozen=True)
@@ -518,7 +635,10 @@ class TableSpec:
     Attributes
     ----------
     temperature : Axis
-        Temperatures [K].
+        The first axis: temperatures [K], or a quantity that replaces the temperature
+        (``temperature.name`` in :data:`TEMPERATURE_QUANTITIES`: ``internal_energy`` with a
+        ``mass_density`` axis, ``entropy`` with ``gas_pressure``; the registry
+        ``THERMAL_CLOSURES``); the temperature is then solved for and stored as a field.
     pressure : Axis
         The pressure-like axis; ``pressure.name`` is one of :data:`PRESSURE_QUANTITIES`.
     composition : dict
@@ -547,6 +667,43 @@ class TableSpec:
     def __post_init__(self):
         if self.composition_axis is not None:
             self.composition_axis.check_base(self.composition)
+        tc = self.thermal
+        if tc is None:
+            if "temperature_range" in self.physics:
+                raise InputError("physics.temperature_range is the search range of the "
+                                 "temperature, for a first axis that replaces it "
+                                 "(temperature.quantity = " +
+                                 " | ".join(repr(k) for k in THERMAL_CLOSURES) + ")")
+            return
+        if self.pressure.name != tc.partner:
+            raise InputError(f"a {tc.name} axis goes with a {tc.partner} axis "
+                             f"(pressure.quantity = \"{tc.partner}\"), got {self.pressure.name}")
+        phys = self.physics
+        if phys["lowering"] or "lowering_ev" in _truncation.resolve(
+                phys["truncation"], phys["lowering"]).inputs:
+            raise InputError(f"a {tc.name} axis needs the thermodynamics, which does not cover "
+                             f"Debye-Hueckel lowering yet: no physics.lowering, no truncation "
+                             f"\"lowered\"")
+        if phys.get("condensates"):
+            raise InputError(f"a {tc.name} axis needs the thermodynamics, which does not cover "
+                             f"condensates yet: physics.condensates = false")
+        # the temperature found, and whether it was found, are always stored
+        q = self.outputs.quantities
+        need = [x for x in ("temperature", "status") if x not in q]
+        if need:
+            object.__setattr__(self, "outputs", replace(self.outputs,
+                                                        quantities=tuple(need) + tuple(q)))
+
+    @property
+    def thermal(self):
+        """The :class:`~sahaboltz.equilibrium.closures.ThermalClosure` of the first axis, or
+        None when it is the temperature."""
+        return THERMAL_CLOSURES.get(self.temperature.name)
+
+    @property
+    def temperature_quantity(self) -> str:
+        """Name of the first axis: ``temperature``, ``internal_energy`` or ``entropy``."""
+        return self.temperature.name
 
     @property
     def shape(self) -> tuple[int, ...]:
@@ -586,9 +743,13 @@ class TableSpec:
         if extra:
             raise InputError(f"table spec: unknown section(s) {sorted(extra)}; known: {sorted(known)}")
         tm = dict(_table(m.get("temperature", DEFAULT_TEMPERATURE), "temperature"))
-        temperature = Axis.from_mapping("temperature", "K", tm)
+        temperature = first_axis(tm)
+        tc = THERMAL_CLOSURES.get(temperature.name)
+        if tc is not None and "pressure" not in m:
+            raise InputError(f"a {tc.name} axis needs its {tc.partner} axis: give [pressure] "
+                             f"with quantity = \"{tc.partner}\" (there is no default)")
         pm = dict(_table(m.get("pressure", DEFAULT_PRESSURE), "pressure"))
-        quantity = pm.get("quantity", "gas_pressure")
+        quantity = pm.get("quantity", "gas_pressure" if tc is None else tc.partner)
         if not isinstance(quantity, str) or quantity not in PRESSURE_QUANTITIES:
             raise InputError(f"pressure.quantity must be one of {list(PRESSURE_QUANTITIES)}, "
                              f"got {quantity!r}")
@@ -629,7 +790,7 @@ class TableSpec:
     def to_mapping(self) -> dict:
         """A mapping that :meth:`from_mapping` reads back to an equal spec (axes as values)."""
         return {
-            "temperature": {"scale": "values", "values": list(self.temperature.values)},
+            "temperature": self.temperature.to_mapping(),
             "pressure": {"quantity": self.pressure.name, "scale": "values",
                          "values": list(self.pressure.values)},
             "composition": (self.composition if self.composition_axis is None else
@@ -648,7 +809,9 @@ class TableSpec:
 
     def describe(self) -> str:
         t, p = self.temperature.array, self.pressure.array
-        text = (f"{len(t)} x {len(p)} grid: T {t[0]:g}..{t[-1]:g} K, {self.pressure.name} "
+        first = ("T" if self.thermal is None else self.temperature.name)
+        text = (f"{len(t)} x {len(p)} grid: {first} {t[0]:g}..{t[-1]:g} "
+                f"{self.temperature.unit}, {self.pressure.name} "
                 f"{p[0]:g}..{p[-1]:g} {self.pressure.unit}")
         ax = self.composition_axis
         if ax is not None:
@@ -656,6 +819,19 @@ class TableSpec:
             text = (f"{len(c)} x {text}, {ax.name} {c[0]:g}..{c[-1]:g}"
                     f"{' ' + ax.unit if ax.unit != '1' else ''}")
         return text
+
+
+def first_axis(m: Mapping[str, Any]) -> Axis:
+    """The first axis of a spec from its ``[temperature]`` section: ``quantity`` (default
+    ``"temperature"``) names it, one of :data:`TEMPERATURE_QUANTITIES`."""
+    quantity = m.get("quantity", "temperature")
+    if not isinstance(quantity, str) or quantity not in TEMPERATURE_QUANTITIES:
+        raise InputError(f"temperature.quantity must be one of {list(TEMPERATURE_QUANTITIES)}, "
+                         f"got {quantity!r}")
+    tc = THERMAL_CLOSURES.get(quantity)
+    if tc is None:
+        return Axis.from_mapping("temperature", "K", m)
+    return Axis.from_mapping(quantity, tc.unit, m, thermal=True, signed=tc.signed)
 
 
 def normalize_composition(c: Any) -> dict:
@@ -719,7 +895,7 @@ def normalize_composition(c: Any) -> dict:
 def _physics(p: Mapping[str, Any]) -> dict:
     p = _table(p, "physics")
     known = {"truncation", "lowering", "molecules", "condensates", "completion", "h_minus",
-             "radiation"}
+             "radiation", "temperature_range"}
     extra = set(p) - known
     if extra:
         raise InputError(f"physics: unknown key(s) {sorted(extra)}; known: {sorted(known)}")
@@ -742,6 +918,15 @@ def _physics(p: Mapping[str, Any]) -> dict:
            "h_minus": _boolean(p.get("h_minus", True), "physics.h_minus")}
     if _boolean(p.get("radiation", False), "physics.radiation"):
         out["radiation"] = True   # only when asked for: existing specs keep their keys
+    if p.get("temperature_range") is not None:   # the search of T for a thermal first axis
+        rng = p["temperature_range"]
+        if not isinstance(rng, (list, tuple)) or len(rng) != 2:
+            raise InputError(f"physics.temperature_range must be [low, high] in K, got "
+                             f"{_shown(rng)}")
+        lo, hi = (_number(x, "physics.temperature_range") for x in rng)
+        if not 0 < lo < hi:
+            raise InputError(f"physics.temperature_range: need 0 < low < high, got {lo}, {hi}")
+        out["temperature_range"] = [lo, hi]
     return out
 
 
@@ -765,26 +950,32 @@ def _molecule_set(value: Any) -> str:
 
 
 def axis_from_text(name: str, unit: str, text: str, scale: str = "log",
-                   option: str | None = None) -> Axis:
+                   option: str | None = None, *, thermal: bool = False,
+                   signed: bool = False) -> Axis:
     """Parse a command-line axis: ``MIN:MAX:NUM`` or a comma-separated list of values, each
     optionally with a unit ("1e2:1e6:9 Pa", "5726.85 degC,8000 K"); ``option`` (e.g.
-    ``--pressure``) names it in errors."""
+    ``--pressure``) names it in errors.  ``thermal`` and ``signed`` as for
+    :meth:`Axis.from_mapping` (a signed quantity may have MIN <= 0 on a linear scale)."""
     from sahaboltz.quantities import parse_range_text, parse_values_text
 
     where = option or name
-    rng = parse_range_text(text, where, unit)
+    kw = {"thermal": thermal, "signed": signed}
+    rng = parse_range_text(text, where, unit, positive=not signed)
     if rng is not None:
         lo, hi, num = rng
-        return Axis.from_mapping(name, unit, {"scale": scale, "min": lo, "max": hi, "num": num})
-    vals = parse_values_text(text, where, unit=unit)
+        return Axis.from_mapping(name, unit, {"scale": scale, "min": lo, "max": hi, "num": num},
+                                 **kw)
+    vals = parse_values_text(text, where, unit=unit, positive=not signed)
     try:
-        return Axis.from_mapping(name, unit, {"scale": "values", "values": list(vals)})
+        return Axis.from_mapping(name, unit, {"scale": "values", "values": list(vals)}, **kw)
     except InputError as exc:
         raise InputError(f"{where}: {exc}") from None
 
 
 def spec_from_options(temperature: str | None = None, pressure: str | None = None, *,
-                      pressure_quantity: str = "gas_pressure", temperature_scale: str = "log",
+                      pressure_quantity: str | None = None, temperature_scale: str = "log",
+                      temperature_quantity: str = "temperature",
+                      temperature_range: Sequence[float] | None = None,
                       pressure_scale: str = "log", composition: str | None = None,
                       truncation: str | None = None, lowering: bool = False,
                       molecules: bool | str = False, condensates: bool = False,
@@ -794,13 +985,28 @@ def spec_from_options(temperature: str | None = None, pressure: str | None = Non
                       quantities: Sequence[str] | None = None,
                       composition_axis: str | None = None) -> TableSpec:
     """Build a spec from command-line style options (defaults: :data:`DEFAULT_TEMPERATURE`, ...);
-    ``composition_axis`` as for ``--composition-axis`` (:func:`composition_axis_from_text`)."""
+    ``composition_axis`` as for ``--composition-axis`` (:func:`composition_axis_from_text`).
+    ``temperature_quantity`` names the first axis (``temperature`` or a quantity that
+    replaces it, whose values ``temperature`` then gives; the pressure quantity defaults to
+    its partner); ``temperature_range`` [K] is where its temperatures are searched."""
+    if temperature_quantity not in TEMPERATURE_QUANTITIES:
+        raise InputError(f"temperature quantity must be one of {list(TEMPERATURE_QUANTITIES)}")
+    tc = THERMAL_CLOSURES.get(temperature_quantity)
+    if pressure_quantity is None:
+        pressure_quantity = "gas_pressure" if tc is None else tc.partner
     if pressure_quantity not in PRESSURE_QUANTITIES:
         raise InputError(f"pressure quantity must be one of {list(PRESSURE_QUANTITIES)}")
     punit = PRESSURE_QUANTITIES[pressure_quantity]
-    t_axis = (axis_from_text("temperature", "K", temperature, temperature_scale,
-                             "-T/--temperature") if temperature
-              else Axis.from_mapping("temperature", "K", DEFAULT_TEMPERATURE))
+    if tc is not None:
+        if not temperature:
+            raise InputError(f"-T/--temperature: give the {tc.name} axis values "
+                             f"[{tc.unit}] (no default for it)")
+        t_axis = axis_from_text(tc.name, tc.unit, temperature, temperature_scale,
+                                "-T/--temperature", thermal=True, signed=tc.signed)
+    else:
+        t_axis = (axis_from_text("temperature", "K", temperature, temperature_scale,
+                                 "-T/--temperature") if temperature
+                  else Axis.from_mapping("temperature", "K", DEFAULT_TEMPERATURE))
     if pressure:
         p_axis = axis_from_text(pressure_quantity, punit, pressure, pressure_scale, "--pressure")
     else:
@@ -826,6 +1032,8 @@ def spec_from_options(temperature: str | None = None, pressure: str | None = Non
                      _physics({"truncation": truncation, "lowering": lowering,
                                "molecules": molecules, "condensates": condensates,
                                "completion": completion,
-                               "h_minus": h_minus}),
+                               "h_minus": h_minus,
+                               "temperature_range": (None if temperature_range is None
+                                                     else list(temperature_range))}),
                      Outputs.from_mapping(out),
                      composition_axis_from_text(composition_axis) if composition_axis else None)
