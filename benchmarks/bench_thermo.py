@@ -10,10 +10,14 @@
    s are computed forward, then the states are found again from (rho, u) and from (P, s).
    Prints the time of each inverse solve and its ratio to the forward solve of the same
    states (a), on its (T, rho) grid, where the temperatures are shared along rows, and (b) at
-   the found, all distinct, temperatures (the same work per state as each Newton pass), and
-   the round-trip errors.
+   the temperatures found (those of the states returned; they differ from the grid's in the
+   last digits, so fewer are shared), and the round-trip errors.  The Newton passes in
+   between run at temperatures of their own for every state.
 
-    python benchmarks/bench_thermo.py [--nt 200] [--np 200] [--inverse-n 60] [--repeat 2]
+Times are process CPU time (the machine is shared); each figure is the best ("min") and the
+median of --repeat runs, and the ratios are formed from both.
+
+    python benchmarks/bench_thermo.py [--nt 200] [--np 200] [--inverse-n 60] [--repeat 3]
 """
 
 from __future__ import annotations
@@ -28,13 +32,20 @@ from sahaboltz.data.composition import solar
 from sahaboltz.equilibrium import AtomicNetwork, solve_equilibrium
 
 
-def _best(fn, repeat):
-    best, out = np.inf, None
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        out = fn()
-        best = min(best, time.perf_counter() - t0)
-    return best, out
+def _timed(fn):
+    t0 = time.process_time()
+    out = fn()
+    return time.process_time() - t0, out
+
+
+def _stats(times) -> tuple[float, float]:
+    """(min, median) of repeated times."""
+    return float(np.min(times)), float(np.median(times))
+
+
+def _ratio(num, den) -> str:
+    (n0, n1), (d0, d1) = _stats(num), _stats(den)
+    return f"{n0 / d0:.2f} min / {n1 / d1:.2f} median"
 
 
 def main(argv=None) -> None:
@@ -42,7 +53,7 @@ def main(argv=None) -> None:
     ap.add_argument("--nt", type=int, default=200)
     ap.add_argument("--np", dest="npr", type=int, default=200)
     ap.add_argument("--inverse-n", type=int, default=60)
-    ap.add_argument("--repeat", type=int, default=2)
+    ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--skip-grid", action="store_true", help="only the inverse closures")
     ap.add_argument("--skip-inverse", action="store_true", help="only the 200 x 200 grid")
     ap.add_argument("--physics", default="plain,default",
@@ -62,18 +73,17 @@ def main(argv=None) -> None:
         print(f"grid: {args.nt} x {args.npr} (T, P_gas) states, solar mixture, "
               f"{next(iter(nets.values())).n_species} species")
         for name, net in nets.items():
-            t_solve = t_thermo = np.inf
+            t_solve, t_thermo = [], []
             for _ in range(args.repeat):
-                t0 = time.perf_counter()
-                st = solve_equilibrium(comp, tt, gas_pressure=pp, network=net,
-                                       truncation=net.truncation)
-                t1 = time.perf_counter()
-                th = st.thermodynamics()
-                t2 = time.perf_counter()
-                t_solve, t_thermo = min(t_solve, t1 - t0), min(t_thermo, t2 - t1)
+                dt, st = _timed(lambda: solve_equilibrium(comp, tt, gas_pressure=pp, network=net,
+                                                          truncation=net.truncation))
+                t_solve.append(dt)
+                dt, th = _timed(st.thermodynamics)
+                t_thermo.append(dt)
             finite = np.isfinite(th.gamma1).mean()
-            print(f"  {name:7s}: solve {t_solve:6.2f} s, thermodynamics {t_thermo:6.2f} s, "
-                  f"ratio {t_thermo / t_solve:.2f} (best of {args.repeat}); "
+            (s0, s1), (h0, h1) = _stats(t_solve), _stats(t_thermo)
+            print(f"  {name:7s}: solve {s0:6.2f} s (median {s1:.2f}), thermodynamics {h0:6.2f} s "
+                  f"(median {h1:.2f}), ratio {_ratio(t_thermo, t_solve)} ({args.repeat} runs); "
                   f"nabla_ad in [{np.nanmin(th.adiabatic_gradient):.3f}, "
                   f"{np.nanmax(th.adiabatic_gradient):.3f}], finite {finite:.0%}")
 
@@ -84,22 +94,32 @@ def main(argv=None) -> None:
     print(f"inverse closures: {n} x {n} states (T = 2,000 K - 1e6 K, rho = 1e-12 - 1e-2 g cm^-3)")
     for name, net in nets.items():
         kw = {"network": net, "truncation": net.truncation}
-        t_fwd, st = _best(lambda: solve_equilibrium(comp, tt, mass_density=rr, **kw), 1)
-        u, s, p = st.internal_energy, st.entropy, st.gas_pressure
-        t_u, back_u = _best(lambda: solve_equilibrium(comp, mass_density=rr,
-                                                      internal_energy=u, **kw), 1)
-        t_s, back_s = _best(lambda: solve_equilibrium(comp, gas_pressure=p, entropy=s, **kw), 1)
-        t_dist, _ = _best(lambda: solve_equilibrium(comp, back_u.temperature, mass_density=rr,
-                                                    **kw), 1)
+        t_fwd, t_u, t_s, t_dist = [], [], [], []
+        for _ in range(args.repeat):
+            dt, st = _timed(lambda: solve_equilibrium(comp, tt, mass_density=rr, **kw))
+            t_fwd.append(dt)
+            u, s, p = st.internal_energy, st.entropy, st.gas_pressure
+            dt, back_u = _timed(lambda: solve_equilibrium(comp, mass_density=rr,
+                                                          internal_energy=u, **kw))
+            t_u.append(dt)
+            dt, back_s = _timed(lambda: solve_equilibrium(comp, gas_pressure=p, entropy=s, **kw))
+            t_s.append(dt)
+            dt, _ = _timed(lambda: solve_equilibrium(comp, back_u.temperature, mass_density=rr,
+                                                     **kw))
+            t_dist.append(dt)
         err_u = np.nanmax(np.abs(back_u.internal_energy / u - 1))
         err_s = np.nanmax(np.abs(back_s.entropy / s - 1))
         err_t = max(np.nanmax(np.abs(back_u.temperature / tt - 1)),
                     np.nanmax(np.abs(back_s.temperature / tt - 1)))
-        print(f"  {name:7s}: forward {t_fwd:6.2f} s on the grid, {t_dist:6.2f} s at distinct T; "
-              f"(rho, u) {t_u:6.2f} s = {t_u / t_fwd:.1f}x grid / {t_u / t_dist:.1f}x distinct; "
-              f"(P, s) {t_s:6.2f} s = {t_s / t_fwd:.1f}x / {t_s / t_dist:.1f}x; round trips: "
-              f"u {err_u:.1e}, s {err_s:.1e}, T {err_t:.1e}")
-
+        n_t = np.unique(back_u.temperature).size
+        print(f"  {name:7s}: forward {_stats(t_fwd)[0]:6.2f} s on the grid ({n} temperatures), "
+              f"{_stats(t_dist)[0]:6.2f} s at the found ones ({n_t} distinct) "
+              f"(min of {args.repeat})")
+        print(f"           (rho, u) {_stats(t_u)[0]:6.2f} s (median {_stats(t_u)[1]:.2f}) = "
+              f"{_ratio(t_u, t_fwd)} x grid, {_ratio(t_u, t_dist)} x distinct")
+        print(f"           (P, s)   {_stats(t_s)[0]:6.2f} s (median {_stats(t_s)[1]:.2f}) = "
+              f"{_ratio(t_s, t_fwd)} x grid, {_ratio(t_s, t_dist)} x distinct")
+        print(f"           round trips: u {err_u:.1e}, s {err_s:.1e}, T {err_t:.1e}")
 
 if __name__ == "__main__":
     main()

@@ -392,3 +392,22 @@ def test_molecules_with_occupation_weights_exact_derivatives():
                                atol=1e-9 * np.abs(th.internal_energy).max())
     np.testing.assert_allclose(th.chi_rho, (np.log(rp.pressure) - np.log(rd.pressure)) / (2 * h),
                                rtol=1e-6)
+
+
+@pytest.mark.parametrize("truncation", ["plain", None])
+def test_compiled_and_numpy_stage_sums_agree(monkeypatch, truncation):
+    # the compiled per-state stage sums against the numpy path of the same formulas (the
+    # reference, SAHABOLTZ_NO_NUMBA=1), across the ionization of H, He and the metals
+    from sahaboltz.equilibrium.thermodynamics import thermodynamics
+    t, p = np.meshgrid(np.geomspace(2500.0, 3e5, 12), [1e-2, 1e4, 1e8], indexing="ij")
+    st = solve(solar(), t, gas_pressure=p, truncation=truncation)
+    fast = thermodynamics(st)
+    monkeypatch.setenv("SAHABOLTZ_NO_NUMBA", "1")
+    slow = thermodynamics(st)
+    for name in ("internal_energy", "entropy", "du_dlnt", "ds_dlnt", "ds_dlnrho", "chi_t",
+                 "chi_rho", "gamma1", "adiabatic_gradient", "heat_capacity_p"):
+        np.testing.assert_allclose(getattr(fast, name), getattr(slow, name), rtol=1e-11,
+                                   err_msg=name)
+    # (du/d ln rho)_T vanishes where nothing ionizes: compared on the scale of u
+    np.testing.assert_allclose(fast.du_dlnrho, slow.du_dlnrho,
+                               atol=1e-12 * np.abs(slow.internal_energy).max())

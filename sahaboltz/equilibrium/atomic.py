@@ -67,13 +67,18 @@ def solve_atomic(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closure: 
     """
     shape = t.shape
     tf, vf = t.ravel().copy(), v.ravel().copy()
-    x, nuc, lam, report, status, reason = _solve_flat(network, tf, vf, closure, lowering,
-                                                      tolerance, int(max_passes), shape)
-    return EquilibriumState(network=network, temperature=t.copy(), log_ne=x.reshape(shape),
-                            nuclei_density=nuc.reshape(shape), closure=closure.name,
-                            closure_value=v.copy(), lowering=lowering,
-                            debye_length=None if lam is None else lam.reshape(shape),
-                            report=report, status=status, reason=reason)
+    x, nuc, lam, report, status, reason, tables = _solve_flat(
+        network, tf, vf, closure, lowering, tolerance, int(max_passes), shape)
+    state = EquilibriumState(network=network, temperature=t.copy(), log_ne=x.reshape(shape),
+                             nuclei_density=nuc.reshape(shape), closure=closure.name,
+                             closure_value=v.copy(), lowering=lowering,
+                             debye_length=None if lam is None else lam.reshape(shape),
+                             report=report, status=status, reason=reason)
+    if tables is not None and tables[0].size * network.n_species <= _KEPT_TABLE_ELEMENTS:
+        # the thermodynamics needs the same tables (their significance windows): kept until
+        # it has run
+        state.saha_tables = tables
+    return state
 
 
 def _fixed_densities(network: AtomicNetwork, closure: Closure, t, v):
@@ -179,8 +184,12 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
     if lam_out is not None:
         lam_out[failed] = np.nan
     return (x_out, nuc_out, lam_out, SolveReport(passes.reshape(shape), resid.reshape(shape)),
-            status, reason)
+            status, reason, None if c_unique is None else (ut, c_unique))
 
+
+# the Saha tables of a solve (stages x distinct temperatures) are kept on its state for its
+# thermodynamics up to this size (64 MB)
+_KEPT_TABLE_ELEMENTS = 1 << 23
 
 #: the default of ``max_passes``; a smaller limit is the first suspect of a failure
 DEFAULT_MAX_PASSES = 200

@@ -709,7 +709,8 @@ class CompiledSolver:
                                         for c in chains]).astype(np.int64)
             self.bare = np.ascontiguousarray(np.concatenate(bare, axis=0).T)
             self.lu_first = np.ascontiguousarray(
-                np.stack([network.log_u(c, self.t_u)[0] for c in chains], axis=1))
+                np.stack([network.log_u(c, self.t_u, first_only=True)[0] for c in chains],
+                         axis=1))
             self.levels = (model._starts.astype(np.int64), model._counts.astype(np.int64),
                            model._e, model._lng, model._lng_max, model._q_stark)
         else:

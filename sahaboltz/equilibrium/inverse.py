@@ -66,18 +66,19 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         tau, lo, hi, outside = _start_table(table, target, vinv, log_lo, log_hi)
         _out_of_range(closure, target, partner, outside, t_range, status, reason, done)
     else:
-        # many distinct partner values: start from a table on a coarse grid of them,
-        # interpolated in ln(partner) (a start only: the brackets stay the whole range)
+        # many distinct partner values: a table on a coarse grid of them, its y and slopes
+        # interpolated in ln(partner) to each state's partner value (y is close to linear
+        # in it: exactly so for an ideal gas of fixed composition), then the start as above
+        # (a start only: the brackets stay the whole range)
         lv = np.log(partner)
         nc = int(np.clip(m // (2 * _GRID), _COARSE, 4 * _COARSE))
         grid_v = np.exp(np.linspace(lv.min(), lv.max(), nc))
         pos = np.interp(lv, np.log(grid_v), np.arange(nc))
         i0 = np.minimum(np.floor(pos).astype(int), nc - 2)
-        w = pos - i0
-        table = _grid_values(forward, closure, grid_v, log_lo, log_hi)
-        t0 = _start_table(table, target, i0, log_lo, log_hi)[0]
-        t1 = _start_table(table, target, i0 + 1, log_lo, log_hi)[0]
-        tau = (1.0 - w) * t0 + w * t1
+        w = (pos - i0)[:, None]
+        y, dy = _grid_values(forward, closure, grid_v, log_lo, log_hi)
+        own = ((1.0 - w) * y[i0] + w * y[i0 + 1], (1.0 - w) * dy[i0] + w * dy[i0 + 1])
+        tau = _start_table(own, target, np.arange(m), log_lo, log_hi)[0]
     active = np.flatnonzero(~done)
     for _ in range(_MAX_PASSES):
         if not active.size:

@@ -224,11 +224,12 @@ class AtomicNetwork:
         return out, der
 
     def log_u(self, chain: Chain, t: np.ndarray, n_e: np.ndarray | None = None,
-              debye_length: np.ndarray | None = None) -> np.ndarray:
+              debye_length: np.ndarray | None = None, first_only: bool = False) -> np.ndarray:
         """ln U of every stage of a chain at the flat states (t, n_e), as the solver uses them:
         with the truncation scheme's n_e (default: its low-density limit) and, for schemes cut
         at the lowered limit, the Debye-Hueckel lowering of ``debye_length``.  Stages without
-        levels and H- have U = 1.  Shape (chain.n, n)."""
+        levels and H- have U = 1.  Shape (chain.n, n); with ``first_only`` only the first
+        stage is evaluated (the other rows stay 0)."""
         n = t.shape[0]
         ln_u = np.zeros((chain.n, n))
         neg = self.negative_ion_log_u(chain, t, n_e)
@@ -237,6 +238,9 @@ class AtomicNetwork:
         if chain.model is None:
             return ln_u
         has = chain.model_rows >= 0
+        pick = has & (np.arange(chain.n) == 0) if first_only else has
+        if not pick.any():
+            return ln_u
         kw = {}
         if "lowering_ev" in self.scheme.inputs:
             low = (np.zeros((chain.model.n_species, n)) if debye_length is None else
@@ -248,14 +252,16 @@ class AtomicNetwork:
         elif self.scheme.density_dependent:
             # every (stage, state) pair through the pair sums (compiled where available)
             ne = np.full(n, self.LIMIT_DENSITY) if n_e is None else np.asarray(n_e, float)
-            k = chain.model.n_species
+            rows = chain.model_rows[pick]
+            k = rows.size
             _, tinv = np.unique(t, return_inverse=True)
-            u = chain.model.evaluate_pairs(t, ne, np.repeat(np.arange(k), n),
+            u = chain.model.evaluate_pairs(t, ne, np.repeat(rows, n),
                                            want_temperature=False, temperature_index=tinv,
                                            states=np.tile(np.arange(n), k))[0]
-            ln_u[has] = np.log(u.reshape(k, n))
+            ln_u[pick] = np.log(u.reshape(k, n))
             return ln_u
-        ln_u[has] = np.log(chain.model.evaluate(t, **kw))
+        u = chain.model.evaluate(t, **kw)
+        ln_u[pick] = np.log(u if pick is has else u[chain.model_rows[pick]])
         return ln_u
 
     def log_u_pairs(self, chain: Chain, t: np.ndarray, n_e: np.ndarray, rows: np.ndarray,

@@ -101,6 +101,10 @@ class EquilibriumState:
         self._debye = debye_length
         self.report = report
         self._cache: dict[int, np.ndarray] = {}
+        #: (distinct temperatures, C_q of every chain there) of the solve, as the solver
+        #: formed them (low-density-limit U), or None: read (and dropped) by the
+        #: thermodynamics
+        self.saha_tables = None
 
     # -- bulk quantities ---------------------------------------------------------------------
     @property
@@ -189,6 +193,7 @@ class EquilibriumState:
         cache = self.__dict__.setdefault("_thermo_cache", {})
         if rad not in cache:
             cache[rad] = thermodynamics(self, radiation=rad)
+            self.saha_tables = None
         return cache[rad]
 
     # -- populations -----------------------------------------------------------------------

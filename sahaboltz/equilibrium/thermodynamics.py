@@ -60,6 +60,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from sahaboltz.constants import A_RAD, AMU, K_B, K_B_EV, M_E
+from sahaboltz.equilibrium import compiled_thermodynamics as _compiled_sums
 from sahaboltz.equilibrium.thermo_quantities import QUANTITIES
 from sahaboltz.errors import InputError
 from sahaboltz.kernels.plasma import _log_quantum_concentration
@@ -252,9 +253,10 @@ def _stage_energies(chain) -> np.ndarray:
     return cum - cum[i0]
 
 
-def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut):
+def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut, factors):
     """(ln U, U_T, U_n, U_TT, U_Tn) of a chain's stages ``rows`` (W, m) where ``inside``;
-    the density derivatives only with density-dependent weights."""
+    the density derivatives only with density-dependent weights (``factors``: the weights'
+    state factors, ``PartitionModel.log_derivative_state_factors``)."""
     w, m = rows.shape
     out = [np.zeros((w, m)) for _ in range(5)]
     mrow = chain.model_rows[rows]
@@ -271,7 +273,7 @@ def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut):
                 a[r, j] = v[inv]
         else:
             vals = model.pair_log_derivatives(t, ne, chain.model_offset + mrow[r, j],
-                                              states=j)
+                                              states=j, state_factors=factors)
             for a, v in zip(out, vals):
                 a[r, j] = v
     if chain.charges[0] < 0 and not net.ideal:
@@ -320,6 +322,18 @@ def _window(sig: np.ndarray, forced: list) -> np.ndarray:
     return s0[None, :] + np.arange(width)[:, None]
 
 
+def _saha_table(state, chain, ut) -> np.ndarray:
+    """C_q of a chain at the temperatures ``ut`` with the low-density-limit U: the columns
+    of the solver's own tables where the state kept them, else computed."""
+    kept = getattr(state, "saha_tables", None)
+    if kept is not None:
+        t_kept, tables = kept
+        pos = np.searchsorted(t_kept, ut)
+        if pos.size and pos[-1] < t_kept.size and np.array_equal(t_kept[pos], ut):
+            return tables[chain.k][:, pos]
+    return state.network.log_c(chain, ut)
+
+
 def _chunk(state, sel) -> dict:
     net = state.network
     comp = state.composition
@@ -346,9 +360,14 @@ def _chunk(state, sel) -> dict:
         for comps in system._comp:
             for p, row in comps:
                 comp_rows.setdefault(p, set()).add(row)
+    factors = (None if net.ideal or net.model is None
+               else net.model.log_derivative_state_factors(t, ne))
     mat = np.zeros((m, r_dim, r_dim))
     rhs = np.zeros((m, r_dim, 2))
-    elim = []                                           # eliminated chains' sums
+    # the eliminated chains' shares (_compiled_sums.eliminated_increments), summed
+    acc = np.zeros((_compiled_sums.N_ACC, m))
+    frac_elim = 0.0
+    fast = _compiled_sums.available()
     kept = {}                                           # position -> per-stage arrays
     s_corr = np.zeros(m)
     for c in net.chains:
@@ -365,8 +384,8 @@ def _chunk(state, sel) -> dict:
             sig = a0 + u_hi[:, None] >= (a0 + u_lo[:, None]).max(axis=0) - thr
         else:
             # ln U at each distinct T (exact for T-only U; for density-dependent U their
-            # low-density limit, which bounds each from above)
-            lim = net.log_c(c, ut)
+            # low-density limit, which bounds each from above): the solver's tables
+            lim = _saha_table(state, c, ut)
             a0 = lim[:, tinv] - np.multiply.outer(c.charges, x)
             sig = a0 >= a0.max(axis=0) - thr
         p = mol_pos.get(c.k)
@@ -375,8 +394,17 @@ def _chunk(state, sel) -> dict:
         inside = np.take_along_axis(sig, rows, axis=0)
         for row in forced:
             inside |= rows == row
+        terms = _log_u_terms(net, c, rows, inside, t, ne, tinv, ut, factors)
+        mass_term = 1.5 * np.log(weights[c.k] * AMU / M_E)
+        if p is None:
+            frac_elim += c.fraction
+        if p is None and fast:
+            _compiled_sums.eliminated_chain_sums(rows, inside, bare, tinv, x, c.charges,
+                                                 _stage_energies(c), beta, terms,
+                                                 nuc * c.fraction, lq, mass_term, lam_ch, acc)
+            continue
         q = c.charges[rows]
-        lu, u_t, u_n, u_tt, u_tn = _log_u_terms(net, c, rows, inside, t, ne, tinv, ut)
+        lu, u_t, u_n, u_tt, u_tn = terms
         ln_rel = np.take(bare.ravel(), rows * ut.size + tinv[None, :]) + lu - q * x[None, :]
         ln_rel = np.where(inside, ln_rel, -np.inf)
         if p is None:
@@ -399,9 +427,8 @@ def _chunk(state, sel) -> dict:
         def take(arr):
             return np.take_along_axis(arr, r, axis=0)[0]
 
-        ln_q_r = lq + 1.5 * np.log(weights[c.k] * AMU / M_E) + take(lu) - take(eb)
+        ln_q_r = lq + mass_term + take(lu) - take(eb)
         lam_k = take(ln_n) - ln_q_r - take(q) * lam_ch
-        s_corr += nuc * c.fraction * lam_k
         nq = n * q
         nd = n * d
         na = n * a
@@ -414,12 +441,11 @@ def _chunk(state, sel) -> dict:
               "Saq": (na * (q - d)).sum(axis=0), "Sb": (n * b).sum(axis=0),
               "Sc": (n * cc).sum(axis=0)}
         if p is None:
-            s0 = st["S0"]
-            mat[:, ch, ch] += (st["Sqq"] - st["SqD"]) - st["Sq"] * (st["Sq"] - st["SD"]) / s0
-            rhs[:, ch, 0] -= st["SqA"] - st["Sq"] * st["SA"] / s0
-            rhs[:, ch, 1] -= st["Sq"] * st["Na"] / s0
-            elim.append(st)
+            acc += np.array(_compiled_sums.eliminated_increments(
+                *(st[k] for k in ("S0", "Sq", "Sqq", "SD", "SqD", "SA", "SqA", "Sa", "SaA",
+                                  "Saq", "Sb", "Sc", "Na", "lam"))))
         else:
+            s_corr += st["Na"] * lam_k
             mat[:, p, p] += st["S0"]
             mat[:, p, ch] += st["Sq"] - st["SD"]
             mat[:, ch, p] += st["Sq"]
@@ -458,6 +484,9 @@ def _chunk(state, sel) -> dict:
         mat[:, :, ch] -= np.einsum("im,ir->mr", n_m * d_m, nu_hat)
         rhs[:, :, 0] -= np.einsum("im,ir->mr", n_m * big_am, nu_hat)
         mol = {"n": n_m, "a": a_m, "b": b_m, "d": d_m, "c": c_m, "A": big_am, "nu": nu_hat}
+    mat[:, ch, ch] += acc[0]
+    rhs[:, ch, 0] += acc[1]
+    rhs[:, ch, 1] += acc[2]
     # electrons
     mat[:, ch, ch] += ne
     rhs[:, ch, 0] += 1.5 * ne
@@ -484,10 +513,15 @@ def _chunk(state, sel) -> dict:
                + st["Saq"][:, None] * dlam_ch + st["Sc"][:, None] * dz)
         return dn, dea
 
-    eliminated = [(st, (np.stack([-st["SA"], st["Na"]], axis=1)
-                        - (st["Sq"] - st["SD"])[:, None] * dlam_ch) / st["S0"][:, None])
-                  for st in elim]
-    for st, dlam_k in eliminated + [(st, dl[:, p, :]) for p, st in kept.items()]:
+    # the eliminated chains: their particles do not move at fixed N, the rest is P + Q dlam_ch
+    out_n[:, 1] += nuc * frac_elim
+    out_ea += acc[6:8].T + acc[8][:, None] * dlam_ch
+    out_lam += acc[9:11].T + acc[11][:, None] * dlam_ch
+    n_tot += acc[3]
+    ea += acc[4]
+    s_corr += acc[5]
+    for p, st in kept.items():
+        dlam_k = dl[:, p, :]
         dn, dea = chain_terms(st, dlam_k)
         out_n += dn
         out_ea += dea
@@ -505,9 +539,7 @@ def _chunk(state, sel) -> dict:
                    + (n_m * mol["c"]).sum(axis=0)[:, None] * dz)
         n_tot += n_m.sum(axis=0)
         ea += (n_m * mol["a"]).sum(axis=0)
-    lam_sum = np.zeros(m)
-    for st in elim + list(kept.values()):
-        lam_sum += st["Na"] * st["lam"]
+    lam_sum = s_corr                                    # sum_k N alpha_k lambda_k
     return {"n_tot": n_tot, "dn_t": out_n[:, 0], "dn_n": out_n[:, 1], "ea": ea,
             "dea_t": out_ea[:, 0], "dea_n": out_ea[:, 1], "s_corr": s_corr,
             "ds_corr_t": out_lam[:, 0], "ds_corr_n": out_lam[:, 1] + lam_sum}

@@ -36,21 +36,29 @@ def available() -> bool:
 def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows):
     """The Boltzmann factors exp(ln g - beta E - shift[row]) of the levels of each
     (temperature ``tidx[k]``, species ``rows[k]``) that occurs among the pairs k, once each:
-    (offset of each pair's levels in the table, table)."""
+    (offset of each pair's levels in the table, table).  The slots are indexed by the
+    species that occur (few per call), not all ``n_rows``: with many distinct temperatures
+    a dense (temperature x species) index would cost more than the table."""
     npair = tidx.size
-    slot = np.full(beta_u.size * n_rows, -1, dtype=np.int64)
+    local = np.full(n_rows, -1, dtype=np.int64)
+    n_local = 0
+    for k in range(npair):
+        if local[rows[k]] < 0:
+            local[rows[k]] = n_local
+            n_local += 1
+    slot = np.full(beta_u.size * n_local, -1, dtype=np.int64)
     offset = np.empty(npair, dtype=np.int64)
     total = 0
     for k in range(npair):
-        key = tidx[k] * n_rows + rows[k]
+        key = tidx[k] * n_local + local[rows[k]]
         if slot[key] < 0:
             slot[key] = total
             total += count[k]
         offset[k] = slot[key]
     table = np.empty(total)
-    filled = np.zeros(beta_u.size * n_rows, dtype=np.bool_)
+    filled = np.zeros(beta_u.size * n_local, dtype=np.bool_)
     for k in range(npair):
-        key = tidx[k] * n_rows + rows[k]
+        key = tidx[k] * n_local + local[rows[k]]
         if not filled[key]:
             filled[key] = True
             bk = beta_u[tidx[k]]
@@ -109,9 +117,11 @@ def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, co
 
 if numba is not None:  # pragma: no branch
     _boltzmann_table = numba.njit(cache=True, nogil=True)(_boltzmann_table)
+    # error_model="numpy": a division cannot raise (no branch per level), so the compiler
+    # vectorizes the level loops
     _occupation_pair_sums_jit = numba.njit(
-        cache=True, nogil=True, fastmath={"reassoc", "contract", "arcp", "nsz"})(
-        _occupation_pair_sums)
+        cache=True, nogil=True, error_model="numpy",
+        fastmath={"reassoc", "contract", "arcp", "nsz"})(_occupation_pair_sums)
 
 
 def occupation_pair_sums(tidx, rows, beta_u, stark, slopes, nn, start, count, e, lng, q, r3,

@@ -408,8 +408,8 @@ class PartitionModel:
         return u, None if u1 is None else u1 / u, u2 / u
 
     def pair_log_derivatives(self, temperature: np.ndarray, n_e: np.ndarray | None,
-                             rows: np.ndarray, states: np.ndarray | None = None
-                             ) -> tuple[np.ndarray, ...]:
+                             rows: np.ndarray, states: np.ndarray | None = None,
+                             state_factors: dict | None = None) -> tuple[np.ndarray, ...]:
         """ln U and its first and second derivatives in (ln T, ln n_e) for the flat pairs
         (state, species ``rows[p]``), unchecked float arrays as in :meth:`evaluate_pairs`.
 
@@ -422,7 +422,9 @@ class PartitionModel:
 
         Returns (ln U, U_T, U_n, U_TT, U_Tn), each of shape ``rows.shape``; the density
         derivatives are 0 for schemes whose weights do not depend on n_e.  Schemes with a
-        per-state lowering are not supported.
+        per-state lowering are not supported.  ``state_factors``: those of
+        :meth:`log_derivative_state_factors` for these (temperature, n_e), when a caller
+        evaluates several sets of pairs of the same states.
         """
         if "lowering_ev" in self.scheme.inputs:
             raise InputError("pair_log_derivatives: a lowering per state is not supported")
@@ -436,7 +438,10 @@ class PartitionModel:
                               else np.asarray(n_e, dtype=float))}
         dens = self.scheme.density_dependent and n_e is not None
         if dens:
-            self.scheme.prepare_curvature_pairs(self, pst)
+            if state_factors is None:
+                self.scheme.prepare_curvature_pairs(self, pst)
+            else:
+                pst.update(state_factors)
         if states is not None:
             pst = _per_pair(pst, states)
         t = pst["T"]
@@ -495,6 +500,14 @@ class PartitionModel:
                 u_n[p0:p1] = m_d
                 u_tn[p0:p1] = mean(de_c * (d - np.repeat(m_d, cnt))) + mean(dd)
         return out
+
+    def log_derivative_state_factors(self, temperature: np.ndarray, n_e: np.ndarray) -> dict:
+        """The scheme's factors of each state (temperature, n_e) that
+        :meth:`pair_log_derivatives` needs (empty for weights independent of n_e)."""
+        pst = {"T": np.asarray(temperature, dtype=float), "ne": np.asarray(n_e, dtype=float)}
+        if self.scheme.density_dependent:
+            self.scheme.prepare_curvature_pairs(self, pst)
+        return {k: v for k, v in pst.items() if k not in ("T", "ne")}
 
     def level_terms(self, species, temperature: Any, n_e: Any = None, lowering_ev: Any = None,
                     n_neutral: Any = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

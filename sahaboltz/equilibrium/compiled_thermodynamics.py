@@ -1,0 +1,135 @@
+"""The stage sums of the thermodynamics, state by state in one compiled loop (numba).
+
+For every element in no molecule, :func:`sahaboltz.equilibrium.thermodynamics.thermodynamics`
+needs per state a dozen sums over the stages of its window (n_j, n_j q_j, n_j a_j, ...), and
+from them the element's share of the charge equation and of the derivatives.  In numpy each
+is a pass over a (stages x states) temporary, for every element; this loop keeps a state's
+window in registers.  The formulas of the stage terms are those of the numpy path in
+thermodynamics.py (the reference, which runs without numba or with SAHABOLTZ_NO_NUMBA=1);
+:func:`eliminated_increments` is shared by both, and tests/test_thermodynamics.py checks that
+the two paths agree.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from sahaboltz.kernels import compiled as _compiled
+
+__all__ = ["available", "eliminated_increments", "eliminated_chain_sums", "N_ACC"]
+
+#: rows of the accumulator (see :func:`eliminated_increments`)
+N_ACC = 12
+
+
+def available() -> bool:
+    return _compiled.available()
+
+
+def eliminated_increments(s0, sq, sqq, sd, sqd, sa_big, sqa_big, sa, saa_big, saq, sb, sc,
+                          na, lam):
+    """An element's share, eliminated by hand (a diagonal block of the Jacobian), from its
+    stage sums (S0 = sum n, Sq = sum n q, SD = sum n D, SA = sum n A, Sa = sum n a, ...;
+    ``na`` = N alpha, ``lam`` its potential).  Returns the increments of
+
+        0 the charge-charge Jacobian entry, 1-2 the charge row's right-hand sides (d ln T,
+        d ln N), 3 n_tot, 4 sum n a, 5 sum N alpha lambda, and the terms of the derivatives
+        as P + Q d lambda_ch once the charge potential is known: 6-7 of sum n a (P for
+        d ln T and d ln N), 8 its Q, 9-10 of sum N alpha lambda, 11 its Q.
+
+    With d lambda_k = ((-SA, N alpha) - (Sq - SD) d lambda_ch) / S0 the element's particle
+    count does not move at fixed N (its d n = (0, N alpha)), and
+    d(sum n a) = (SaA + Sb) e_T + Sa d lambda_k + Saq d lambda_ch + Sc (1.5 e_T - d lambda_ch).
+    """
+    inv = 1.0 / s0
+    qd = sq - sd
+    return (sqq - sqd - sq * qd * inv, -(sqa_big - sq * sa_big * inv), -sq * na * inv,
+            s0, sa, na * lam,
+            saa_big + sb + 1.5 * sc - sa * sa_big * inv, sa * na * inv, saq - sa * qd * inv - sc,
+            -na * sa_big * inv, na * na * inv, -na * qd * inv)
+
+
+def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u_n, u_tt, u_tn,
+                na, lq, mass_term, lam_ch, acc):
+    """Add one element's :func:`eliminated_increments` to ``acc`` (N_ACC, m) at every state.
+
+    ``rows``/``inside`` (W, m): the window's stages and which of them count; ``bare`` the
+    element's T-only C_q at the distinct temperatures ``tinv`` indexes; ``lu`` ... ``u_tn``
+    (W, m) ln U and its derivatives; ``na`` = N alpha; ``lq`` the electron's
+    ln (2 pi m_e k T / h^2)^{3/2}, ``mass_term`` = 1.5 ln(m / m_e) of the element."""
+    w, m = rows.shape
+    lr = np.empty(w)                                   # ln of relative populations, then them
+    for i in range(m):
+        xi = x[i]
+        ti = tinv[i]
+        top = -np.inf
+        for j in range(w):
+            if inside[j, i]:
+                v = bare[rows[j, i], ti] + lu[j, i] - charges[rows[j, i]] * xi
+                lr[j] = v
+                if v > top:
+                    top = v
+            else:
+                lr[j] = -np.inf
+        tot = 0.0
+        for j in range(w):
+            if inside[j, i]:
+                lr[j] = np.exp(lr[j] - top)          # relative population
+                tot += lr[j]
+        scale = na[i] / tot
+        bi = beta[i]
+        s0 = sq = sqq = sd = sqd = sa_big = sqa_big = sa = saa_big = saq = sb = sc = 0.0
+        best = -1.0
+        r = 0
+        for j in range(w):
+            if not inside[j, i]:
+                continue
+            if lr[j] > best:
+                best = lr[j]
+                r = j
+            n = lr[j] * scale
+            q = charges[rows[j, i]]
+            eb = energies[rows[j, i]] * bi
+            a = 1.5 + u_t[j, i] + eb
+            b = u_tt[j, i] - eb
+            d = u_n[j, i]
+            big_a = a + 1.5 * d
+            nq = n * q
+            na_ = n * a
+            s0 += n
+            sq += nq
+            sqq += nq * q
+            sd += n * d
+            sqd += nq * d
+            sa_big += n * big_a
+            sqa_big += nq * big_a
+            sa += na_
+            saa_big += na_ * big_a
+            saq += na_ * (q - d)
+            sb += n * b
+            sc += n * u_tn[j, i]
+        eb_r = energies[rows[r, i]] * bi
+        ln_n_r = np.log(best * scale)
+        lam = ln_n_r - (lq[i] + mass_term + lu[r, i] - eb_r) - charges[rows[r, i]] * lam_ch[i]
+        inc = _increments(s0, sq, sqq, sd, sqd, sa_big, sqa_big, sa, saa_big, saq, sb, sc,
+                          na[i], lam)
+        for k in range(N_ACC):
+            acc[k, i] += inc[k]
+
+
+_increments = eliminated_increments
+if _compiled.numba is not None:  # pragma: no branch
+    _increments = _compiled.numba.njit(cache=True, nogil=True)(eliminated_increments)
+    _chain_sums_jit = _compiled.numba.njit(cache=True, nogil=True, error_model="numpy")(
+        _chain_sums)
+
+
+def eliminated_chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, terms, na, lq,
+                          mass_term, lam_ch, acc) -> None:
+    """Compiled :func:`_chain_sums` (``terms`` = (ln U, U_T, U_n, U_TT, U_Tn), each (W, m))."""
+    f64 = np.ascontiguousarray
+    _chain_sums_jit(f64(rows, dtype=np.int64), f64(inside, dtype=np.bool_), f64(bare, dtype=float),
+                    f64(tinv, dtype=np.int64), f64(x, dtype=float), f64(charges, dtype=float),
+                    f64(energies, dtype=float), f64(beta, dtype=float),
+                    *(f64(v, dtype=float) for v in terms), f64(na, dtype=float),
+                    f64(lq, dtype=float), float(mass_term), f64(lam_ch, dtype=float), acc)
