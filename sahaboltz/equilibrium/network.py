@@ -250,6 +250,11 @@ class AtomicNetwork:
             chi_m = chain.model.ionization_energy_ev[:, None]
             kw["lowering_ev"] = np.minimum(low, np.where(np.isfinite(chi_m), 0.999 * chi_m, 0.0))
         elif self.scheme.density_dependent:
+            if n_e is None and self.scheme.unweighted_limit:
+                # the low-density limit: the plain sum over the same levels, no pair sums
+                u = self._limit_model(chain).evaluate(t)
+                ln_u[pick] = np.log(u if pick is has else u[chain.model_rows[pick]])
+                return ln_u
             # every (stage, state) pair through the pair sums (compiled where available)
             ne = np.full(n, self.LIMIT_DENSITY) if n_e is None else np.asarray(n_e, float)
             rows = chain.model_rows[pick]
@@ -263,6 +268,13 @@ class AtomicNetwork:
         u = chain.model.evaluate(t, **kw)
         ln_u[pick] = np.log(u if pick is has else u[chain.model_rows[pick]])
         return ln_u
+
+    def _limit_model(self, chain: Chain):
+        """The chain's partition model with every weight 1 (its low-density limit), kept."""
+        cache = self.__dict__.setdefault("_limit_models", {})
+        if chain.k not in cache:
+            cache[chain.k] = chain.model.with_scheme(_truncation.get("plain"))
+        return cache[chain.k]
 
     def log_u_pairs(self, chain: Chain, t: np.ndarray, n_e: np.ndarray, rows: np.ndarray,
                     states: np.ndarray, temperature_index: np.ndarray | None = None

@@ -59,6 +59,9 @@ class TruncationScheme:
     lowering = "refused"
     #: the state column to sort unique states by first (neighbours then share work)
     sort_first: str | None = None
+    #: every selected level has weight 1 in the low-density limit, so that limit is the plain
+    #: sum over the same levels (solvers tabulate it with the plain evaluation)
+    unweighted_limit = True
 
     @property
     def key(self) -> str:
