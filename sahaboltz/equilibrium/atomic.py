@@ -111,7 +111,9 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
     resid = np.empty(n)
     failed = np.zeros(n, dtype=bool)
     chunk = max(1, _CHUNK_ELEMENTS // max(1, network.n_species))
-    order = np.argsort(t, kind="stable")  # neighbours in T share partition-function work
+    # by temperature (neighbours share partition-function work), then by the closure value:
+    # the states of one temperature come as a row, which the compiled solver continues along
+    order = np.lexsort((v, t))
     density = not network.ideal and not lowering
     if not lowering:
         # Saha tables per temperature: exact for T-only partition functions, and for
