@@ -321,7 +321,14 @@ class AtomicNetwork:
         # lowering of each stage's ionization (H-, q = -1, is not lowered)
         lowering = None if debye_length is None else _lowering_ev(chain.charges[:-1, None],
                                                                    debye_length[None, :])
-        steps = _log_saha_steps(t, chain.chi_ev, ln_u, lowering)
+        return self.log_c_of(chain, t, ln_u, lowering)
+
+    @staticmethod
+    def log_c_of(chain: Chain, t: np.ndarray, ln_u: np.ndarray,
+                 lowering_ev: np.ndarray | None = None) -> np.ndarray:
+        """C_q from the chain's ln U (shape (chain.n, n)) given by the caller: the Saha
+        chain's steps, summed from the first stage (C of the first stage is 0)."""
+        steps = _log_saha_steps(t, chain.chi_ev, ln_u, lowering_ev)
         out = np.zeros((chain.n, t.shape[0]))
         np.cumsum(steps, axis=0, out=out[1:])
         return out

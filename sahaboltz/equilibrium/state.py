@@ -21,7 +21,7 @@ from sahaboltz.errors import InputError, NoDataError
 from sahaboltz.kernels import truncation as _truncation
 from sahaboltz.kernels.plasma import (_coupling, _debye_length, _degeneracy, _lowering_ev,
                                       _mcwhirter)
-from sahaboltz.kernels.saha import _chain_fractions_inplace, _log_saha_steps
+from sahaboltz.kernels.saha import _chain_fractions_inplace
 from sahaboltz.quantities import as_positive_array
 
 # e^-750 is below the smallest positive double (4.9e-324 = e^-744.4): a stage whose fraction
@@ -210,10 +210,7 @@ class EquilibriumState:
             if t.size == 0:
                 got = np.empty((chain.n, 0))
             elif self.network.ideal and not self.lowering:
-                ut, inv = np.unique(t, return_inverse=True)
-                tab = self.network.log_c(chain, ut)[:, inv]
-                tab -= np.multiply.outer(chain.charges, x)
-                got = _chain_fractions_inplace(tab)
+                got = _chain_fractions_inplace(self._ideal_log_populations(chain, t, x))
             elif self.network.scheme.density_dependent and self._debye is None:
                 got = self._weighted_chain_fractions(chain, t, x)
             else:
@@ -228,6 +225,15 @@ class EquilibriumState:
             self._cache[chain.k] = got.reshape((chain.n,) + self.shape)
         return self._cache[chain.k]
 
+    def _ideal_log_populations(self, chain: Chain, t: np.ndarray, x: np.ndarray
+                               ) -> np.ndarray:
+        """ln n_q up to a constant of each state with T-only U: C_q once per distinct
+        temperature, then - q ln n_e per state (a new array the caller may overwrite)."""
+        ut, inv = np.unique(t, return_inverse=True)
+        tab = self.network.log_c(chain, ut)[:, inv]
+        tab -= np.multiply.outer(chain.charges, x)
+        return tab
+
     def _large_fractions(self, chain: Chain, share: float
                          ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(stage rows, flat state indices, fractions) of the chain's stages holding at least
@@ -241,9 +247,7 @@ class EquilibriumState:
             r, c = np.nonzero((f >= share) & ok[None, :])
             return r, c, f[r, c]
         t, x = self.temperature.ravel(), self.log_ne.ravel()
-        ut, inv = np.unique(t, return_inverse=True)
-        tab = self.network.log_c(chain, ut)[:, inv]
-        tab -= np.multiply.outer(chain.charges, x)
+        tab = self._ideal_log_populations(chain, t, x)
         tab -= tab.max(axis=0)
         r, c = np.nonzero(tab >= -40.0)
         e = np.exp(tab[r, c])
@@ -318,15 +322,11 @@ class EquilibriumState:
         out[r0:r1] = tab
         return out
 
-    @staticmethod
-    def _log_populations(chain: Chain, t: np.ndarray, ln_u: np.ndarray) -> np.ndarray:
+    def _log_populations(self, chain: Chain, t: np.ndarray, ln_u: np.ndarray) -> np.ndarray:
         """ln n_q + q ln n_e up to a constant of each state, ln U_q + a_q(T), from the chain's
-        ln U (shape (chain.n, t.size)): the Saha chain's steps, summed."""
-        steps = _log_saha_steps(t, chain.chi_ev, ln_u, None)
-        out = np.empty_like(ln_u)
-        out[0] = ln_u[0]
-        np.cumsum(steps, axis=0, out=out[1:])
-        out[1:] += ln_u[0]
+        ln U (shape (chain.n, t.size)): C_q plus ln U of the first stage."""
+        out = self.network.log_c_of(chain, t, ln_u)
+        out += ln_u[0]
         return out
 
     def stage_fractions(self, element, negative: bool = False, keep: bool = True
