@@ -220,8 +220,9 @@ def test_spec_keys_checks_and_cache_key():
     assert len(keys) == 3
     with pytest.raises(InputError, match="goes with a mass_density axis"):
         _spec(RHO_U, {**RHO, "quantity": "gas_pressure"})
-    with pytest.raises(InputError, match="lowering"):
-        _spec(RHO_U, RHO, physics={"lowering": True})
+    with pytest.raises(InputError, match="condensates"):
+        _spec(RHO_U, RHO, physics={"molecules": "default", "condensates": True})
+    assert _spec(RHO_U, RHO, physics={"lowering": True}).physics["lowering"]
     with pytest.raises(InputError, match="needs its mass_density axis"):
         TableSpec.from_mapping({"temperature": RHO_U})
     with pytest.raises(InputError, match="temperature.quantity must be one of"):

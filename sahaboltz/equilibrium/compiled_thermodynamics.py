@@ -16,10 +16,13 @@ import numpy as np
 
 from sahaboltz.kernels import compiled as _compiled
 
-__all__ = ["available", "eliminated_increments", "eliminated_chain_sums", "N_ACC"]
+__all__ = ["available", "eliminated_increments", "screening_increments",
+           "eliminated_chain_sums", "N_ACC", "N_PLAIN"]
 
-#: rows of the accumulator (see :func:`eliminated_increments`)
-N_ACC = 12
+#: rows of the accumulator: :func:`eliminated_increments` (the first N_PLAIN), then
+#: :func:`screening_increments` (with Debye-Hueckel lowering)
+N_PLAIN = 12
+N_ACC = 20
 
 
 def available() -> bool:
@@ -49,14 +52,39 @@ def eliminated_increments(s0, sq, sqq, sd, sqd, sa_big, sqa_big, sa, saa_big, sa
             -na * sa_big * inv, na * na * inv, -na * qd * inv)
 
 
+def screening_increments(s0, sq, sqq, sq3, sq4, sd, sqd, sq2d, sa_big, sq2a, sa, saq2, sad, sc,
+                         na):
+    """An eliminated element's share of the Debye-Hueckel terms (with lowering), from its
+    stage sums (as :func:`eliminated_increments`, and Sq3 = sum n q^3, Sq2D = sum n q^2 D,
+    Sq2A = sum n q^2 A, Saq2 = sum n a q^2, SaD = sum n a D, ...).
+
+    kappa = e^2 / (2 lambda_D k T) enters every ion's ln n as q^2 kappa and shifts ln n_e by
+    kappa, so that d ln n = A e_T + d lambda_k + (q - D) d lambda_ch + (q^2 + D) d kappa: a
+    third column (forcing f = q^2 + D, as A is the forcing of d ln T).  Returns the
+    increments of 12 the charge row's right-hand side of that column, 13 the P of sum n a
+    and 14 of sum N alpha lambda in it; and of the screening density sum q^2 n:
+    15 its Q (the factor of d lambda_ch), 16-18 its P for d ln T, d ln N, d kappa, 19 itself.
+    """
+    inv = 1.0 / s0
+    qd = sq - sd
+    sf = sqq + sd                      # sum n f, f = q^2 + D
+    sqf = sq3 + sqd
+    saf = saq2 + sad
+    return (-(sqf - sq * sf * inv), saf + sc - sa * sf * inv, -na * sf * inv,
+            sq3 - sq2d - sqq * qd * inv, sq2a - sqq * sa_big * inv, sqq * na * inv,
+            sq4 + sq2d - sqq * sf * inv, sqq)
+
+
 def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u_n, u_tt, u_tn,
-                na, lq, mass_term, lam_ch, acc):
+                na, lq, mass_term, lam_ch, screened, acc):
     """Add one element's :func:`eliminated_increments` to ``acc`` (N_ACC, m) at every state.
 
     ``rows``/``inside`` (W, m): the window's stages and which of them count; ``bare`` the
     element's T-only C_q at the distinct temperatures ``tinv`` indexes; ``lu`` ... ``u_tn``
     (W, m) ln U and its derivatives; ``na`` = N alpha; ``lq`` the electron's
-    ln (2 pi m_e k T / h^2)^{3/2}, ``mass_term`` = 1.5 ln(m / m_e) of the element."""
+    ln (2 pi m_e k T / h^2)^{3/2}, ``mass_term`` = 1.5 ln(m / m_e) of the element; with
+    ``screened`` also the :func:`screening_increments` (``lu`` then holds the lowering's
+    kappa q (q + 1) too)."""
     w, m = rows.shape
     lr = np.empty(w)                                   # ln of relative populations, then them
     for i in range(m):
@@ -79,6 +107,7 @@ def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u
         scale = na[i] / tot
         bi = beta[i]
         s0 = sq = sqq = sd = sqd = sa_big = sqa_big = sa = saa_big = saq = sb = sc = 0.0
+        sq3 = sq4 = sq2d = sq2a = saq2 = sad = 0.0
         best = -1.0
         r = 0
         for j in range(w):
@@ -108,28 +137,44 @@ def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u
             saq += na_ * (q - d)
             sb += n * b
             sc += n * u_tn[j, i]
+            if screened:
+                nq2 = nq * q
+                sq3 += nq2 * q
+                sq4 += nq2 * q * q
+                sq2d += nq2 * d
+                sq2a += nq2 * big_a
+                saq2 += na_ * q * q
+                sad += na_ * d
         eb_r = energies[rows[r, i]] * bi
         ln_n_r = np.log(best * scale)
         lam = ln_n_r - (lq[i] + mass_term + lu[r, i] - eb_r) - charges[rows[r, i]] * lam_ch[i]
         inc = _increments(s0, sq, sqq, sd, sqd, sa_big, sqa_big, sa, saa_big, saq, sb, sc,
                           na[i], lam)
-        for k in range(N_ACC):
+        for k in range(N_PLAIN):
             acc[k, i] += inc[k]
+        if screened:
+            inc2 = _screening(s0, sq, sqq, sq3, sq4, sd, sqd, sq2d, sa_big, sq2a, sa, saq2, sad,
+                              sc, na[i])
+            for k in range(N_ACC - N_PLAIN):
+                acc[N_PLAIN + k, i] += inc2[k]
 
 
 _increments = eliminated_increments
+_screening = screening_increments
 if _compiled.numba is not None:  # pragma: no branch
     _increments = _compiled.numba.njit(cache=True, nogil=True)(eliminated_increments)
+    _screening = _compiled.numba.njit(cache=True, nogil=True)(screening_increments)
     _chain_sums_jit = _compiled.numba.njit(cache=True, nogil=True, error_model="numpy")(
         _chain_sums)
 
 
 def eliminated_chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, terms, na, lq,
-                          mass_term, lam_ch, acc) -> None:
+                          mass_term, lam_ch, acc, screened=False) -> None:
     """Compiled :func:`_chain_sums` (``terms`` = (ln U, U_T, U_n, U_TT, U_Tn), each (W, m))."""
     f64 = np.ascontiguousarray
     _chain_sums_jit(f64(rows, dtype=np.int64), f64(inside, dtype=np.bool_), f64(bare, dtype=float),
                     f64(tinv, dtype=np.int64), f64(x, dtype=float), f64(charges, dtype=float),
                     f64(energies, dtype=float), f64(beta, dtype=float),
                     *(f64(v, dtype=float) for v in terms), f64(na, dtype=float),
-                    f64(lq, dtype=float), float(mass_term), f64(lam_ch, dtype=float), acc)
+                    f64(lq, dtype=float), float(mass_term), f64(lam_ch, dtype=float),
+                    bool(screened), acc)

@@ -245,10 +245,8 @@ class AtomicNetwork:
         if "lowering_ev" in self.scheme.inputs:
             low = (np.zeros((chain.model.n_species, n)) if debye_length is None else
                    _lowering_ev(chain.charges[has][:, None], debye_length[None, :]))
-            # keep the ground level in the partition sum while a trial n_e is far too high;
-            # the converged state is checked against chi separately
-            chi_m = chain.model.ionization_energy_ev[:, None]
-            kw["lowering_ev"] = np.minimum(low, np.where(np.isfinite(chi_m), 0.999 * chi_m, 0.0))
+            kw["lowering_ev"] = self.bounded_lowering(low,
+                                                      chain.model.ionization_energy_ev[:, None])
         elif self.scheme.density_dependent:
             if n_e is None and self.scheme.unweighted_limit:
                 # the low-density limit: the plain sum over the same levels, no pair sums
@@ -268,6 +266,13 @@ class AtomicNetwork:
         u = chain.model.evaluate(t, **kw)
         ln_u[pick] = np.log(u if pick is has else u[chain.model_rows[pick]])
         return ln_u
+
+    @staticmethod
+    def bounded_lowering(lowering_ev: np.ndarray, chi_ev: np.ndarray) -> np.ndarray:
+        """The lowering that cuts a partition function: at most 0.999 chi (none for a bare
+        nucleus, chi = inf), so that the ground level stays in the sum while a trial n_e is
+        far too high; a converged state is checked against chi separately."""
+        return np.minimum(lowering_ev, np.where(np.isfinite(chi_ev), 0.999 * chi_ev, 0.0))
 
     def _limit_model(self, chain: Chain):
         """The chain's partition model with every weight 1 (its low-density limit), kept."""

@@ -206,9 +206,6 @@ def _solve_thermal_front(composition, temperature, thermal, given, *, truncation
     if set(others) != {tc.partner}:
         raise InputError(f"{tc.name} goes with {tc.partner} (and no other closure); got "
                          f"{', '.join(others) if others else 'none'}")
-    if lowering:
-        raise InputError(f"{tc.name}: the thermodynamics does not cover Debye-Hueckel lowering "
-                         "yet; solve without lowering=True")
     if not (condensates is None or condensates is False
             or (isinstance(condensates, str) and condensates == "none")):
         raise InputError(f"{tc.name}: the thermodynamics does not cover condensates yet")
@@ -240,7 +237,7 @@ def _solve_thermal_front(composition, temperature, thermal, given, *, truncation
                                  tolerance=tolerance, max_passes=max_passes,
                                  molecule_database=molecule_database, condensates=False)
         else:
-            st = solve_atomic(network, t, v, part_def, lowering=False, tolerance=tolerance,
+            st = solve_atomic(network, t, v, part_def, lowering=lowering, tolerance=tolerance,
                               max_passes=max_passes)
         st.radiation = bool(radiation)
         return st

@@ -49,7 +49,18 @@ the identities that need one (c_p - c_v = P chi_T^2 / (rho T chi_rho), the Maxwe
 T ds = du + P d(1/rho)) hold only to the size of d ln U / d ln n_e.  We take u, P and s as
 defined above on the solver's equilibrium, and every response function from u and P through
 the first law (what a hydrodynamics code conserves); docs/thermodynamics.md gives the measured
-size of the mismatch.  Debye-Hueckel lowering and condensates are not covered yet.
+size of the mismatch.
+
+Debye-Hueckel lowering
+----------------------
+Saha with the lowering (z + 1) e^2 / lambda_D is the minimum of the ideal free energy plus
+F_DH / V = -kT / (12 pi lambda_D^3); with eps = kappa S = 1 / (8 pi lambda_D^3),
+kappa = e^2 / (2 lambda_D kT), S = n_e + sum z^2 n, that adds -kT eps to E, -kT eps / 3 to P
+and -k eps / 3 to S, and in the screened gas sum_j n_j ln(n_j / Q_j) gains kappa S.  kappa is
+a third column of the derivatives, closed by d ln kappa = -1.5 d ln T + 0.5 d ln S (see
+:func:`sahaboltz.equilibrium.compiled_thermodynamics.screening_increments`).  The gas-pressure
+closure keeps fixing kT sum n; ``pressure`` includes the Debye-Hueckel term.  Condensates are
+not covered yet.
 """
 
 from __future__ import annotations
@@ -63,7 +74,7 @@ from sahaboltz.constants import A_RAD, AMU, K_B, K_B_EV, M_E
 from sahaboltz.equilibrium import compiled_thermodynamics as _compiled_sums
 from sahaboltz.equilibrium.thermo_quantities import QUANTITIES
 from sahaboltz.errors import InputError
-from sahaboltz.kernels.plasma import _log_quantum_concentration
+from sahaboltz.kernels.plasma import _log_quantum_concentration, _lowering_ev
 
 __all__ = ["Thermodynamics", "thermodynamics", "QUANTITIES"]
 
@@ -86,8 +97,11 @@ class Thermodynamics:
     Besides the quantities of :data:`QUANTITIES` it holds the partial derivatives they are
     built from: ``du_dlnt`` = (du/d ln T)_rho, ``du_dlnrho`` = (du/d ln rho)_T, ``ds_dlnt``,
     ``ds_dlnrho`` (the same of s, differentiated from its own formula), ``gas_pressure``,
-    ``chi_t_gas``, ``chi_rho_gas`` (the gas alone) and ``radiation`` (whether a T^4 field
-    is included).
+    ``chi_t_gas``, ``chi_rho_gas`` (the gas alone), ``chi_t_particles``,
+    ``chi_rho_particles`` (those of the particle pressure kT sum n, which the gas-pressure
+    closure fixes: with lowering the gas pressure adds ``debye_hueckel_pressure``,
+    -kT / (24 pi lambda_D^3), to it; 0 without lowering) and ``radiation`` (whether a T^4
+    field is included).
     """
 
     radiation: bool
@@ -104,6 +118,9 @@ class Thermodynamics:
     chi_rho: np.ndarray
     chi_t_gas: np.ndarray
     chi_rho_gas: np.ndarray
+    chi_t_particles: np.ndarray
+    chi_rho_particles: np.ndarray
+    debye_hueckel_pressure: np.ndarray
     mean_molecular_weight: np.ndarray
     temperature: np.ndarray
 
@@ -147,15 +164,16 @@ class Thermodynamics:
 
     @property
     def dlnmu_dlnt(self) -> np.ndarray:
-        """(d ln mu / d ln T) at constant total P: mu = rho / (m_u n), n = P_gas / kT."""
+        """(d ln mu / d ln T) at constant total P: mu = rho / (m_u n), n the particles."""
         d = self.delta
-        dln_n = (self.chi_t_gas - 1.0) - self.chi_rho_gas * d
+        dln_n = (self.chi_t_particles - 1.0) - self.chi_rho_particles * d
         return -d - dln_n
 
     @property
     def ds_dlnt_p(self) -> np.ndarray:
-        """(ds / d ln T) at constant gas pressure (the slope the (P, s) closure needs)."""
-        return self.ds_dlnt - self.ds_dlnrho * self.chi_t_gas / self.chi_rho_gas
+        """(ds / d ln T) at constant particle pressure kT sum n (the gas pressure the
+        closures fix; the slope the (P, s) closure needs)."""
+        return self.ds_dlnt - self.ds_dlnrho * self.chi_t_particles / self.chi_rho_particles
 
     def get(self, name: str) -> np.ndarray:
         """A quantity of :data:`QUANTITIES` by name."""
@@ -167,9 +185,6 @@ class Thermodynamics:
 
 def check_supported(state) -> None:
     """Raise InputError for the options the thermodynamics does not cover yet."""
-    if state.lowering or "lowering_ev" in state.network.scheme.inputs:
-        raise InputError("thermodynamics with Debye-Hueckel lowering is not implemented: solve "
-                         "without lowering=True (and without the 'lowered' truncation)")
     system = getattr(state, "system", None)
     if system is not None and system.n_cond:
         raise InputError("thermodynamics with condensates is not implemented: solve with "
@@ -191,7 +206,8 @@ def thermodynamics(state, radiation: bool = False) -> Thermodynamics:
     shape = state.shape
     ok = state.converged.ravel()
     t_all = state.temperature.ravel()
-    keys = ("n_tot", "dn_t", "dn_n", "ea", "dea_t", "dea_n", "s_corr", "ds_corr_t", "ds_corr_n")
+    keys = ("n_tot", "dn_t", "dn_n", "ea", "dea_t", "dea_n", "s_corr", "ds_corr_t", "ds_corr_n",
+            "eps", "deps_t", "deps_n")
     acc = {k: np.full(t_all.size, np.nan) for k in keys}
     idx_ok = np.flatnonzero(ok)
     if idx_ok.size:
@@ -208,15 +224,19 @@ def thermodynamics(state, radiation: bool = False) -> Thermodynamics:
     rho = nuc * state.composition.mean_mass_amu * AMU
     kt = K_B * t
     n_tot = acc["n_tot"]
-    p_gas = n_tot * kt
-    chi_t_gas = 1.0 + acc["dn_t"] / n_tot
-    chi_rho_gas = acc["dn_n"] / n_tot
-    e_vol = kt * acc["ea"]
-    e_t = kt * (acc["ea"] + acc["dea_t"])
-    e_n = kt * acc["dea_n"]
-    s_vol = K_B * (n_tot + acc["ea"] - acc["s_corr"])
-    s_t = K_B * (acc["dn_t"] + acc["dea_t"] - acc["ds_corr_t"])
-    s_n = K_B * (acc["dn_n"] + acc["dea_n"] - acc["ds_corr_n"])
+    # the Debye-Hueckel terms (0 without lowering): eps = kappa sum z^2 n = 1 / (8 pi lambda_D^3)
+    # gives E_DH = -kT eps, P_DH = -kT eps / 3, S_DH = -k eps / 3
+    eps, deps_t, deps_n = acc["eps"], acc["deps_t"], acc["deps_n"]
+    n_p = n_tot - eps / 3.0
+    p_gas = n_p * kt
+    chi_t_gas = 1.0 + (acc["dn_t"] - deps_t / 3.0) / n_p
+    chi_rho_gas = (acc["dn_n"] - deps_n / 3.0) / n_p
+    e_vol = kt * (acc["ea"] - eps)
+    e_t = kt * (acc["ea"] - eps + acc["dea_t"] - deps_t)
+    e_n = kt * (acc["dea_n"] - deps_n)
+    s_vol = K_B * (n_tot + acc["ea"] - acc["s_corr"] - 4.0 / 3.0 * eps)
+    s_t = K_B * (acc["dn_t"] + acc["dea_t"] - acc["ds_corr_t"] - 4.0 / 3.0 * deps_t)
+    s_n = K_B * (acc["dn_n"] + acc["dea_n"] - acc["ds_corr_n"] - 4.0 / 3.0 * deps_n)
     p = p_gas.copy()
     chi_t = chi_t_gas.copy()
     chi_rho = chi_rho_gas.copy()
@@ -241,7 +261,9 @@ def thermodynamics(state, radiation: bool = False) -> Thermodynamics:
         internal_energy=sh(u), entropy=sh(s), du_dlnt=sh(e_t / rho),
         du_dlnrho=sh(e_n / rho - u), ds_dlnt=sh(s_t / rho), ds_dlnrho=sh(s_n / rho - s),
         chi_t=sh(chi_t), chi_rho=sh(chi_rho), chi_t_gas=sh(chi_t_gas),
-        chi_rho_gas=sh(chi_rho_gas), mean_molecular_weight=sh(rho / (AMU * n_tot)),
+        chi_rho_gas=sh(chi_rho_gas), chi_t_particles=sh(1.0 + acc["dn_t"] / n_tot),
+        chi_rho_particles=sh(acc["dn_n"] / n_tot),
+        debye_hueckel_pressure=sh(-kt * eps / 3.0), mean_molecular_weight=sh(rho / (AMU * n_tot)),
         temperature=sh(t.copy()))
 
 
@@ -253,10 +275,11 @@ def _stage_energies(chain) -> np.ndarray:
     return cum - cum[i0]
 
 
-def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut, factors):
+def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut, factors, debye=None):
     """(ln U, U_T, U_n, U_TT, U_Tn) of a chain's stages ``rows`` (W, m) where ``inside``;
     the density derivatives only with density-dependent weights (``factors``: the weights'
-    state factors, ``PartitionModel.log_derivative_state_factors``)."""
+    state factors, ``PartitionModel.log_derivative_state_factors``); for a scheme cut at the
+    lowered limit, the cut of the Debye length ``debye`` of each state."""
     w, m = rows.shape
     out = [np.zeros((w, m)) for _ in range(5)]
     mrow = chain.model_rows[rows]
@@ -271,9 +294,15 @@ def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut, factors):
                                               chain.model_offset + key // ut.size)
             for a, v in zip(out, vals):
                 a[r, j] = v[inv]
+        elif "lowering_ev" in net.scheme.inputs:
+            flat = chain.model_offset + mrow[r, j]
+            low = net.bounded_lowering(_lowering_ev(chain.charges[rows[r, j]], debye[j]),
+                                       model.ionization_energy_ev[flat])
+            vals = model.pair_log_derivatives(t[j], None, flat, lowering_ev=low)
         else:
             vals = model.pair_log_derivatives(t, ne, chain.model_offset + mrow[r, j],
                                               states=j, state_factors=factors)
+        if not net.ideal:
             for a, v in zip(out, vals):
                 a[r, j] = v
     if chain.charges[0] < 0 and not net.ideal:
@@ -360,10 +389,19 @@ def _chunk(state, sel) -> dict:
         for comps in system._comp:
             for p, row in comps:
                 comp_rows.setdefault(p, set()).add(row)
-    factors = (None if net.ideal or net.model is None
+    lowered_cut = "lowering_ev" in net.scheme.inputs
+    factors = (None if net.ideal or net.model is None or lowered_cut
                else net.model.log_derivative_state_factors(t, ne))
+    # Debye-Hueckel lowering: kappa = e^2 / (2 lambda_D k T) (half the lowering of a neutral
+    # atom over kT) is a third column of the derivatives (see screening_increments)
+    screened = bool(state.lowering)
+    if screened and (km or system is not None and len(system.molecules)):
+        raise InputError("thermodynamics with lowering: molecules are solved without it")
+    debye = state.debye_length.ravel()[sel] if screened else None
+    kap = 0.5 * beta * _lowering_ev(0.0, debye) if screened else None
+    n_col = 3 if screened else 2
     mat = np.zeros((m, r_dim, r_dim))
-    rhs = np.zeros((m, r_dim, 2))
+    rhs = np.zeros((m, r_dim, n_col))
     # the eliminated chains' shares (_compiled_sums.eliminated_increments), summed
     acc = np.zeros((_compiled_sums.N_ACC, m))
     frac_elim = 0.0
@@ -387,6 +425,8 @@ def _chunk(state, sel) -> dict:
             # low-density limit, which bounds each from above): the solver's tables
             lim = _saha_table(state, c, ut)
             a0 = lim[:, tinv] - np.multiply.outer(c.charges, x)
+            if screened:
+                a0 += np.multiply.outer(c.charges * (c.charges + 1.0), kap)
             sig = a0 >= a0.max(axis=0) - thr
         p = mol_pos.get(c.k)
         forced = [] if p is None else sorted({i0} | comp_rows.get(p, set()))
@@ -394,14 +434,20 @@ def _chunk(state, sel) -> dict:
         inside = np.take_along_axis(sig, rows, axis=0)
         for row in forced:
             inside |= rows == row
-        terms = _log_u_terms(net, c, rows, inside, t, ne, tinv, ut, factors)
+        terms = _log_u_terms(net, c, rows, inside, t, ne, tinv, ut, factors, debye)
+        if screened:
+            # the lowering's share of ln n (from the first stage): kappa q (q + 1), carried
+            # with ln U so that lambda_k comes out as the element potential of the screened gas
+            qr = c.charges[rows]
+            terms[0] = terms[0] + qr * (qr + 1.0) * kap[None, :]
         mass_term = 1.5 * np.log(weights[c.k] * AMU / M_E)
         if p is None:
             frac_elim += c.fraction
         if p is None and fast:
             _compiled_sums.eliminated_chain_sums(rows, inside, bare, tinv, x, c.charges,
                                                  _stage_energies(c), beta, terms,
-                                                 nuc * c.fraction, lq, mass_term, lam_ch, acc)
+                                                 nuc * c.fraction, lq, mass_term, lam_ch, acc,
+                                                 screened)
             continue
         q = c.charges[rows]
         lu, u_t, u_n, u_tt, u_tn = terms
@@ -441,9 +487,16 @@ def _chunk(state, sel) -> dict:
               "Saq": (na * (q - d)).sum(axis=0), "Sb": (n * b).sum(axis=0),
               "Sc": (n * cc).sum(axis=0)}
         if p is None:
-            acc += np.array(_compiled_sums.eliminated_increments(
+            acc[:_compiled_sums.N_PLAIN] += np.array(_compiled_sums.eliminated_increments(
                 *(st[k] for k in ("S0", "Sq", "Sqq", "SD", "SqD", "SA", "SqA", "Sa", "SaA",
                                   "Saq", "Sb", "Sc", "Na", "lam"))))
+            if screened:
+                nq2 = nq * q
+                acc[_compiled_sums.N_PLAIN:] += np.array(_compiled_sums.screening_increments(
+                    st["S0"], st["Sq"], st["Sqq"], (nq2 * q).sum(axis=0),
+                    (nq2 * q * q).sum(axis=0), st["SD"], st["SqD"], (nq2 * d).sum(axis=0),
+                    st["SA"], (nq2 * big_a).sum(axis=0), st["Sa"], (na * q * q).sum(axis=0),
+                    (na * d).sum(axis=0), st["Sc"], st["Na"]))
         else:
             s_corr += st["Na"] * lam_k
             mat[:, p, p] += st["S0"]
@@ -487,19 +540,21 @@ def _chunk(state, sel) -> dict:
     mat[:, ch, ch] += acc[0]
     rhs[:, ch, 0] += acc[1]
     rhs[:, ch, 1] += acc[2]
-    # electrons
+    # electrons (d ln n_e = 1.5 d ln T - d lambda_ch + d kappa)
     mat[:, ch, ch] += ne
     rhs[:, ch, 0] += 1.5 * ne
+    if screened:
+        rhs[:, ch, 2] += acc[12] + ne
     # row equilibration, then the batched solve
     scale = np.abs(mat).max(axis=2)
     scale[scale == 0] = 1.0
     dl = np.linalg.solve(mat / scale[:, :, None], rhs / scale[:, :, None])   # (m, R, 2)
-    dlam_ch = dl[:, ch, :]                                                  # (m, 2)
-    et = np.array([1.0, 0.0])
-    dz = et[None, :] * 1.5 - dlam_ch
-    out_n = np.zeros((m, 2))
-    out_ea = np.zeros((m, 2))
-    out_lam = np.zeros((m, 2))
+    dlam_ch = dl[:, ch, :]                                                  # (m, n_col)
+    et = np.eye(n_col)[0]
+    dz = (1.5 * et + np.eye(n_col)[-1] * screened)[None, :] - dlam_ch      # d ln n_e
+    out_n = np.zeros((m, n_col))
+    out_ea = np.zeros((m, n_col))
+    out_lam = np.zeros((m, n_col))
     n_tot = ne.copy()
     ea = 1.5 * ne
     out_n += ne[:, None] * dz
@@ -515,8 +570,13 @@ def _chunk(state, sel) -> dict:
 
     # the eliminated chains: their particles do not move at fixed N, the rest is P + Q dlam_ch
     out_n[:, 1] += nuc * frac_elim
-    out_ea += acc[6:8].T + acc[8][:, None] * dlam_ch
-    out_lam += acc[9:11].T + acc[11][:, None] * dlam_ch
+    out_ea[:, :2] += acc[6:8].T
+    out_lam[:, :2] += acc[9:11].T
+    if screened:
+        out_ea[:, 2] += acc[13]
+        out_lam[:, 2] += acc[14]
+    out_ea += acc[8][:, None] * dlam_ch
+    out_lam += acc[11][:, None] * dlam_ch
     n_tot += acc[3]
     ea += acc[4]
     s_corr += acc[5]
@@ -539,7 +599,25 @@ def _chunk(state, sel) -> dict:
                    + (n_m * mol["c"]).sum(axis=0)[:, None] * dz)
         n_tot += n_m.sum(axis=0)
         ea += (n_m * mol["a"]).sum(axis=0)
+    eps = np.zeros(m)
+    deps = np.zeros((m, 2))
+    if screened:
+        # close the kappa column: ln kappa = const - 1.5 ln T + 0.5 ln S, S = n_e + sum q^2 n
+        scr = acc[19] + ne
+        d_scr = acc[16:19].T + acc[15][:, None] * dlam_ch + ne[:, None] * dz
+        g = 0.5 * kap / scr
+        den = 1.0 - g * d_scr[:, 2]
+        dk = np.stack([(g * d_scr[:, 0] - 1.5 * kap) / den, g * d_scr[:, 1] / den], axis=1)
+
+        def fold(v):
+            return v[:, :2] + v[:, 2:] * dk
+
+        out_n, out_ea, out_lam, d_scr = fold(out_n), fold(out_ea), fold(out_lam), fold(d_scr)
+        # the gas's share of the Debye-Hueckel free energy: eps = kappa S = 1/(8 pi lambda^3)
+        eps = kap * scr
+        deps = scr[:, None] * dk + kap[:, None] * d_scr
     lam_sum = s_corr                                    # sum_k N alpha_k lambda_k
     return {"n_tot": n_tot, "dn_t": out_n[:, 0], "dn_n": out_n[:, 1], "ea": ea,
             "dea_t": out_ea[:, 0], "dea_n": out_ea[:, 1], "s_corr": s_corr,
-            "ds_corr_t": out_lam[:, 0], "ds_corr_n": out_lam[:, 1] + lam_sum}
+            "ds_corr_t": out_lam[:, 0], "ds_corr_n": out_lam[:, 1] + lam_sum,
+            "eps": eps, "deps_t": deps[:, 0], "deps_n": deps[:, 1]}

@@ -192,6 +192,9 @@ def thermo_summary(state, index=None) -> dict:
             continue
         key = f"{name}_{unit.replace(' ', '_')}" if unit else name
         out[key] = float(th.get(name)[idx])
+        if name == "pressure" and state.lowering:
+            # the gas-pressure closure fixes kT sum n; the pressure adds this to it
+            out["debye_hueckel_pressure_dyn_cm-2"] = float(th.debye_hueckel_pressure[idx])
     return out
 
 

@@ -409,7 +409,8 @@ class PartitionModel:
 
     def pair_log_derivatives(self, temperature: np.ndarray, n_e: np.ndarray | None,
                              rows: np.ndarray, states: np.ndarray | None = None,
-                             state_factors: dict | None = None) -> tuple[np.ndarray, ...]:
+                             state_factors: dict | None = None,
+                             lowering_ev: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
         """ln U and its first and second derivatives in (ln T, ln n_e) for the flat pairs
         (state, species ``rows[p]``), unchecked float arrays as in :meth:`evaluate_pairs`.
 
@@ -421,13 +422,17 @@ class PartitionModel:
             d2 ln U/d ln T d ln n_e = Cov(e, d) + <d2 ln w/d ln T d ln n_e>.
 
         Returns (ln U, U_T, U_n, U_TT, U_Tn), each of shape ``rows.shape``; the density
-        derivatives are 0 for schemes whose weights do not depend on n_e.  Schemes with a
-        per-state lowering are not supported.  ``state_factors``: those of
-        :meth:`log_derivative_state_factors` for these (temperature, n_e), when a caller
-        evaluates several sets of pairs of the same states.
+        derivatives are 0 for schemes whose weights do not depend on n_e.  ``state_factors``:
+        those of :meth:`log_derivative_state_factors` for these (temperature, n_e), when a
+        caller evaluates several sets of pairs of the same states.  Schemes cut at a lowered
+        limit take the lowering of each pair, ``lowering_ev`` [eV] (already bounded below the
+        ionization energy): at a fixed lowering their U depends on T alone, so the density
+        derivatives are 0 (the cut moves a level in or out only in steps).
         """
-        if "lowering_ev" in self.scheme.inputs:
-            raise InputError("pair_log_derivatives: a lowering per state is not supported")
+        lowered = "lowering_ev" in self.scheme.inputs
+        if lowered and lowering_ev is None:
+            raise InputError("pair_log_derivatives: the truncation "
+                             f"'{self.scheme.key}' needs the lowering of each pair")
         t = np.asarray(temperature, dtype=float)
         rows = np.asarray(rows, dtype=np.intp)
         npair = rows.size
@@ -436,7 +441,7 @@ class PartitionModel:
             return out
         pst = {"T": t, "ne": (np.full(t.shape, 1e-30) if n_e is None
                               else np.asarray(n_e, dtype=float))}
-        dens = self.scheme.density_dependent and n_e is not None
+        dens = self.scheme.density_dependent and n_e is not None and not lowered
         if dens:
             if state_factors is None:
                 self.scheme.prepare_curvature_pairs(self, pst)
@@ -447,6 +452,12 @@ class PartitionModel:
         t = pst["T"]
         beta = 1.0 / (K_B_EV * t)
         start, count = self._pair_levels(rows, beta)
+        if lowered:
+            # the levels below the lowered limit chi - dchi (a prefix: energies ascend)
+            cut = np.where(self._bare[rows], np.inf,
+                           self.ionization_energy_ev[rows] - np.asarray(lowering_ev, float))
+            below = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
+            count = np.clip(np.minimum(count, below), 1, None)
         if dens:
             fast = self.scheme.pair_log_derivative_sums(self, rows, beta, start, count, pst)
             if fast is not None:

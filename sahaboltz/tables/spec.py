@@ -185,10 +185,6 @@ def example_toml(temperature_quantity: str = "temperature") -> str:
         raise InputError(f"temperature quantity must be one of {list(TEMPERATURE_QUANTITIES)}, "
                          f"got {temperature_quantity!r}")
     rest = EXAMPLE_TOML[EXAMPLE_TOML.index("[composition]"):]
-    rest = rest.replace("lowering = false            # Debye-Hueckel ionization-potential "
-                        "lowering\n",
-                        "lowering = false            # (not with this axis: the thermodynamics "
-                        "does not cover it yet)\n")
     rest = rest.replace("condensates = false         # with molecules: gas-condensate "
                         "equilibrium (condensed_fraction)\n",
                         "condensates = false         # (not with this axis)\n"
@@ -679,11 +675,6 @@ class TableSpec:
             raise InputError(f"a {tc.name} axis goes with a {tc.partner} axis "
                              f"(pressure.quantity = \"{tc.partner}\"), got {self.pressure.name}")
         phys = self.physics
-        if phys["lowering"] or "lowering_ev" in _truncation.resolve(
-                phys["truncation"], phys["lowering"]).inputs:
-            raise InputError(f"a {tc.name} axis needs the thermodynamics, which does not cover "
-                             f"Debye-Hueckel lowering yet: no physics.lowering, no truncation "
-                             f"\"lowered\"")
         if phys.get("condensates"):
             raise InputError(f"a {tc.name} axis needs the thermodynamics, which does not cover "
                              f"condensates yet: physics.condensates = false")
