@@ -220,9 +220,10 @@ def test_spec_keys_checks_and_cache_key():
     assert len(keys) == 3
     with pytest.raises(InputError, match="goes with a mass_density axis"):
         _spec(RHO_U, {**RHO, "quantity": "gas_pressure"})
-    with pytest.raises(InputError, match="condensates"):
-        _spec(RHO_U, RHO, physics={"molecules": "default", "condensates": True})
+    # the thermodynamics covers lowering and condensates: both go with a thermal axis
     assert _spec(RHO_U, RHO, physics={"lowering": True}).physics["lowering"]
+    assert _spec(RHO_U, RHO, physics={"molecules": "default",
+                                      "condensates": True}).physics["condensates"]
     with pytest.raises(InputError, match="needs its mass_density axis"):
         TableSpec.from_mapping({"temperature": RHO_U})
     with pytest.raises(InputError, match="temperature.quantity must be one of"):

@@ -206,9 +206,9 @@ def _solve_thermal_front(composition, temperature, thermal, given, *, truncation
     if set(others) != {tc.partner}:
         raise InputError(f"{tc.name} goes with {tc.partner} (and no other closure); got "
                          f"{', '.join(others) if others else 'none'}")
-    if not (condensates is None or condensates is False
-            or (isinstance(condensates, str) and condensates == "none")):
-        raise InputError(f"{tc.name}: the thermodynamics does not cover condensates yet")
+    if molecules is None and not (condensates is None or condensates is False
+                                  or (isinstance(condensates, str) and condensates == "none")):
+        raise InputError("condensates need molecules in the gas: add molecules='default'")
     if temperature_range is None:
         lo, hi = DEFAULT_TEMPERATURE_RANGE
         if molecules is not None:
@@ -233,9 +233,9 @@ def _solve_thermal_front(composition, temperature, thermal, given, *, truncation
 
     def forward(t, v):
         if molecules is not None:
-            st = solve_molecular(network, t, v, part_def, molecules=molecules, lowering=False,
-                                 tolerance=tolerance, max_passes=max_passes,
-                                 molecule_database=molecule_database, condensates=False)
+            st = solve_molecular(network, t, v, part_def, molecules=molecules,
+                                 lowering=lowering, tolerance=tolerance, max_passes=max_passes,
+                                 molecule_database=molecule_database, condensates=condensates)
         else:
             st = solve_atomic(network, t, v, part_def, lowering=lowering, tolerance=tolerance,
                               max_passes=max_passes)

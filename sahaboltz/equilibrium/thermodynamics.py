@@ -59,8 +59,16 @@ kappa = e^2 / (2 lambda_D kT), S = n_e + sum z^2 n, that adds -kT eps to E, -kT 
 and -k eps / 3 to S, and in the screened gas sum_j n_j ln(n_j / Q_j) gains kappa S.  kappa is
 a third column of the derivatives, closed by d ln kappa = -1.5 d ln T + 0.5 d ln S (see
 :func:`sahaboltz.equilibrium.compiled_thermodynamics.screening_increments`).  The gas-pressure
-closure keeps fixing kT sum n; ``pressure`` includes the Debye-Hueckel term.  Condensates are
-not covered yet.
+closure keeps fixing kT sum n; ``pressure`` includes the Debye-Hueckel term.
+
+Condensates
+-----------
+A present condensed compound j (G_j per cm^3) keeps sum_k V_jk ln n_k0 = ln K_j(T) over the
+neutral atoms; its energy per formula unit is e_j = kT (V_j . a_0 - d ln K_j / d ln T)
+(Gibbs-Helmholtz on its chemical potential kT (ln K_j - V_j . ln Q_0)), so E gains
+sum_j G_j e_j and S gains the same over T (sum_k N alpha_k lambda_k then counts the condensed
+atoms too); its amount and saturation are a column and a row of the Jacobian
+(:func:`_with_condensates`).
 """
 
 from __future__ import annotations
@@ -183,14 +191,6 @@ class Thermodynamics:
         return getattr(self, name)
 
 
-def check_supported(state) -> None:
-    """Raise InputError for the options the thermodynamics does not cover yet."""
-    system = getattr(state, "system", None)
-    if system is not None and system.n_cond:
-        raise InputError("thermodynamics with condensates is not implemented: solve with "
-                         "condensates=False")
-
-
 def thermodynamics(state, radiation: bool = False) -> Thermodynamics:
     """The thermodynamic quantities of a solved state (see the module docstring).
 
@@ -201,7 +201,6 @@ def thermodynamics(state, radiation: bool = False) -> Thermodynamics:
         Add black-body radiation at T: a T^4 / 3 to P, a T^4 to the energy per volume,
         4 a T^3 / 3 to the entropy per volume (default off).
     """
-    check_supported(state)
     net = state.network
     shape = state.shape
     ok = state.converged.ravel()
@@ -312,6 +311,47 @@ def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut, factors, debye=None)
             for a, v in zip(out, wts):
                 a[neg] = np.broadcast_to(v, (w, m))[neg]
     return out
+
+
+def _with_condensates(state, system, sel, t, nuc, kept, mat, rhs, ch):
+    """The Jacobian and right-hand sides with a column and a row per condensed compound j.
+
+    A present compound (G_j = gamma_j N formula units per cm^3 > 0) keeps the gas saturated,
+    sum_k V_jk ln n_k0 = ln K_j(T) over the neutral atoms k0, so
+    sum_k V_jk (d lambda_k - D_k0 d lambda_ch) = (d ln K_j / d ln T - V_j . A_0) d ln T, and
+    its atoms enter the element balances (sum_k ... + V_jk dG_j); an absent one stays absent
+    (dG_j = 0).  Returns the extended (mat, rhs) and (G, e_hat, de_hat/d ln T at fixed n_e,
+    de_hat/d ln n_e), e_hat = e_j / kT the energy per formula unit above the zero point.
+    """
+    nc = system.n_cond
+    km = len(system.mol_chains)
+    m, r_dim, n_col = rhs.shape
+    g_c = state._gamma.reshape(nc, -1)[:, sel] * nuc[None, :]
+    present = g_c > 0.0
+    k1, k2 = (v.reshape(nc, -1) for v in system.cond_constants.ln_kn_derivatives(t))
+    neutral = np.zeros((4, km, m))                      # a, b, c, d of each neutral atom
+    for p, st in kept.items():
+        at = (int(np.flatnonzero(st["charges"] == 0)[0]) - st["rows"][0])[None, :]
+        for i, key in enumerate(("a", "b", "c", "d")):
+            neutral[i, p] = np.take_along_axis(st[key], at, axis=0)[0]
+    a0, b0, c0, d0 = neutral
+    v = system.V                                        # (nc, km)
+    big = np.zeros((m, r_dim + nc, r_dim + nc))
+    big[:, :r_dim, :r_dim] = mat
+    rb = np.zeros((m, r_dim + nc, n_col))
+    rb[:, :r_dim] = rhs
+    for j in range(nc):
+        cj = r_dim + j
+        on = present[j]
+        big[:, :km, cj] = v[j][None, :]
+        big[on, cj, :km] = v[j][None, :]
+        big[on, cj, ch] = -(v[j] @ d0)[on]
+        rb[on, cj, 0] = (k1[j] - v[j] @ (a0 + 1.5 * d0))[on]
+        big[~on, cj, cj] = 1.0
+    e_hat = np.where(present, v @ a0 - k1, 0.0)
+    de_t = np.where(present, v @ b0 - k2, 0.0)
+    de_x = np.where(present, v @ c0, 0.0)
+    return big, rb, (g_c, e_hat, de_t, de_x)
 
 
 _BOUNDS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
@@ -545,10 +585,14 @@ def _chunk(state, sel) -> dict:
     rhs[:, ch, 0] += 1.5 * ne
     if screened:
         rhs[:, ch, 2] += acc[12] + ne
+    cond = None
+    if system is not None and system.n_cond:
+        mat, rhs, cond = _with_condensates(state, system, sel, t, nuc, kept, mat, rhs, ch)
     # row equilibration, then the batched solve
     scale = np.abs(mat).max(axis=2)
     scale[scale == 0] = 1.0
-    dl = np.linalg.solve(mat / scale[:, :, None], rhs / scale[:, :, None])   # (m, R, 2)
+    dl_all = np.linalg.solve(mat / scale[:, :, None], rhs / scale[:, :, None])
+    dl = dl_all[:, :r_dim]                                                  # (m, R, n_col)
     dlam_ch = dl[:, ch, :]                                                  # (m, n_col)
     et = np.eye(n_col)[0]
     dz = (1.5 * et + np.eye(n_col)[-1] * screened)[None, :] - dlam_ch      # d ln n_e
@@ -599,6 +643,14 @@ def _chunk(state, sel) -> dict:
                    + (n_m * mol["c"]).sum(axis=0)[:, None] * dz)
         n_tot += n_m.sum(axis=0)
         ea += (n_m * mol["a"]).sum(axis=0)
+    if cond is not None:
+        # the condensed phases: E_c = sum_j G_j e_j, e_j / kT = V_j . a_0 - d ln K_j / d ln T
+        g_c, e_hat, de_t, de_x = cond
+        d_g = dl_all[:, r_dim:]                                           # (m, nc, n_col)
+        ea += (g_c * e_hat).sum(axis=0)
+        out_ea += (np.einsum("mjk,jm->mk", d_g, e_hat)
+                   + (g_c * de_t).sum(axis=0)[:, None] * et[None, :]
+                   + (g_c * de_x).sum(axis=0)[:, None] * dz)
     eps = np.zeros(m)
     deps = np.zeros((m, 2))
     if screened:

@@ -240,6 +240,24 @@ class CondensateConstants:
             np.minimum.at(out, self._owner, self._all(t))
         return out.reshape((len(self.compounds),) + t.shape)
 
+    def ln_kn_derivatives(self, temperature: Any) -> tuple[np.ndarray, np.ndarray]:
+        """d ln K_n / d ln T and d2 ln K_n / d ln T^2 of the stable phase, (n_compounds,) +
+        T.shape each (0 where no phase has data).  kT d ln K_n / d ln T is the energy that
+        turns one formula unit of the condensate into gas atoms (van 't Hoff, K in densities)."""
+        t = as_positive_array(temperature, "K", "temperature")
+        n = len(self.compounds)
+        d1 = np.zeros((n, t.size))
+        d2 = np.zeros((n, t.size))
+        if self.phases:
+            best = self.stable_phase(t).reshape(n, -1)
+            a1, a2 = (v.reshape(len(self.phases), -1) for v in self._fc.ln_kn_derivatives(t))
+            col = np.arange(t.size)
+            has = best >= 0
+            for i in range(n):
+                d1[i, has[i]] = a1[best[i, has[i]], col[has[i]]]
+                d2[i, has[i]] = a2[best[i, has[i]], col[has[i]]]
+        return d1.reshape((n,) + t.shape), d2.reshape((n,) + t.shape)
+
     def stable_phase(self, temperature: Any) -> np.ndarray:
         """(n_compounds,) + T.shape: index into ``phases`` of each compound's stable phase
         (-1 where none has data)."""

@@ -187,7 +187,8 @@ def example_toml(temperature_quantity: str = "temperature") -> str:
     rest = EXAMPLE_TOML[EXAMPLE_TOML.index("[composition]"):]
     rest = rest.replace("condensates = false         # with molecules: gas-condensate "
                         "equilibrium (condensed_fraction)\n",
-                        "condensates = false         # (not with this axis)\n"
+                        "condensates = false         # with molecules: gas-condensate "
+                        "equilibrium (condensed_fraction)\n"
                         "# temperature_range = [1000.0, 1e8]  # K, where T is searched "
                         "(default; from 500 K with molecules)\n")
     rest = rest.replace("[outputs]\n", "[outputs]\n# temperature and status are always stored "
@@ -675,9 +676,6 @@ class TableSpec:
             raise InputError(f"a {tc.name} axis goes with a {tc.partner} axis "
                              f"(pressure.quantity = \"{tc.partner}\"), got {self.pressure.name}")
         phys = self.physics
-        if phys.get("condensates"):
-            raise InputError(f"a {tc.name} axis needs the thermodynamics, which does not cover "
-                             f"condensates yet: physics.condensates = false")
         # the temperature found, and whether it was found, are always stored
         q = self.outputs.quantities
         need = [x for x in ("temperature", "status") if x not in q]
