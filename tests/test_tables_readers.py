@@ -105,6 +105,41 @@ def test_reader_prints_what_python_reads(kind, table, tmp_path):
     assert np.all(row > 0)  # a real row (H II at these states), not zeros
 
 
+@pytest.fixture(scope="module")
+def thermal_table(tmp_path_factory):
+    # a first axis that replaces the temperature: (internal energy, mass density), pure H
+    from sahaboltz.tables import cache
+    from sahaboltz.tables.spec import TableSpec
+    spec = TableSpec.from_mapping({
+        "temperature": {"quantity": "internal_energy", "scale": "log", "min": 2e12,
+                        "max": 2e13, "num": 5},
+        "pressure": {"quantity": "mass_density", "scale": "log", "min": 1e-10, "max": 1e-8,
+                     "num": 3},
+        "composition": {"abundances": {"H": 1.0}}, "physics": {"h_minus": False},
+        "outputs": {"stage_fractions": ["H"]}})
+    return build_table(spec, tmp_path_factory.mktemp("readers") / "u.h5", workers=1,
+                       progress=False, provenance=cache.solver_provenance(spec))
+
+
+@pytest.mark.parametrize("kind", ["c", "fortran"])
+def test_reader_takes_the_first_axis_that_replaces_the_temperature(kind, thermal_table,
+                                                                   tmp_path):
+    exe = _compile(kind, tmp_path)
+    r = subprocess.run([str(exe), str(thermal_table), "fraction", "species", "H II"],
+                       capture_output=True, text=True, timeout=60)
+    assert r.returncode == 0, r.stderr
+    got = _parse(r.stdout)
+    with h5py.File(thermal_table, "r") as f:
+        species = list(f["species"].asstr()[:])
+        row = f["fraction"][species.index("H II")]
+        u, rho = f["internal_energy"][:], f["mass_density"][:]
+        assert got["temperature"][0] == "internal_energy"
+        assert " ".join(got["temperature"][1]) == f["internal_energy"].attrs["units"].decode()
+        assert got["pressure"][0] == "mass_density"
+    assert np.array_equal(got["temperature"][2], u) and np.array_equal(got["pressure"][2], rho)
+    assert np.array_equal(got["values"], row) and np.all((row > 0) & (row < 1))
+
+
 def test_reader_refuses_a_damaged_chunk(table, tmp_path):
     """The C reader gets an error, not numbers, from a chunk with flipped bytes."""
     exe = _compile("c", tmp_path)

@@ -65,10 +65,14 @@ int main(int argc, char **argv)
     if (argc != 5) { fprintf(stderr, "usage: %s FILE VARIABLE COORDINATE LABEL\n", argv[0]); return 2; }
     hid_t file = H5Fopen(argv[1], H5F_ACC_RDONLY, H5P_DEFAULT);
     if (file < 0) return 1;
-    char pq[TEXT], units[TEXT];
+    char tq[TEXT] = "temperature", pq[TEXT], units[TEXT];
+    /* the first axis: the temperature, or the quantity that replaces it (internal_energy
+       with mass_density, entropy with gas_pressure) */
+    if (H5Aexists_by_name(file, "/", "temperature_quantity", H5P_DEFAULT) > 0)
+        text_attr(file, "/", "temperature_quantity", tq);
     text_attr(file, "/", "pressure_quantity", pq);     /* name of the pressure-like axis */
     hsize_t nt, np;
-    double *t = axis(file, "temperature", &nt);
+    double *t = axis(file, tq, &nt);
     double *p = axis(file, pq, &np);
     long row = find_row(file, argv[3], argv[4]);
     if (row < 0) { fprintf(stderr, "%s has no %s\n", argv[3], argv[4]); return 1; }
@@ -84,14 +88,14 @@ int main(int argc, char **argv)
 
     text_attr(file, argv[2], "units", units);
     printf("units %s\n", units);
-    text_attr(file, "temperature", "units", units);
-    printf("axis temperature %s %llu\n", units, (unsigned long long)nt);
+    text_attr(file, tq, "units", units);
+    printf("axis %s %s %llu\n", tq, units, (unsigned long long)nt);
     for (hsize_t i = 0; i < nt; i++) printf("%.17g\n", t[i]);
     text_attr(file, pq, "units", units);
     printf("axis %s %s %llu\n", pq, units, (unsigned long long)np);
     for (hsize_t j = 0; j < np; j++) printf("%.17g\n", p[j]);
     printf("values %llu %llu\n", (unsigned long long)nt, (unsigned long long)np);
-    for (hsize_t i = 0; i < nt; i++)          /* v[i * nP + j] is (temperature[i], pressure[j]) */
+    for (hsize_t i = 0; i < nt; i++)          /* v[i * nP + j] is (first axis[i], pressure[j]) */
         for (hsize_t j = 0; j < np; j++) printf("%.17g\n", v[i * np + j]);
 
     free(t); free(p); free(v);

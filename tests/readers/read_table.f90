@@ -8,10 +8,11 @@ program read_table
   use iso_c_binding
   implicit none
   integer, parameter :: text = 256
-  character(len=text) :: fname, var, coord, label, pq, units
+  character(len=text) :: fname, var, coord, label, tq, pq, units
   integer(hid_t) :: file
   integer(hsize_t) :: nt, np, i, j
   integer :: row, err
+  logical :: thermal
   real(kind=8), allocatable :: t(:), p(:), v(:, :)
 
   call get_command_argument(1, fname)
@@ -21,8 +22,13 @@ program read_table
   call h5open_f(err)
   call h5fopen_f(trim(fname), H5F_ACC_RDONLY_F, file, err)
   if (err /= 0) stop 1
+  ! the first axis: the temperature, or the quantity that replaces it (internal_energy with
+  ! mass_density, entropy with gas_pressure)
+  tq = 'temperature'
+  call h5aexists_by_name_f(file, "/", "temperature_quantity", thermal, err)
+  if (thermal) call text_attr("/", "temperature_quantity", tq)
   call text_attr("/", "pressure_quantity", pq)
-  call axis("temperature", t, nt)
+  call axis(trim(tq), t, nt)
   call axis(trim(pq), p, np)
   row = find_row(trim(coord), trim(label))
   if (row < 0) stop 1
@@ -30,14 +36,14 @@ program read_table
 
   call text_attr(trim(var), "units", units)
   write (*, '(2a)') 'units ', trim(units)
-  call text_attr("temperature", "units", units)
-  write (*, '(3a, i0)') 'axis temperature ', trim(units), ' ', nt
+  call text_attr(trim(tq), "units", units)
+  write (*, '(5a, i0)') 'axis ', trim(tq), ' ', trim(units), ' ', nt
   write (*, '(es26.17e3)') t
   call text_attr(trim(pq), "units", units)
   write (*, '(5a, i0)') 'axis ', trim(pq), ' ', trim(units), ' ', np
   write (*, '(es26.17e3)') p
   write (*, '(a, i0, a, i0)') 'values ', nt, ' ', np
-  do i = 1, nt                 ! v(j, i) is (temperature(i), pressure(j))
+  do i = 1, nt                 ! v(j, i) is (first axis(i), pressure(j))
      do j = 1, np
         write (*, '(es26.17e3)') v(j, i)
      end do
