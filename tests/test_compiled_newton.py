@@ -76,3 +76,18 @@ def test_pressure_ionized_hydrogen(monkeypatch):
     fast, slow = _both(monkeypatch, comp, t, "occupation", mass_density=rho)
     np.testing.assert_allclose(fast.n_e, slow.n_e, rtol=1e-11)
     assert fast.fraction("H II")[0] > 0.99
+
+
+def test_compiled_significance_intervals_equal_the_numpy_ones(monkeypatch):
+    # the loops do the numpy code's operations in its order: the same doubles, every chain
+    from sahaboltz.equilibrium import atomic
+    net = AtomicNetwork(solar(), truncation="plain")
+    t = np.geomspace(1e3, 1e6, 50)
+    tabs = [net.log_c(c, t) for c in net.chains]
+    fast = [atomic._significance_intervals(c.charges, tb) for c, tb in zip(net.chains, tabs)]
+    monkeypatch.setattr(compiled_newton, "available", lambda: False)
+    slow = [atomic._significance_intervals(c.charges, tb) for c, tb in zip(net.chains, tabs)]
+    for c, (a, b) in zip(net.chains, zip(fast, slow)):
+        assert np.array_equal(a[0], b[0]) and np.array_equal(a[1], b[1]), c.symbol
+    # the windows are not trivial: somewhere a stage is out of reach
+    assert any((a[0] > -atomic._X_CLIP).any() for a in fast)

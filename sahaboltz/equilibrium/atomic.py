@@ -623,8 +623,11 @@ def _significance_intervals(charges: np.ndarray, tab: np.ndarray, thr: float = 4
     only lower xl (raise xr), so the intervals stay supersets.  They are returned as monotone
     envelopes (xl running minimum from the first stage, xr running maximum from the last),
     which again only widen them and make the windows contiguous, clipped to
-    [-_X_CLIP, _X_CLIP]; shape (n_T, n_stages) each.
+    [-_X_CLIP, _X_CLIP]; shape (n_T, n_stages) each.  (Compiled where numba is available:
+    :func:`sahaboltz.equilibrium.compiled_newton.significance_intervals`, the same values.)
     """
+    if compiled_newton.available() and np.isfinite(tab).all():
+        return compiled_newton.significance_intervals(charges, tab, thr, reach, _X_CLIP)
     n, nt = tab.shape
     xl = np.full((n, nt), -_X_CLIP)
     xr = np.full((n, nt), _X_CLIP)

@@ -507,6 +507,47 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
             return
 
 
+def _intervals(charges, tab, thr, reach, clip, xl, xr):
+    """:func:`sahaboltz.equilibrium.atomic._significance_intervals` as loops over a finite
+    table (the same operations in the same order, so the same values), temperatures
+    innermost; into ``xl``/``xr`` of the table's shape (n_stages, n_T)."""
+    n, nt = tab.shape
+    for r in range(n):
+        for t in range(nt):
+            xl[r, t] = -clip
+            xr[r, t] = clip
+    for d in range(1, min(reach, n - 1) + 1):
+        for r in range(n - d):
+            dq = charges[r + d] - charges[r]
+            off = thr / dq
+            for t in range(nt):
+                slope = (tab[r + d, t] - tab[r, t]) / dq     # secant slope of r and r + d
+                lo = slope - off
+                if lo > xl[r, t]:
+                    xl[r, t] = lo
+                hi = slope + off
+                if hi < xr[r + d, t]:
+                    xr[r + d, t] = hi
+    for r in range(n):       # clipped, then the monotone envelopes
+        for t in range(nt):
+            v = min(max(xl[r, t], -clip), clip)
+            xl[r, t] = v if r == 0 or v < xl[r - 1, t] else xl[r - 1, t]
+    for r in range(n - 1, -1, -1):
+        for t in range(nt):
+            v = min(max(xr[r, t], -clip), clip)
+            xr[r, t] = v if r == n - 1 or v > xr[r + 1, t] else xr[r + 1, t]
+
+
+def significance_intervals(charges, tab, thr, reach, clip):
+    """(xl, xr), each (n_T, n_stages): the compiled :func:`_intervals` (a finite ``tab``)."""
+    xl = np.empty(tab.shape)
+    xr = np.empty(tab.shape)
+    _intervals_jit(np.ascontiguousarray(charges, dtype=float),
+                   np.ascontiguousarray(tab, dtype=float), float(thr), int(reach), float(clip),
+                   xl, xr)
+    return xl.T.copy(), xr.T.copy()
+
+
 def _push(ys, xs, y, x):
     """Add the newest solved state (y, x) to a row's last three."""
     ys[2], xs[2] = ys[1], xs[1]
@@ -673,6 +714,7 @@ if numba is not None:  # pragma: no branch
     _series_limits = _jit(_series_limits)
     _extrapolated = _jit(_extrapolated)
     _push = _jit(_push)
+    _intervals_jit = _jit(_intervals)
     _unweighted = _jit(_unweighted)
     _log_u = _sums(_log_u)
     _moments = _jit(_moments)
