@@ -38,6 +38,8 @@ _LAST_STEP = 3e-7
 _MAX_PASSES = 60
 # grid points of the start table, and when it pays (states per distinct partner value)
 _GRID = 65
+# the start is then refined on a grid this many times finer (two nodes per state)
+_REFINE = 8
 # partner values of the coarse start table when they are many (at least; up to 4x with more
 # states, half as many grid states as states)
 _COARSE = 8
@@ -65,6 +67,7 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         table = _grid_values(forward, closure, uv, log_lo, log_hi)
         tau, lo, hi, outside = _start_table(table, target, vinv, log_lo, log_hi)
         _out_of_range(closure, target, partner, outside, t_range, status, reason, done)
+        _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi)
     else:
         # many distinct partner values: a table on a coarse grid of them, its y and slopes
         # interpolated in ln(partner) to each state's partner value (y is close to linear
@@ -79,6 +82,7 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         y, dy = _grid_values(forward, closure, grid_v, log_lo, log_hi)
         own = ((1.0 - w) * y[i0] + w * y[i0 + 1], (1.0 - w) * dy[i0] + w * dy[i0 + 1])
         tau = _start_table(own, target, np.arange(m), log_lo, log_hi)[0]
+        _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi)
     active = np.flatnonzero(~done)
     for _ in range(_MAX_PASSES):
         if not active.size:
@@ -147,6 +151,50 @@ def _grid_values(forward, closure, uv, log_lo, log_hi):
     return y, np.where(bad, np.nan, dy)
 
 
+def _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi):
+    """Move the starts ``tau`` (in place) onto the cubic Hermite interpolant of a grid
+    _REFINE times finer than the start table's, evaluated only at the two nodes around each
+    start (nodes shared by the states of one partner value and by all partners, so each
+    forward solve has at most that grid's temperatures).  The Hermite error falls as the
+    fourth power of the spacing: most starts come within _LAST_STEP of the root, so the
+    first Newton step is already the last."""
+    fine = np.linspace(log_lo, log_hi, (_GRID - 1) * _REFINE + 1)
+    h = fine[1] - fine[0]
+    act = np.flatnonzero(~done)
+    if not act.size:
+        return
+    j = np.clip(np.floor((tau[act] - log_lo) / h).astype(int), 0, fine.size - 2)
+    keys = np.concatenate([vinv[act] * fine.size + j, vinv[act] * fine.size + j + 1])
+    uk, kinv = np.unique(keys, return_inverse=True)
+    th = forward(np.exp(fine[uk % fine.size]), uv[uk // fine.size]).thermodynamics()
+    y = th.get(closure.name).ravel()
+    dy = getattr(th, closure.slope).ravel()
+    good = np.isfinite(y) & np.isfinite(dy) & (dy > 0)
+    a, b = kinv[:act.size], kinv[act.size:]
+    ok = good[a] & good[b] & (y[b] > y[a])
+    sel = act[ok]
+    tau[sel] = _hermite_root(y[a][ok], y[b][ok], dy[a][ok], dy[b][ok], fine[j[ok]], h,
+                             target[sel])
+
+
+def _hermite_root(y0, y1, d0, d1, lo, h, target):
+    """ln T in [lo, lo + h] where the cubic Hermite interpolant of (y, dy/d ln T) at the
+    cell's ends meets ``target`` (a few Newton steps from the linear estimate, kept inside)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        frac = np.clip((target - y0) / (y1 - y0), 0.0, 1.0)
+        frac = np.where(np.isfinite(frac), frac, 0.5)
+        for _ in range(4):
+            s_ = frac
+            h00, h10 = 2 * s_**3 - 3 * s_**2 + 1, s_**3 - 2 * s_**2 + s_
+            h01, h11 = -2 * s_**3 + 3 * s_**2, s_**3 - s_**2
+            val = h00 * y0 + h10 * h * d0 + h01 * y1 + h11 * h * d1
+            der = ((6 * s_**2 - 6 * s_) * y0 + (3 * s_**2 - 4 * s_ + 1) * h * d0
+                   + (-6 * s_**2 + 6 * s_) * y1 + (3 * s_**2 - 2 * s_) * h * d1)
+            step = (val - target) / der
+            frac = np.where(np.isfinite(step), np.clip(frac - step, 0.0, 1.0), frac)
+    return lo + frac * h
+
+
 def _start_table(table, target, vinv, log_lo, log_hi):
     """Start values and brackets from the grid values ``table`` (of :func:`_grid_values`)
     for states of partner rows ``vinv``; also the states whose target lies outside the
@@ -163,22 +211,8 @@ def _start_table(table, target, vinv, log_lo, log_hi):
     d0 = np.take_along_axis(dyg, jl[:, None], axis=1)[:, 0]
     d1 = np.take_along_axis(dyg, jl[:, None] + 1, axis=1)[:, 0]
     lo, hi = grid[jl], grid[jl + 1]
-    h = hi - lo
-    with np.errstate(divide="ignore", invalid="ignore"):
-        frac = np.clip((target - y0) / (y1 - y0), 0.0, 1.0)
-        frac = np.where(np.isfinite(frac), frac, 0.5)
-        # refine on the cubic Hermite interpolant of y (values and exact slopes at both ends)
-        # by a few Newton steps in the cell
-        for _ in range(4):
-            s_ = frac
-            h00, h10 = 2 * s_**3 - 3 * s_**2 + 1, s_**3 - 2 * s_**2 + s_
-            h01, h11 = -2 * s_**3 + 3 * s_**2, s_**3 - s_**2
-            val = h00 * y0 + h10 * h * d0 + h01 * y1 + h11 * h * d1
-            der = ((6 * s_**2 - 6 * s_) * y0 + (3 * s_**2 - 4 * s_ + 1) * h * d0
-                   + (-6 * s_**2 + 6 * s_) * y1 + (3 * s_**2 - 2 * s_) * h * d1)
-            step = (val - target) / der
-            frac = np.where(np.isfinite(step), np.clip(frac - step, 0.0, 1.0), frac)
-    tau = lo + frac * h
+    # on the cubic Hermite interpolant of y (values and exact slopes at both ends)
+    tau = _hermite_root(y0, y1, d0, d1, lo, hi - lo, target)
     return tau, lo.copy(), hi.copy(), outside
 
 
