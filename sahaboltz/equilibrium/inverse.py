@@ -10,10 +10,12 @@ positive, so y rises monotonically with T and the root is unique).
 Start: where the states share few partner values (a table axis), y and its exact slope are
 first evaluated on a 65-point ln T grid for each distinct value (only 65 distinct
 temperatures, so cheap); the grid brackets each root and the cubic Hermite interpolant of
-(y, dy/d ln T) starts Newton close to it, so two passes usually reach the tolerance (the last
-Newton step, below 3e-7 in ln T, is taken without evaluating again: its error is of the order
-of its square).  Otherwise the start comes from such a table on 8-32 partner values spanning
-theirs, interpolated in ln(partner).  Every state keeps a bracket [lo, hi] in ln T (the range,
+(y, dy/d ln T) gives a first start.  Otherwise that start comes from such a table on 8-32
+partner values spanning theirs, interpolated in ln(partner).  Either start is then refined
+on the Hermite interpolant of an 8x finer ln T grid, evaluated only at the two nodes around
+each start (shared temperatures again), which brings most starts within 3e-7 in ln T of the
+root, so one pass usually reaches the tolerance (the last Newton step, below 3e-7 in ln T,
+is taken without evaluating again: its error is of the order of its square).  Every state keeps a bracket [lo, hi] in ln T (the range,
 narrowed by the signs seen), and a step that would leave it bisects.  A state whose value lies
 outside what the range of temperatures gives is reported with that range and the nearest value reached.
 """
