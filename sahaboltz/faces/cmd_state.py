@@ -185,8 +185,8 @@ def thermo_summary(state, index=None) -> dict:
     except InputError as exc:
         return {"thermodynamics": f"not available ({exc})"}
     idx = () if index is None else index
-    out = {"thermodynamics": ("gas and radiation (a T^4)" if th.radiation else
-                              "gas only (radiation not included; --radiation adds it)")}
+    out = {"thermodynamics": ("matter and radiation (a T^4)" if th.radiation else
+                              "matter only (radiation not included; --radiation adds it)")}
     for name, (unit, _) in QUANTITIES.items():
         if name == "mean_molecular_weight":
             continue

@@ -1045,7 +1045,7 @@ def thermo_map_plot(temperature: Any, pressure: Any, *, quantity: str = "adiabat
                            h_minus=solver_options.get("h_minus", True))
             + ("; molecules " + str(solver_options["molecules"])
                if solver_options.get("molecules") else "")
-            + ("; radiation included" if radiation else "; gas only (no radiation)"))
+            + ("; radiation included" if radiation else "; matter only (no radiation)"))
     return draw_thermo_map(t, p, field, quantity=quantity,
                            title=f"{label.split(' $')[0] if ' $' in label else label} of the "
                                  "LTE gas", note=note, pressure_quantity=pressure_quantity)
