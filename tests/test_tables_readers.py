@@ -83,13 +83,18 @@ def _parse(out: str) -> dict:
     return doc
 
 
-@pytest.mark.parametrize("kind", ["c", "fortran"])
-def test_reader_prints_what_python_reads(kind, table, tmp_path):
+def _read_h_ii(kind, path, tmp_path) -> dict:
+    """What the compiled reader prints for the H II row of ``fraction`` in ``path``."""
     exe = _compile(kind, tmp_path)
-    r = subprocess.run([str(exe), str(table), "fraction", "species", "H II"],
+    r = subprocess.run([str(exe), str(path), "fraction", "species", "H II"],
                        capture_output=True, text=True, timeout=60)
     assert r.returncode == 0, r.stderr
-    got = _parse(r.stdout)
+    return _parse(r.stdout)
+
+
+@pytest.mark.parametrize("kind", ["c", "fortran"])
+def test_reader_prints_what_python_reads(kind, table, tmp_path):
+    got = _read_h_ii(kind, table, tmp_path)
     with h5py.File(table, "r") as f:
         species = list(f["species"].asstr()[:])
         row = f["fraction"][species.index("H II")]
@@ -124,11 +129,7 @@ def thermal_table(tmp_path_factory):
 @pytest.mark.parametrize("kind", ["c", "fortran"])
 def test_reader_takes_the_first_axis_that_replaces_the_temperature(kind, thermal_table,
                                                                    tmp_path):
-    exe = _compile(kind, tmp_path)
-    r = subprocess.run([str(exe), str(thermal_table), "fraction", "species", "H II"],
-                       capture_output=True, text=True, timeout=60)
-    assert r.returncode == 0, r.stderr
-    got = _parse(r.stdout)
+    got = _read_h_ii(kind, thermal_table, tmp_path)
     with h5py.File(thermal_table, "r") as f:
         species = list(f["species"].asstr()[:])
         row = f["fraction"][species.index("H II")]

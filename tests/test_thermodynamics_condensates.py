@@ -16,6 +16,7 @@ from sahaboltz.data.thermo import default_thermo_database
 from sahaboltz.equilibrium import solve_equilibrium
 from sahaboltz.equilibrium.molecular import select_condensates
 from sahaboltz.kernels.thermo import CondensateConstants
+from thermo_checks import assert_matches_finite_differences
 
 KW = {"molecules": "default", "condensates": True}
 
@@ -57,18 +58,10 @@ def test_exact_derivatives_against_finite_differences(dusty):
     t, rho, st = dusty
     th = st.thermodynamics()
     h = 1e-5
-    up, dn, rp, rd = (solve(solar(), t * np.exp(a * h), mass_density=rho * np.exp(b * h),
-                            tolerance=1e-13, **KW).thermodynamics()
-                      for a, b in ((1, 0), (-1, 0), (0, 1), (0, -1)))
-    for q, qt, qr in (("internal_energy", "du_dlnt", "du_dlnrho"),
-                      ("entropy", "ds_dlnt", "ds_dlnrho")):
-        fd_t = (getattr(up, q) - getattr(dn, q)) / (2 * h)
-        fd_r = (getattr(rp, q) - getattr(rd, q)) / (2 * h)
-        np.testing.assert_allclose(getattr(th, qt), fd_t, rtol=1e-6, err_msg=q)
-        np.testing.assert_allclose(getattr(th, qr), fd_r, rtol=1e-6,
-                                   atol=1e-7 * np.abs(getattr(th, q)).max(), err_msg=q)
-    np.testing.assert_allclose(th.chi_t, (np.log(up.pressure) - np.log(dn.pressure)) / (2 * h),
-                               rtol=1e-6)
+    runs = [solve(solar(), t * np.exp(a * h), mass_density=rho * np.exp(b * h),
+                  tolerance=1e-13, **KW).thermodynamics()
+            for a, b in ((1, 0), (-1, 0), (0, 1), (0, -1))]
+    assert_matches_finite_differences(th, *runs, h)
 
 
 def test_condensation_energy_of_iron_is_its_sublimation_energy():

@@ -14,6 +14,7 @@ from astropy import constants as const
 
 from sahaboltz.data.composition import Composition
 from sahaboltz.equilibrium import solve_equilibrium
+from thermo_checks import assert_matches_finite_differences
 
 HYDROGEN = Composition.from_number({"H": 1})
 ARGON = Composition.from_number({"Ar": 1})
@@ -90,18 +91,7 @@ def test_exact_derivatives_against_finite_differences(case):
             for sp in (comp.symbols[0] + " I", comp.symbols[0] + " II"):
                 np.testing.assert_array_equal(
                     other.partition_function(sp) == st.partition_function(sp), True)
-    up, dn, rp, rd = (r.thermodynamics() for r in runs)
-    for q, qt, qr in (("internal_energy", "du_dlnt", "du_dlnrho"),
-                      ("entropy", "ds_dlnt", "ds_dlnrho")):
-        fd_t = (getattr(up, q) - getattr(dn, q)) / (2 * h)
-        fd_r = (getattr(rp, q) - getattr(rd, q)) / (2 * h)
-        np.testing.assert_allclose(getattr(th, qt), fd_t, rtol=1e-6, err_msg=q)
-        np.testing.assert_allclose(getattr(th, qr), fd_r, rtol=1e-6,
-                                   atol=1e-7 * np.abs(getattr(th, q)).max(), err_msg=q)
-    np.testing.assert_allclose(th.chi_t, (np.log(up.pressure) - np.log(dn.pressure)) / (2 * h),
-                               rtol=1e-6)
-    np.testing.assert_allclose(th.chi_rho,
-                               (np.log(rp.pressure) - np.log(rd.pressure)) / (2 * h), rtol=1e-6)
+    assert_matches_finite_differences(th, *(r.thermodynamics() for r in runs), h)
 
 
 def test_fully_ionized_hydrogen_follows_the_limiting_law():
