@@ -13,7 +13,9 @@ residual evaluation is one numpy expression over all species.  It is timed on a 
 states spread over the grid and scaled to the full grid.
 
 A second reference does the same with a residual that loops over the elements in Python
-(timed on a quarter of the subset).
+(timed on a quarter of the subset).  A third solves the default physics (occupation
+probabilities) the same way, with ln U of every stage evaluated at each residual's n_e in one
+flat call (timed on a third of the subset), against the default solve.
 
 The plain solve and the reference alternate --repeat times (this machine's speed drifts);
 the speedup is given best against best and as the median of the alternating pairs.
@@ -64,6 +66,61 @@ def reference_solver(network: AtomicNetwork):
             nuc = ntot - np.exp(x)
             if zbar <= 0:
                 return -1e3  # n_e far too high: negative ions outweigh the positive
+            return np.log(nuc * zbar) - x
+
+        hi = np.log(ntot * zmax / (1.0 + zmax))
+        lo = hi - 50.0
+        while g(lo) <= 0:
+            lo -= 50.0
+        root, info = brentq(g, lo, hi, xtol=1e-13, rtol=8.9e-16, full_output=True)
+        return float(np.exp(root)), info.function_calls
+
+    return tables, solve
+
+
+def weighted_reference(network: AtomicNetwork):
+    """The same brentq for density-dependent partition functions (the default occupation
+    probabilities): every residual evaluates ln U of all stages at that n_e in one flat call
+    (``PartitionModel.evaluate_pairs``, compiled where the package's is) and forms the chains'
+    C_q = K_q(T) + ln U_q - ln U_first from the T-only part K_q, given for free."""
+    chains = network.chains
+    nmax = max(c.n for c in chains)
+    q = np.zeros((len(chains), nmax))
+    flat = np.full((len(chains), nmax), -1, dtype=np.intp)
+    for k, c in enumerate(chains):
+        q[k, :c.n] = c.charges
+        flat[k, :c.n] = np.where(c.model_rows >= 0, c.model_rows + c.model_offset, -1)
+    has = flat >= 0
+    rows = flat[has]
+    k_h = next(k for k, c in enumerate(chains) if c.charges[0] < 0)   # the chain with H-
+    alpha = np.array([c.fraction for c in chains])
+    zmax = network.max_mean_charge
+    model = network.model
+
+    def tables(t: float) -> np.ndarray:
+        out = np.full((len(chains), nmax), -np.inf)
+        for k, c in enumerate(chains):
+            out[k, :c.n] = network.bare_log_c(c, np.array([t]))[:, 0]
+        return out
+
+    def solve(t: float, p: float, bare: np.ndarray) -> tuple[float, int]:
+        ntot = p / (K_B * t)
+        tt = np.array([t])
+        zeros = np.zeros(rows.size, dtype=np.intp)
+
+        def g(x):
+            ne = np.array([np.exp(x)])
+            ln_u = np.zeros_like(bare)
+            ln_u[has] = np.log(model.evaluate_pairs(tt, ne, rows, want_temperature=False,
+                                                    states=zeros)[0])
+            ln_u[k_h, 0] = network.negative_ion_log_u(chains[k_h], tt, ne)[0][0]
+            a = bare + ln_u - ln_u[:, :1] - q * x
+            a = a - a.max(axis=1, keepdims=True)
+            e = np.exp(a)
+            zbar = alpha @ ((e * q).sum(axis=1) / e.sum(axis=1))
+            nuc = ntot - ne[0]
+            if zbar <= 0:
+                return -1e3
             return np.log(nuc * zbar) - x
 
         hi = np.log(ntot * zmax / (1.0 + zmax))
@@ -235,6 +292,24 @@ def main(argv=None) -> None:
           f"{t_loop / tt.size * 1e3:.2f} ms per state, scaled {t_loop:.1f} s; "
           f"speedup {c_loop / min(c_vecs):.0f}x CPU; max n_e difference "
           f"{np.abs(state.n_e.ravel()[few] / ne_loop - 1).max():.2e}")
+
+    # the default physics against the same brentq with occupation-weighted U
+    w_tables, w_solve = weighted_reference(default_net)
+    few = pick[: max(1, pick.size // 3)]
+    w_bare = {t: w_tables(t) for t in np.unique(tt.ravel()[few])}
+    ne_w = np.empty(few.size)
+    c0 = time.process_time()
+    evals = 0
+    for j, i in enumerate(few):
+        ne_w[j], nev = w_solve(tt.ravel()[i], pp.ravel()[i], w_bare[tt.ravel()[i]])
+        evals += nev
+    c_w = (time.process_time() - c0) / few.size * tt.size
+    best_default = min(times["default"])
+    print(f"default-physics reference (the same brentq, occupation-weighted U of every stage "
+          f"at each evaluation): {c_w / tt.size * 1e3:.2f} ms CPU per state ({few.size} "
+          f"states, {evals / few.size:.1f} evaluations each), scaled {c_w:.0f} s; speedup of "
+          f"the default solve {c_w / best_default:.0f}x (best, {best_default:.2f} s); max n_e "
+          f"difference {np.abs(default_state.n_e.ravel()[few] / ne_w - 1).max():.2e}")
 
     ne_vec = state.n_e.ravel()[pick]
     rel = np.abs(ne_vec / ne_ref - 1.0)
