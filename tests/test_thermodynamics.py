@@ -230,9 +230,17 @@ def test_molecular_constant_derivatives_against_finite_differences():
     np.testing.assert_allclose(d2[ok], ((hi - 2 * mid + lo) / h**2)[ok], rtol=1e-4, atol=1e-3)
 
 
-def test_every_solved_state_has_its_thermodynamics():
-    failed = solve(HYDROGEN, np.array([1e4, 2e4]), mass_density=1e-8)
-    assert np.isfinite(failed.gamma1).all()
+def test_thermodynamics_of_failed_states_are_nan_there_only():
+    # errors="mask": an unreachable electron pressure fails its state (status 1); the
+    # thermodynamics is NaN there and only there, and the other state's is unchanged
+    st = solve(HYDROGEN, np.array([1e4, 1e4]), electron_pressure=np.array([1.0, 1e30]),
+               errors="mask")
+    assert list(st.status) == [0, 1]
+    alone = solve(HYDROGEN, 1e4, electron_pressure=1.0)
+    for name in ("gamma1", "internal_energy", "entropy", "adiabatic_gradient"):
+        value = getattr(st, name)
+        assert np.isfinite(value[0]) and np.isnan(value[1]), name
+        assert value[0] == pytest.approx(float(getattr(alone, name)), rel=1e-12), name
 
 
 # -- the closures that replace the temperature -----------------------------------------------
