@@ -39,41 +39,50 @@ from sahaboltz.data.composition import solar
 from sahaboltz.equilibrium import AtomicNetwork, solve_equilibrium
 
 
+def _padded_charges(chains) -> np.ndarray:
+    """The charges of every chain's stages, (chains x longest chain), 0 past a chain's end."""
+    q = np.zeros((len(chains), max(c.n for c in chains)))
+    for k, c in enumerate(chains):
+        q[k, :c.n] = c.charges
+    return q
+
+
+def _residual(a, q, alpha, nuc, x) -> float:
+    """g(x) = ln(N Zbar) - x from the stages' a = C - q x (-inf past a chain's end)."""
+    a = a - a.max(axis=1, keepdims=True)
+    e = np.exp(a)
+    zbar = alpha @ ((e * q).sum(axis=1) / e.sum(axis=1))
+    if zbar <= 0:
+        return -1e3  # n_e far too high: negative ions outweigh the positive
+    return np.log(nuc * zbar) - x
+
+
+def _brentq_ln_ne(g, ntot: float, zmax: float) -> tuple[float, int]:
+    """n_e from brentq on ln n_e, bracketed below the largest n_e the mixture can give."""
+    hi = np.log(ntot * zmax / (1.0 + zmax))
+    lo = hi - 50.0
+    while g(lo) <= 0:
+        lo -= 50.0
+    root, info = brentq(g, lo, hi, xtol=1e-13, rtol=8.9e-16, full_output=True)
+    return float(np.exp(root)), info.function_calls
+
+
 def reference_solver(network: AtomicNetwork):
     """A straightforward per-state solver: brentq on ln n_e with the network's Saha chains."""
     chains = network.chains
-    nmax = max(c.n for c in chains)
-    q = np.zeros((len(chains), nmax))
-    for k, c in enumerate(chains):
-        q[k, :c.n] = c.charges
+    q = _padded_charges(chains)
     alpha = np.array([c.fraction for c in chains])
-    zmax = network.max_mean_charge
 
     def tables(t: float) -> np.ndarray:
-        out = np.full((len(chains), nmax), -np.inf)
+        out = np.full(q.shape, -np.inf)
         for k, c in enumerate(chains):
             out[k, :c.n] = network.log_c(c, np.array([t]))[:, 0]
         return out
 
     def solve(t: float, p: float, ctab: np.ndarray) -> tuple[float, int]:
         ntot = p / (K_B * t)
-
-        def g(x):
-            a = ctab - q * x
-            a = a - a.max(axis=1, keepdims=True)
-            e = np.exp(a)
-            zbar = alpha @ ((e * q).sum(axis=1) / e.sum(axis=1))
-            nuc = ntot - np.exp(x)
-            if zbar <= 0:
-                return -1e3  # n_e far too high: negative ions outweigh the positive
-            return np.log(nuc * zbar) - x
-
-        hi = np.log(ntot * zmax / (1.0 + zmax))
-        lo = hi - 50.0
-        while g(lo) <= 0:
-            lo -= 50.0
-        root, info = brentq(g, lo, hi, xtol=1e-13, rtol=8.9e-16, full_output=True)
-        return float(np.exp(root)), info.function_calls
+        return _brentq_ln_ne(lambda x: _residual(ctab - q * x, q, alpha, ntot - np.exp(x), x),
+                             ntot, network.max_mean_charge)
 
     return tables, solve
 
@@ -84,21 +93,18 @@ def weighted_reference(network: AtomicNetwork):
     (``PartitionModel.evaluate_pairs``, compiled where the package's is) and forms the chains'
     C_q = K_q(T) + ln U_q - ln U_first from the T-only part K_q, given for free."""
     chains = network.chains
-    nmax = max(c.n for c in chains)
-    q = np.zeros((len(chains), nmax))
-    flat = np.full((len(chains), nmax), -1, dtype=np.intp)
+    q = _padded_charges(chains)
+    flat = np.full(q.shape, -1, dtype=np.intp)
     for k, c in enumerate(chains):
-        q[k, :c.n] = c.charges
         flat[k, :c.n] = np.where(c.model_rows >= 0, c.model_rows + c.model_offset, -1)
     has = flat >= 0
     rows = flat[has]
     k_h = next(k for k, c in enumerate(chains) if c.charges[0] < 0)   # the chain with H-
     alpha = np.array([c.fraction for c in chains])
-    zmax = network.max_mean_charge
     model = network.model
 
     def tables(t: float) -> np.ndarray:
-        out = np.full((len(chains), nmax), -np.inf)
+        out = np.full(q.shape, -np.inf)
         for k, c in enumerate(chains):
             out[k, :c.n] = network.bare_log_c(c, np.array([t]))[:, 0]
         return out
@@ -114,21 +120,9 @@ def weighted_reference(network: AtomicNetwork):
             ln_u[has] = np.log(model.evaluate_pairs(tt, ne, rows, want_temperature=False,
                                                     states=zeros)[0])
             ln_u[k_h, 0] = network.negative_ion_log_u(chains[k_h], tt, ne)[0][0]
-            a = bare + ln_u - ln_u[:, :1] - q * x
-            a = a - a.max(axis=1, keepdims=True)
-            e = np.exp(a)
-            zbar = alpha @ ((e * q).sum(axis=1) / e.sum(axis=1))
-            nuc = ntot - ne[0]
-            if zbar <= 0:
-                return -1e3
-            return np.log(nuc * zbar) - x
+            return _residual(bare + ln_u - ln_u[:, :1] - q * x, q, alpha, ntot - ne[0], x)
 
-        hi = np.log(ntot * zmax / (1.0 + zmax))
-        lo = hi - 50.0
-        while g(lo) <= 0:
-            lo -= 50.0
-        root, info = brentq(g, lo, hi, xtol=1e-13, rtol=8.9e-16, full_output=True)
-        return float(np.exp(root)), info.function_calls
+        return _brentq_ln_ne(g, ntot, network.max_mean_charge)
 
     return tables, solve
 
@@ -136,7 +130,6 @@ def weighted_reference(network: AtomicNetwork):
 def looping_reference(network: AtomicNetwork):
     """The same brentq, but each residual walks the elements one by one (a plain loop)."""
     chains = network.chains
-    zmax = network.max_mean_charge
 
     def solve(t: float, p: float, ctabs: list) -> float:
         ntot = p / (K_B * t)
@@ -151,11 +144,7 @@ def looping_reference(network: AtomicNetwork):
                 return -1e3
             return np.log((ntot - np.exp(x)) * zbar) - x
 
-        hi = np.log(ntot * zmax / (1.0 + zmax))
-        lo = hi - 50.0
-        while g(lo) <= 0:
-            lo -= 50.0
-        return float(np.exp(brentq(g, lo, hi, xtol=1e-13, rtol=8.9e-16)))
+        return _brentq_ln_ne(g, ntot, network.max_mean_charge)[0]
 
     return solve
 
