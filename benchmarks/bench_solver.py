@@ -47,6 +47,14 @@ def _padded_charges(chains) -> np.ndarray:
     return q
 
 
+def _padded_tables(chains, shape, table_of, t: float) -> np.ndarray:
+    """Each chain's table at one temperature (``table_of(chain, [t])``), padded with -inf."""
+    out = np.full(shape, -np.inf)
+    for k, c in enumerate(chains):
+        out[k, :c.n] = table_of(c, np.array([t]))[:, 0]
+    return out
+
+
 def _residual(a, q, alpha, nuc, x) -> float:
     """g(x) = ln(N Zbar) - x from the stages' a = C - q x (-inf past a chain's end)."""
     a = a - a.max(axis=1, keepdims=True)
@@ -74,10 +82,7 @@ def reference_solver(network: AtomicNetwork):
     alpha = np.array([c.fraction for c in chains])
 
     def tables(t: float) -> np.ndarray:
-        out = np.full(q.shape, -np.inf)
-        for k, c in enumerate(chains):
-            out[k, :c.n] = network.log_c(c, np.array([t]))[:, 0]
-        return out
+        return _padded_tables(chains, q.shape, network.log_c, t)
 
     def solve(t: float, p: float, ctab: np.ndarray) -> tuple[float, int]:
         ntot = p / (K_B * t)
@@ -104,10 +109,7 @@ def weighted_reference(network: AtomicNetwork):
     model = network.model
 
     def tables(t: float) -> np.ndarray:
-        out = np.full(q.shape, -np.inf)
-        for k, c in enumerate(chains):
-            out[k, :c.n] = network.bare_log_c(c, np.array([t]))[:, 0]
-        return out
+        return _padded_tables(chains, q.shape, network.bare_log_c, t)
 
     def solve(t: float, p: float, bare: np.ndarray) -> tuple[float, int]:
         ntot = p / (K_B * t)
