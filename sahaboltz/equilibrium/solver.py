@@ -94,7 +94,10 @@ def solve_equilibrium(composition: Composition, temperature: Any = None, *,
         ``lowering``.  "plain" stays available for comparisons and warns where it misleads.
     lowering : bool
         Debye-Hueckel lowering of the ionization energies, self-consistent with n_e and the
-        ion densities, used also as the partition-function cut-off ("lowered").
+        ion densities, used also as the partition-function cut-off ("lowered").  A gas
+        pressure given with it is the particle pressure kT sum n; the thermodynamics adds the
+        Debye-Hueckel free energy, so its ``pressure`` lies below that by
+        ``thermodynamics().debye_hueckel_pressure``.
     completion : bool
         Hydrogenic completion of the level lists (needs a bounding truncation).
     h_minus : bool
