@@ -13,11 +13,16 @@
    the temperatures found (those of the states returned; they differ from the grid's in the
    last digits, so fewer are shared), and the round-trip errors.  The Newton passes in
    between run at temperatures of their own for every state.
+3. The same for N^2 scattered states (each its own T in 2,000 K - 1e6 K and rho in 1e-12 -
+   1e-2 g cm^-3, log-uniform, fixed seed): what a hydrodynamics code asks.  Here the forward
+   solve of the same states has a temperature per state too, so the ratio compares like
+   with like.
 
 Times are process CPU time (the machine is shared); each figure is the best ("min") and the
 median of --repeat runs, and the ratios are formed from both.
 
     python benchmarks/bench_thermo.py [--nt 200] [--np 200] [--inverse-n 60] [--repeat 3]
+                                      [--skip-grid] [--skip-inverse] [--skip-scattered]
 """
 
 from __future__ import annotations
@@ -56,6 +61,8 @@ def main(argv=None) -> None:
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--skip-grid", action="store_true", help="only the inverse closures")
     ap.add_argument("--skip-inverse", action="store_true", help="only the 200 x 200 grid")
+    ap.add_argument("--skip-scattered", action="store_true",
+                    help="not the inverse closures on scattered states")
     ap.add_argument("--physics", default="plain,default",
                     help="which of plain,default to time (default both)")
     args = ap.parse_args(argv)
@@ -93,33 +100,50 @@ def main(argv=None) -> None:
     tt, rr = np.meshgrid(np.geomspace(2e3, 1e6, n), np.geomspace(1e-12, 1e-2, n), indexing="ij")
     print(f"inverse closures: {n} x {n} states (T = 2,000 K - 1e6 K, rho = 1e-12 - 1e-2 g cm^-3)")
     for name, net in nets.items():
-        kw = {"network": net, "truncation": net.truncation}
-        t_fwd, t_u, t_s, t_dist = [], [], [], []
-        for _ in range(args.repeat):
-            dt, st = _timed(lambda: solve_equilibrium(comp, tt, mass_density=rr, **kw))
-            t_fwd.append(dt)
-            u, s, p = st.internal_energy, st.entropy, st.gas_pressure
-            dt, back_u = _timed(lambda: solve_equilibrium(comp, mass_density=rr,
-                                                          internal_energy=u, **kw))
-            t_u.append(dt)
-            dt, back_s = _timed(lambda: solve_equilibrium(comp, gas_pressure=p, entropy=s, **kw))
-            t_s.append(dt)
-            dt, _ = _timed(lambda: solve_equilibrium(comp, back_u.temperature, mass_density=rr,
-                                                     **kw))
-            t_dist.append(dt)
-        err_u = np.nanmax(np.abs(back_u.internal_energy / u - 1))
-        err_s = np.nanmax(np.abs(back_s.entropy / s - 1))
-        err_t = max(np.nanmax(np.abs(back_u.temperature / tt - 1)),
-                    np.nanmax(np.abs(back_s.temperature / tt - 1)))
-        n_t = np.unique(back_u.temperature).size
-        print(f"  {name:7s}: forward {_stats(t_fwd)[0]:6.2f} s on the grid ({n} temperatures), "
-              f"{_stats(t_dist)[0]:6.2f} s at the found ones ({n_t} distinct) "
-              f"(min of {args.repeat})")
-        print(f"           (rho, u) {_stats(t_u)[0]:6.2f} s (median {_stats(t_u)[1]:.2f}) = "
-              f"{_ratio(t_u, t_fwd)} x grid, {_ratio(t_u, t_dist)} x distinct")
-        print(f"           (P, s)   {_stats(t_s)[0]:6.2f} s (median {_stats(t_s)[1]:.2f}) = "
-              f"{_ratio(t_s, t_fwd)} x grid, {_ratio(t_s, t_dist)} x distinct")
-        print(f"           round trips: u {err_u:.1e}, s {err_s:.1e}, T {err_t:.1e}")
+        _inverse_case(comp, net, tt, rr, args.repeat, grid=True)
+    if args.skip_scattered:
+        return
+    rng = np.random.default_rng(20261203)
+    ts = np.exp(rng.uniform(np.log(2e3), np.log(1e6), n * n))
+    rs = np.exp(rng.uniform(np.log(1e-12), np.log(1e-2), n * n))
+    print(f"inverse closures: {n * n} scattered states (log-uniform in the same ranges)")
+    for name, net in nets.items():
+        _inverse_case(comp, net, ts, rs, args.repeat, grid=False)
+
+
+def _inverse_case(comp, net, tt, rr, repeat, grid):
+    """Time the (rho, u) and (P, s) closures on the states (tt, rr) against forward solves."""
+    kw = {"network": net, "truncation": net.truncation}
+    name = "plain" if net.truncation == "plain" else "default"
+    t_fwd, t_u, t_s, t_dist = [], [], [], []
+    for _ in range(repeat):
+        dt, st = _timed(lambda: solve_equilibrium(comp, tt, mass_density=rr, **kw))
+        t_fwd.append(dt)
+        u, s, p = st.internal_energy, st.entropy, st.gas_pressure
+        dt, back_u = _timed(lambda: solve_equilibrium(comp, mass_density=rr, internal_energy=u,
+                                                      **kw))
+        t_u.append(dt)
+        dt, back_s = _timed(lambda: solve_equilibrium(comp, gas_pressure=p, entropy=s, **kw))
+        t_s.append(dt)
+        dt, _ = _timed(lambda: solve_equilibrium(comp, back_u.temperature, mass_density=rr,
+                                                 **kw))
+        t_dist.append(dt)
+    err_u = np.nanmax(np.abs(back_u.internal_energy / u - 1))
+    err_s = np.nanmax(np.abs(back_s.entropy / s - 1))
+    err_t = max(np.nanmax(np.abs(back_u.temperature / tt - 1)),
+                np.nanmax(np.abs(back_s.temperature / tt - 1)))
+    n_t = np.unique(back_u.temperature).size
+    where = (f"on the grid ({np.unique(tt).size} temperatures)" if grid
+             else f"({np.unique(tt).size} temperatures)")
+    print(f"  {name:7s}: forward {_stats(t_fwd)[0]:6.2f} s {where}, "
+          f"{_stats(t_dist)[0]:6.2f} s at the found ones ({n_t} distinct) (min of {repeat})")
+    first = "grid" if grid else "forward"
+    print(f"           (rho, u) {_stats(t_u)[0]:6.2f} s (median {_stats(t_u)[1]:.2f}) = "
+          f"{_ratio(t_u, t_fwd)} x {first}, {_ratio(t_u, t_dist)} x found")
+    print(f"           (P, s)   {_stats(t_s)[0]:6.2f} s (median {_stats(t_s)[1]:.2f}) = "
+          f"{_ratio(t_s, t_fwd)} x {first}, {_ratio(t_s, t_dist)} x found")
+    print(f"           round trips: u {err_u:.1e}, s {err_s:.1e}, T {err_t:.1e}")
+
 
 if __name__ == "__main__":
     main()

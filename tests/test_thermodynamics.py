@@ -275,6 +275,24 @@ def test_pressure_entropy_round_trip_scattered_states_and_molecules():
     np.testing.assert_allclose(again.temperature, 2500.0, rtol=1e-9)
 
 
+def test_a_thermal_closure_returns_the_forward_solve_at_its_temperature():
+    # the result is spliced from the Newton passes (inverse._assembled): it must be what the
+    # forward solve at the temperatures found gives, thermodynamics included, in the shape
+    # of the input
+    comp = solar().subset(COOL)
+    tt, rr = np.meshgrid(np.array([1800.0, 2600.0, 4000.0, 9000.0]),
+                         np.array([1e-9, 1e-7]), indexing="ij")
+    for kw in ({}, {"molecules": "default"}):
+        ref = solve(comp, tt, mass_density=rr, **kw)
+        back = solve(comp, mass_density=rr, internal_energy=ref.internal_energy, **kw)
+        fwd = solve(comp, back.temperature, mass_density=rr, **kw)
+        assert back.shape == tt.shape and back.n_e.shape == tt.shape
+        np.testing.assert_allclose(back.n_e, fwd.n_e, rtol=1e-9)
+        np.testing.assert_allclose(back.number_densities(), fwd.number_densities(), rtol=1e-8)
+        for name in ("internal_energy", "entropy", "gamma1", "heat_capacity_v"):
+            np.testing.assert_allclose(getattr(back, name), getattr(fwd, name), rtol=1e-8)
+
+
 def test_thermal_closure_errors_name_the_states():
     from sahaboltz.errors import ConvergenceError
     with pytest.raises(ConvergenceError, match=r"state \(1,\).*no temperature in \[1000, 1e\+08\]"):

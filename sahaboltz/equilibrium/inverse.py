@@ -12,12 +12,19 @@ first evaluated on a 65-point ln T grid for each distinct value (only 65 distinc
 temperatures, so cheap); the grid brackets each root and the cubic Hermite interpolant of
 (y, dy/d ln T) gives a first start.  Otherwise that start comes from such a table on 8-32
 partner values spanning theirs, interpolated in ln(partner).  Either start is then refined
-on the Hermite interpolant of an 8x finer ln T grid, evaluated only at the two nodes around
-each start (shared temperatures again), which brings most starts within 3e-7 in ln T of the
-root, so one pass usually reaches the tolerance (the last Newton step, below 3e-7 in ln T,
-is taken without evaluating again: its error is of the order of its square).  Every state keeps a bracket [lo, hi] in ln T (the range,
-narrowed by the signs seen), and a step that would leave it bisects.  A state whose value lies
-outside what the range of temperatures gives is reported with that range and the nearest value reached.
+on the Hermite interpolant of degree 7 through the four nodes around it on a 16x finer ln T
+grid (nodes shared by the states, so again few temperatures), which brings most starts within
+the tolerance: the first pass at them is the last.  Every state keeps a bracket [lo, hi] in
+ln T (the range, narrowed by the signs seen), and a step that would leave it bisects; the
+last Newton step, below 3e-7 in ln T, is taken without evaluating again (its error is of the
+order of its square).  A state whose value lies outside what the range of temperatures gives
+is reported with that range and the nearest value reached.
+
+The result is put together from the passes (:mod:`~sahaboltz.equilibrium.state_pieces`):
+a state whose temperature did not move after its last pass is that pass's state (solved there
+to the forward solve's tolerance, as a solve of its own would be); only the states moved by an
+unevaluated last step are solved once more.  The thermodynamics the passes
+computed stay with the result.
 """
 
 from __future__ import annotations
@@ -27,35 +34,41 @@ from typing import Callable
 import numpy as np
 
 from sahaboltz.equilibrium.closures import ThermalClosure
+from sahaboltz.equilibrium.state_pieces import splice
 
 __all__ = ["solve_thermal", "DEFAULT_TEMPERATURE_RANGE"]
 
 #: temperatures searched by default [K] (with molecules the lower end is the molecular
 #: solver's lowest temperature)
 DEFAULT_TEMPERATURE_RANGE = (1000.0, 1.0e8)
-# relative tolerance: |y - y*| <= _TOL (|y*| + |dy/dlnT|)
-_TOL = 1e-13
+# relative tolerance: |y - y*| <= tol (|y*| + |dy/dlnT|), tol the forward solve's (its
+# states, and so y, are known no better), but not below _TOL_FLOOR (the sums' rounding)
+_TOL = 1e-12
+_TOL_FLOOR = 1e-13
 # a Newton step below this in ln T is the last one (its own error is of order its square)
 _LAST_STEP = 3e-7
 _MAX_PASSES = 60
 # grid points of the start table, and when it pays (states per distinct partner value)
 _GRID = 65
-# the start is then refined on a grid this many times finer (two nodes per state)
-_REFINE = 8
+# the start is then refined on a grid this many times finer, on this many nodes per state
+_REFINE = 16
+_NODES = 4
 # partner values of the coarse start table when they are many (at least; up to 4x with more
 # states, half as many grid states as states)
 _COARSE = 8
 
 
 def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray,
-                  partner: np.ndarray, t_range: tuple[float, float]):
+                  partner: np.ndarray, t_range: tuple[float, float], tol: float = _TOL):
     """The states (flat arrays ``target`` of ``closure``, ``partner`` of its partner closure).
 
     ``forward(t, v)`` solves flat states at temperatures ``t`` with partner values ``v`` and
-    returns the result with ``errors="mask"``.  Returns (T, status, reason) per state:
-    status 0 where a temperature in ``t_range`` matches, else 3 with the reason.
+    returns the result with ``errors="mask"``.  Returns (T, status, reason) per state
+    (status 0 where a temperature in ``t_range`` matches, else 3 with the reason) and the
+    flat result at those temperatures.
     """
     m = target.size
+    tol = max(float(tol), _TOL_FLOOR)
     log_lo, log_hi = np.log(t_range[0]), np.log(t_range[1])
     lo = np.full(m, log_lo)
     hi = np.full(m, log_hi)
@@ -85,18 +98,31 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         own = ((1.0 - w) * y[i0] + w * y[i0 + 1], (1.0 - w) * dy[i0] + w * dy[i0 + 1])
         tau = _start_table(own, target, np.arange(m), log_lo, log_hi)[0]
         _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi)
+    # every pass's state is kept: where a state's temperature is not moved after its pass,
+    # that pass's state is its result (the first pass evaluates every state, so that its
+    # state can hold the rest)
+    pieces = []
+    ev_pass = np.zeros(m, dtype=np.intp)
+    ev_pos = np.arange(m)
+    ev_tau = np.full(m, np.nan)
     active = np.flatnonzero(~done)
-    for _ in range(_MAX_PASSES):
-        if not active.size:
+    for k in range(_MAX_PASSES):
+        if not active.size and k:
             break
-        st = forward(np.exp(tau[active]), partner[active])
+        evaluated = np.arange(m) if k == 0 else active
+        st = forward(np.exp(tau[evaluated]), partner[evaluated])
         th = st.thermodynamics()
-        y = th.get(closure.name).ravel()
-        slope = getattr(th, closure.slope).ravel()
-        ok = st.converged.ravel() & np.isfinite(y) & np.isfinite(slope) & (slope > 0)
+        pieces.append(st)
+        ev_pass[evaluated] = k
+        ev_pos[evaluated] = np.arange(evaluated.size)
+        ev_tau[evaluated] = tau[evaluated]
+        at = np.flatnonzero(~done[evaluated])
+        y = th.get(closure.name).ravel()[at]
+        slope = getattr(th, closure.slope).ravel()[at]
+        ok = st.converged.ravel()[at] & np.isfinite(y) & np.isfinite(slope) & (slope > 0)
         f = y - target[active]
         reached[active] = y
-        conv = ok & (np.abs(f) <= _TOL * (np.abs(target[active]) + slope))
+        conv = ok & (np.abs(f) <= tol * (np.abs(target[active]) + slope))
         done[active[conv]] = True
         # the bracket from the signs seen
         neg = ok & (f < 0)
@@ -136,7 +162,27 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         status[i] = 3
         reason[i] = (f"no convergence in {_MAX_PASSES} passes for {closure.name} = "
                      f"{target[i]:.6g} {closure.unit}")
-    return np.exp(tau), status, reason
+    return np.exp(tau), status, reason, _assembled(forward, pieces, ev_pass, ev_pos,
+                                                   ev_tau, tau, partner)
+
+
+def _assembled(forward, pieces, ev_pass, ev_pos, ev_tau, tau, partner):
+    """The flat result at the temperatures ``tau``: the first pass's state, with the states
+    of later passes where they were evaluated last at their final temperature, and a forward
+    solve of the rest (the states whose last step was taken without evaluating again)."""
+    base = pieces[0]
+    kept = "_thermo_cache" in base.__dict__
+    for k in range(1, len(pieces)):
+        sel = np.flatnonzero((ev_pass == k) & (ev_tau == tau))
+        if sel.size:
+            splice(base, sel, pieces[k], ev_pos[sel])
+    rest = np.flatnonzero(ev_tau != tau)
+    if rest.size:
+        part = forward(np.exp(tau[rest]), partner[rest])
+        if kept:
+            part.thermodynamics()        # as the other states have it
+        splice(base, rest, part)
+    return base
 
 
 def _grid_values(forward, closure, uv, log_lo, log_hi):
@@ -154,29 +200,73 @@ def _grid_values(forward, closure, uv, log_lo, log_hi):
 
 
 def _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi):
-    """Move the starts ``tau`` (in place) onto the cubic Hermite interpolant of a grid
-    _REFINE times finer than the start table's, evaluated only at the two nodes around each
-    start (nodes shared by the states of one partner value and by all partners, so each
-    forward solve has at most that grid's temperatures).  The Hermite error falls as the
-    fourth power of the spacing: most starts come within _LAST_STEP of the root, so the
-    first Newton step is already the last."""
+    """Move the starts ``tau`` (in place) onto the Hermite interpolant of a grid _REFINE
+    times finer than the start table's: y and dy/d ln T at the four nodes around each start
+    (nodes shared by the states of one partner value and by all partners, so each forward
+    solve has at most that grid's temperatures) give a polynomial of degree 7, whose error
+    falls as the eighth power of the spacing: most starts come within the tolerance, so the
+    first pass is the last and its state the result."""
     fine = np.linspace(log_lo, log_hi, (_GRID - 1) * _REFINE + 1)
     h = fine[1] - fine[0]
     act = np.flatnonzero(~done)
     if not act.size:
         return
     j = np.clip(np.floor((tau[act] - log_lo) / h).astype(int), 0, fine.size - 2)
-    keys = np.concatenate([vinv[act] * fine.size + j, vinv[act] * fine.size + j + 1])
-    uk, kinv = np.unique(keys, return_inverse=True)
+    w0 = np.clip(j - 1, 0, fine.size - _NODES)                # the first of the nodes
+    nodes = w0[:, None] + np.arange(_NODES)[None, :]          # (n, _NODES)
+    keys = vinv[act][:, None] * fine.size + nodes
+    uk, kinv = np.unique(keys.ravel(), return_inverse=True)
     th = forward(np.exp(fine[uk % fine.size]), uv[uk // fine.size]).thermodynamics()
-    y = th.get(closure.name).ravel()
-    dy = getattr(th, closure.slope).ravel()
-    good = np.isfinite(y) & np.isfinite(dy) & (dy > 0)
-    a, b = kinv[:act.size], kinv[act.size:]
-    ok = good[a] & good[b] & (y[b] > y[a])
+    y = th.get(closure.name).ravel()[kinv].reshape(nodes.shape)
+    dy = getattr(th, closure.slope).ravel()[kinv].reshape(nodes.shape)
+    good = (np.isfinite(y) & np.isfinite(dy) & (dy > 0)).all(axis=1)
+    # the cell among the nodes that holds the target (the start's own, unless it was off)
+    a = np.clip((y <= target[act][:, None]).sum(axis=1) - 1, 0, _NODES - 2)
+    ya = np.take_along_axis(y, a[:, None], axis=1)[:, 0]
+    yb = np.take_along_axis(y, a[:, None] + 1, axis=1)[:, 0]
+    ok = good & (yb > ya) & (ya <= target[act]) & (target[act] <= yb)
     sel = act[ok]
-    tau[sel] = _hermite_root(y[a][ok], y[b][ok], dy[a][ok], dy[b][ok], fine[j[ok]], h,
-                             target[sel])
+    left = (w0 + a)[ok]
+    tau[sel] = fine[left] + h * _hermite_node_root((nodes[ok] - left[:, None]), y[ok],
+                                                   h * dy[ok], target[sel])
+
+
+def _hermite_node_root(u, y, dy, target):
+    """u in [0, 1] where the Hermite interpolant of (y, dy/du) at the nodes ``u`` (integers,
+    0 and 1 among them; one row per state) meets ``target``: Newton's divided differences
+    with every node twice, then Newton's method on the polynomial from the cubic's root."""
+    n, k = u.shape
+    z = np.repeat(u.astype(float), 2, axis=1)                 # (n, 2k)
+    d = np.repeat(y, 2, axis=1)
+    coef = [d[:, 0].copy()]
+    for lev in range(1, 2 * k):
+        dz = z[:, lev:] - z[:, :-lev]
+        num = d[:, 1:] - d[:, :-1]
+        if lev == 1:
+            # a doubled node's first divided difference is the slope there
+            nd = np.where(dz == 0.0, np.repeat(dy, 2, axis=1)[:, 1:], num / np.where(
+                dz == 0.0, 1.0, dz))
+        else:
+            nd = num / dz
+        d = nd
+        coef.append(d[:, 0].copy())
+    coef = np.stack(coef, axis=1)                             # (n, 2k)
+    i0 = np.argmax(u == 0, axis=1)[:, None]
+    y0 = np.take_along_axis(y, i0, axis=1)[:, 0]
+    y1 = np.take_along_axis(y, i0 + 1, axis=1)[:, 0]
+    d0 = np.take_along_axis(dy, i0, axis=1)[:, 0]
+    d1 = np.take_along_axis(dy, i0 + 1, axis=1)[:, 0]
+    x = _hermite_root(y0, y1, d0, d1, 0.0, 1.0, target)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for _ in range(4):
+            p = coef[:, -1].copy()
+            dp = np.zeros(n)
+            for c in range(2 * k - 2, -1, -1):
+                dp = dp * (x - z[:, c]) + p
+                p = p * (x - z[:, c]) + coef[:, c]
+            step = (p - target) / dp
+            x = np.where(np.isfinite(step), np.clip(x - step, 0.0, 1.0), x)
+    return x
 
 
 def _hermite_root(y0, y1, d0, d1, lo, h, target):

@@ -111,7 +111,9 @@ def solve_equilibrium(composition: Composition, temperature: Any = None, *,
     missing_levels : {"unit", "error"}
         Stages without level lists: U = 1 (listed in ``state.unit_partition``) or an error.
     tolerance : float
-        Relative charge-neutrality tolerance (default 1e-12).
+        Relative charge-neutrality tolerance (default 1e-12); with ``internal_energy`` or
+        ``entropy`` also the relative tolerance to which the temperature found gives it
+        (not below 1e-13).
     max_passes : int
         Most evaluations of the charge balance per state before giving up.
     network : AtomicNetwork, optional
@@ -197,6 +199,7 @@ def _solve_thermal_front(composition, temperature, thermal, given, *, truncation
                          radiation, temperature_range):
     """solve_equilibrium with a thermal closure: find T, then the state there."""
     from sahaboltz.equilibrium.inverse import DEFAULT_TEMPERATURE_RANGE, solve_thermal
+    from sahaboltz.equilibrium.state_pieces import reshape as reshape_states
     from sahaboltz.equilibrium.molecular import T_MIN
     from sahaboltz.quantities import as_array
     if len(thermal) > 1:
@@ -246,9 +249,9 @@ def _solve_thermal_front(composition, temperature, thermal, given, *, truncation
         return st
 
     shape = target.shape
-    t, status, reason = solve_thermal(forward, tc, target.ravel().astype(float),
-                                      pv.ravel().astype(float), (lo, hi))
-    state = forward(t.reshape(shape), pv.copy())
+    _, status, reason, state = solve_thermal(forward, tc, target.ravel().astype(float),
+                                             pv.ravel().astype(float), (lo, hi), tolerance)
+    reshape_states(state, shape)
     bad = np.flatnonzero(status != 0)
     mark_failed(state, bad, reason[bad])
     state.thermal_closure = tc.name
