@@ -250,8 +250,9 @@ class AtomicNetwork:
         elif self.scheme.density_dependent:
             if n_e is None and self.scheme.unweighted_limit:
                 # the low-density limit: the plain sum over the same levels, no pair sums
-                u = self._limit_model(chain).evaluate(t)
-                ln_u[pick] = np.log(u if pick is has else u[chain.model_rows[pick]])
+                # (of the first stage alone when only it is asked for)
+                u = self._limit_model(chain, first_only).evaluate(t)
+                ln_u[pick] = np.log(u)
                 return ln_u
             # every (stage, state) pair through the pair sums (compiled where available)
             ne = np.full(n, self.LIMIT_DENSITY) if n_e is None else np.asarray(n_e, float)
@@ -274,12 +275,18 @@ class AtomicNetwork:
         far too high; a converged state is checked against chi separately."""
         return np.minimum(lowering_ev, np.where(np.isfinite(chi_ev), 0.999 * chi_ev, 0.0))
 
-    def _limit_model(self, chain: Chain):
-        """The chain's partition model with every weight 1 (its low-density limit), kept."""
+    def _limit_model(self, chain: Chain, first_only: bool = False):
+        """The chain's partition model with every weight 1 (its low-density limit), kept;
+        with ``first_only`` that of its first stage alone."""
         cache = self.__dict__.setdefault("_limit_models", {})
-        if chain.k not in cache:
-            cache[chain.k] = chain.model.with_scheme(_truncation.get("plain"))
-        return cache[chain.k]
+        key = (chain.k, bool(first_only))
+        if key not in cache:
+            model = chain.model
+            if first_only:
+                row = int(chain.model_rows[0])
+                model = model.subset(row, row + 1)
+            cache[key] = model.with_scheme(_truncation.get("plain"))
+        return cache[key]
 
     def log_u_pairs(self, chain: Chain, t: np.ndarray, n_e: np.ndarray, rows: np.ndarray,
                     states: np.ndarray, temperature_index: np.ndarray | None = None
