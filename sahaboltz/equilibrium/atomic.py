@@ -190,8 +190,10 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
 
 
 # the Saha tables of a solve (stages x distinct temperatures) are kept on its state for its
-# thermodynamics up to this size (64 MB)
-_KEPT_TABLE_ELEMENTS = 1 << 23
+# thermodynamics up to this size (128 MB: the 3,648 stages of a solar mixture at 3,600
+# temperatures, as an inverse closure's pass has; forming them again costs about as much as
+# the thermodynamics' level sums)
+_KEPT_TABLE_ELEMENTS = 1 << 24
 
 #: the default of ``max_passes``; a smaller limit is the first suspect of a failure
 DEFAULT_MAX_PASSES = 200
