@@ -91,3 +91,29 @@ def test_compiled_significance_intervals_equal_the_numpy_ones(monkeypatch):
         assert np.array_equal(a[0], b[0]) and np.array_equal(a[1], b[1]), c.symbol
     # the windows are not trivial: somewhere a stage is out of reach
     assert any((a[0] > -atomic._X_CLIP).any() for a in fast)
+
+
+@pytest.mark.parametrize("truncation", ["plain", "occupation"])
+def test_a_start_hint_changes_the_passes_not_the_answer(monkeypatch, truncation):
+    # the inverse closures hand the solver ln n_e near each solution (atomic.solve_atomic's
+    # start_log_ne): from there the Newton needs fewer passes, and the answer is the numpy
+    # engine's (which ignores the hint) to the tolerance; NaN means no hint
+    from sahaboltz.equilibrium.atomic import solve_atomic
+    from sahaboltz.equilibrium.closures import CLOSURES
+    comp = solar()
+    net = AtomicNetwork(comp, truncation=truncation)
+    rng = np.random.default_rng(5)
+    t = np.exp(rng.uniform(np.log(2e3), np.log(1e6), 60))      # a temperature per state
+    rho = np.exp(rng.uniform(np.log(1e-12), np.log(1e-2), 60))
+    closure = CLOSURES["mass_density"]
+    cold = solve_atomic(net, t, rho, closure)
+    hint = cold.log_ne * (1 + 1e-6 * rng.standard_normal(t.size))
+    hint[::7] = np.nan
+    warm = solve_atomic(net, t, rho, closure, start_log_ne=hint)
+    with monkeypatch.context() as m:
+        m.setattr(compiled_newton, "available", lambda: False)
+        slow = solve_atomic(net, t, rho, closure, start_log_ne=hint)
+    np.testing.assert_allclose(warm.n_e, slow.n_e, rtol=1e-11)
+    np.testing.assert_allclose(warm.n_e, cold.n_e, rtol=1e-11)
+    given = np.isfinite(hint)
+    assert warm.report.passes[given].mean() < 0.6 * cold.report.passes[given].mean()

@@ -58,17 +58,21 @@ _FINAL_STEP = 1e-4
 
 def solve_atomic(network: AtomicNetwork, t: np.ndarray, v: np.ndarray, closure: Closure, *,
                  lowering: bool = False, tolerance: float = DEFAULT_TOLERANCE,
-                 max_passes: int = 200) -> EquilibriumState:
+                 max_passes: int = 200, start_log_ne: np.ndarray | None = None
+                 ) -> EquilibriumState:
     """Solve the atoms-only balance at the states (``t``, ``v``) (checked, broadcast arrays).
 
     ``closure`` says what ``v`` is; ``network`` holds the composition and the truncation.
     States that cannot be solved get a status and a reason in the result (and NaN values);
-    the front decides whether that is an error.
+    the front decides whether that is an error.  ``start_log_ne``: ln n_e near each state's
+    solution where the caller knows one (NaN elsewhere; the inverse closures do), a hint that
+    the compiled solver starts its Newton from (the result is the same to the tolerance).
     """
     shape = t.shape
     tf, vf = t.ravel().copy(), v.ravel().copy()
+    warm = None if start_log_ne is None else np.asarray(start_log_ne, dtype=float).ravel()
     x, nuc, lam, report, status, reason, tables = _solve_flat(
-        network, tf, vf, closure, lowering, tolerance, int(max_passes), shape)
+        network, tf, vf, closure, lowering, tolerance, int(max_passes), shape, warm)
     state = EquilibriumState(network=network, temperature=t.copy(), log_ne=x.reshape(shape),
                              nuclei_density=nuc.reshape(shape), closure=closure.name,
                              closure_value=v.copy(), lowering=lowering,
@@ -100,7 +104,7 @@ def _x_upper(network, closure, t, v, fixed_n, ntot) -> np.ndarray:
     return np.log(closure.electrons(t, v))
 
 
-def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
+def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape, warm=None):
     n = t.size
     fixed_n, ntot = _fixed_densities(network, closure, t, v)
     x_out = np.empty(n)
@@ -144,7 +148,7 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape):
                   _weak_start(network, c_unique, tinv[idx], fn, nt, x_hi))
             out = fast.run(tinv[idx], kind, nref, x0, x_hi, tol,
                            max(tol, _START_TOLERANCE) if density else tol, max_passes,
-                           _FINAL_STEP * np.sqrt(tol))
+                           _FINAL_STEP * np.sqrt(tol), None if warm is None else warm[idx])
             x_out[idx], nuc_out[idx], passes[idx], resid[idx], done = out
             failed[idx] = ~done
             continue

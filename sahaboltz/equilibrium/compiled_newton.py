@@ -575,7 +575,7 @@ def _extrapolated(y, ys, xs):
     return xg
 
 
-def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_passes,
+def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol, max_passes,
                   final_step, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac,
                   ch_lnaz, ch_whole, q_flat, mrow, hm_q, lv_start, lv_count, e, lng, lng_max, qs,
                   term, pre, suf, cnt_t, jpos, filled, n_group, out_x, out_nuc,
@@ -586,7 +586,9 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
     With ``density``, each state first converges with the low-density-limit tables ``ctab``
     to ``start_tol`` and then with the occupation-weighted sums (``bare`` the T-only part of
     C), accepting after a final step below ``final_step``.  The level tables (``term``,
-    ``pre``, ``suf``) hold ``n_group`` consecutive temperatures at a time.
+    ``pre``, ``suf``) hold ``n_group`` consecutive temperatures at a time.  ``x_warm``: a
+    start near each state's solution where the caller knows one (NaN elsewhere): the Newton
+    (with ``density`` the weighted one) starts there, as from a row's extrapolation.
     """
     stride = lv_start.size
     pool_base = e.size + stride
@@ -638,14 +640,19 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_hi, tol, start_tol, max_pa
             xg = _extrapolated(y, ys, xs)
             if np.isfinite(xg):
                 x = min(xg, hi - 1e-9)
+        warm = kind != FIXED_ELECTRONS and np.isfinite(x_warm[i])
+        if warm and not density:
+            x = min(x_warm[i], hi - 1e-9)
         out_passes[i] = 0
         out_done[i] = False
         out_nuc[i] = np.nan
         wpos[:] = -1
-        if density and ti == row_ti and kind != FIXED_ELECTRONS and np.isfinite(ysd[2]):
-            # three weighted solutions of this row: their extrapolation starts the weighted
-            # Newton directly, closer than the low-density-limit solve would
-            xg = _extrapolated(y, ysd, xsd)
+        if density and kind != FIXED_ELECTRONS and (warm or (ti == row_ti
+                                                             and np.isfinite(ysd[2]))):
+            # the caller's start, or three weighted solutions of this row (their
+            # extrapolation): the weighted Newton starts there directly, closer than the
+            # low-density-limit solve would
+            xg = x_warm[i] if warm else _extrapolated(y, ysd, xsd)
             if np.isfinite(xg):
                 if ti != last_ti:
                     x_at[:] = np.inf
@@ -774,8 +781,10 @@ class CompiledSolver:
                      np.zeros(g * rows, dtype=np.int64), np.zeros(2 * g * rows, dtype=np.int64),
                      np.zeros(g * rows, dtype=np.int8))
 
-    def run(self, tpos, kind, nref, x0, x_hi, tol, start_tol, max_passes, final_step):
-        """(x, nuc, passes, resid, done) of the states with temperature indices ``tpos``."""
+    def run(self, tpos, kind, nref, x0, x_hi, tol, start_tol, max_passes, final_step,
+            x_warm=None):
+        """(x, nuc, passes, resid, done) of the states with temperature indices ``tpos``;
+        ``x_warm``: known starts near the solutions (NaN where none)."""
         n = tpos.size
         tpos = np.ascontiguousarray(tpos, dtype=np.int64)
         order = np.argsort(tpos, kind="stable").astype(np.int64)
@@ -784,7 +793,9 @@ class CompiledSolver:
         out_done = np.zeros(n, dtype=np.bool_)
         f64 = np.ascontiguousarray
         _solve_states_jit(order, tpos, self.t_u, int(kind), f64(nref, dtype=float),
-                          f64(x0, dtype=float), f64(x_hi, dtype=float), float(tol),
+                          f64(x0, dtype=float),
+                          np.full(n, np.nan) if x_warm is None else f64(x_warm, dtype=float),
+                          f64(x_hi, dtype=float), float(tol),
                           float(start_tol), int(max_passes), float(final_step), self.density,
                           self.ctab, self.bare, self.lu_first, self.xl, self.xr, *self.chains,
                           self.q_flat,

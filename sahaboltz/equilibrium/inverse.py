@@ -62,8 +62,9 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
                   partner: np.ndarray, t_range: tuple[float, float], tol: float = _TOL):
     """The states (flat arrays ``target`` of ``closure``, ``partner`` of its partner closure).
 
-    ``forward(t, v)`` solves flat states at temperatures ``t`` with partner values ``v`` and
-    returns the result with ``errors="mask"``.  Returns (T, status, reason) per state
+    ``forward(t, v[, x])`` solves flat states at temperatures ``t`` with partner values ``v``
+    (``x``: ln n_e near each solution where known, NaN elsewhere, a hint) and returns the
+    result with ``errors="mask"``.  Returns (T, status, reason) per state
     (status 0 where a temperature in ``t_range`` matches, else 3 with the reason) and the
     flat result at those temperatures.
     """
@@ -82,7 +83,7 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         table = _grid_values(forward, closure, uv, log_lo, log_hi)
         tau, lo, hi, outside = _start_table(table, target, vinv, log_lo, log_hi)
         _out_of_range(closure, target, partner, outside, t_range, status, reason, done)
-        _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi)
+        x_start = _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi)
     else:
         # many distinct partner values: a table on a coarse grid of them, its y and slopes
         # interpolated in ln(partner) to each state's partner value (y is close to linear
@@ -97,7 +98,7 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         y, dy = _grid_values(forward, closure, grid_v, log_lo, log_hi)
         own = ((1.0 - w) * y[i0] + w * y[i0 + 1], (1.0 - w) * dy[i0] + w * dy[i0 + 1])
         tau = _start_table(own, target, np.arange(m), log_lo, log_hi)[0]
-        _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi)
+        x_start = _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi)
     # every pass's state is kept: where a state's temperature is not moved after its pass,
     # that pass's state is its result (the first pass evaluates every state, so that its
     # state can hold the rest)
@@ -110,9 +111,10 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         if not active.size and k:
             break
         evaluated = np.arange(m) if k == 0 else active
-        st = forward(np.exp(tau[evaluated]), partner[evaluated])
+        st = forward(np.exp(tau[evaluated]), partner[evaluated], x_start[evaluated])
         th = st.thermodynamics()
         pieces.append(st)
+        x_start[evaluated] = st.log_ne.ravel()       # the next pass's starts
         ev_pass[evaluated] = k
         ev_pos[evaluated] = np.arange(evaluated.size)
         ev_tau[evaluated] = tau[evaluated]
@@ -163,10 +165,10 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         reason[i] = (f"no convergence in {_MAX_PASSES} passes for {closure.name} = "
                      f"{target[i]:.6g} {closure.unit}")
     return np.exp(tau), status, reason, _assembled(forward, pieces, ev_pass, ev_pos,
-                                                   ev_tau, tau, partner)
+                                                   ev_tau, tau, partner, x_start)
 
 
-def _assembled(forward, pieces, ev_pass, ev_pos, ev_tau, tau, partner):
+def _assembled(forward, pieces, ev_pass, ev_pos, ev_tau, tau, partner, x_start):
     """The flat result at the temperatures ``tau``: the first pass's state, with the states
     of later passes where they were evaluated last at their final temperature, and a forward
     solve of the rest (the states whose last step was taken without evaluating again)."""
@@ -178,7 +180,7 @@ def _assembled(forward, pieces, ev_pass, ev_pos, ev_tau, tau, partner):
             splice(base, sel, pieces[k], ev_pos[sel])
     rest = np.flatnonzero(ev_tau != tau)
     if rest.size:
-        part = forward(np.exp(tau[rest]), partner[rest])
+        part = forward(np.exp(tau[rest]), partner[rest], x_start[rest])
         if kept:
             part.thermodynamics()        # as the other states have it
         splice(base, rest, part)
@@ -210,15 +212,17 @@ def _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi)
     h = fine[1] - fine[0]
     act = np.flatnonzero(~done)
     if not act.size:
-        return
+        return np.full(tau.size, np.nan)
     j = np.clip(np.floor((tau[act] - log_lo) / h).astype(int), 0, fine.size - 2)
     w0 = np.clip(j - 1, 0, fine.size - _NODES)                # the first of the nodes
     nodes = w0[:, None] + np.arange(_NODES)[None, :]          # (n, _NODES)
     keys = vinv[act][:, None] * fine.size + nodes
     uk, kinv = np.unique(keys.ravel(), return_inverse=True)
-    th = forward(np.exp(fine[uk % fine.size]), uv[uk // fine.size]).thermodynamics()
+    st = forward(np.exp(fine[uk % fine.size]), uv[uk // fine.size])
+    th = st.thermodynamics()
     y = th.get(closure.name).ravel()[kinv].reshape(nodes.shape)
     dy = getattr(th, closure.slope).ravel()[kinv].reshape(nodes.shape)
+    x_nodes = st.log_ne.ravel()[kinv].reshape(nodes.shape)
     good = (np.isfinite(y) & np.isfinite(dy) & (dy > 0)).all(axis=1)
     # the cell among the nodes that holds the target (the start's own, unless it was off)
     a = np.clip((y <= target[act][:, None]).sum(axis=1) - 1, 0, _NODES - 2)
@@ -227,8 +231,18 @@ def _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi)
     ok = good & (yb > ya) & (ya <= target[act]) & (target[act] <= yb)
     sel = act[ok]
     left = (w0 + a)[ok]
-    tau[sel] = fine[left] + h * _hermite_node_root((nodes[ok] - left[:, None]), y[ok],
-                                                   h * dy[ok], target[sel])
+    u = nodes[ok] - left[:, None]
+    root = _hermite_node_root(u, y[ok], h * dy[ok], target[sel])
+    tau[sel] = fine[left] + h * root
+    # ln n_e there, the cubic through the nodes' (a start for the solve at tau)
+    weights = np.ones(u.shape)
+    for i in range(_NODES):
+        for k in range(_NODES):
+            if k != i:
+                weights[:, i] *= (root - u[:, k]) / (u[:, i] - u[:, k])
+    x_start = np.full(tau.size, np.nan)
+    x_start[sel] = (weights * x_nodes[ok]).sum(axis=1)
+    return x_start
 
 
 def _hermite_node_root(u, y, dy, target):

@@ -237,14 +237,14 @@ def _solve_thermal_front(composition, temperature, thermal, given, *, truncation
     network = _network_for(network, composition, database, scheme, completion, h_minus,
                            missing_levels)
 
-    def forward(t, v):
+    def forward(t, v, start=None):
         if molecules is not None:
             st = solve_molecular(network, t, v, part_def, molecules=molecules,
                                  lowering=lowering, tolerance=tolerance, max_passes=max_passes,
                                  molecule_database=molecule_database, condensates=condensates)
         else:
             st = solve_atomic(network, t, v, part_def, lowering=lowering, tolerance=tolerance,
-                              max_passes=max_passes)
+                              max_passes=max_passes, start_log_ne=start)
         st.radiation = bool(radiation)
         return st
 
