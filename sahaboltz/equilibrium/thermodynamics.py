@@ -300,7 +300,8 @@ def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut, factors, debye=None)
             vals = model.pair_log_derivatives(t[j], None, flat, lowering_ev=low)
         else:
             vals = model.pair_log_derivatives(t, ne, chain.model_offset + mrow[r, j],
-                                              states=j, state_factors=factors)
+                                              states=j, state_factors=factors,
+                                              temperature_index=tinv)
         if not net.ideal:
             for a, v in zip(out, vals):
                 a[r, j] = v

@@ -326,13 +326,27 @@ class PartitionModel:
                               want_density=True)
         return u, u1 / u, u2 / u
 
-    def _pair_levels(self, rows: np.ndarray, beta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def _pair_levels(self, rows: np.ndarray, beta: np.ndarray, temps=None
+                     ) -> tuple[np.ndarray, np.ndarray]:
         """(first level, number of levels) of each pair's species that pass the Boltzmann
-        pruning at 1/kT = ``beta`` [eV^-1] (a prefix: levels are sorted by energy)."""
+        pruning at 1/kT = ``beta`` [eV^-1] (a prefix: levels are sorted by energy).  With
+        ``temps`` = (1/kT of the distinct temperatures, index of each pair's) and pairs of a
+        few neighbouring species (one element's stages), each count is searched once per
+        (temperature, species) and gathered."""
         if not hasattr(self, "_pair_keys"):
             self._pair_keys = self._sp * _PAIR_KEY_STRIDE + self._e
-        cut = (_CUT + self._lng_max[rows]) / beta
         start = self._starts[rows]
+        if temps is not None and rows.size:
+            beta_u, tidx = temps
+            r0 = int(rows.min())
+            span = np.arange(r0, int(rows.max()) + 1)
+            if beta_u.size * span.size * 2 <= rows.size:
+                cut = (_CUT + self._lng_max[span])[None, :] / beta_u[:, None]
+                table = (np.searchsorted(self._pair_keys, span * _PAIR_KEY_STRIDE + cut)
+                         - self._starts[span])
+                count = table[tidx, rows - r0]
+                return start, np.clip(count, 1, self._counts[rows])
+        cut = (_CUT + self._lng_max[rows]) / beta
         count = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
         return start, np.clip(count, 1, self._counts[rows])
 
@@ -410,7 +424,9 @@ class PartitionModel:
     def pair_log_derivatives(self, temperature: np.ndarray, n_e: np.ndarray | None,
                              rows: np.ndarray, states: np.ndarray | None = None,
                              state_factors: dict | None = None,
-                             lowering_ev: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
+                             lowering_ev: np.ndarray | None = None,
+                             temperature_index: np.ndarray | None = None
+                             ) -> tuple[np.ndarray, ...]:
         """ln U and its first and second derivatives in (ln T, ln n_e) for the flat pairs
         (state, species ``rows[p]``), unchecked float arrays as in :meth:`evaluate_pairs`.
 
@@ -428,6 +444,8 @@ class PartitionModel:
         limit take the lowering of each pair, ``lowering_ev`` [eV] (already bounded below the
         ionization energy): at a fixed lowering their U depends on T alone, so the density
         derivatives are 0 (the cut moves a level in or out only in steps).
+        ``temperature_index``: each state's (each pair's, without ``states``) position among
+        the distinct temperatures, from a caller that knows it (spares sorting the pairs).
         """
         lowered = "lowering_ev" in self.scheme.inputs
         if lowered and lowering_ev is None:
@@ -451,7 +469,15 @@ class PartitionModel:
             pst = _per_pair(pst, states)
         t = pst["T"]
         beta = 1.0 / (K_B_EV * t)
-        start, count = self._pair_levels(rows, beta)
+        temps = None                       # (1/kT of the distinct temperatures, index per pair)
+        if temperature_index is not None:
+            tidx = np.asarray(temperature_index, dtype=np.intp)
+            if states is not None:
+                tidx = tidx[states]
+            beta_u = np.ones(int(tidx.max()) + 1)
+            beta_u[tidx] = beta
+            temps = (beta_u, tidx)
+        start, count = self._pair_levels(rows, beta, temps)
         if lowered:
             # the levels below the lowered limit chi - dchi (a prefix: energies ascend)
             cut = np.where(self._bare[rows], np.inf,
@@ -459,15 +485,16 @@ class PartitionModel:
             below = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
             count = np.clip(np.minimum(count, below), 1, None)
         if dens:
-            fast = self.scheme.pair_log_derivative_sums(self, rows, beta, start, count, pst)
+            fast = self.scheme.pair_log_derivative_sums(self, rows, beta, start, count, pst,
+                                                        temps)
             if fast is not None:
                 return fast
         else:   # every weight 1 here
             from sahaboltz.kernels import compiled_thermo
             if compiled_thermo.available():
-                beta_u, tidx = np.unique(beta, return_inverse=True)
+                beta_u, tidx = temps if temps is not None else _distinct(beta)
                 return compiled_thermo.plain_log_derivative_sums(
-                    tidx.ravel(), rows, beta_u, start, count, self._e, self._lng,
+                    tidx, rows, beta_u, start, count, self._e, self._lng,
                     self._lng_max, self._q_stark, self._r3, self.n_species)
         ln_u, u_t, u_n, u_tt, u_tn = out
         ends = np.cumsum(count)
@@ -747,6 +774,12 @@ def log_derivative(species, temperature: Any, *, truncation: str | None = None,
     model = _model_for(species, default_truncation(truncation, n_e, lowering_ev), completion)
     return model.log_derivative(temperature, n_e, species_lowering(model, lowering_ev),
                                 n_neutral)[0]
+
+
+def _distinct(beta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(distinct values of 1/kT, each pair's index among them)."""
+    beta_u, tidx = np.unique(beta, return_inverse=True)
+    return beta_u, tidx.ravel()
 
 
 def _per_pair(pst: dict, states) -> dict:
