@@ -285,26 +285,26 @@ def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut, factors, debye=None)
     has = (mrow >= 0) & inside
     if chain.model is not None and has.any():
         model = net.model
-        r, j = np.nonzero(has)
+        at = np.flatnonzero(has)               # flat (stage, state) positions: one index
+        j = at % m
+        mr = mrow.ravel()[at]
         if net.ideal:
             # the partition functions depend on T alone: once per (stage, distinct T)
-            key, inv = np.unique(mrow[r, j] * ut.size + tinv[j], return_inverse=True)
+            key, inv = np.unique(mr * ut.size + tinv[j], return_inverse=True)
             vals = model.pair_log_derivatives(ut[key % ut.size], None,
                                               chain.model_offset + key // ut.size)
-            for a, v in zip(out, vals):
-                a[r, j] = v[inv]
+            vals = [v[inv] for v in vals]
         elif "lowering_ev" in net.scheme.inputs:
-            flat = chain.model_offset + mrow[r, j]
-            low = net.bounded_lowering(_lowering_ev(chain.charges[rows[r, j]], debye[j]),
+            flat = chain.model_offset + mr
+            low = net.bounded_lowering(_lowering_ev(chain.charges[rows.ravel()[at]], debye[j]),
                                        model.ionization_energy_ev[flat])
             vals = model.pair_log_derivatives(t[j], None, flat, lowering_ev=low)
         else:
-            vals = model.pair_log_derivatives(t, ne, chain.model_offset + mrow[r, j],
+            vals = model.pair_log_derivatives(t, ne, chain.model_offset + mr,
                                               states=j, state_factors=factors,
                                               temperature_index=tinv)
-        if not net.ideal:
-            for a, v in zip(out, vals):
-                a[r, j] = v
+        for a, v in zip(out, vals):
+            a.reshape(-1)[at] = v
     if chain.charges[0] < 0 and not net.ideal:
         wts = net.scheme.bound_state_weight_derivatives(float(chain.chi_ev[0]), t, ne)
         if wts is not None:
