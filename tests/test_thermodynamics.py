@@ -422,3 +422,22 @@ def test_compiled_and_numpy_stage_sums_agree(monkeypatch, truncation):
     # (du/d ln rho)_T vanishes where nothing ionizes: compared on the scale of u
     np.testing.assert_allclose(fast.du_dlnrho, slow.du_dlnrho,
                                atol=1e-12 * np.abs(slow.internal_energy).max())
+
+
+@pytest.mark.slow
+def test_thermal_closures_converge_over_the_solver_domain():
+    # the domain the forward solver converges on with the default physics (T = 1e3 - 1e7 K,
+    # P_gas = 1e-4 - 1e10 dyn cm^-2, a solar mixture, every element): every state found again
+    # from (rho, u) and from (P, s), each to 1e-10 in its closure value and in T; T = 1e3 K is
+    # the lowest temperature searched, so a value met there to the tolerance must count as
+    # inside the range (6 of these 24 were refused as out of range before)
+    tt, pp = np.meshgrid(np.geomspace(1e3, 1e7, 24), np.geomspace(1e-4, 1e10, 24),
+                         indexing="ij")
+    ref = solve(solar(), tt, gas_pressure=pp)
+    back_u = solve(solar(), mass_density=ref.mass_density, internal_energy=ref.internal_energy)
+    back_s = solve(solar(), gas_pressure=pp, entropy=ref.entropy)
+    for back in (back_u, back_s):
+        assert back.converged.all()
+        np.testing.assert_allclose(back.temperature, tt, rtol=1e-10)
+    np.testing.assert_allclose(back_u.internal_energy, ref.internal_energy, rtol=1e-10)
+    np.testing.assert_allclose(back_s.entropy, ref.entropy, rtol=1e-10)

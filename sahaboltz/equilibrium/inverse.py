@@ -81,7 +81,7 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
     uv, vinv = np.unique(partner, return_inverse=True)
     if uv.size <= max(1, m // 4):
         table = _grid_values(forward, closure, uv, log_lo, log_hi)
-        tau, lo, hi, outside = _start_table(table, target, vinv, log_lo, log_hi)
+        tau, lo, hi, outside = _start_table(table, target, vinv, log_lo, log_hi, tol)
         _out_of_range(closure, target, partner, outside, t_range, status, reason, done)
         x_start = _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi)
     else:
@@ -97,7 +97,7 @@ def solve_thermal(forward: Callable, closure: ThermalClosure, target: np.ndarray
         w = (pos - i0)[:, None]
         y, dy = _grid_values(forward, closure, grid_v, log_lo, log_hi)
         own = ((1.0 - w) * y[i0] + w * y[i0 + 1], (1.0 - w) * dy[i0] + w * dy[i0 + 1])
-        tau = _start_table(own, target, np.arange(m), log_lo, log_hi)[0]
+        tau = _start_table(own, target, np.arange(m), log_lo, log_hi, tol)[0]
         x_start = _refine_start(forward, closure, uv, vinv, target, tau, done, log_lo, log_hi)
     # every pass's state is kept: where a state's temperature is not moved after its pass,
     # that pass's state is its result (the first pass evaluates every state, so that its
@@ -301,17 +301,21 @@ def _hermite_root(y0, y1, d0, d1, lo, h, target):
     return lo + frac * h
 
 
-def _start_table(table, target, vinv, log_lo, log_hi):
+def _start_table(table, target, vinv, log_lo, log_hi, tol):
     """Start values and brackets from the grid values ``table`` (of :func:`_grid_values`)
     for states of partner rows ``vinv``; also the states whose target lies outside the
-    grid's range of y."""
+    grid's range of y (a target met at an end of the range to the tolerance ``tol`` is
+    inside: it starts there)."""
     grid = np.linspace(log_lo, log_hi, _GRID)
     y, dy = table
     yg = y[vinv]                                               # (m, G)
-    j = (yg <= target[:, None]).sum(axis=1)                    # grid points at or below
-    outside = np.flatnonzero((j == 0) | (j == _GRID))
-    jl = np.clip(j - 1, 0, _GRID - 2)
     dyg = dy[vinv]
+    j = (yg <= target[:, None]).sum(axis=1)                    # grid points at or below
+    with np.errstate(invalid="ignore"):
+        at_lo = np.abs(target - yg[:, 0]) <= tol * (np.abs(target) + np.abs(dyg[:, 0]))
+        at_hi = np.abs(target - yg[:, -1]) <= tol * (np.abs(target) + np.abs(dyg[:, -1]))
+    outside = np.flatnonzero(((j == 0) & ~at_lo) | ((j == _GRID) & ~at_hi))
+    jl = np.clip(j - 1, 0, _GRID - 2)
     y0 = np.take_along_axis(yg, jl[:, None], axis=1)[:, 0]
     y1 = np.take_along_axis(yg, jl[:, None] + 1, axis=1)[:, 0]
     d0 = np.take_along_axis(dyg, jl[:, None], axis=1)[:, 0]
