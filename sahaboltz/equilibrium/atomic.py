@@ -123,7 +123,10 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape, warm=N
         # Saha tables per temperature: exact for T-only partition functions, and for
         # density-dependent ones their low-density limit (the start and the windows)
         ut, tinv = np.unique(t, return_inverse=True)
-        c_unique = [network.log_c(c, ut) for c in network.chains]
+        ln_u = [network.log_u(c, ut) for c in network.chains]
+        c_unique = [network.log_c_of(c, ut, lu) for c, lu in zip(network.chains, ln_u)]
+        lu_first = [lu[0].copy() for lu in ln_u]    # the compiled solver's, for free
+        del ln_u
         intervals = [_significance_intervals(c.charges, tab,
                                              thr=_DENSITY_THR if density else 40.0)
                      for c, tab in zip(network.chains, c_unique)]
@@ -133,7 +136,8 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape, warm=N
     if c_unique is not None and compiled_newton.available() and (
             not density or network.scheme.key == "occupation"):
         bare = [network.bare_log_c(c, ut) for c in network.chains] if density else None
-        fast = compiled_newton.CompiledSolver(network, ut, c_unique, intervals, bare)
+        fast = compiled_newton.CompiledSolver(network, ut, c_unique, intervals, bare,
+                                              lu_first if density else None)
         kind = (compiled_newton.FIXED_NUCLEI if fixed_n is not None else
                 compiled_newton.FIXED_PARTICLES if ntot is not None else
                 compiled_newton.FIXED_ELECTRONS)

@@ -758,10 +758,11 @@ class CompiledSolver:
     ``c_unique``: per chain C at ``ut`` (shape (n_stages, n_T)), or, with ``bare`` given, its
     low-density limit; ``intervals`` the chains' significance intervals from those tables;
     ``bare``: per chain the T-only part of C when U depends on n_e (occupation
-    probabilities, charged perturbers), else None.
+    probabilities, charged perturbers), else None; ``lu_first``: then per chain the
+    low-density-limit ln U of its first stage at ``ut``, where the caller has it.
     """
 
-    def __init__(self, network, ut, c_unique, intervals, bare=None):
+    def __init__(self, network, ut, c_unique, intervals, bare=None, lu_first=None):
         chains = network.chains
         self.t_u = np.ascontiguousarray(ut, dtype=float)
         self.ctab = _per_temperature(c_unique)
@@ -780,9 +781,9 @@ class CompiledSolver:
                                                  c.model_rows + c.model_offset, -1)
                                         for c in chains]).astype(np.int64)
             self.bare = _per_temperature(bare)
-            self.lu_first = np.ascontiguousarray(
-                np.stack([network.log_u(c, self.t_u, first_only=True)[0] for c in chains],
-                         axis=1))
+            if lu_first is None:
+                lu_first = [network.log_u(c, self.t_u, first_only=True)[0] for c in chains]
+            self.lu_first = np.ascontiguousarray(np.stack(lu_first, axis=1))
             self.levels = (model._starts.astype(np.int64), model._counts.astype(np.int64),
                            model._e, model._lng, model._lng_max, model._q_stark)
         else:
