@@ -759,7 +759,7 @@ class CompiledSolver:
     low-density limit; ``intervals`` the chains' significance intervals from those tables;
     ``bare``: per chain the T-only part of C when U depends on n_e (occupation
     probabilities, charged perturbers), else None; ``lu_first``: then per chain the
-    low-density-limit ln U of its first stage at ``ut``, where the caller has it.
+    low-density-limit ln U of its first stage at ``ut``.
     """
 
     def __init__(self, network, ut, c_unique, intervals, bare=None, lu_first=None):
@@ -781,8 +781,6 @@ class CompiledSolver:
                                                  c.model_rows + c.model_offset, -1)
                                         for c in chains]).astype(np.int64)
             self.bare = _per_temperature(bare)
-            if lu_first is None:
-                lu_first = [network.log_u(c, self.t_u, first_only=True)[0] for c in chains]
             self.lu_first = np.ascontiguousarray(np.stack(lu_first, axis=1))
             self.levels = (model._starts.astype(np.int64), model._counts.astype(np.int64),
                            model._e, model._lng, model._lng_max, model._q_stark)

@@ -224,12 +224,11 @@ class AtomicNetwork:
         return out, der
 
     def log_u(self, chain: Chain, t: np.ndarray, n_e: np.ndarray | None = None,
-              debye_length: np.ndarray | None = None, first_only: bool = False) -> np.ndarray:
+              debye_length: np.ndarray | None = None) -> np.ndarray:
         """ln U of every stage of a chain at the flat states (t, n_e), as the solver uses them:
         with the truncation scheme's n_e (default: its low-density limit) and, for schemes cut
         at the lowered limit, the Debye-Hueckel lowering of ``debye_length``.  Stages without
-        levels and H- have U = 1.  Shape (chain.n, n); with ``first_only`` only the first
-        stage is evaluated (the other rows stay 0)."""
+        levels and H- have U = 1.  Shape (chain.n, n)."""
         n = t.shape[0]
         ln_u = np.zeros((chain.n, n))
         neg = self.negative_ion_log_u(chain, t, n_e)
@@ -238,8 +237,7 @@ class AtomicNetwork:
         if chain.model is None:
             return ln_u
         has = chain.model_rows >= 0
-        pick = has & (np.arange(chain.n) == 0) if first_only else has
-        if not pick.any():
+        if not has.any():
             return ln_u
         kw = {}
         if "lowering_ev" in self.scheme.inputs:
@@ -250,22 +248,21 @@ class AtomicNetwork:
         elif self.scheme.density_dependent:
             if n_e is None and self.scheme.unweighted_limit:
                 # the low-density limit: the plain sum over the same levels, no pair sums
-                # (of the first stage alone when only it is asked for)
-                u = self._limit_model(chain, first_only).evaluate(t)
-                ln_u[pick] = np.log(u)
+                u = self._limit_model(chain).evaluate(t)
+                ln_u[has] = np.log(u)
                 return ln_u
             # every (stage, state) pair through the pair sums (compiled where available)
             ne = np.full(n, self.LIMIT_DENSITY) if n_e is None else np.asarray(n_e, float)
-            rows = chain.model_rows[pick]
+            rows = chain.model_rows[has]
             k = rows.size
             _, tinv = np.unique(t, return_inverse=True)
             u = chain.model.evaluate_pairs(t, ne, np.repeat(rows, n),
                                            want_temperature=False, temperature_index=tinv,
                                            states=np.tile(np.arange(n), k))[0]
-            ln_u[pick] = np.log(u.reshape(k, n))
+            ln_u[has] = np.log(u.reshape(k, n))
             return ln_u
         u = chain.model.evaluate(t, **kw)
-        ln_u[pick] = np.log(u if pick is has else u[chain.model_rows[pick]])
+        ln_u[has] = np.log(u)
         return ln_u
 
     @staticmethod
@@ -275,18 +272,12 @@ class AtomicNetwork:
         far too high; a converged state is checked against chi separately."""
         return np.minimum(lowering_ev, np.where(np.isfinite(chi_ev), 0.999 * chi_ev, 0.0))
 
-    def _limit_model(self, chain: Chain, first_only: bool = False):
-        """The chain's partition model with every weight 1 (its low-density limit), kept;
-        with ``first_only`` that of its first stage alone."""
+    def _limit_model(self, chain: Chain):
+        """The chain's partition model with every weight 1 (its low-density limit), kept."""
         cache = self.__dict__.setdefault("_limit_models", {})
-        key = (chain.k, bool(first_only))
-        if key not in cache:
-            model = chain.model
-            if first_only:
-                row = int(chain.model_rows[0])
-                model = model.subset(row, row + 1)
-            cache[key] = model.with_scheme(_truncation.get("plain"))
-        return cache[key]
+        if chain.k not in cache:
+            cache[chain.k] = chain.model.with_scheme(_truncation.get("plain"))
+        return cache[chain.k]
 
     def log_u_pairs(self, chain: Chain, t: np.ndarray, n_e: np.ndarray, rows: np.ndarray,
                     states: np.ndarray, temperature_index: np.ndarray | None = None
