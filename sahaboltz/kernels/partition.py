@@ -485,8 +485,8 @@ class PartitionModel:
             below = np.searchsorted(self._pair_keys, rows * _PAIR_KEY_STRIDE + cut) - start
             count = np.clip(np.minimum(count, below), 1, None)
         if dens:
-            fast = self.scheme.pair_log_derivative_sums(self, rows, beta, start, count, pst,
-                                                        temps)
+            fast = self.scheme.pair_log_derivative_sums(
+                self, rows, start, count, pst, temps if temps is not None else _distinct(beta))
             if fast is not None:
                 return fast
         else:   # every weight 1 here

@@ -144,11 +144,11 @@ class TruncationScheme:
         its weight is 1."""
         return None
 
-    def pair_log_derivative_sums(self, model, rows: np.ndarray, beta: np.ndarray,
-                                 start: np.ndarray, count: np.ndarray, pst: dict, temps=None):
+    def pair_log_derivative_sums(self, model, rows: np.ndarray, start: np.ndarray,
+                                 count: np.ndarray, pst: dict, temps: tuple):
         """(ln U, U_T, U_n, U_TT, U_Tn) of every pair by a compiled loop, or None to let the
         numpy path use :meth:`pair_weight_derivatives`; ``temps``: (1/kT of the distinct
-        temperatures, each pair's index among them) where the caller knows them."""
+        temperatures, each pair's index among them)."""
         return None
 
     def pair_sums(self, model, tidx: np.ndarray, beta_u: np.ndarray, rows: np.ndarray,
@@ -362,14 +362,11 @@ class OccupationProbability(TruncationScheme):
         pst["stark"] = stark_state_factors(pst["T"], pst["ne"])
         pst["stark_curv"] = stark_state_curvatures(pst["T"], pst["ne"])
 
-    def pair_log_derivative_sums(self, model, rows, beta, start, count, pst, temps=None):
+    def pair_log_derivative_sums(self, model, rows, start, count, pst, temps):
         from sahaboltz.kernels import compiled_thermo
         if not compiled_thermo.available():
             return None
-        if temps is None:
-            beta_u, tidx = np.unique(beta, return_inverse=True)
-        else:
-            beta_u, tidx = temps
+        beta_u, tidx = temps
         return compiled_thermo.occupation_log_derivative_sums(
             tidx.ravel(), rows, beta_u, pst["stark"], pst["stark_curv"], pst.get("nn"), start,
             count, model._e, model._lng, model._lng_max, model._q_stark, model._r3,
