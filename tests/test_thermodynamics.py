@@ -214,6 +214,41 @@ def test_compiled_and_numpy_level_sums_agree(monkeypatch):
     np.testing.assert_allclose(slow[2], dn[rows, rows], rtol=1e-9)
 
 
+def test_compiled_level_sums_as_series_agree_with_numpy(monkeypatch):
+    # pairs that share a temperature have their low levels summed as the series of the
+    # weights (compiled_thermo._series_sums); the numpy reference sums every level one by
+    # one.  Densities from where every level is in the series to where most are not
+    from sahaboltz.data.database import default_database
+    from sahaboltz.kernels import compiled_thermo
+    from sahaboltz.kernels.partition import PartitionModel
+    if not compiled_thermo.available():
+        pytest.skip("numba is not installed (or SAHABOLTZ_NO_NUMBA is set)")
+    db = default_database()
+    names = ("Fe I", "H I", "C II", "He I", "Ca II", "O I")
+    model = PartitionModel([db.species(s) for s in names], truncation="occupation",
+                           completion=True)
+    t, ne = np.meshgrid([4000.0, 9000.0, 20000.0, 60000.0], np.geomspace(1e6, 1e23, 18),
+                        indexing="ij")
+    t, ne = t.ravel(), ne.ravel()
+    states = np.repeat(np.arange(t.size), len(names))
+    rows = np.tile(np.arange(len(names)), t.size)
+    fast = model.pair_log_derivatives(t, ne, rows, states=states)
+    # both parts ran: pairs with levels in the series and pairs with levels one by one
+    pst = {"T": t, "ne": ne}
+    model.scheme.prepare_curvature_pairs(model, pst)
+    p_, a_, b_ = (v[states] for v in pst["stark"])
+    start, count = model._pair_levels(rows, 1.0 / (K_B_EV * t[states]))
+    lim = compiled_thermo._SERIES_REACH * np.array(
+        [compiled_thermo._compiled.series_radii(a, b)[0] for a, b in zip(a_, b_)])
+    in_series = np.array([np.sum(p * model._q_stark[s0:s0 + c] <= li)
+                          for p, s0, c, li in zip(p_, start, count, lim)])
+    assert (in_series > 0).any() and (in_series < count).any()
+    monkeypatch.setenv("SAHABOLTZ_NO_NUMBA", "1")
+    slow = model.pair_log_derivatives(t, ne, rows, states=states)
+    for a, b in zip(fast, slow):
+        np.testing.assert_allclose(a, b, rtol=1e-11, atol=1e-13)
+
+
 def test_molecular_constant_derivatives_against_finite_differences():
     from sahaboltz.equilibrium import AtomicNetwork
     from sahaboltz.equilibrium.molecular import select_molecules

@@ -226,15 +226,8 @@ def _unweighted(row, p_, a_, b_, lv_start, lv_count, qs, budget):
 
 def _series_limits(a_, b_):
     """(s_lo, s_hi): a tenth of the radius of convergence of the series of w in s and ten
-    times its counterpart for the series in 1/s (the roots of A s^2 + B s + 1), so that
-    SERIES_ORDER terms leave ~1e-13."""
-    disc = b_ * b_ - 4.0 * a_
-    if disc < 0.0:
-        r_small = r_big = 1.0 / np.sqrt(a_)
-    else:
-        root = np.sqrt(disc)
-        r_small = 2.0 / (b_ + root)              # |smaller root| in s
-        r_big = (b_ + root) / (2.0 * a_)         # |larger root| in s
+    times its counterpart for the series in 1/s, so that SERIES_ORDER terms leave ~1e-13."""
+    r_small, r_big = compiled.series_radii(a_, b_)
     return 0.1 * r_small, 10.0 * r_big
 
 

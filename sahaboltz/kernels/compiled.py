@@ -25,12 +25,23 @@ try:  # pragma: no cover - depends on the installation
 except ImportError:  # pragma: no cover
     numba = None
 
-__all__ = ["available", "occupation_pair_sums"]
+__all__ = ["available", "large_chain_fractions", "occupation_pair_sums", "series_radii"]
 
 
 def available() -> bool:
     """Whether the compiled kernels are in use."""
     return numba is not None and not os.environ.get("SAHABOLTZ_NO_NUMBA")
+
+
+def series_radii(a_, b_):
+    """(|smaller root|, |larger root|) in s of 1 + B s + A s^2 (a complex pair: both
+    1/sqrt(A)): the radius of convergence of the series of the weight w = 1 / (1 + B s + A s^2)
+    in s, and its counterpart for the series in 1/s."""
+    disc = b_ * b_ - 4.0 * a_
+    if disc < 0.0:
+        return 1.0 / np.sqrt(a_), 1.0 / np.sqrt(a_)
+    root = np.sqrt(disc)
+    return 2.0 / (b_ + root), (b_ + root) / (2.0 * a_)
 
 
 def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows):
@@ -115,8 +126,62 @@ def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, co
         u2[k] = s2
 
 
+def _large_fractions(tab_t, tinv, x, charges, ok, share, cut, out_r, out_c, out_f):
+    """The stages of one chain holding at least ``share`` of the element at each state
+    ``ok[i]``, ln n_q = tab_t[tinv[i], q] - charges[q] x[i] up to a constant of the state,
+    normalized over the stages within e^-cut of its largest; written to ``out_*`` (stage,
+    state, fraction).  Returns their number."""
+    n = charges.size
+    found = 0
+    v = np.empty(n)
+    for i in range(x.size):
+        if not ok[i]:
+            continue
+        row = tab_t[tinv[i]]
+        top = -np.inf
+        for r in range(n):
+            v[r] = row[r] - charges[r] * x[i]
+            top = max(top, v[r])
+        total = 0.0
+        for r in range(n):
+            v[r] -= top
+            if v[r] >= -cut:
+                v[r] = np.exp(v[r])
+                total += v[r]
+            else:
+                v[r] = 0.0
+        for r in range(n):
+            f = v[r] / total
+            if f >= share:
+                out_r[found] = r
+                out_c[found] = i
+                out_f[found] = f
+                found += 1
+    return found
+
+
+def large_chain_fractions(tab, tinv, x, charges, ok, share, cut):
+    """(stage rows, state indices, fractions) of :func:`_large_fractions`, compiled, for the
+    chain's C_q at the distinct temperatures ``tab`` (stages x temperatures): the states in
+    order, the stages in order within each."""
+    n = charges.size
+    # at most min(n, 1 / share) stages of a state hold ``share`` each
+    cap = x.size * min(n, int(1.0 / share) + 1)
+    r, c, f = np.empty(cap, dtype=np.int64), np.empty(cap, dtype=np.int64), np.empty(cap)
+    found = _large_fractions_jit(np.ascontiguousarray(np.asarray(tab, dtype=float).T),
+                                 np.ascontiguousarray(tinv, dtype=np.int64),
+                                 np.ascontiguousarray(x, dtype=float),
+                                 np.ascontiguousarray(charges, dtype=float),
+                                 np.ascontiguousarray(ok, dtype=np.bool_), float(share),
+                                 float(cut), r, c, f)
+    return r[:found].copy(), c[:found].copy(), f[:found].copy()
+
+
 if numba is not None:  # pragma: no branch
     _boltzmann_table = numba.njit(cache=True, nogil=True)(_boltzmann_table)
+    series_radii = numba.njit(cache=True, nogil=True, error_model="numpy")(series_radii)
+    _large_fractions_jit = numba.njit(cache=True, nogil=True, error_model="numpy")(
+        _large_fractions)
     # error_model="numpy": a division cannot raise (no branch per level), so the compiler
     # vectorizes the level loops
     _occupation_pair_sums_jit = numba.njit(
