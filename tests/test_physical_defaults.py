@@ -357,3 +357,26 @@ def test_plain_sum_counts_equal_an_evaluation_at_every_state():
             if n:
                 want[name] = n
     assert got == want and sum(want.values()) > 20
+
+
+def test_large_stage_fractions_compiled_and_numpy_agree(monkeypatch):
+    """The plain-sum check finds each chain's major stages (a share of at least 1e-3) in one
+    compiled pass per state; the numpy path (SAHABOLTZ_NO_NUMBA=1, the reference) forms the
+    table of all stages.  Both give the same stages, states and fractions."""
+    from sahaboltz.kernels import compiled
+    if not compiled.available():
+        pytest.skip("numba is not installed (or SAHABOLTZ_NO_NUMBA is set)")
+    t = np.geomspace(2500.0, 2e5, 14)[:, None] * np.ones((1, 10))
+    p = np.ones((14, 1)) * np.geomspace(1e-3, 1e9, 10)[None, :]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", TruncationWarning)
+        state = solve_equilibrium(solar(), t, gas_pressure=p, truncation="plain")
+    fast = [state._large_fractions(c, 1e-3) for c in state.network.chains]
+    monkeypatch.setenv("SAHABOLTZ_NO_NUMBA", "1")
+    slow = [state._large_fractions(c, 1e-3) for c in state.network.chains]
+    for c, (r1, c1, f1), (r2, c2, f2) in zip(state.network.chains, fast, slow):
+        o1, o2 = np.lexsort((r1, c1)), np.lexsort((r2, c2))
+        np.testing.assert_array_equal(r1[o1], r2[o2])
+        np.testing.assert_array_equal(c1[o1], c2[o2])
+        np.testing.assert_allclose(f1[o1], f2[o2], rtol=1e-12)
+    assert sum(r.size for r, _, _ in fast) > t.size * 10

@@ -18,6 +18,7 @@ from sahaboltz.equilibrium.network import AtomicNetwork, Chain
 from sahaboltz.equilibrium.thermo_quantities import QUANTITIES as _THERMO_QUANTITIES
 from sahaboltz.equilibrium.thermodynamics import Thermodynamics, thermodynamics
 from sahaboltz.errors import InputError, NoDataError
+from sahaboltz.kernels import compiled as _compiled
 from sahaboltz.kernels import truncation as _truncation
 from sahaboltz.kernels.plasma import (_coupling, _debye_length, _degeneracy, _lowering_ev,
                                       _mcwhirter)
@@ -247,6 +248,10 @@ class EquilibriumState:
             r, c = np.nonzero((f >= share) & ok[None, :])
             return r, c, f[r, c]
         t, x = self.temperature.ravel(), self.log_ne.ravel()
+        if _compiled.available():   # one pass per state, not a dozen over (stages x states)
+            ut, inv = np.unique(t, return_inverse=True)
+            return _compiled.large_chain_fractions(self.network.log_c(chain, ut), inv, x,
+                                                   chain.charges, ok, share, 40.0)
         tab = self._ideal_log_populations(chain, t, x)
         tab -= tab.max(axis=0)
         r, c = np.nonzero(tab >= -40.0)
