@@ -653,8 +653,7 @@ def _significance_intervals(charges: np.ndarray, tab: np.ndarray, thr: float = 4
     return xl.T.copy(), xr.T.copy()
 
 
-# ln n_e never leaves this range (|x| = 2000 is n_e = 10^(+-869) cm^-3)
-_X_CLIP = 2000.0
+_X_CLIP = compiled_newton.X_CLIP
 # window margin: delta = _MARGIN x the last Newton step, within [_DELTA_MIN, _DELTA_MAX]
 _MARGIN, _DELTA_MIN, _DELTA_MAX = 2.0, 0.01, 1.0
 

@@ -44,6 +44,8 @@ __all__ = ["available", "CompiledSolver", "SERIES_ORDER"]
 
 #: closure kinds of the kernel
 FIXED_NUCLEI, FIXED_PARTICLES, FIXED_ELECTRONS = 0, 1, 2
+#: ln n_e never leaves this range (|x| = 2000 is n_e = 10^(+-869) cm^-3)
+X_CLIP = 2000.0
 #: terms of the series of the level weights in s (see _log_u)
 SERIES_ORDER = 12
 # a series stops at a term below this fraction of the sum

@@ -17,7 +17,7 @@ import numpy as np
 from sahaboltz.kernels import compiled as _compiled
 
 __all__ = ["available", "eliminated_increments", "screening_increments",
-           "eliminated_chain_sums", "N_ACC", "N_PLAIN"]
+           "eliminated_chain_sums", "significance_bounds", "inside_rows", "N_ACC", "N_PLAIN"]
 
 #: rows of the accumulator: :func:`eliminated_increments` (the first N_PLAIN), then
 #: :func:`screening_increments` (with Debye-Hueckel lowering)
@@ -159,6 +159,76 @@ def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u
                 acc[N_PLAIN + k, i] += inc2[k]
 
 
+def _bounds(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr, lo, hi):
+    """Per state j the first and last stage r with a_r + u_hi_r >= max_s (a_s + u_lo_s) - thr,
+    a_r = tab[r, tinv[j]] - q_r x_j + kq_r kap_j (numpy's argmax convention where none is:
+    0 and n - 1).  Stage by stage over all states (a loop across the states vectorizes; one
+    across a state's stages is a chain of maxima)."""
+    n = charges.size
+    m = x.size
+    top = np.full(m, -np.inf)
+    for r in range(n):
+        row = tab[r]
+        for j in range(m):
+            top[j] = max(top[j], row[tinv[j]] - charges[r] * x[j] + kq[r] * kap[j] + u_lo[r])
+    lo[:] = n
+    hi[:] = -1
+    for r in range(n):
+        row = tab[r]
+        for j in range(m):
+            if row[tinv[j]] - charges[r] * x[j] + kq[r] * kap[j] + u_hi[r] >= top[j] - thr:
+                lo[j] = min(lo[j], r)
+                hi[j] = r
+    for j in range(m):
+        if hi[j] < 0:
+            lo[j] = 0
+            hi[j] = n - 1
+
+
+def _interval_bounds(xl, xr, tinv, x, lo, hi):
+    """Per state j the stages whose significance interval [xl_r, xr_r] at its temperature
+    holds x_j: both ends are non-increasing in r, so they are the stages from the first with
+    xl_r <= x_j to the last with xr_r >= x_j (two binary searches)."""
+    n = xl.shape[1]
+    for j in range(x.size):
+        a, b = xl[tinv[j]], xr[tinv[j]]
+        i0, i1 = 0, n
+        while i0 < i1:                     # first r with xl_r <= x
+            mid = (i0 + i1) // 2
+            if a[mid] <= x[j]:
+                i1 = mid
+            else:
+                i0 = mid + 1
+        k0, k1 = 0, n
+        while k0 < k1:                     # number of r with xr_r >= x
+            mid = (k0 + k1) // 2
+            if b[mid] >= x[j]:
+                k0 = mid + 1
+            else:
+                k1 = mid
+        if k0 - 1 < i0:
+            lo[j] = 0
+            hi[j] = n - 1
+        else:
+            lo[j] = i0
+            hi[j] = k0 - 1
+
+
+def _inside(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr, rows, inside):
+    """Whether each window stage rows[w, j] passes the test of :func:`_bounds`; the maximum
+    over the window rows is the maximum over all stages (the largest stage is in the
+    window)."""
+    for j in range(x.size):
+        top = -np.inf
+        for w in range(rows.shape[0]):
+            r = rows[w, j]
+            top = max(top, tab[r, tinv[j]] - charges[r] * x[j] + kq[r] * kap[j] + u_lo[r])
+        for w in range(rows.shape[0]):
+            r = rows[w, j]
+            inside[w, j] = (tab[r, tinv[j]] - charges[r] * x[j] + kq[r] * kap[j] + u_hi[r]
+                            >= top - thr)
+
+
 _increments = eliminated_increments
 _screening = screening_increments
 if _compiled.numba is not None:  # pragma: no branch
@@ -166,6 +236,10 @@ if _compiled.numba is not None:  # pragma: no branch
     _screening = _compiled.numba.njit(cache=True, nogil=True)(screening_increments)
     _chain_sums_jit = _compiled.numba.njit(cache=True, nogil=True, error_model="numpy")(
         _chain_sums)
+    _bounds_jit = _compiled.numba.njit(cache=True, nogil=True, error_model="numpy")(_bounds)
+    _inside_jit = _compiled.numba.njit(cache=True, nogil=True, error_model="numpy")(_inside)
+    _interval_bounds_jit = _compiled.numba.njit(cache=True, nogil=True, error_model="numpy")(
+        _interval_bounds)
 
 
 def eliminated_chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, terms, na, lq,
@@ -178,3 +252,36 @@ def eliminated_chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, 
                     *(f64(v, dtype=float) for v in terms), f64(na, dtype=float),
                     f64(lq, dtype=float), float(mass_term), f64(lam_ch, dtype=float),
                     bool(screened), acc)
+
+
+def _stage_args(tab, tinv, x, charges, kq, kap, u_hi, u_lo):
+    f64 = np.ascontiguousarray
+    return (f64(tab, dtype=float), f64(tinv, dtype=np.int64), f64(x, dtype=float),
+            f64(charges, dtype=float), f64(kq, dtype=float), f64(kap, dtype=float),
+            f64(u_hi, dtype=float), f64(u_lo, dtype=float))
+
+
+def significance_bounds(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr):
+    """Compiled :func:`_bounds` for a chain's table ``tab`` (stages x distinct temperatures):
+    (lo, hi) per state, without a (stages x states) array."""
+    lo, hi = np.empty(x.size, dtype=np.int64), np.empty(x.size, dtype=np.int64)
+    _bounds_jit(*_stage_args(tab, tinv, x, charges, kq, kap, u_hi, u_lo), float(thr), lo, hi)
+    return lo, hi
+
+
+def interval_bounds(xl, xr, tinv, x):
+    """Compiled :func:`_interval_bounds` for intervals (temperatures x stages): (lo, hi)."""
+    lo, hi = np.empty(x.size, dtype=np.int64), np.empty(x.size, dtype=np.int64)
+    _interval_bounds_jit(np.ascontiguousarray(xl, dtype=float),
+                         np.ascontiguousarray(xr, dtype=float),
+                         np.ascontiguousarray(tinv, dtype=np.int64),
+                         np.ascontiguousarray(x, dtype=float), lo, hi)
+    return lo, hi
+
+
+def inside_rows(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr, rows):
+    """Compiled :func:`_inside`: (W, m) booleans for the window rows ``rows``."""
+    inside = np.empty(rows.shape, dtype=np.bool_)
+    _inside_jit(*_stage_args(tab, tinv, x, charges, kq, kap, u_hi, u_lo), float(thr),
+                np.ascontiguousarray(rows, dtype=np.int64), inside)
+    return inside

@@ -79,6 +79,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from sahaboltz.constants import A_RAD, AMU, K_B, K_B_EV, M_E
+from sahaboltz.equilibrium import compiled_newton
 from sahaboltz.equilibrium import compiled_thermodynamics as _compiled_sums
 from sahaboltz.equilibrium.thermo_quantities import QUANTITIES
 from sahaboltz.errors import InputError
@@ -93,6 +94,8 @@ __all__ = ["Thermodynamics", "thermodynamics", "QUANTITIES"]
 _THR = 40.0
 # and a stage below e^-_THR_ALL of all nuclei too (rare elements)
 _THR_ALL = 40.0
+# stages apart that bound the significance intervals (as the solver's)
+_REACH = 32
 # (species x states) elements per chunk
 _CHUNK_ELEMENTS = 1 << 24
 
@@ -274,6 +277,16 @@ def _stage_energies(chain) -> np.ndarray:
     return cum - cum[i0]
 
 
+def _distinct_keys(key: np.ndarray, size: int) -> tuple[np.ndarray, np.ndarray]:
+    """np.unique(key, return_inverse=True) for keys in [0, size): by a table, not a sort."""
+    seen = np.zeros(size, dtype=bool)
+    seen[key] = True
+    distinct = np.flatnonzero(seen)
+    position = np.empty(size, dtype=np.intp)
+    position[distinct] = np.arange(distinct.size)
+    return distinct, position[key]
+
+
 def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut, factors, debye=None):
     """(ln U, U_T, U_n, U_TT, U_Tn) of a chain's stages ``rows`` (W, m) where ``inside``;
     the density derivatives only with density-dependent weights (``factors``: the weights'
@@ -290,7 +303,7 @@ def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut, factors, debye=None)
         mr = mrow.ravel()[at]
         if net.ideal:
             # the partition functions depend on T alone: once per (stage, distinct T)
-            key, inv = np.unique(mr * ut.size + tinv[j], return_inverse=True)
+            key, inv = _distinct_keys(mr * ut.size + tinv[j], chain.n * ut.size)
             vals = model.pair_log_derivatives(ut[key % ut.size], None,
                                               chain.model_offset + key // ut.size)
             vals = [v[inv] for v in vals]
@@ -378,18 +391,45 @@ def _log_u_bounds(net, chain) -> tuple[np.ndarray, np.ndarray]:
     return per_net[chain.k]
 
 
-def _window(sig: np.ndarray, forced: list) -> np.ndarray:
-    """Rows (W, m) of the smallest common-width windows that hold every significant stage
-    (``sig``, (n, m)) and the ``forced`` ones."""
-    n = sig.shape[0]
-    lo = np.argmax(sig, axis=0)
-    hi = n - 1 - np.argmax(sig[::-1], axis=0)
+def _window(lo: np.ndarray, hi: np.ndarray, n: int, forced: list) -> np.ndarray:
+    """Rows (W, m) of the smallest common-width windows that hold the stages ``lo`` to ``hi``
+    of each state (of ``n``) and the ``forced`` ones."""
     if forced:
         lo = np.minimum(lo, min(forced))
         hi = np.maximum(hi, max(forced))
     width = int((hi - lo).max()) + 1
     s0 = np.minimum(lo, n - width)
     return s0[None, :] + np.arange(width)[:, None]
+
+
+def _significant_rows(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr, forced):
+    """The window rows (W, m) of a chain's significant stages and which of them are
+    significant (``inside``; the ``forced`` ones always): stage r at state j with
+    a_r + u_hi_r >= max_s (a_s + u_lo_s) - thr, a_r = tab[r, tinv[j]] - q_r x_j + kq_r kap_j
+    (``tab``: stages x distinct temperatures; u_hi, u_lo: bounds of ln U or 0)."""
+    n = charges.size
+    if _compiled_sums.available():
+        if not kq.any() and not u_hi.any() and not u_lo.any() and np.isfinite(tab).all():
+            # a_r = C_r - q_r x: the stages' significance intervals at each temperature
+            # (those of the solver's windows, supersets) bound each state's window
+            xl, xr = compiled_newton.significance_intervals(charges, tab, thr, _REACH,
+                                                            compiled_newton.X_CLIP)
+            lo, hi = _compiled_sums.interval_bounds(xl, xr, tinv, x)
+        else:
+            lo, hi = _compiled_sums.significance_bounds(tab, tinv, x, charges, kq, kap, u_hi,
+                                                        u_lo, thr)
+        rows = _window(lo, hi, n, forced)
+        inside = _compiled_sums.inside_rows(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr,
+                                            rows)
+    else:
+        a0 = tab[:, tinv] - np.multiply.outer(charges, x) + np.multiply.outer(kq, kap)
+        sig = a0 + u_hi[:, None] >= (a0 + u_lo[:, None]).max(axis=0) - thr
+        rows = _window(np.argmax(sig, axis=0), n - 1 - np.argmax(sig[::-1], axis=0), n,
+                       forced)
+        inside = np.take_along_axis(sig, rows, axis=0)
+    for row in forced:
+        inside |= rows == row
+    return rows, inside
 
 
 def _saha_table(state, chain, ut) -> np.ndarray:
@@ -455,26 +495,23 @@ def _chunk(state, sel) -> dict:
         # significant: within e^-_THR of the element's largest stage and (for rare elements)
         # above e^-_THR_ALL of all nuclei
         thr = max(2.0, min(_THR, _THR_ALL + np.log(c.fraction)))
+        zero = np.zeros(c.n)
+        kq = c.charges * (c.charges + 1.0) if screened else zero
         if net.ideal and ut.size * 8 > m:
             # temperatures hardly shared: rather than every U at every temperature, bounds of
             # ln U decide (a superset of the stages)
+            tab = bare
             u_lo, u_hi = _log_u_bounds(net, c)
-            a0 = bare[:, tinv] - np.multiply.outer(c.charges, x)
-            sig = a0 + u_hi[:, None] >= (a0 + u_lo[:, None]).max(axis=0) - thr
         else:
             # ln U at each distinct T (exact for T-only U; for density-dependent U their
             # low-density limit, which bounds each from above): the solver's tables
-            lim = _saha_table(state, c, ut)
-            a0 = lim[:, tinv] - np.multiply.outer(c.charges, x)
-            if screened:
-                a0 += np.multiply.outer(c.charges * (c.charges + 1.0), kap)
-            sig = a0 >= a0.max(axis=0) - thr
+            tab = _saha_table(state, c, ut)
+            u_lo = u_hi = zero
         p = mol_pos.get(c.k)
         forced = [] if p is None else sorted({i0} | comp_rows.get(p, set()))
-        rows = _window(sig, forced)
-        inside = np.take_along_axis(sig, rows, axis=0)
-        for row in forced:
-            inside |= rows == row
+        rows, inside = _significant_rows(tab, tinv, x, c.charges, kq,
+                                         kap if screened else np.zeros(m), u_hi, u_lo, thr,
+                                         forced)
         terms = _log_u_terms(net, c, rows, inside, t, ne, tinv, ut, factors, debye)
         if screened:
             # the lowering's share of ln n (from the first stage): kappa q (q + 1), carried
