@@ -409,9 +409,11 @@ def _significant_rows(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr, forced):
     (``tab``: stages x distinct temperatures; u_hi, u_lo: bounds of ln U or 0)."""
     n = charges.size
     if _compiled_sums.available():
-        if not kq.any() and not u_hi.any() and not u_lo.any() and np.isfinite(tab).all():
+        if (not kq.any() and not u_hi.any() and not u_lo.any() and np.isfinite(tab).all()
+                and tinv.size >= 2 * tab.shape[1] * min(_REACH, n)):
             # a_r = C_r - q_r x: the stages' significance intervals at each temperature
-            # (those of the solver's windows, supersets) bound each state's window
+            # (those of the solver's windows, supersets) bound each state's window; they
+            # cost ~n * _REACH per temperature, a pass over the stages 2 n per state
             xl, xr = compiled_newton.significance_intervals(charges, tab, thr, _REACH,
                                                             compiled_newton.X_CLIP)
             lo, hi = _compiled_sums.interval_bounds(xl, xr, tinv, x)

@@ -47,9 +47,10 @@ def series_radii(a_, b_):
 def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows):
     """The Boltzmann factors exp(ln g - beta E - shift[row]) of the levels of each
     (temperature ``tidx[k]``, species ``rows[k]``) that occurs among the pairs k, once each:
-    (offset of each pair's levels in the table, table).  The slots are indexed by the
+    (offset of each pair's levels in the table, table, ...).  The slots are indexed by the
     species that occur (few per call), not all ``n_rows``: with many distinct temperatures
-    a dense (temperature x species) index would cost more than the table."""
+    a dense (temperature x species) index would cost more than the table.  Also each pair's
+    slot number and the number of slots."""
     npair = tidx.size
     local = np.full(n_rows, -1, dtype=np.int64)
     n_local = 0
@@ -59,13 +60,19 @@ def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows):
             n_local += 1
     slot = np.full(beta_u.size * n_local, -1, dtype=np.int64)
     offset = np.empty(npair, dtype=np.int64)
+    which = np.empty(npair, dtype=np.int64)
+    slot_id = np.full(beta_u.size * n_local, -1, dtype=np.int64)
     total = 0
+    n_slots = 0
     for k in range(npair):
         key = tidx[k] * n_local + local[rows[k]]
         if slot[key] < 0:
             slot[key] = total
+            slot_id[key] = n_slots
             total += count[k]
+            n_slots += 1
         offset[k] = slot[key]
+        which[k] = slot_id[key]
     table = np.empty(total)
     filled = np.zeros(beta_u.size * n_local, dtype=np.bool_)
     for k in range(npair):
@@ -78,7 +85,7 @@ def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows):
             for j in range(count[k]):
                 lv = start[k] + j
                 table[o + j] = np.exp(lng[lv] - bk * e[lv] - top)
-    return offset, table
+    return offset, table, which, n_slots
 
 
 def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, count, e, lng,
@@ -94,8 +101,8 @@ def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, co
     exponential at all.
     """
     npair = tidx.size
-    offset, table = _boltzmann_table(tidx, rows, beta_u, start, count, e, lng,
-                                     np.zeros(n_rows), n_rows)
+    offset, table, _, _ = _boltzmann_table(tidx, rows, beta_u, start, count, e, lng,
+                                           np.zeros(n_rows), n_rows)
     for k in range(npair):
         bk = beta_u[tidx[k]]
         pk, ak, bbk, aak, abk, nk = p_[k], a_[k], b_[k], aa[k], ab[k], nn4[k]

@@ -132,23 +132,29 @@ def _series_sums(pre, base, pk, ak, bbk, a1k, b1k, a2k, b2k):
     return w0, w0e, w0ee, wt, wte, wn, wne, wtt, wtn
 
 
-def _series_split(tidx, p_, a_, b_, nn4, start, count, e, q, beta_u, offset, table):
+def _series_split(tidx, p_, a_, b_, nn4, start, count, e, q, beta_u, offset, table, slot,
+                  n_slots):
     """Which levels of each pair are summed as the series of their weights: the first
     ``j0[k]`` (s below _SERIES_REACH of the radius of convergence; q rises with the level),
     for (temperature, species) that at least _MIN_SHARE pairs share (their running sums cost
     more than the levels of fewer pairs); the running sums S_m^k = sum g exp(-E/kT) q^m e^k
     over those levels (e = E/kT above the first level), ``pre``, kept at the levels where
-    some pair's series ends, and each pair's row of them ``at_k`` (-1: no series)."""
+    some pair's series ends, and each pair's row of them ``at_k`` (-1: no series).  ``slot``:
+    each pair's (temperature, species) among ``n_slots``, whose levels start at ``offset``
+    in ``table``."""
     npair = tidx.size
     m1 = SERIES_ORDER + 1
-    uses = np.zeros(table.size, dtype=np.int64)
+    uses = np.zeros(n_slots, dtype=np.int64)
     for k in range(npair):
-        uses[offset[k]] += 1
+        uses[slot[k]] += 1
     j0 = np.zeros(npair, dtype=np.int64)
-    j_max = np.zeros(table.size, dtype=np.int64)
-    last = np.full(table.size, -1, dtype=np.int64)   # the previous pair's count of the slot
+    at_k = np.full(npair, -1, dtype=np.int64)
+    if npair == 0 or uses.max() < _MIN_SHARE:
+        return j0, at_k, np.empty(0)
+    j_max = np.zeros(n_slots, dtype=np.int64)
+    last = np.full(n_slots, -1, dtype=np.int64)   # the previous pair's count of the slot
     for k in range(npair):
-        o = offset[k]
+        o = slot[k]
         if nn4[k] != 0.0 or uses[o] < _MIN_SHARE:
             continue
         lim = _SERIES_REACH * _compiled.series_radii(a_[k], b_[k])[0]
@@ -174,10 +180,10 @@ def _series_split(tidx, p_, a_, b_, nn4, start, count, e, q, beta_u, offset, tab
         if j > j_max[o]:
             j_max[o] = j
     # the running sums are kept only at the levels where some pair's series ends
-    pre_at = np.full(table.size, -1, dtype=np.int64)
+    pre_at = np.full(n_slots, -1, dtype=np.int64)
     total = 0
     for k in range(npair):
-        o = offset[k]
+        o = slot[k]
         if j_max[o] > 0 and pre_at[o] < 0:
             pre_at[o] = total
             total += j_max[o]
@@ -185,28 +191,27 @@ def _series_split(tidx, p_, a_, b_, nn4, start, count, e, q, beta_u, offset, tab
     n_rows_kept = 0
     for k in range(npair):
         if j0[k] > 0:
-            r = pre_at[offset[k]] + j0[k] - 1
+            r = pre_at[slot[k]] + j0[k] - 1
             if row[r] < 0:
                 row[r] = n_rows_kept
                 n_rows_kept += 1
-    at_k = np.empty(npair, dtype=np.int64)
-    for k in range(npair):
-        at_k[k] = row[pre_at[offset[k]] + j0[k] - 1] if j0[k] > 0 else -1
+            at_k[k] = row[r]
     pre = np.empty(n_rows_kept * m1 * 3)
     acc = np.empty(m1 * 3)
     pw = np.empty(m1)
-    done = np.zeros(table.size, dtype=np.bool_)
+    done = np.zeros(n_slots, dtype=np.bool_)
     for k in range(npair):
-        o = offset[k]
+        o = slot[k]
         if j_max[o] == 0 or done[o]:
             continue
         done[o] = True
         bk = beta_u[tidx[k]]
         s = start[k]
         e0 = e[s]
+        tb = offset[k]
         acc[:] = 0.0
         for j in range(j_max[o]):
-            tv = table[o + j]
+            tv = table[tb + j]
             ev = bk * (e[s + j] - e0)
             qv = q[s + j]
             pw[0] = tv
@@ -231,10 +236,10 @@ def _sums(tidx, rows, beta_u, p_, a_, b_, a1, b1, a2, b2, nn4, start, count, e, 
     that share a (temperature, species) are summed as series (:func:`_series_sums`), the
     rest one by one."""
     npair = tidx.size
-    offset, table = _compiled._boltzmann_table(tidx, rows, beta_u, start, count, e, lng,
-                                               lng_max, n_rows)
-    j0, at_k, pre = _series_split(tidx, p_, a_, b_, nn4, start, count, e, q, beta_u,
-                                    offset, table)
+    offset, table, slot, n_slots = _compiled._boltzmann_table(tidx, rows, beta_u, start,
+                                                              count, e, lng, lng_max, n_rows)
+    j0, at_k, pre = _series_split(tidx, p_, a_, b_, nn4, start, count, e, q, beta_u, offset,
+                                  table, slot, n_slots)
     for k in range(npair):
         bk = beta_u[tidx[k]]
         lo = start[k]
