@@ -620,7 +620,8 @@ class _ChunkSolver:
 
 
 def _significance_intervals(charges: np.ndarray, tab: np.ndarray, thr: float = 40.0,
-                            reach: int = 32) -> tuple[np.ndarray, np.ndarray]:
+                            reach: int = compiled_newton.INTERVAL_REACH
+                            ) -> tuple[np.ndarray, np.ndarray]:
     """Where in x = ln n_e each stage of a chain can matter, at each tabulated temperature.
 
     With a_r(x) = C_r - q_r x, stage r is within e^-thr of the largest stage exactly when

@@ -46,6 +46,8 @@ __all__ = ["available", "CompiledSolver", "SERIES_ORDER"]
 FIXED_NUCLEI, FIXED_PARTICLES, FIXED_ELECTRONS = 0, 1, 2
 #: ln n_e never leaves this range (|x| = 2000 is n_e = 10^(+-869) cm^-3)
 X_CLIP = 2000.0
+#: stages apart that bound the significance intervals (see significance_intervals)
+INTERVAL_REACH = 32
 #: terms of the series of the level weights in s (see _log_u)
 SERIES_ORDER = 12
 # a series stops at a term below this fraction of the sum
@@ -543,6 +545,58 @@ def significance_intervals(charges, tab, thr, reach, clip):
     return xl.T.copy(), xr.T.copy()
 
 
+def _interval_bounds(xl, xr, tinv, x, lo, hi):
+    """Per state j the stages whose significance interval [xl_r, xr_r] at its temperature
+    holds x_j: both ends are non-increasing in r, so they are the stages from the first with
+    xl_r <= x_j to the last with xr_r >= x_j (two binary searches)."""
+    n = xl.shape[1]
+    for j in range(x.size):
+        a, b = xl[tinv[j]], xr[tinv[j]]
+        i0, i1 = 0, n
+        while i0 < i1:                     # first r with xl_r <= x
+            mid = (i0 + i1) // 2
+            if a[mid] <= x[j]:
+                i1 = mid
+            else:
+                i0 = mid + 1
+        k0, k1 = 0, n
+        while k0 < k1:                     # number of r with xr_r >= x
+            mid = (k0 + k1) // 2
+            if b[mid] >= x[j]:
+                k0 = mid + 1
+            else:
+                k1 = mid
+        if k0 - 1 < i0:
+            lo[j] = 0
+            hi[j] = n - 1
+        else:
+            lo[j] = i0
+            hi[j] = k0 - 1
+
+
+def interval_bounds(xl, xr, tinv, x):
+    """Compiled :func:`_interval_bounds` for intervals (temperatures x stages): (lo, hi)."""
+    lo, hi = np.empty(x.size, dtype=np.int64), np.empty(x.size, dtype=np.int64)
+    _interval_bounds_jit(np.ascontiguousarray(xl, dtype=float),
+                         np.ascontiguousarray(xr, dtype=float),
+                         np.ascontiguousarray(tinv, dtype=np.int64),
+                         np.ascontiguousarray(x, dtype=float), lo, hi)
+    return lo, hi
+
+
+def interval_windows(charges, tab, tinv, x, thr):
+    """(lo, hi) per state: the stages whose significance interval at its temperature (within
+    e^-thr of the largest, :func:`significance_intervals`, supersets) holds its x = ln n_e;
+    ``tab`` stages x distinct temperatures, ``tinv`` each state's.  None where intervals
+    would cost more than a pass over the stages (~n INTERVAL_REACH per temperature against
+    2 n per state) or the table is not finite."""
+    n = charges.size
+    if tinv.size < 2 * tab.shape[1] * min(INTERVAL_REACH, n) or not np.isfinite(tab).all():
+        return None
+    xl, xr = significance_intervals(charges, tab, thr, INTERVAL_REACH, X_CLIP)
+    return interval_bounds(xl, xr, tinv, x)
+
+
 def _transpose_into(a, out):
     """out[j, i] = a[i, j] in 32 x 32 tiles: a (stages x temperatures) table turned into
     the per-temperature rows the solve reads, ten times faster than numpy's strided copy of
@@ -740,6 +794,7 @@ if numba is not None:  # pragma: no branch
     _push = _jit(_push)
     _transpose_into_jit = _jit(_transpose_into)
     _intervals_jit = _jit(_intervals)
+    _interval_bounds_jit = _jit(_interval_bounds)
     _unweighted = _jit(_unweighted)
     _log_u = _sums(_log_u)
     _moments = _jit(_moments)

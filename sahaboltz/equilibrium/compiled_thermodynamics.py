@@ -185,35 +185,6 @@ def _bounds(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr, lo, hi):
             hi[j] = n - 1
 
 
-def _interval_bounds(xl, xr, tinv, x, lo, hi):
-    """Per state j the stages whose significance interval [xl_r, xr_r] at its temperature
-    holds x_j: both ends are non-increasing in r, so they are the stages from the first with
-    xl_r <= x_j to the last with xr_r >= x_j (two binary searches)."""
-    n = xl.shape[1]
-    for j in range(x.size):
-        a, b = xl[tinv[j]], xr[tinv[j]]
-        i0, i1 = 0, n
-        while i0 < i1:                     # first r with xl_r <= x
-            mid = (i0 + i1) // 2
-            if a[mid] <= x[j]:
-                i1 = mid
-            else:
-                i0 = mid + 1
-        k0, k1 = 0, n
-        while k0 < k1:                     # number of r with xr_r >= x
-            mid = (k0 + k1) // 2
-            if b[mid] >= x[j]:
-                k0 = mid + 1
-            else:
-                k1 = mid
-        if k0 - 1 < i0:
-            lo[j] = 0
-            hi[j] = n - 1
-        else:
-            lo[j] = i0
-            hi[j] = k0 - 1
-
-
 def _inside(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr, rows, inside):
     """Whether each window stage rows[w, j] passes the test of :func:`_bounds`; the maximum
     over the window rows is the maximum over all stages (the largest stage is in the
@@ -238,8 +209,6 @@ if _compiled.numba is not None:  # pragma: no branch
         _chain_sums)
     _bounds_jit = _compiled.numba.njit(cache=True, nogil=True, error_model="numpy")(_bounds)
     _inside_jit = _compiled.numba.njit(cache=True, nogil=True, error_model="numpy")(_inside)
-    _interval_bounds_jit = _compiled.numba.njit(cache=True, nogil=True, error_model="numpy")(
-        _interval_bounds)
 
 
 def eliminated_chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, terms, na, lq,
@@ -266,16 +235,6 @@ def significance_bounds(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr):
     (lo, hi) per state, without a (stages x states) array."""
     lo, hi = np.empty(x.size, dtype=np.int64), np.empty(x.size, dtype=np.int64)
     _bounds_jit(*_stage_args(tab, tinv, x, charges, kq, kap, u_hi, u_lo), float(thr), lo, hi)
-    return lo, hi
-
-
-def interval_bounds(xl, xr, tinv, x):
-    """Compiled :func:`_interval_bounds` for intervals (temperatures x stages): (lo, hi)."""
-    lo, hi = np.empty(x.size, dtype=np.int64), np.empty(x.size, dtype=np.int64)
-    _interval_bounds_jit(np.ascontiguousarray(xl, dtype=float),
-                         np.ascontiguousarray(xr, dtype=float),
-                         np.ascontiguousarray(tinv, dtype=np.int64),
-                         np.ascontiguousarray(x, dtype=float), lo, hi)
     return lo, hi
 
 

@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from sahaboltz.constants import AMU, K_B
+from sahaboltz.equilibrium import compiled_newton
 from sahaboltz.equilibrium.network import AtomicNetwork, Chain
 from sahaboltz.equilibrium.thermo_quantities import QUANTITIES as _THERMO_QUANTITIES
 from sahaboltz.equilibrium.thermodynamics import Thermodynamics, thermodynamics
@@ -250,8 +251,10 @@ class EquilibriumState:
         t, x = self.temperature.ravel(), self.log_ne.ravel()
         if _compiled.available():   # one pass per state, not a dozen over (stages x states)
             ut, inv = np.unique(t, return_inverse=True)
-            return _compiled.large_chain_fractions(self.network.log_c(chain, ut), inv, x,
-                                                   chain.charges, ok, share, 40.0)
+            tab = self.network.log_c(chain, ut)
+            window = compiled_newton.interval_windows(chain.charges, tab, inv, x, 40.0)
+            return _compiled.large_chain_fractions(tab, inv, x, chain.charges, ok, share, 40.0,
+                                                   window)
         tab = self._ideal_log_populations(chain, t, x)
         tab -= tab.max(axis=0)
         r, c = np.nonzero(tab >= -40.0)

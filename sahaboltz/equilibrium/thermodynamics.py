@@ -94,8 +94,6 @@ __all__ = ["Thermodynamics", "thermodynamics", "QUANTITIES"]
 _THR = 40.0
 # and a stage below e^-_THR_ALL of all nuclei too (rare elements)
 _THR_ALL = 40.0
-# stages apart that bound the significance intervals (as the solver's)
-_REACH = 32
 # (species x states) elements per chunk
 _CHUNK_ELEMENTS = 1 << 24
 
@@ -409,17 +407,14 @@ def _significant_rows(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr, forced):
     (``tab``: stages x distinct temperatures; u_hi, u_lo: bounds of ln U or 0)."""
     n = charges.size
     if _compiled_sums.available():
-        if (not kq.any() and not u_hi.any() and not u_lo.any() and np.isfinite(tab).all()
-                and tinv.size >= 2 * tab.shape[1] * min(_REACH, n)):
-            # a_r = C_r - q_r x: the stages' significance intervals at each temperature
-            # (those of the solver's windows, supersets) bound each state's window; they
-            # cost ~n * _REACH per temperature, a pass over the stages 2 n per state
-            xl, xr = compiled_newton.significance_intervals(charges, tab, thr, _REACH,
-                                                            compiled_newton.X_CLIP)
-            lo, hi = _compiled_sums.interval_bounds(xl, xr, tinv, x)
-        else:
-            lo, hi = _compiled_sums.significance_bounds(tab, tinv, x, charges, kq, kap, u_hi,
-                                                        u_lo, thr)
+        # a_r = C_r - q_r x: the stages' significance intervals bound each state's window
+        # where temperatures are shared (those of the solver's windows, supersets)
+        lohi = (None if kq.any() or u_hi.any() or u_lo.any()
+                else compiled_newton.interval_windows(charges, tab, tinv, x, thr))
+        if lohi is None:
+            lohi = _compiled_sums.significance_bounds(tab, tinv, x, charges, kq, kap, u_hi,
+                                                      u_lo, thr)
+        lo, hi = lohi
         rows = _window(lo, hi, n, forced)
         inside = _compiled_sums.inside_rows(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr,
                                             rows)

@@ -133,31 +133,31 @@ def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, co
         u2[k] = s2
 
 
-def _large_fractions(tab_t, tinv, x, charges, ok, share, cut, out_r, out_c, out_f):
+def _large_fractions(tab_t, tinv, x, charges, ok, share, cut, lo, hi, out_r, out_c, out_f):
     """The stages of one chain holding at least ``share`` of the element at each state
     ``ok[i]``, ln n_q = tab_t[tinv[i], q] - charges[q] x[i] up to a constant of the state,
-    normalized over the stages within e^-cut of its largest; written to ``out_*`` (stage,
-    state, fraction).  Returns their number."""
-    n = charges.size
+    normalized over the stages within e^-cut of its largest, which lie among the stages
+    ``lo[i]`` to ``hi[i]``; written to ``out_*`` (stage, state, fraction).  Returns their
+    number."""
     found = 0
-    v = np.empty(n)
+    v = np.empty(charges.size)
     for i in range(x.size):
         if not ok[i]:
             continue
-        row = tab_t[tinv[i]]
+        ti = tinv[i]
         top = -np.inf
-        for r in range(n):
-            v[r] = row[r] - charges[r] * x[i]
+        for r in range(lo[i], hi[i] + 1):
+            v[r] = tab_t[ti, r] - charges[r] * x[i]
             top = max(top, v[r])
         total = 0.0
-        for r in range(n):
+        for r in range(lo[i], hi[i] + 1):
             v[r] -= top
             if v[r] >= -cut:
                 v[r] = np.exp(v[r])
                 total += v[r]
             else:
                 v[r] = 0.0
-        for r in range(n):
+        for r in range(lo[i], hi[i] + 1):
             f = v[r] / total
             if f >= share:
                 out_r[found] = r
@@ -167,20 +167,25 @@ def _large_fractions(tab_t, tinv, x, charges, ok, share, cut, out_r, out_c, out_
     return found
 
 
-def large_chain_fractions(tab, tinv, x, charges, ok, share, cut):
+def large_chain_fractions(tab, tinv, x, charges, ok, share, cut, window=None):
     """(stage rows, state indices, fractions) of :func:`_large_fractions`, compiled, for the
     chain's C_q at the distinct temperatures ``tab`` (stages x temperatures): the states in
-    order, the stages in order within each."""
+    order, the stages in order within each.  ``window``: (lo, hi) per state, the stages that
+    can lie within e^-cut of the largest (default all)."""
     n = charges.size
+    m = x.size
+    lo, hi = window if window is not None else (np.zeros(m, dtype=np.int64),
+                                                np.full(m, n - 1, dtype=np.int64))
     # at most min(n, 1 / share) stages of a state hold ``share`` each
-    cap = x.size * min(n, int(1.0 / share) + 1)
+    cap = m * min(n, int(1.0 / share) + 1)
     r, c, f = np.empty(cap, dtype=np.int64), np.empty(cap, dtype=np.int64), np.empty(cap)
     found = _large_fractions_jit(np.ascontiguousarray(np.asarray(tab, dtype=float).T),
                                  np.ascontiguousarray(tinv, dtype=np.int64),
                                  np.ascontiguousarray(x, dtype=float),
                                  np.ascontiguousarray(charges, dtype=float),
                                  np.ascontiguousarray(ok, dtype=np.bool_), float(share),
-                                 float(cut), r, c, f)
+                                 float(cut), np.ascontiguousarray(lo, dtype=np.int64),
+                                 np.ascontiguousarray(hi, dtype=np.int64), r, c, f)
     return r[:found].copy(), c[:found].copy(), f[:found].copy()
 
 
