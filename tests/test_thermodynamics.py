@@ -459,6 +459,23 @@ def test_compiled_and_numpy_stage_sums_agree(monkeypatch, truncation):
                                atol=1e-12 * np.abs(slow.internal_energy).max())
 
 
+@pytest.mark.parametrize("truncation", ["plain", None])
+def test_compiled_windows_from_intervals_agree_with_numpy(monkeypatch, truncation):
+    # with many states per temperature the compiled path takes each chain's window of
+    # significant stages from its significance intervals (two binary searches per state);
+    # the numpy path (the reference) tests every stage of every state
+    from sahaboltz.equilibrium.thermodynamics import thermodynamics
+    t, p = np.meshgrid([3000.0, 9000.0, 4e4], np.geomspace(1e-3, 1e9, 100), indexing="ij")
+    st = solve(solar(), t, gas_pressure=p, truncation=truncation)
+    fast = thermodynamics(st)
+    monkeypatch.setenv("SAHABOLTZ_NO_NUMBA", "1")
+    slow = thermodynamics(st)
+    for name in ("internal_energy", "entropy", "du_dlnt", "ds_dlnt", "chi_t", "chi_rho",
+                 "gamma1", "adiabatic_gradient", "heat_capacity_p"):
+        np.testing.assert_allclose(getattr(fast, name), getattr(slow, name), rtol=1e-11,
+                                   err_msg=name)
+
+
 @pytest.mark.slow
 def test_thermal_closures_converge_over_the_solver_domain():
     # the domain the forward solver converges on with the default physics (T = 1e3 - 1e7 K,
