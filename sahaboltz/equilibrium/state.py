@@ -249,15 +249,16 @@ class EquilibriumState:
             r, c = np.nonzero((f >= share) & ok[None, :])
             return r, c, f[r, c]
         t, x = self.temperature.ravel(), self.log_ne.ravel()
+        cut = 40.0
         if _compiled.available():   # one pass per state, not a dozen over (stages x states)
             ut, inv = np.unique(t, return_inverse=True)
             tab = self.network.log_c(chain, ut)
-            window = compiled_newton.interval_windows(chain.charges, tab, inv, x, 40.0)
-            return _compiled.large_chain_fractions(tab, inv, x, chain.charges, ok, share, 40.0,
+            window = compiled_newton.interval_windows(chain.charges, tab, inv, x, cut)
+            return _compiled.large_chain_fractions(tab, inv, x, chain.charges, ok, share, cut,
                                                    window)
         tab = self._ideal_log_populations(chain, t, x)
         tab -= tab.max(axis=0)
-        r, c = np.nonzero(tab >= -40.0)
+        r, c = np.nonzero(tab >= -cut)
         e = np.exp(tab[r, c])
         total = np.bincount(c, weights=e, minlength=t.size)
         f = e / total[c]
