@@ -132,8 +132,8 @@ def _series_sums(pre, base, pk, ak, bbk, a1k, b1k, a2k, b2k):
     return w0, w0e, w0ee, wt, wte, wn, wne, wtt, wtn
 
 
-def _series_split(tidx, p_, a_, b_, nn4, start, count, e, q, beta_u, offset, table, slot,
-                  n_slots):
+def _series_split(tidx, sidx, p_, a_, b_, nn4, start, count, e, q, beta_u, offset, table,
+                  slot, n_slots):
     """Which levels of each pair are summed as the series of their weights: the first
     ``j0[k]`` (s below _SERIES_REACH of the radius of convergence; q rises with the level),
     for (temperature, species) that at least _MIN_SHARE pairs share (their running sums cost
@@ -153,11 +153,16 @@ def _series_split(tidx, p_, a_, b_, nn4, start, count, e, q, beta_u, offset, tab
         return j0, at_k, np.empty(0)
     j_max = np.zeros(n_slots, dtype=np.int64)
     last = np.full(n_slots, -1, dtype=np.int64)   # the previous pair's count of the slot
+    lims = np.empty(p_.size)                      # per state: the end of the series in s
+    for i in range(p_.size):
+        lims[i] = _SERIES_REACH * _compiled.series_radii(a_[i], b_[i])[0]
     for k in range(npair):
         o = slot[k]
-        if nn4[k] != 0.0 or uses[o] < _MIN_SHARE:
+        i = sidx[k]
+        if nn4[i] != 0.0 or uses[o] < _MIN_SHARE:
             continue
-        lim = _SERIES_REACH * _compiled.series_radii(a_[k], b_[k])[0]
+        lim = lims[i]
+        pk = p_[i]
         s = start[k]
         c = count[k]
         j = last[o]
@@ -165,15 +170,15 @@ def _series_split(tidx, p_, a_, b_, nn4, start, count, e, q, beta_u, offset, tab
             lo, hi = 0, c
             while lo < hi:
                 mid = (lo + hi) // 2
-                if p_[k] * q[s + mid] <= lim:
+                if pk * q[s + mid] <= lim:
                     lo = mid + 1
                 else:
                     hi = mid
             j = lo
         else:   # walked from the previous pair of the slot (often the neighbouring state)
-            while j < c and p_[k] * q[s + j] <= lim:
+            while j < c and pk * q[s + j] <= lim:
                 j += 1
-            while j > 0 and p_[k] * q[s + j - 1] > lim:
+            while j > 0 and pk * q[s + j - 1] > lim:
                 j -= 1
         last[o] = j
         j0[k] = j
@@ -227,40 +232,42 @@ def _series_split(tidx, p_, a_, b_, nn4, start, count, e, q, beta_u, offset, tab
     return j0, at_k, pre
 
 
-def _sums(tidx, rows, beta_u, p_, a_, b_, a1, b1, a2, b2, nn4, start, count, e, lng, lng_max,
-          q, r3, n_rows, out):
+def _sums(tidx, rows, sidx, beta_u, p_, a_, b_, a1, b1, a2, b2, nn4, start, count, e, lng,
+          lng_max, q, r3, n_rows, out):
     """The Boltzmann factors g exp(-beta E) / g_max depend on the temperature and the level
     alone: they are computed once for each (temperature ``tidx[k]``, species ``rows[k]``)
     that occurs (as in :mod:`sahaboltz.kernels.compiled`), then every pair's loop needs no
     exponential (but for neutral perturbers' hard-sphere weights).  The low levels of pairs
     that share a (temperature, species) are summed as series (:func:`_series_sums`), the
-    rest one by one."""
+    rest one by one.  The state factors (P, A, B, their curvatures, nn4) are given per state,
+    pair k's at ``sidx[k]``."""
     npair = tidx.size
     offset, table, slot, n_slots = _compiled._boltzmann_table(tidx, rows, beta_u, start,
                                                               count, e, lng, lng_max, n_rows)
-    j0, at_k, pre = _series_split(tidx, p_, a_, b_, nn4, start, count, e, q, beta_u, offset,
-                                  table, slot, n_slots)
+    j0, at_k, pre = _series_split(tidx, sidx, p_, a_, b_, nn4, start, count, e, q, beta_u,
+                                  offset, table, slot, n_slots)
     for k in range(npair):
         bk = beta_u[tidx[k]]
+        i = sidx[k]
+        pk, ak, bbk, a1k, b1k, a2k, b2k = p_[i], a_[i], b_[i], a1[i], b1[i], a2[i], b2[i]
         lo = start[k]
         jk = j0[k]
         n = count[k] - jk
         shift = bk * e[lo]
-        if nn4[k] != 0.0:   # (every level one by one here: jk = 0)
-            hard = table[offset[k]:offset[k] + n] * np.exp(-nn4[k] * r3[lo:lo + n])
+        if nn4[i] != 0.0:   # (every level one by one here: jk = 0)
+            hard = table[offset[k]:offset[k] + n] * np.exp(-nn4[i] * r3[lo:lo + n])
             s0, se, see, sde, sd, sed, sdd = _level_sums(
-                hard, np.uint64(0), e, q, np.uint64(lo), np.uint64(n), bk, p_[k], a_[k], b_[k], a1[k], b1[k], a2[k], b2[k],
-                shift)
+                hard, np.uint64(0), e, q, np.uint64(lo), np.uint64(n), bk, pk, ak, bbk, a1k,
+                b1k, a2k, b2k, shift)
         else:
             s0, se, see, sde, sd, sed, sdd = _level_sums(
                 table, np.uint64(offset[k] + jk), e, q, np.uint64(lo + jk), np.uint64(n), bk,
-                p_[k], a_[k], b_[k], a1[k], b1[k], a2[k], b2[k], shift)
+                pk, ak, bbk, a1k, b1k, a2k, b2k, shift)
         see += sde
         sed += sdd
         if jk > 0:
             w0, w0e, w0ee, wt, wte, wn, wne, wtt, wtn = _series_sums(
-                pre, at_k[k], p_[k], a_[k], b_[k], a1[k], b1[k], a2[k],
-                b2[k])
+                pre, at_k[k], pk, ak, bbk, a1k, b1k, a2k, b2k)
             # in the one-by-one sums' terms: e + d ln w / d ln T and its square, and
             # sum w (d2 ln w / d ln T^2 - E/kT) = WTT - sum w w_t^2 - (W0e + shift W0)
             s0 += w0
@@ -292,17 +299,21 @@ if _compiled.numba is not None:  # pragma: no branch
 
 
 def occupation_log_derivative_sums(tidx, rows, beta_u, stark, curv, nn, start, count, e, lng,
-                                   lng_max, q, r3, n_rows):
+                                   lng_max, q, r3, n_rows, states=None):
     """(ln U, U_T, U_n, U_TT, U_Tn) per pair; ``tidx`` indexes each pair's temperature among
     the distinct ones (1/kT in ``beta_u``), ``rows`` its species among ``n_rows``;
-    ``stark`` = (P, A, B) and ``curv`` = (a A', a B', a^2 A'', a^2 B'') per pair
-    (:mod:`sahaboltz.kernels.occupation`), ``nn`` the neutral-perturber density per pair or
+    ``stark`` = (P, A, B) and ``curv`` = (a A', a B', a^2 A'', a^2 B'') per pair, or per state
+    with ``states`` (pair k belongs to state ``states[k]``; no gathers to the pairs)
+    (:mod:`sahaboltz.kernels.occupation`), ``nn`` the neutral-perturber density likewise or
     None, ``start``/``count`` each pair's levels, ``lng_max`` the largest ln g per species."""
     n = tidx.size
     out = np.empty((5, n))
-    nn4 = np.zeros(n) if nn is None else (4.0 * np.pi / 3.0) * np.asarray(nn, dtype=float)
     f64 = [np.ascontiguousarray(v, dtype=float) for v in (beta_u, *stark, *curv)]
-    i64 = [np.ascontiguousarray(v, dtype=np.int64) for v in (tidx, rows)]
+    n_state = f64[1].size
+    nn4 = (np.zeros(n_state) if nn is None
+           else (4.0 * np.pi / 3.0) * np.ascontiguousarray(nn, dtype=float))
+    sidx = np.arange(n) if states is None else states
+    i64 = [np.ascontiguousarray(v, dtype=np.int64) for v in (tidx, rows, sidx)]
     _sums_jit(*i64, *f64, nn4, np.ascontiguousarray(start, dtype=np.int64),
               np.ascontiguousarray(count, dtype=np.int64), e, lng,
               np.ascontiguousarray(lng_max, dtype=float), q, r3, int(n_rows), out)
@@ -312,7 +323,7 @@ def occupation_log_derivative_sums(tidx, rows, beta_u, stark, curv, nn, start, c
 def plain_log_derivative_sums(tidx, rows, beta_u, start, count, e, lng, lng_max, q, r3, n_rows):
     """The same sums with every weight 1 (partition functions of T alone): the loop above
     with P = 0, so that s = 0 and every weight term vanishes."""
-    n = tidx.size
-    zero = np.zeros(n)
+    zero = np.zeros(1)
     return occupation_log_derivative_sums(tidx, rows, beta_u, (zero,) * 3, (zero,) * 4, None,
-                                          start, count, e, lng, lng_max, q, r3, n_rows)
+                                          start, count, e, lng, lng_max, q, r3, n_rows,
+                                          states=np.zeros(tidx.size, dtype=np.int64))

@@ -465,9 +465,10 @@ class PartitionModel:
                 self.scheme.prepare_curvature_pairs(self, pst)
             else:
                 pst.update(state_factors)
+        per_state = pst                    # the scheme's compiled sums take them per state
         if states is not None:
-            pst = _per_pair(pst, states)
-        t = pst["T"]
+            states = np.asarray(states, dtype=np.intp)
+            t = t[states]
         beta = 1.0 / (K_B_EV * t)
         temps = None                       # (1/kT of the distinct temperatures, index per pair)
         if temperature_index is not None:
@@ -486,7 +487,8 @@ class PartitionModel:
             count = np.clip(np.minimum(count, below), 1, None)
         if dens:
             fast = self.scheme.pair_log_derivative_sums(
-                self, rows, start, count, pst, temps if temps is not None else _distinct(beta))
+                self, rows, start, count, per_state,
+                temps if temps is not None else _distinct(beta), states)
             if fast is not None:
                 return fast
         else:   # every weight 1 here
@@ -496,6 +498,8 @@ class PartitionModel:
                 return compiled_thermo.plain_log_derivative_sums(
                     tidx, rows, beta_u, start, count, self._e, self._lng,
                     self._lng_max, self._q_stark, self._r3, self.n_species)
+        if states is not None:
+            pst = _per_pair(pst, states)
         ln_u, u_t, u_n, u_tt, u_tn = out
         ends = np.cumsum(count)
         cuts = np.searchsorted(ends, np.arange(_PAIR_BLOCK, ends[-1], _PAIR_BLOCK))

@@ -145,10 +145,12 @@ class TruncationScheme:
         return None
 
     def pair_log_derivative_sums(self, model, rows: np.ndarray, start: np.ndarray,
-                                 count: np.ndarray, pst: dict, temps: tuple):
+                                 count: np.ndarray, pst: dict, temps: tuple,
+                                 states: np.ndarray | None = None):
         """(ln U, U_T, U_n, U_TT, U_Tn) of every pair by a compiled loop, or None to let the
         numpy path use :meth:`pair_weight_derivatives`; ``temps``: (1/kT of the distinct
-        temperatures, each pair's index among them)."""
+        temperatures, each pair's index among them); ``pst`` per pair, or per state with
+        ``states`` (each pair's state)."""
         return None
 
     def pair_sums(self, model, tidx: np.ndarray, beta_u: np.ndarray, rows: np.ndarray,
@@ -362,7 +364,7 @@ class OccupationProbability(TruncationScheme):
         pst["stark"] = stark_state_factors(pst["T"], pst["ne"])
         pst["stark_curv"] = stark_state_curvatures(pst["T"], pst["ne"])
 
-    def pair_log_derivative_sums(self, model, rows, start, count, pst, temps):
+    def pair_log_derivative_sums(self, model, rows, start, count, pst, temps, states=None):
         from sahaboltz.kernels import compiled_thermo
         if not compiled_thermo.available():
             return None
@@ -370,7 +372,7 @@ class OccupationProbability(TruncationScheme):
         return compiled_thermo.occupation_log_derivative_sums(
             tidx.ravel(), rows, beta_u, pst["stark"], pst["stark_curv"], pst.get("nn"), start,
             count, model._e, model._lng, model._lng_max, model._q_stark, model._r3,
-            model.n_species)
+            model.n_species, states)
 
     def pair_weight_derivatives(self, model, lv, counts, pairs, pst):
         from sahaboltz.kernels.occupation import log_w_charged_derivatives
