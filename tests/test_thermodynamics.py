@@ -9,7 +9,7 @@ from sahaboltz.constants import A_RAD, AMU, K_B, K_B_EV, R_GAS
 from sahaboltz.data.composition import Composition, solar
 from sahaboltz.equilibrium import solve_equilibrium
 from sahaboltz.errors import InputError
-from thermo_checks import assert_matches_finite_differences
+from thermo_checks import assert_compiled_matches_numpy, assert_matches_finite_differences
 
 HYDROGEN = Composition.from_number({"H": 1})
 ARGON = Composition.from_number({"Ar": 1})
@@ -444,16 +444,11 @@ def test_molecules_with_occupation_weights_exact_derivatives():
 def test_compiled_and_numpy_stage_sums_agree(monkeypatch, truncation):
     # the compiled per-state stage sums against the numpy path of the same formulas (the
     # reference, SAHABOLTZ_NO_NUMBA=1), across the ionization of H, He and the metals
-    from sahaboltz.equilibrium.thermodynamics import thermodynamics
     t, p = np.meshgrid(np.geomspace(2500.0, 3e5, 12), [1e-2, 1e4, 1e8], indexing="ij")
     st = solve(solar(), t, gas_pressure=p, truncation=truncation)
-    fast = thermodynamics(st)
-    monkeypatch.setenv("SAHABOLTZ_NO_NUMBA", "1")
-    slow = thermodynamics(st)
-    for name in ("internal_energy", "entropy", "du_dlnt", "ds_dlnt", "ds_dlnrho", "chi_t",
-                 "chi_rho", "gamma1", "adiabatic_gradient", "heat_capacity_p"):
-        np.testing.assert_allclose(getattr(fast, name), getattr(slow, name), rtol=1e-11,
-                                   err_msg=name)
+    fast, slow = assert_compiled_matches_numpy(st, monkeypatch, (
+        "internal_energy", "entropy", "du_dlnt", "ds_dlnt", "ds_dlnrho", "chi_t", "chi_rho",
+        "gamma1", "adiabatic_gradient", "heat_capacity_p"))
     # (du/d ln rho)_T vanishes where nothing ionizes: compared on the scale of u
     np.testing.assert_allclose(fast.du_dlnrho, slow.du_dlnrho,
                                atol=1e-12 * np.abs(slow.internal_energy).max())
@@ -464,16 +459,11 @@ def test_compiled_windows_from_intervals_agree_with_numpy(monkeypatch, truncatio
     # with many states per temperature the compiled path takes each chain's window of
     # significant stages from its significance intervals (two binary searches per state);
     # the numpy path (the reference) tests every stage of every state
-    from sahaboltz.equilibrium.thermodynamics import thermodynamics
     t, p = np.meshgrid([3000.0, 9000.0, 4e4], np.geomspace(1e-3, 1e9, 100), indexing="ij")
     st = solve(solar(), t, gas_pressure=p, truncation=truncation)
-    fast = thermodynamics(st)
-    monkeypatch.setenv("SAHABOLTZ_NO_NUMBA", "1")
-    slow = thermodynamics(st)
-    for name in ("internal_energy", "entropy", "du_dlnt", "ds_dlnt", "chi_t", "chi_rho",
-                 "gamma1", "adiabatic_gradient", "heat_capacity_p"):
-        np.testing.assert_allclose(getattr(fast, name), getattr(slow, name), rtol=1e-11,
-                                   err_msg=name)
+    assert_compiled_matches_numpy(st, monkeypatch, (
+        "internal_energy", "entropy", "du_dlnt", "ds_dlnt", "chi_t", "chi_rho", "gamma1",
+        "adiabatic_gradient", "heat_capacity_p"))
 
 
 @pytest.mark.slow
