@@ -477,6 +477,7 @@ def _chunk(state, sel) -> dict:
         raise InputError("thermodynamics with lowering: molecules are solved without it")
     debye = state.debye_length.ravel()[sel] if screened else None
     kap = 0.5 * beta * _lowering_ev(0.0, debye) if screened else None
+    kap_or_0 = kap if screened else np.zeros(m)        # (the windows' test takes an array)
     n_col = 3 if screened else 2
     mat = np.zeros((m, r_dim, r_dim))
     rhs = np.zeros((m, r_dim, n_col))
@@ -506,9 +507,8 @@ def _chunk(state, sel) -> dict:
             u_lo = u_hi = zero
         p = mol_pos.get(c.k)
         forced = [] if p is None else sorted({i0} | comp_rows.get(p, set()))
-        rows, inside = _significant_rows(tab, tinv, x, c.charges, kq,
-                                         kap if screened else np.zeros(m), u_hi, u_lo, thr,
-                                         forced)
+        rows, inside = _significant_rows(tab, tinv, x, c.charges, kq, kap_or_0, u_hi, u_lo,
+                                         thr, forced)
         terms = _log_u_terms(net, c, rows, inside, t, ne, tinv, ut, factors, debye)
         if screened:
             # the lowering's share of ln n (from the first stage): kappa q (q + 1), carried

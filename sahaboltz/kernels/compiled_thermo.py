@@ -185,13 +185,11 @@ def _series_split(tidx, sidx, p_, a_, b_, nn4, start, count, e, q, beta_u, offse
         if j > j_max[o]:
             j_max[o] = j
     # the running sums are kept only at the levels where some pair's series ends
-    pre_at = np.full(n_slots, -1, dtype=np.int64)
+    pre_at = np.empty(n_slots, dtype=np.int64)
     total = 0
-    for k in range(npair):
-        o = slot[k]
-        if j_max[o] > 0 and pre_at[o] < 0:
-            pre_at[o] = total
-            total += j_max[o]
+    for o in range(n_slots):
+        pre_at[o] = total
+        total += j_max[o]
     row = np.full(total, -1, dtype=np.int64)
     n_rows_kept = 0
     for k in range(npair):
