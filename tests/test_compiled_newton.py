@@ -117,3 +117,64 @@ def test_a_start_hint_changes_the_passes_not_the_answer(monkeypatch, truncation)
     np.testing.assert_allclose(warm.n_e, cold.n_e, rtol=1e-11)
     given = np.isfinite(hint)
     assert warm.report.passes[given].mean() < 0.6 * cold.report.passes[given].mean()
+
+
+def test_third_order_step_against_an_analytic_balance():
+    # one chain with charges 0..3 and a fixed nref (n_e + N = nref): the cumulants give the
+    # derivatives of g(x) = ln((nref - e^x) Zbar) - x, which central differences of g
+    # (numpy, outside the kernel) must match, and from x near the root Chebyshev's step
+    # leaves an error of the order it predicts, far below Newton's
+    step = compiled_newton._third_order_step.py_func
+    c = np.array([0.0, 35.0, 71.0, 105.0])     # Zbar = 1.25 at the root: all stages matter
+    q = np.arange(4.0)
+    nref = np.exp(36.0)
+
+    def moments(x):
+        p = np.exp(c - q * x - (c - q * x).max())
+        w = p / p.sum()
+        m = w @ q
+        k = [w @ (q - m) ** j for j in (2, 3, 4)]
+        return m, k[0], k[1], k[2] - 3 * k[0] ** 2
+
+    def g(x):
+        return np.log((nref - np.exp(x)) * moments(x)[0]) - x
+
+    root = __import__("scipy.optimize", fromlist=["brentq"]).brentq(g, 30.0, 35.99, xtol=1e-15)
+    h = 1e-3
+    for x in (root - 2e-3, root + 1e-3, root + 3e-2):
+        zbar, var, k3, k4 = moments(x)
+        u = np.exp(x) / (nref - np.exp(x))
+        gx = g(x)
+        dg = -var / zbar - 1.0 - u
+        np.testing.assert_allclose(dg, (g(x + h) - g(x - h)) / (2 * h), rtol=1e-5)
+        dx, err, corr, g2 = step(gx, dg, zbar, var, k3, k4, u)
+        np.testing.assert_allclose(g2, (g(x + h) - 2 * gx + g(x - h)) / h**2, rtol=1e-4)
+        actual = abs(x + dx - root)
+        newton = abs(x - gx / dg - root)
+        assert actual <= err < 30 * actual, (actual, err)
+        assert actual < 1e-2 * newton
+
+
+def test_rows_of_a_fine_grid_mostly_finish_in_one_pass(monkeypatch):
+    # along a row of a grid as fine as the benchmark's (0.07 dex in P) the start from the
+    # last states is close enough that the third-order step is the last one for most states;
+    # those states meet the charge balance (checked from their populations) to the tolerance
+    # and equal the numpy engine's answer
+    tt, pp = _grid(3, 100, 4e3, 6e4, 1e-2, 1e5)
+    fast, slow = _both(monkeypatch, solar(), tt, "plain", gas_pressure=pp)
+    one = fast.report.passes == 1
+    assert one.mean() > 0.7
+    assert fast.charge_residual()[one].max() <= 1.5e-12
+    np.testing.assert_allclose(fast.n_e, slow.n_e, rtol=1e-11)
+
+
+def test_neighbour_ratio_tables():
+    # e^(C_(r+1) - C_r) and its inverse per chain; a chain's last slot flags whether its C is
+    # finite at that temperature (0) or not (NaN: the kernel then takes exponentials)
+    ctab = np.array([[1.0, 3.0, -2.0, 5.0, 4.0],
+                     [0.0, -np.inf, 1.0, 2.0, 2.5]])
+    r = compiled_newton._neighbour_ratios(ctab, [3, 2])
+    np.testing.assert_allclose(r[0, 0, :2], np.exp([2.0, -5.0]))
+    np.testing.assert_allclose(r[1, 0, :2], np.exp([-2.0, 5.0]))
+    np.testing.assert_allclose(r[0, :, 3], np.exp([-1.0, 0.5]))
+    assert r[0, 0, 2] == 0.0 and np.isnan(r[0, 1, 2]) and (r[:, :, 4] == 0.0).all()

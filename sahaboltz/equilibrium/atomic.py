@@ -123,7 +123,7 @@ def _solve_flat(network, t, v, closure, lowering, tol, max_passes, shape, warm=N
         # Saha tables per temperature: exact for T-only partition functions, and for
         # density-dependent ones their low-density limit (the start and the windows)
         ut, tinv = np.unique(t, return_inverse=True)
-        ln_u = [network.log_u(c, ut) for c in network.chains]
+        ln_u = network.log_u_chains(ut)
         c_unique = [network.log_c_of(c, ut, lu) for c, lu in zip(network.chains, ln_u)]
         lu_first = [lu[0].copy() for lu in ln_u]    # the compiled solver's, for free
         del ln_u
@@ -457,15 +457,16 @@ def _unsettled_coupling(t, ne_last, status, reason) -> None:
 
 
 def _weak_start(network, c_unique, tpos, fixed_n, ntot, x_hi):
-    """Weak-ionization estimate n_e ~ sqrt(N sum_k alpha_k Phi_k), capped by x_hi."""
-    terms = np.empty((len(network.chains), tpos.size))
+    """Weak-ionization estimate n_e ~ sqrt(N sum_k alpha_k Phi_k), capped by x_hi (the sum
+    depends on T alone: formed per distinct temperature of the tables)."""
+    terms = np.empty((len(network.chains), c_unique[0].shape[1]))
     for k, (c, tab) in enumerate(zip(network.chains, c_unique)):
         i0 = int(np.flatnonzero(c.charges == 0)[0])
-        terms[k] = np.log(c.fraction) + (tab[i0 + 1] - tab[i0])[tpos]
+        terms[k] = np.log(c.fraction) + (tab[i0 + 1] - tab[i0])
     mx = terms.max(axis=0)
     ln_sum = mx + np.log(np.exp(terms - mx).sum(axis=0))
     nref = fixed_n if fixed_n is not None else ntot
-    return np.minimum(0.5 * (np.log(nref) + ln_sum), x_hi - 1e-9)
+    return np.minimum(0.5 * (np.log(nref) + ln_sum[tpos]), x_hi - 1e-9)
 
 
 class _ChunkSolver:

@@ -62,6 +62,15 @@ _CUT = 50.0
 _LAG_SHARE = 1e-3
 # a Newton step may move ln n_e by at most this much while no lower bracket is known
 _MAX_STEP = 20.0
+# the stages' shares come from ratios of neighbours (see _moments) while |ln n_e| is below
+# this; the ratio tables are clipped at e^+-_RATIO_CLIP, so that a clipped ratio times e^-+x
+# stays below e^-(_RATIO_CLIP - _RATIO_X), far under any significance cut
+_RATIO_X = 100.0
+_RATIO_CLIP = 600.0
+# a third-order step is the last when this times its predicted residual is within the
+# tolerance and it is at most _THIRD_MAX_STEP long (so that the next order stays below it)
+_THIRD_MARGIN = 10.0
+_THIRD_MAX_STEP = 1e-3
 
 
 def available() -> bool:
@@ -235,11 +244,16 @@ def _series_limits(a_, b_):
     return 0.1 * r_small, 10.0 * r_big
 
 
-def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n,
+def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, ch_off, ch_n,
              ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
              lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
              scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag, lag_budget):
-    """(Zbar, -dZbar/dx, sum alpha <|q|>, sum alpha <q^2>) at x for one state.
+    """(Zbar, -dZbar/dx, sum alpha <|q|>, d^2 Zbar/dx^2, -d^3 Zbar/dx^3) at x for one state.
+
+    The derivatives are the chains' cumulants of q: ln sum exp(C_q - q x) is the cumulant
+    generating function of -q in x, so d<q>/dx = -kappa_2, d kappa_2/dx = -kappa_3 and
+    d kappa_3/dx = -kappa_4 (without ``density``; with it the slope has the covariance with
+    d ln U / dx and the higher two are not used).
 
     ``zref`` is the mean charge the balance needs at x (n_e / N): a stage of element k below
     e^-thr of the element's largest, thr = ln(alpha_k Z_k / zref) + _LN_SHARE, changes Zbar by
@@ -247,8 +261,7 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
     window first).
 
     With T-only U (``lag_budget`` > 0) a chain's moments at an earlier x of this temperature
-    (``lag``: x, <q>, Var q, third central moment, <|q|>, <q^2>, charge span of the window,
-    zref)
+    (``lag``: x, <q>, Var q, kappa_3, <|q|>, kappa_4, charge span of the window, zref)
     serve again, carried along their Taylor series, where the remainder, at most
     alpha span^4 |dx|^3 / 6, stays below ``lag_budget`` times zref: the minor elements are
     summed once per state and temperature, not at every pass.
@@ -256,7 +269,8 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
     zbar = 0.0
     slope = 0.0
     zabs = 0.0
-    z2 = 0.0
+    k3 = 0.0
+    k4 = 0.0
     p_ = a_ = b_ = aa = ab = s_lo = s_hi = 0.0
     if density:
         ne = np.exp(x)
@@ -264,6 +278,9 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
         aa, ab = _state_slopes(t, ne)
         s_lo, s_hi = _series_limits(a_, b_)
     ln_zref = np.log(zref) if zref > 0.0 else -np.inf
+    rec = not density and abs(x) < _RATIO_X
+    e_down = np.exp(-x) if rec else 0.0
+    e_up = np.exp(x) if rec else 0.0
     for k in range(ch_off.size):
         if lag_budget > 0.0 and zref > 0.0:
             dx = x - lag[k, 0]
@@ -275,7 +292,8 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
                     zbar += f * (lag[k, 1] - lag[k, 2] * dx + 0.5 * lag[k, 3] * dx * dx)
                     slope += f * (lag[k, 2] - lag[k, 3] * dx)
                     zabs += f * lag[k, 4]
-                    z2 += f * lag[k, 5]
+                    k3 += f * lag[k, 3]
+                    k4 += f * lag[k, 5]
                     continue
         o = ch_off[k]
         n = ch_n[k]
@@ -333,6 +351,7 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
                     a0max = av
             cut0 = a0max - thr - _DENSITY_MARGIN
         amax = -np.inf
+        rmax = lo
         for r in range(lo, hi + 1):
             i = o + r
             q = q_flat[i]
@@ -379,21 +398,41 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
             scratch_d[r] = d
             if av > amax:
                 amax = av
-        s0 = s1 = s2 = s3 = sd = sqd = sab = 0.0
+                rmax = r
+        # with T-only U the stages' shares e^(a - amax) follow from the largest by the
+        # ratios of neighbours, e^(C_(r+1) - C_r) e^-x: a product per stage, not an
+        # exponential (into scratch_d, which holds d ln U / dx only with density)
+        by_ratio = rec and ratios[0, ti, o + n - 1] == 0.0
+        if by_ratio:
+            scratch_d[rmax] = 1.0
+            p = 1.0
+            for r in range(rmax + 1, hi + 1):
+                p *= ratios[0, ti, o + r - 1] * e_down
+                scratch_d[r] = p
+            p = 1.0
+            for r in range(rmax - 1, lo - 1, -1):
+                p *= ratios[1, ti, o + r] * e_up
+                scratch_d[r] = p
+        s0 = s1 = s2 = s3 = s4 = sd = sqd = sab = 0.0
         cut = amax - thr
         for r in range(lo, hi + 1):
             arg = scratch_a[r]
             if arg < cut:
                 continue
             q = q_flat[o + r]
-            arg -= amax
-            if arg < -300.0:
-                arg = -300.0
-            p = np.exp(arg)
+            if by_ratio:
+                p = scratch_d[r]
+            else:
+                arg -= amax
+                if arg < -300.0:
+                    arg = -300.0
+                p = np.exp(arg)
             s0 += p
             s1 += p * q
             s2 += p * q * q
-            s3 += p * q * q * q
+            pq3 = p * q * q * q
+            s3 += pq3
+            s4 += pq3 * q
             sab += p * abs(q)
             if density:
                 d = scratch_d[r]
@@ -410,20 +449,26 @@ def _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr, ch_off, 
         zbar += f * mq
         slope += f * (var - cov)
         zabs += f * sab * inv
-        z2 += f * mq2
+        mq3 = s3 * inv
+        kap3 = mq3 - 3.0 * mq * mq2 + 2.0 * mq * mq * mq
+        kap4 = (s4 * inv - 4.0 * mq * mq3 + 6.0 * mq * mq * mq2 - 3.0 * mq * mq * mq * mq
+                - 3.0 * var * var)
+        k3 += f * kap3
+        k4 += f * kap4
         if lag_budget > 0.0:
             lag[k, 0] = x
             lag[k, 1] = mq
             lag[k, 2] = var
-            lag[k, 3] = s3 * inv - 3.0 * mq * mq2 + 2.0 * mq * mq * mq
+            lag[k, 3] = kap3
             lag[k, 4] = sab * inv
-            lag[k, 5] = mq2
+            lag[k, 5] = kap4
             lag[k, 6] = q_flat[o + hi] - q_flat[o + lo]
             lag[k, 7] = zref
-    return zbar, slope, zabs, z2
+    return zbar, slope, zabs, k3, k4
 
 
 def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, density, ctab,
+            ratios,
             bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
             hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
             jpos, filled,
@@ -439,12 +484,13 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
             zref = ne / nref
         elif kind == FIXED_PARTICLES and nref > ne:
             zref = ne / (nref - ne)
-        zbar, var, zabs, _z2 = _moments(x, zref, t, tl, ti, density, ctab, bare, lu_first, xl, xr,
-                                        ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
-                                        hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs,
-                                        term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
-                                        scratch_a, scratch_d, wpos, lu_at, d_at, x_at,
-                                        lag, lag_budget)
+        zbar, var, zabs, k3, k4 = _moments(x, zref, t, tl, ti, density, ctab, ratios, bare,
+                                           lu_first,
+                                           xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole,
+                                           q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
+                                           lng_max, qs, term, pre, suf, cnt_t, jpos, filled,
+                                           pool_base, stride, scratch_a, scratch_d, wpos, lu_at,
+                                           d_at, x_at, lag, lag_budget)
         out_passes[i] += 1
         if kind == FIXED_ELECTRONS:     # n_e is given: one evaluation decides
             out_x[i] = x
@@ -455,7 +501,7 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
                 out_done[i] = nn > 0.0 and np.isfinite(nn)
             else:
                 out_resid[i] = np.inf
-            return
+            return np.nan
         nn = nref if kind == FIXED_NUCLEI else nref - ne
         rel = abs(nn * zbar - ne) / (nn * zabs + ne)
         ok = rel <= tol
@@ -464,16 +510,26 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
             ok = True
         out_x[i] = x
         out_resid[i] = rel
+        valid = nn > 0.0 and zbar > 0.0
+        u = ne / nn if kind == FIXED_PARTICLES else 0.0
+        dg = -var / zbar - 1.0 - u
         if ok:
             out_done[i] = True
             out_nuc[i] = nn
-            return
-        valid = nn > 0.0 and zbar > 0.0
+            return -dg * nn / nref if valid else np.nan
         g = np.log(nn * zbar) - x if valid else -np.inf
-        dg = -var / zbar - 1.0
-        if kind == FIXED_PARTICLES:
-            dg -= ne / nn
         xn = x - g / dg
+        # Chebyshev's third-order step where U depends on T alone (the cumulants give the
+        # second and third derivatives of g); it is the last one when its predicted error is
+        # well inside the tolerance
+        third = -1.0
+        g2 = 0.0
+        if valid and not density:
+            dx3, err3, rel_corr, g2 = _third_order_step(g, dg, zbar, var, k3, k4, u)
+            if abs(rel_corr) <= 0.1:
+                xn = x + dx3
+                # the residual is at most |g| ~ |g'| |error|
+                third = _THIRD_MARGIN * abs(dg) * err3
         if nn > 0.0 and not valid:
             # Zbar <= 0 (negative ions outweigh the positive ones): Newton on N Zbar / n_e - 1
             f_lin = nn * zbar / ne - 1.0
@@ -494,14 +550,40 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
             xn = max(xn, x - _MAX_STEP)
         step = abs(xn - x)
         prev = step
+        x_was = x
         x = xn
-        if final_step > 0.0 and not outside and step <= final_step and (
+        last = 0.0 <= third <= tol and step <= _THIRD_MAX_STEP
+        if final_step > 0.0 and not outside and (step <= final_step or last) and (
                 kind != FIXED_PARTICLES or nref > np.exp(xn)):
             out_done[i] = True
             out_x[i] = xn
-            out_nuc[i] = nref if kind == FIXED_NUCLEI else nref - np.exp(xn)
-            out_resid[i] = max(rel * step, step * step)
-            return
+            nn = nref if kind == FIXED_NUCLEI else nref - np.exp(xn)
+            out_nuc[i] = nn
+            out_resid[i] = third if last else max(rel * step, step * step)
+            if last:    # g' carried to the new x
+                dg += g2 * (xn - x_was)
+            return -dg * nn / nref
+    return np.nan
+
+
+def _third_order_step(g, dg, zbar, var, k3, k4, u):
+    """Chebyshev's step for g(x) = ln(nn Zbar) - x from g, g' and the moments of
+    :func:`_moments` (Zbar' = -var, Zbar'' = k3, Zbar''' = -k4; u = n_e / nn where
+    nn = nref - n_e, else 0): (step, predicted error, c2 s, g'').
+
+    With s = g / g' and c_k = g^(k) / (k! g') the step is -s - c2 s^2 and its error
+    (2 c2^2 - c3) e^3 (e the error before it), taken as (2 c2^2 + |c3|) |s|^3."""
+    l1 = -var / zbar
+    l2 = k3 / zbar - l1 * l1
+    l3 = -k4 / zbar - 3.0 * l1 * k3 / zbar + 2.0 * l1 * l1 * l1
+    w = u + u * u                # ln(nref - e^x): -u, -(u + u^2), -(u + u^2)(1 + 2u)
+    g2 = l2 - w
+    g3 = l3 - w * (1.0 + 2.0 * u)
+    sn = g / dg
+    c2 = g2 / (2.0 * dg)
+    c3 = g3 / (6.0 * dg)
+    err = (2.0 * c2 * c2 + abs(c3)) * abs(sn) ** 3
+    return -sn - c2 * sn * sn, err, c2 * sn, g2
 
 
 def _intervals(charges, tab, thr, reach, clip, xl, xr):
@@ -619,6 +701,23 @@ def _per_temperature(tables) -> np.ndarray:
     return out
 
 
+def _neighbour_ratios(ctab, sizes) -> np.ndarray:
+    """(2, n_T, stages): e^(C_(r+1) - C_r) and its inverse per chain and temperature of the
+    per-temperature tables ``ctab`` (clipped at e^+-_RATIO_CLIP); the slot of a chain's last
+    stage holds 0, or NaN where the chain's C is not finite at that temperature (the shares
+    are then taken by exponentials)."""
+    d = np.zeros(ctab.shape)
+    with np.errstate(invalid="ignore"):
+        d[:, :-1] = np.clip(ctab[:, 1:] - ctab[:, :-1], -_RATIO_CLIP, _RATIO_CLIP)
+    out = np.stack([np.exp(d), np.exp(-d)])
+    start = 0
+    for n in sizes:
+        bad = ~np.isfinite(ctab[:, start:start + n]).all(axis=1)
+        out[:, :, start + n - 1] = np.where(bad, np.nan, 0.0)
+        start += n
+    return out
+
+
 def _push(ys, xs, y, x):
     """Add the newest solved state (y, x) to a row's last three."""
     ys[2], xs[2] = ys[1], xs[1]
@@ -647,7 +746,7 @@ def _extrapolated(y, ys, xs):
 
 
 def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol, max_passes,
-                  final_step, density, ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac,
+                  final_step, density, ctab, ratios, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac,
                   ch_lnaz, ch_whole, q_flat, mrow, hm_q, lv_start, lv_count, e, lng, lng_max, qs,
                   term, pre, suf, cnt_t, jpos, filled, n_group, out_x, out_nuc,
                   out_passes, out_resid,
@@ -707,6 +806,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
             shift = np.nan
             row_ti = ti
             lag[:, 0] = np.inf
+            wpos[:] = -1      # (along a row each chain's window is walked from the last)
         elif kind != FIXED_ELECTRONS:
             xg = _extrapolated(y, ys, xs)
             if np.isfinite(xg):
@@ -717,7 +817,6 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
         out_passes[i] = 0
         out_done[i] = False
         out_nuc[i] = np.nan
-        wpos[:] = -1
         if density and kind != FIXED_ELECTRONS and (warm or (ti == row_ti
                                                              and np.isfinite(ysd[2]))):
             # the caller's start, or three weighted solutions of this row (their
@@ -729,7 +828,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
                     x_at[:] = np.inf
                     last_ti = ti
                 _newton(i, min(xg, hi - 1e-9), lo, hi, kind, nref[i], tol, max_passes,
-                        final_step, t, tl, ti, True, ctab, bare, lu_first, xl, xr, ch_off,
+                        final_step, t, tl, ti, True, ctab, ratios, bare, lu_first, xl, xr, ch_off,
                         ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start,
                         lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t, jpos, filled,
                         pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
@@ -744,7 +843,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
         first_tol = start_tol if density else tol
         first_step = 0.0 if density else final_step
         _newton(i, x, lo, hi, kind, nref[i], first_tol, max_passes, first_step, t, tl, ti, False,
-                ctab, ctab, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
+                ctab, ratios, ctab, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
                 filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
@@ -768,7 +867,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
         out_done[i] = False
         out_nuc[i] = np.nan
         _newton(i, x, lo, hi, kind, nref[i], tol, max_passes, final_step, t, tl, ti, True,
-                ctab, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
+                ctab, ratios, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
                 filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
@@ -790,6 +889,7 @@ if numba is not None:  # pragma: no branch
     _fill = _sums(_fill)
     _fill_top = _sums(_fill_top)
     _series_limits = _jit(_series_limits)
+    _third_order_step = _jit(_third_order_step)
     _extrapolated = _jit(_extrapolated)
     _push = _jit(_push)
     _transpose_into_jit = _jit(_transpose_into)
@@ -816,6 +916,7 @@ class CompiledSolver:
         chains = network.chains
         self.t_u = np.ascontiguousarray(ut, dtype=float)
         self.ctab = _per_temperature(c_unique)
+        self.ratios = _neighbour_ratios(self.ctab, [c.n for c in chains])
         self.xl = np.ascontiguousarray(np.concatenate([iv[0] for iv in intervals], axis=1))
         self.xr = np.ascontiguousarray(np.concatenate([iv[1] for iv in intervals], axis=1))
         n = np.array([c.n for c in chains], dtype=np.int64)
@@ -869,7 +970,7 @@ class CompiledSolver:
                           np.full(n, np.nan) if x_warm is None else f64(x_warm, dtype=float),
                           f64(x_hi, dtype=float), float(tol),
                           float(start_tol), int(max_passes), float(final_step), self.density,
-                          self.ctab, self.bare, self.lu_first, self.xl, self.xr, *self.chains,
+                          self.ctab, self.ratios, self.bare, self.lu_first, self.xl, self.xr, *self.chains,
                           self.q_flat,
                           self.mrow, self.hm_q, *self.levels, *self.pool, max(self.n_group, 1),
                           out_x, out_nuc, out_passes, out_resid, out_done)

@@ -265,6 +265,29 @@ class AtomicNetwork:
         ln_u[has] = np.log(u)
         return ln_u
 
+    def log_u_chains(self, t: np.ndarray) -> list[np.ndarray]:
+        """:meth:`log_u` of every chain at the temperatures ``t`` without n_e or lowering (the
+        scheme's low-density limit), from one evaluation of the whole mixture's partition
+        model where the scheme has no lowering input (one call, not one per chain)."""
+        if self.model is None or "lowering_ev" in self.scheme.inputs or (
+                self.scheme.density_dependent and not self.scheme.unweighted_limit):
+            return [self.log_u(c, t) for c in self.chains]
+        model = self.model
+        if self.scheme.density_dependent:      # its limit: the plain sum over the same levels
+            cache = self.__dict__.setdefault("_limit_models", {})
+            if "all" not in cache:
+                cache["all"] = model.with_scheme(_truncation.get("plain"))
+            model = cache["all"]
+        u = model.evaluate(t)
+        out = []
+        for c in self.chains:
+            ln_u = np.zeros((c.n, t.shape[0]))
+            has = c.model_rows >= 0
+            if c.model is not None and has.any():
+                ln_u[has] = np.log(u[c.model_offset + c.model_rows[has]])
+            out.append(ln_u)
+        return out
+
     @staticmethod
     def bounded_lowering(lowering_ev: np.ndarray, chi_ev: np.ndarray) -> np.ndarray:
         """The lowering that cuts a partition function: at most 0.999 chi (none for a bare
