@@ -281,6 +281,8 @@ def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, 
     rec = not density and abs(x) < _RATIO_X
     e_down = np.exp(-x) if rec else 0.0
     e_up = np.exp(x) if rec else 0.0
+    zref_cut = zref * np.exp(-_LN_SHARE)
+    nch = ch_off.size
     for k in range(ch_off.size):
         if lag_budget > 0.0 and zref > 0.0:
             dx = x - lag[k, 0]
@@ -340,104 +342,113 @@ def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, 
                 lo = max(lo - 1, 0)
             if hi < lo:
                 hi = lo
-        thr = ch_lnaz[k] - ln_zref + _LN_SHARE
-        if density:
-            # which stages to sum, judged with the low-density-limit tables
-            a0max = -np.inf
-            for r in range(lo, hi + 1):
-                av = ctab[ti, o + r] - q_flat[o + r] * x
-                scratch_a[r] = av
-                if av > a0max:
-                    a0max = av
-            cut0 = a0max - thr - _DENSITY_MARGIN
-        amax = -np.inf
-        rmax = lo
-        for r in range(lo, hi + 1):
-            i = o + r
-            q = q_flat[i]
-            d = 0.0
-            if density:
-                if scratch_a[r] < cut0:
-                    scratch_a[r] = -np.inf
-                    scratch_d[r] = 0.0
-                    continue
-                av = bare[ti, i]   # the T-only part of C
-                m = mrow[i]
-                # the limit U serves where its error, at most ln(1 + F_top), times the
-                # stage's share of the charge is below e^-38, under the e^-34 the cut above
-                # leaves out (judged with the limit tables, an upper bound of the share); its
-                # d ln U / dx, of the same order as the error, is then left out too
-                budget = max(_NEGLIGIBLE, np.exp(cut0 + _DENSITY_MARGIN - 4.0 - scratch_a[r]))
-                if m >= 0 and _unweighted(m, p_, a_, b_, lv_start, lv_count, qs, budget):
-                    # the limit U (C of the limit tables counts from the first stage,
-                    # C_q = K_q + ln U_q - ln U_first)
-                    av = ctab[ti, i] + lu_first[ti, k]
-                elif m >= 0:
-                    # an earlier pass's exact ln U, carried to x along its slope, where the
-                    # error (|d2 ln U / dx2| <= 6 |d|: the weights go as n_e to n_e^2) stays
-                    # within the budget
-                    dx = x - x_at[i]
-                    if abs(dx) < 0.5 and 3.0 * abs(d_at[i]) * dx * dx < budget:
-                        lu = lu_at[i] + d_at[i] * dx
-                        d = d_at[i]
-                    else:
-                        lu, d = _log_u(tl, m, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start,
-                                       lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
-                                       jpos, filled, pool_base, stride)
-                        lu_at[i] = lu
-                        d_at[i] = d
-                        x_at[i] = x
-                    av += lu
-                elif q < 0.0:      # a negative ion: one bound state with its own weight
-                    inv, d = _weight(p_ * hm_q, a_, b_, aa, ab)
-                    av += np.log(inv)
-            else:
-                av = ctab[ti, i]
-            av -= q * x
-            scratch_a[r] = av
-            scratch_d[r] = d
-            if av > amax:
-                amax = av
-                rmax = r
-        # with T-only U the stages' shares e^(a - amax) follow from the largest by the
-        # ratios of neighbours, e^(C_(r+1) - C_r) e^-x: a product per stage, not an
-        # exponential (into scratch_d, which holds d ln U / dx only with density)
-        by_ratio = rec and ratios[0, ti, o + n - 1] == 0.0
-        if by_ratio:
-            scratch_d[rmax] = 1.0
-            p = 1.0
-            for r in range(rmax + 1, hi + 1):
-                p *= ratios[0, ti, o + r - 1] * e_down
-                scratch_d[r] = p
-            p = 1.0
-            for r in range(rmax - 1, lo - 1, -1):
-                p *= ratios[1, ti, o + r] * e_up
-                scratch_d[r] = p
         s0 = s1 = s2 = s3 = s4 = sd = sqd = sab = 0.0
-        cut = amax - thr
-        for r in range(lo, hi + 1):
-            arg = scratch_a[r]
-            if arg < cut:
-                continue
+        if rec and ratios[1, ti, o + n - 1] > 0.0:
+            # T-only U: the stages' shares relative to the largest follow from the ratios of
+            # neighbours, e^(C_(r+1) - C_r) e^-x, a product per stage instead of an
+            # exponential.  The largest is walked to from this chain's last (ln share is
+            # concave in the stage; were it not, a local largest only keeps more stages), and
+            # the stages below e^-thr of it are left out (e^-thr = zref e^-34 / (alpha Z))
+            r = min(max(wpos[2 * nch + k], lo), hi)
+            while r < hi and ratios[0, ti, o + r] * e_down > 1.0:
+                r += 1
+            while r > lo and ratios[1, ti, o + r - 1] * e_up > 1.0:
+                r -= 1
+            wpos[2 * nch + k] = r
+            cutp = ratios[1, ti, o + n - 1] * zref_cut
             q = q_flat[o + r]
-            if by_ratio:
-                p = scratch_d[r]
-            else:
+            s0, s1, s2, s3, s4, sab = _add_share(1.0, q, s0, s1, s2, s3, s4, sab)
+            p = 1.0
+            for rr in range(r + 1, hi + 1):
+                p *= ratios[0, ti, o + rr - 1] * e_down
+                if p >= cutp:
+                    s0, s1, s2, s3, s4, sab = _add_share(p, q_flat[o + rr], s0, s1, s2, s3,
+                                                         s4, sab)
+            p = 1.0
+            for rr in range(r - 1, lo - 1, -1):
+                p *= ratios[1, ti, o + rr] * e_up
+                if p >= cutp:
+                    s0, s1, s2, s3, s4, sab = _add_share(p, q_flat[o + rr], s0, s1, s2, s3,
+                                                         s4, sab)
+        else:
+            thr = ch_lnaz[k] - ln_zref + _LN_SHARE
+            if density:
+                # which stages to sum, judged with the low-density-limit tables
+                a0max = -np.inf
+                for r in range(lo, hi + 1):
+                    av = ctab[ti, o + r] - q_flat[o + r] * x
+                    scratch_a[r] = av
+                    if av > a0max:
+                        a0max = av
+                cut0 = a0max - thr - _DENSITY_MARGIN
+            amax = -np.inf
+            for r in range(lo, hi + 1):
+                i = o + r
+                q = q_flat[i]
+                d = 0.0
+                if density:
+                    if scratch_a[r] < cut0:
+                        scratch_a[r] = -np.inf
+                        scratch_d[r] = 0.0
+                        continue
+                    av = bare[ti, i]   # the T-only part of C
+                    m = mrow[i]
+                    # the limit U serves where its error, at most ln(1 + F_top), times the
+                    # stage's share of the charge is below e^-38, under the e^-34 the cut above
+                    # leaves out (judged with the limit tables, an upper bound of the share); its
+                    # d ln U / dx, of the same order as the error, is then left out too
+                    budget = max(_NEGLIGIBLE, np.exp(cut0 + _DENSITY_MARGIN - 4.0 - scratch_a[r]))
+                    if m >= 0 and _unweighted(m, p_, a_, b_, lv_start, lv_count, qs, budget):
+                        # the limit U (C of the limit tables counts from the first stage,
+                        # C_q = K_q + ln U_q - ln U_first)
+                        av = ctab[ti, i] + lu_first[ti, k]
+                    elif m >= 0:
+                        # an earlier pass's exact ln U, carried to x along its slope, where the
+                        # error (|d2 ln U / dx2| <= 6 |d|: the weights go as n_e to n_e^2) stays
+                        # within the budget
+                        dx = x - x_at[i]
+                        if abs(dx) < 0.5 and 3.0 * abs(d_at[i]) * dx * dx < budget:
+                            lu = lu_at[i] + d_at[i] * dx
+                            d = d_at[i]
+                        else:
+                            lu, d = _log_u(tl, m, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start,
+                                           lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
+                                           jpos, filled, pool_base, stride)
+                            lu_at[i] = lu
+                            d_at[i] = d
+                            x_at[i] = x
+                        av += lu
+                    elif q < 0.0:      # a negative ion: one bound state with its own weight
+                        inv, d = _weight(p_ * hm_q, a_, b_, aa, ab)
+                        av += np.log(inv)
+                else:
+                    av = ctab[ti, i]
+                av -= q * x
+                scratch_a[r] = av
+                scratch_d[r] = d
+                if av > amax:
+                    amax = av
+            cut = amax - thr
+            for r in range(lo, hi + 1):
+                arg = scratch_a[r]
+                if arg < cut:
+                    continue
+                q = q_flat[o + r]
                 arg -= amax
                 if arg < -300.0:
                     arg = -300.0
                 p = np.exp(arg)
-            s0 += p
-            s1 += p * q
-            s2 += p * q * q
-            pq3 = p * q * q * q
-            s3 += pq3
-            s4 += pq3 * q
-            sab += p * abs(q)
-            if density:
-                d = scratch_d[r]
-                sd += p * d
-                sqd += p * q * d
+                s0 += p
+                s1 += p * q
+                s2 += p * q * q
+                pq3 = p * q * q * q
+                s3 += pq3
+                s4 += pq3 * q
+                sab += p * abs(q)
+                if density:
+                    d = scratch_d[r]
+                    sd += p * d
+                    sqd += p * q * d
         inv = 1.0 / s0
         mq = s1 * inv
         mq2 = s2 * inv
@@ -701,21 +712,31 @@ def _per_temperature(tables) -> np.ndarray:
     return out
 
 
-def _neighbour_ratios(ctab, sizes) -> np.ndarray:
+def _neighbour_ratios(ctab, sizes, ln_az) -> np.ndarray:
     """(2, n_T, stages): e^(C_(r+1) - C_r) and its inverse per chain and temperature of the
-    per-temperature tables ``ctab`` (clipped at e^+-_RATIO_CLIP); the slot of a chain's last
-    stage holds 0, or NaN where the chain's C is not finite at that temperature (the shares
-    are then taken by exponentials)."""
+    per-temperature tables ``ctab`` (clipped at e^+-_RATIO_CLIP).  The slots of a chain's last
+    stage hold 0 and 1 / (alpha Z) of the chain (``ln_az`` = ln(alpha Z)), or NaN where the
+    chain's C is not finite at that temperature (the shares are then taken by exponentials)."""
     d = np.zeros(ctab.shape)
     with np.errstate(invalid="ignore"):
         d[:, :-1] = np.clip(ctab[:, 1:] - ctab[:, :-1], -_RATIO_CLIP, _RATIO_CLIP)
-    out = np.stack([np.exp(d), np.exp(-d)])
+    up = np.exp(d)
+    out = np.stack([up, 1.0 / up])
     start = 0
-    for n in sizes:
+    for n, laz in zip(sizes, ln_az):
         bad = ~np.isfinite(ctab[:, start:start + n]).all(axis=1)
-        out[:, :, start + n - 1] = np.where(bad, np.nan, 0.0)
+        out[0, :, start + n - 1] = np.where(bad, np.nan, 0.0)
+        out[1, :, start + n - 1] = np.where(bad, np.nan, np.exp(-laz))
         start += n
     return out
+
+
+def _add_share(p, q, s0, s1, s2, s3, s4, sab):
+    """The sums of _moments with a stage of share p and charge q added."""
+    pq = p * q
+    pq2 = pq * q
+    pq3 = pq2 * q
+    return s0 + p, s1 + pq, s2 + pq2, s3 + pq3, s4 + pq3 * q, sab + abs(pq)
 
 
 def _push(ys, xs, y, x):
@@ -765,7 +786,8 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
     nstage = q_flat.size
     scratch_a = np.empty(nstage)
     scratch_d = np.empty(nstage)
-    wpos = np.empty(2 * ch_off.size, dtype=np.int64)
+    # per chain its window's two ends and (T-only U) its largest stage, walked from the last
+    wpos = np.empty(3 * ch_off.size, dtype=np.int64)
     # per stage, the last exact ln U at this temperature, its slope and the x it was taken at
     lu_at = np.zeros(nstage)
     d_at = np.zeros(nstage)
@@ -889,6 +911,7 @@ if numba is not None:  # pragma: no branch
     _fill = _sums(_fill)
     _fill_top = _sums(_fill_top)
     _series_limits = _jit(_series_limits)
+    _add_share = numba.njit(cache=True, nogil=True, inline="always")(_add_share)
     _third_order_step = _jit(_third_order_step)
     _extrapolated = _jit(_extrapolated)
     _push = _jit(_push)
@@ -916,7 +939,6 @@ class CompiledSolver:
         chains = network.chains
         self.t_u = np.ascontiguousarray(ut, dtype=float)
         self.ctab = _per_temperature(c_unique)
-        self.ratios = _neighbour_ratios(self.ctab, [c.n for c in chains])
         self.xl = np.ascontiguousarray(np.concatenate([iv[0] for iv in intervals], axis=1))
         self.xr = np.ascontiguousarray(np.concatenate([iv[1] for iv in intervals], axis=1))
         n = np.array([c.n for c in chains], dtype=np.int64)
@@ -924,6 +946,7 @@ class CompiledSolver:
         top = np.array([max(abs(c.charges[0]), c.charges[-1]) for c in chains])
         self.chains = (np.concatenate([[0], np.cumsum(n)[:-1]]).astype(np.int64), n, frac,
                        np.log(frac * top), n <= WHOLE_CHAIN)
+        self.ratios = _neighbour_ratios(self.ctab, n, self.chains[3])
         self.q_flat = np.concatenate([c.charges for c in chains]).astype(float)
         self.density = bare is not None
         model = network.model
