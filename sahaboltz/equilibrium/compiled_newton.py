@@ -1,13 +1,18 @@
 """The charge balance solved state by state in one compiled loop (numba).
 
-The same method as the numpy engine of :mod:`sahaboltz.equilibrium.atomic` (safeguarded,
+The method of the numpy engine of :mod:`sahaboltz.equilibrium.atomic` (safeguarded,
 bracketed Newton in x = ln n_e on g(x) = ln(N Zbar) - x, the same start, windows and
 acceptance rules), written per state: each state walks the element chains with its own
-window of significant stages, found by two binary searches in the significance intervals
-(:func:`sahaboltz.equilibrium.atomic._significance_intervals`), and only those stages cost an
-exponential.  A numpy pass over all states and all window stages needs a dozen temporaries per
-chain and per pass; here every quantity stays in registers, which is what makes the compiled
-path several times faster (benchmarks/bench_solver.py).
+window of significant stages, found in the significance intervals
+(:func:`sahaboltz.equilibrium.atomic._significance_intervals`) by binary search at a row's
+first state and walked from there on.  A numpy pass over all states and all window stages
+needs a dozen temporaries per chain and per pass; here every quantity stays in registers,
+which is what makes the compiled path several times faster (benchmarks/bench_solver.py).
+With T-only U two things differ (see :func:`_moments` and :func:`_third_order_step`): the
+stages' shares come from the ratios of neighbours (a product per stage, no exponential), and
+the chains' cumulants give the second and third derivatives of g, so that the step is
+Chebyshev's third-order one, the last one when its predicted error is well inside the
+tolerance (most states of a grid row then take one pass).
 
 Density-dependent partition functions (occupation probabilities, charged perturbers) are
 summed in the loop too.  The Boltzmann terms g exp(-E/kT) of a species depend on T alone and
@@ -278,9 +283,8 @@ def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, 
         aa, ab = _state_slopes(t, ne)
         s_lo, s_hi = _series_limits(a_, b_)
     ln_zref = np.log(zref) if zref > 0.0 else -np.inf
-    rec = not density and abs(x) < _RATIO_X
+    rec = not density and abs(x) < _RATIO_X and ratios.shape[0] > 0
     e_down = np.exp(-x) if rec else 0.0
-    e_up = np.exp(x) if rec else 0.0
     zref_cut = zref * np.exp(-_LN_SHARE)
     nch = ch_off.size
     for k in range(ch_off.size):
@@ -343,30 +347,30 @@ def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, 
             if hi < lo:
                 hi = lo
         s0 = s1 = s2 = s3 = s4 = sd = sqd = sab = 0.0
-        if rec and ratios[1, ti, o + n - 1] > 0.0:
+        if rec and ratios[ti, o + n - 1] > 0.0:
             # T-only U: the stages' shares relative to the largest follow from the ratios of
             # neighbours, e^(C_(r+1) - C_r) e^-x, a product per stage instead of an
             # exponential.  The largest is walked to from this chain's last (ln share is
             # concave in the stage; were it not, a local largest only keeps more stages), and
             # the stages below e^-thr of it are left out (e^-thr = zref e^-34 / (alpha Z))
             r = min(max(wpos[2 * nch + k], lo), hi)
-            while r < hi and ratios[0, ti, o + r] * e_down > 1.0:
+            while r < hi and ratios[ti, o + r] * e_down > 1.0:
                 r += 1
-            while r > lo and ratios[1, ti, o + r - 1] * e_up > 1.0:
+            while r > lo and ratios[ti, o + r - 1] * e_down < 1.0:
                 r -= 1
             wpos[2 * nch + k] = r
-            cutp = ratios[1, ti, o + n - 1] * zref_cut
+            cutp = ratios[ti, o + n - 1] * zref_cut
             q = q_flat[o + r]
             s0, s1, s2, s3, s4, sab = _add_share(1.0, q, s0, s1, s2, s3, s4, sab)
             p = 1.0
             for rr in range(r + 1, hi + 1):
-                p *= ratios[0, ti, o + rr - 1] * e_down
+                p *= ratios[ti, o + rr - 1] * e_down
                 if p >= cutp:
                     s0, s1, s2, s3, s4, sab = _add_share(p, q_flat[o + rr], s0, s1, s2, s3,
                                                          s4, sab)
             p = 1.0
             for rr in range(r - 1, lo - 1, -1):
-                p *= ratios[1, ti, o + rr] * e_up
+                p *= 1.0 / (ratios[ti, o + rr] * e_down)   # (the division off p's chain)
                 if p >= cutp:
                     s0, s1, s2, s3, s4, sab = _add_share(p, q_flat[o + rr], s0, s1, s2, s3,
                                                          s4, sab)
@@ -713,20 +717,18 @@ def _per_temperature(tables) -> np.ndarray:
 
 
 def _neighbour_ratios(ctab, sizes, ln_az) -> np.ndarray:
-    """(2, n_T, stages): e^(C_(r+1) - C_r) and its inverse per chain and temperature of the
-    per-temperature tables ``ctab`` (clipped at e^+-_RATIO_CLIP).  The slots of a chain's last
-    stage hold 0 and 1 / (alpha Z) of the chain (``ln_az`` = ln(alpha Z)), or NaN where the
-    chain's C is not finite at that temperature (the shares are then taken by exponentials)."""
+    """(n_T, stages): e^(C_(r+1) - C_r) per chain and temperature of the per-temperature
+    tables ``ctab`` (clipped at e^+-_RATIO_CLIP).  The slot of a chain's last stage holds
+    1 / (alpha Z) of the chain (``ln_az`` = ln(alpha Z)), or NaN where the chain's C is not
+    finite at that temperature (the shares are then taken by exponentials)."""
     d = np.zeros(ctab.shape)
     with np.errstate(invalid="ignore"):
         d[:, :-1] = np.clip(ctab[:, 1:] - ctab[:, :-1], -_RATIO_CLIP, _RATIO_CLIP)
-    up = np.exp(d)
-    out = np.stack([up, 1.0 / up])
+    out = np.exp(d, out=d)
     start = 0
     for n, laz in zip(sizes, ln_az):
         bad = ~np.isfinite(ctab[:, start:start + n]).all(axis=1)
-        out[0, :, start + n - 1] = np.where(bad, np.nan, 0.0)
-        out[1, :, start + n - 1] = np.where(bad, np.nan, np.exp(-laz))
+        out[:, start + n - 1] = np.where(bad, np.nan, np.exp(-laz))
         start += n
     return out
 
@@ -865,7 +867,8 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
         first_tol = start_tol if density else tol
         first_step = 0.0 if density else final_step
         _newton(i, x, lo, hi, kind, nref[i], first_tol, max_passes, first_step, t, tl, ti, False,
-                ctab, ratios, ctab, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
+                ctab, ratios, ctab, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole,
+                q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
                 filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
@@ -889,7 +892,8 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
         out_done[i] = False
         out_nuc[i] = np.nan
         _newton(i, x, lo, hi, kind, nref[i], tol, max_passes, final_step, t, tl, ti, True,
-                ctab, ratios, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat,
+                ctab, ratios, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole,
+                q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
                 filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
@@ -946,7 +950,9 @@ class CompiledSolver:
         top = np.array([max(abs(c.charges[0]), c.charges[-1]) for c in chains])
         self.chains = (np.concatenate([[0], np.cumsum(n)[:-1]]).astype(np.int64), n, frac,
                        np.log(frac * top), n <= WHOLE_CHAIN)
-        self.ratios = _neighbour_ratios(self.ctab, n, self.chains[3])
+        # (with U depending on n_e only the start uses T-only U: no ratio tables, less memory)
+        self.ratios = (np.zeros((0, 0)) if bare is not None else
+                       _neighbour_ratios(self.ctab, n, self.chains[3]))
         self.q_flat = np.concatenate([c.charges for c in chains]).astype(float)
         self.density = bare is not None
         model = network.model
@@ -993,7 +999,8 @@ class CompiledSolver:
                           np.full(n, np.nan) if x_warm is None else f64(x_warm, dtype=float),
                           f64(x_hi, dtype=float), float(tol),
                           float(start_tol), int(max_passes), float(final_step), self.density,
-                          self.ctab, self.ratios, self.bare, self.lu_first, self.xl, self.xr, *self.chains,
+                          self.ctab, self.ratios, self.bare, self.lu_first, self.xl, self.xr,
+                          *self.chains,
                           self.q_flat,
                           self.mrow, self.hm_q, *self.levels, *self.pool, max(self.n_group, 1),
                           out_x, out_nuc, out_passes, out_resid, out_done)
