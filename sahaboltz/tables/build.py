@@ -50,8 +50,10 @@ from sahaboltz.tables.spec import TableSpec
 #: default largest number of states per block
 DEFAULT_CHUNK_STATES = 16384
 #: default bound on the raw outputs of the blocks being computed, one per worker [MB];
-#: shrinks blocks for many outputs
-DEFAULT_MEMORY_MB = 512.0
+#: shrinks blocks for many outputs (320 MB: a 2-worker build of a solar table with every
+#: stage fraction keeps each worker near 350 MB, 515 MB at 512; equally fast,
+#: benchmarks/bench_tables.py)
+DEFAULT_MEMORY_MB = 320.0
 #: states in the probe block that finds the output names and their size per state
 PROBE_STATES = 16
 
