@@ -635,9 +635,10 @@ class PartitionModel:
              want_density: bool = False):
         st = self._states(temperature, n_e, lowering_ev, n_neutral)
         nst = st["n"]
-        u = np.empty((self.n_species, nst))
-        u1 = np.empty((self.n_species, nst)) if want_energy else None
-        u2 = np.zeros((self.n_species, nst)) if want_density else None
+        # (states x species) while summing: a block's sums are then contiguous rows
+        u = np.empty((nst, self.n_species))
+        u1 = np.empty((nst, self.n_species)) if want_energy else None
+        u2 = np.zeros((nst, self.n_species)) if want_density else None
         slopes = (want_energy or want_density) and self.scheme.density_dependent
         all_lv = np.arange(self.n_levels)
         # states are sorted by temperature: a group of neighbours shares one pruned level set,
@@ -672,18 +673,29 @@ class PartitionModel:
                 else:
                     terms = self._arg(lv, st, sl, counts)
                 np.exp(terms, out=terms)
-                u[:, sl] = np.add.reduceat(terms, starts, axis=1).T
+                u[sl] = np.add.reduceat(terms, starts, axis=1)
                 if want_density and d_n is not None:
-                    u2[:, sl] = np.add.reduceat(terms * d_n, starts, axis=1).T
+                    u2[sl] = np.add.reduceat(terms * d_n, starts, axis=1)
                 if want_energy:
                     energy = np.multiply.outer(st["beta"][sl], e)
                     if d_t is not None:
                         energy += d_t
                     terms *= energy
-                    u1[:, sl] = np.add.reduceat(terms, starts, axis=1).T
+                    u1[sl] = np.add.reduceat(terms, starts, axis=1)
         out_shape = (self.n_species,) + st["shape"]
-        return tuple(None if v is None else v[:, st["inverse"]].reshape(out_shape)
+        inverse = st["inverse"]
+        if inverse.size == nst and (inverse == np.arange(nst)).all():
+            inverse = None     # distinct, sorted states: no gather
+        return tuple(None if v is None else _species_first(v, inverse).reshape(out_shape)
                      for v in (u, u1, u2))
+
+
+def _species_first(v: np.ndarray, inverse: np.ndarray | None) -> np.ndarray:
+    """(species x states) C-ordered from the (unique states x species) sums, gathered to the
+    states by ``inverse`` (None: they are the unique states)."""
+    if inverse is not None:
+        v = np.take(v, inverse, axis=0)
+    return np.ascontiguousarray(v.T)
 
 
 def _ground_g(sp: Species) -> float:
