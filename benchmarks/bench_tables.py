@@ -92,6 +92,8 @@ def bench_build(args, compute, fractions) -> None:
         print(f"  file creation   {create:9.3f} s   (file, coordinates, variables)")
         print(f"  chunk writing   {write:9.3f} s   (parent, whole build)")
         print(f"  cache hit       {hit * 1e3:9.2f} ms")
+        print(f"  peak RSS of the build: this process {_rss_mb(resource.RUSAGE_SELF):.0f} MB, "
+              f"largest worker {_rss_mb(resource.RUSAGE_CHILDREN):.0f} MB")
         if not args.no_solver:
             from sahaboltz.tables.compute import solve_block
 
