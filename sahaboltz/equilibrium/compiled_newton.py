@@ -53,7 +53,7 @@ FIXED_NUCLEI, FIXED_PARTICLES, FIXED_ELECTRONS = 0, 1, 2
 X_CLIP = 2000.0
 #: stages apart that bound the significance intervals (see significance_intervals)
 INTERVAL_REACH = 32
-#: terms of the series of the level weights in s (see _log_u)
+#: terms of the series of the level weights in s (see _weighted_u)
 SERIES_ORDER = 12
 # a series stops at a term below this fraction of the sum
 _NEGLIGIBLE = 1e-17
@@ -61,6 +61,9 @@ _NEGLIGIBLE = 1e-17
 _LN_SHARE = 34.0
 # margin of that test when U depends on n_e: judged with the low-density-limit U (the largest)
 _DENSITY_MARGIN = 5.0
+_EXP_MARGIN = float(np.exp(-_DENSITY_MARGIN))
+# the error budget of a stage's ln U: e^-4 under what the cut leaves out, over its share
+_EXP_BUDGET = float(np.exp(-4.0))
 # Boltzmann pruning of the level sums, as in PartitionModel.evaluate_pairs
 _CUT = 50.0
 # a chain's moments carried from an earlier x may err by this fraction of the tolerance
@@ -142,9 +145,9 @@ def _fill_top(tl, row, lv_start, qs, term, suf, cnt, pool_base):
                 suf[o + m] = suf[o + m1 + m]
 
 
-def _log_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start, lv_count, e, lng,
-           lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride):
-    """(ln U, d ln U / d ln n_e) of species ``row`` at one state.
+def _weighted_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start, lv_count, e, lng,
+                lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride):
+    """(U, d ln U / d ln n_e) of species ``row`` at one state.
 
     A level's weight is w = 1 / (1 + B s + A s^2), s = P q.  For s <= s_lo it is summed as
     its series in s (running sums S_m), for s >= s_hi as its series in 1/s (sums V_m from the
@@ -232,7 +235,7 @@ def _log_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start, lv_count, e,
         tv = term[b + j] * inv
         u += tv
         du += tv * dlw
-    return np.log(u), du / u
+    return u, du / u
 
 
 def _unweighted(row, p_, a_, b_, lv_start, lv_count, qs, budget):
@@ -283,8 +286,8 @@ def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, 
         aa, ab = _state_slopes(t, ne)
         s_lo, s_hi = _series_limits(a_, b_)
     ln_zref = np.log(zref) if zref > 0.0 else -np.inf
-    rec = not density and abs(x) < _RATIO_X and ratios.shape[0] > 0
-    e_down = np.exp(-x) if rec else 0.0
+    rat = abs(x) < _RATIO_X and ratios.shape[0] > 0
+    e_down = np.exp(-x) if rat else 0.0
     zref_cut = zref * np.exp(-_LN_SHARE)
     nch = ch_off.size
     for k in range(ch_off.size):
@@ -347,110 +350,122 @@ def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, 
             if hi < lo:
                 hi = lo
         s0 = s1 = s2 = s3 = s4 = sd = sqd = sab = 0.0
-        if rec and ratios[ti, o + n - 1] > 0.0:
-            # T-only U: the stages' shares relative to the largest follow from the ratios of
-            # neighbours, e^(C_(r+1) - C_r) e^-x, a product per stage instead of an
-            # exponential.  The largest is walked to from this chain's last (ln share is
-            # concave in the stage; were it not, a local largest only keeps more stages), and
-            # the stages below e^-thr of it are left out (e^-thr = zref e^-34 / (alpha Z))
+        by_ratio = rat and ratios[ti, o + n - 1] > 0.0
+        if by_ratio:
+            # the stages' shares relative to the largest (of the limit tables when U depends
+            # on n_e) follow from the ratios of neighbours, e^(C_(r+1) - C_r) e^-x, a product
+            # per stage instead of an exponential.  The largest is walked to from this
+            # chain's last (ln share is concave in the stage; were it not, a local largest
+            # only keeps more stages)
             r = min(max(wpos[2 * nch + k], lo), hi)
             while r < hi and ratios[ti, o + r] * e_down > 1.0:
                 r += 1
             while r > lo and ratios[ti, o + r - 1] * e_down < 1.0:
                 r -= 1
             wpos[2 * nch + k] = r
-            cutp = ratios[ti, o + n - 1] * zref_cut
+        # e^-thr: the shares below it of the largest are left out (thr = ln(alpha Z / zref)
+        # + _LN_SHARE, see above; 0 when zref is not known)
+        e_thr = zref_cut * ratios[ti, o + n - 1] if by_ratio else np.exp(
+            -(ch_lnaz[k] - ln_zref + _LN_SHARE))
+        if by_ratio and not density:
             q = q_flat[o + r]
             s0, s1, s2, s3, s4, sab = _add_share(1.0, q, s0, s1, s2, s3, s4, sab)
             p = 1.0
             for rr in range(r + 1, hi + 1):
                 p *= ratios[ti, o + rr - 1] * e_down
-                if p >= cutp:
+                if p >= e_thr:
                     s0, s1, s2, s3, s4, sab = _add_share(p, q_flat[o + rr], s0, s1, s2, s3,
                                                          s4, sab)
             p = 1.0
             for rr in range(r - 1, lo - 1, -1):
                 p *= 1.0 / (ratios[ti, o + rr] * e_down)   # (the division off p's chain)
-                if p >= cutp:
+                if p >= e_thr:
                     s0, s1, s2, s3, s4, sab = _add_share(p, q_flat[o + rr], s0, s1, s2, s3,
                                                          s4, sab)
         else:
-            thr = ch_lnaz[k] - ln_zref + _LN_SHARE
-            if density:
-                # which stages to sum, judged with the low-density-limit tables
+            # the shares p0 of the (limit) tables relative to their largest, into scratch_a
+            if by_ratio:
+                scratch_a[r] = 1.0
+                p = 1.0
+                for rr in range(r + 1, hi + 1):
+                    p *= ratios[ti, o + rr - 1] * e_down
+                    scratch_a[rr] = p
+                p = 1.0
+                for rr in range(r - 1, lo - 1, -1):
+                    p *= 1.0 / (ratios[ti, o + rr] * e_down)
+                    scratch_a[rr] = p
+            else:
                 a0max = -np.inf
-                for r in range(lo, hi + 1):
-                    av = ctab[ti, o + r] - q_flat[o + r] * x
-                    scratch_a[r] = av
+                for rr in range(lo, hi + 1):
+                    av = ctab[ti, o + rr] - q_flat[o + rr] * x
+                    scratch_a[rr] = av
                     if av > a0max:
                         a0max = av
-                cut0 = a0max - thr - _DENSITY_MARGIN
-            amax = -np.inf
-            for r in range(lo, hi + 1):
-                i = o + r
-                q = q_flat[i]
-                d = 0.0
-                if density:
-                    if scratch_a[r] < cut0:
-                        scratch_a[r] = -np.inf
-                        scratch_d[r] = 0.0
+                for rr in range(lo, hi + 1):
+                    scratch_a[rr] = np.exp(max(scratch_a[rr] - a0max, -300.0))
+            pmax = 0.0
+            if density:
+                # U depends on n_e: a stage's share is its limit share times U / U_limit
+                # (<= 1; C_q of the limit tables is K_q + ln U_q - ln U_first, ``bare`` is
+                # K_q), with a weighted U, one carried from an earlier x, or the limit itself;
+                # which stages to weigh is judged with the limit shares
+                cut0 = e_thr * _EXP_MARGIN
+                bud = e_thr * _EXP_BUDGET
+                for rr in range(lo, hi + 1):
+                    p0 = scratch_a[rr]
+                    if p0 < cut0 or p0 == 0.0:
+                        scratch_a[rr] = 0.0
                         continue
-                    av = bare[ti, i]   # the T-only part of C
+                    i = o + rr
+                    q = q_flat[i]
                     m = mrow[i]
+                    d = 0.0
+                    wf = 1.0
                     # the limit U serves where its error, at most ln(1 + F_top), times the
-                    # stage's share of the charge is below e^-38, under the e^-34 the cut above
-                    # leaves out (judged with the limit tables, an upper bound of the share); its
+                    # stage's share of the charge is below e^-38, under the e^-34 the cut
+                    # leaves out (judged with the limit shares, an upper bound); its
                     # d ln U / dx, of the same order as the error, is then left out too
-                    budget = max(_NEGLIGIBLE, np.exp(cut0 + _DENSITY_MARGIN - 4.0 - scratch_a[r]))
+                    budget = max(_NEGLIGIBLE, bud / p0)
                     if m >= 0 and _unweighted(m, p_, a_, b_, lv_start, lv_count, qs, budget):
-                        # the limit U (C of the limit tables counts from the first stage,
-                        # C_q = K_q + ln U_q - ln U_first)
-                        av = ctab[ti, i] + lu_first[ti, k]
+                        pass
                     elif m >= 0:
-                        # an earlier pass's exact ln U, carried to x along its slope, where the
-                        # error (|d2 ln U / dx2| <= 6 |d|: the weights go as n_e to n_e^2) stays
-                        # within the budget
+                        # an earlier pass's exact U, carried to x along its slope, where the
+                        # error in ln U (|d2 ln U / dx2| <= 6 |d|: the weights go as n_e to
+                        # n_e^2) stays within the budget
                         dx = x - x_at[i]
                         if abs(dx) < 0.5 and 3.0 * abs(d_at[i]) * dx * dx < budget:
-                            lu = lu_at[i] + d_at[i] * dx
                             d = d_at[i]
                         else:
-                            lu, d = _log_u(tl, m, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start,
-                                           lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
-                                           jpos, filled, pool_base, stride)
-                            lu_at[i] = lu
+                            u, d = _weighted_u(tl, m, beta, p_, a_, b_, aa, ab, s_lo, s_hi,
+                                               lv_start, lv_count, e, lng, lng_max, qs, term,
+                                               pre, suf, cnt_t, jpos, filled, pool_base,
+                                               stride)
+                            lu_at[i] = u
                             d_at[i] = d
                             x_at[i] = x
-                        av += lu
+                            dx = 0.0
+                        wf = lu_at[i] * np.exp(d * dx + bare[ti, i] - ctab[ti, i]
+                                               - lu_first[ti, k])
                     elif q < 0.0:      # a negative ion: one bound state with its own weight
-                        inv, d = _weight(p_ * hm_q, a_, b_, aa, ab)
-                        av += np.log(inv)
-                else:
-                    av = ctab[ti, i]
-                av -= q * x
-                scratch_a[r] = av
-                scratch_d[r] = d
-                if av > amax:
-                    amax = av
-            cut = amax - thr
-            for r in range(lo, hi + 1):
-                arg = scratch_a[r]
-                if arg < cut:
+                        wf, d = _weight(p_ * hm_q, a_, b_, aa, ab)
+                    p = p0 * wf
+                    scratch_a[rr] = p
+                    scratch_d[rr] = d
+                    if p > pmax:
+                        pmax = p
+            else:
+                for rr in range(lo, hi + 1):
+                    if scratch_a[rr] > pmax:
+                        pmax = scratch_a[rr]
+            cut = pmax * e_thr
+            for rr in range(lo, hi + 1):
+                p = scratch_a[rr]
+                if p < cut or p == 0.0:
                     continue
-                q = q_flat[o + r]
-                arg -= amax
-                if arg < -300.0:
-                    arg = -300.0
-                p = np.exp(arg)
-                s0 += p
-                s1 += p * q
-                s2 += p * q * q
-                pq3 = p * q * q * q
-                s3 += pq3
-                s4 += pq3 * q
-                sab += p * abs(q)
+                q = q_flat[o + rr]
+                s0, s1, s2, s3, s4, sab = _add_share(p, q, s0, s1, s2, s3, s4, sab)
                 if density:
-                    d = scratch_d[r]
+                    d = scratch_d[rr]
                     sd += p * d
                     sqd += p * q * d
         inv = 1.0 / s0
@@ -790,7 +805,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
     scratch_d = np.empty(nstage)
     # per chain its window's two ends and (T-only U) its largest stage, walked from the last
     wpos = np.empty(3 * ch_off.size, dtype=np.int64)
-    # per stage, the last exact ln U at this temperature, its slope and the x it was taken at
+    # per stage, the last exact weighted U at this temperature, d ln U / dx and the x of it
     lu_at = np.zeros(nstage)
     d_at = np.zeros(nstage)
     x_at = np.full(nstage, np.inf)
@@ -923,7 +938,7 @@ if numba is not None:  # pragma: no branch
     _intervals_jit = _jit(_intervals)
     _interval_bounds_jit = _jit(_interval_bounds)
     _unweighted = _jit(_unweighted)
-    _log_u = _sums(_log_u)
+    _weighted_u = _sums(_weighted_u)
     _moments = _jit(_moments)
     _newton = _jit(_newton)
     _solve_states_jit = _jit(_solve_states)
@@ -950,9 +965,7 @@ class CompiledSolver:
         top = np.array([max(abs(c.charges[0]), c.charges[-1]) for c in chains])
         self.chains = (np.concatenate([[0], np.cumsum(n)[:-1]]).astype(np.int64), n, frac,
                        np.log(frac * top), n <= WHOLE_CHAIN)
-        # (with U depending on n_e only the start uses T-only U: no ratio tables, less memory)
-        self.ratios = (np.zeros((0, 0)) if bare is not None else
-                       _neighbour_ratios(self.ctab, n, self.chains[3]))
+        self.ratios = _neighbour_ratios(self.ctab, n, self.chains[3])
         self.q_flat = np.concatenate([c.charges for c in chains]).astype(float)
         self.density = bare is not None
         model = network.model
