@@ -921,26 +921,29 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
 
 if numba is not None:  # pragma: no branch
     _jit = numba.njit(cache=True, nogil=True, error_model="numpy")
+    # the functions called per state, pass and stage allocate nothing: compiled without the
+    # runtime's reference counts (see kernels.compiled.borrowing_jit)
+    _inner = compiled.borrowing_jit(cache=True, nogil=True, error_model="numpy")
     # the level sums may be reordered (vectorized): no NaN or inf arises in them
-    _sums = numba.njit(cache=True, nogil=True, error_model="numpy",
-                       fastmath={"reassoc", "contract", "arcp", "nsz"})
-    _state_factors = _jit(stark_state_factors)
-    _state_slopes = _jit(stark_state_slopes)
+    _sums = compiled.borrowing_jit(cache=True, nogil=True, error_model="numpy",
+                                   fastmath={"reassoc", "contract", "arcp", "nsz"})
+    _state_factors = _inner(stark_state_factors)
+    _state_slopes = _inner(stark_state_slopes)
     _weight = _sums(_weight)
     _fill = _sums(_fill)
     _fill_top = _sums(_fill_top)
-    _series_limits = _jit(_series_limits)
+    _series_limits = _inner(_series_limits)
     _add_share = numba.njit(cache=True, nogil=True, inline="always")(_add_share)
-    _third_order_step = _jit(_third_order_step)
-    _extrapolated = _jit(_extrapolated)
-    _push = _jit(_push)
+    _third_order_step = _inner(_third_order_step)
+    _extrapolated = _inner(_extrapolated)
+    _push = _inner(_push)
     _transpose_into_jit = _jit(_transpose_into)
     _intervals_jit = _jit(_intervals)
     _interval_bounds_jit = _jit(_interval_bounds)
-    _unweighted = _jit(_unweighted)
+    _unweighted = _inner(_unweighted)
     _weighted_u = _sums(_weighted_u)
-    _moments = _jit(_moments)
-    _newton = _jit(_newton)
+    _moments = _inner(_moments)
+    _newton = _inner(_newton)
     _solve_states_jit = _jit(_solve_states)
 
 

@@ -286,10 +286,11 @@ def _sums(tidx, rows, sidx, beta_u, p_, a_, b_, a1, b1, a2, b2, nn4, start, coun
 if _compiled.numba is not None:  # pragma: no branch
     # error_model="numpy": a division cannot raise (no branch per level), so the level loop
     # is vectorized; the sums may be reordered (no NaN or inf arises in them)
-    _level_sums = _compiled.numba.njit(
+    # (called per pair, they allocate nothing: no reference counts, see borrowing_jit)
+    _level_sums = _compiled.borrowing_jit(
         cache=True, nogil=True, error_model="numpy",
         fastmath={"reassoc", "contract", "arcp", "nsz"})(_level_sums)
-    _series_sums = _compiled.numba.njit(cache=True, nogil=True, error_model="numpy")(
+    _series_sums = _compiled.borrowing_jit(cache=True, nogil=True, error_model="numpy")(
         _series_sums)
     _series_split = _compiled.numba.njit(cache=True, nogil=True, error_model="numpy")(
         _series_split)
