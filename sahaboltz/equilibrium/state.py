@@ -102,7 +102,7 @@ class EquilibriumState:
         self.lowering = lowering
         self._debye = debye_length
         self.report = report
-        self._cache: dict[int, np.ndarray] = {}
+        self._cache: dict = {}     # per chain (chain.k) its fractions; derived per-state data
         #: (distinct temperatures, C_q of every chain there) of the solve, as the solver
         #: formed them (low-density-limit U), or None: read (and dropped) by the
         #: thermodynamics
@@ -236,6 +236,25 @@ class EquilibriumState:
         tab -= np.multiply.outer(chain.charges, x)
         return tab
 
+    def saha_table(self, chain: Chain, ut: np.ndarray) -> np.ndarray:
+        """C_q of a chain at the temperatures ``ut`` with the low-density-limit U: the columns
+        of the solver's own tables where the state kept them, else computed."""
+        kept = self.saha_tables
+        if kept is not None:
+            t_kept, tables = kept
+            pos = np.searchsorted(t_kept, ut)
+            if pos.size and pos[-1] < t_kept.size and np.array_equal(t_kept[pos], ut):
+                return tables[chain.k][:, pos]
+        return self.network.log_c(chain, ut)
+
+    def _distinct_temperatures(self) -> tuple[np.ndarray, np.ndarray]:
+        """(distinct temperatures, each flat state's index among them), formed once (kept
+        with the chains' fractions, which a splice or reshape clears)."""
+        if "distinct_t" not in self._cache:
+            self._cache["distinct_t"] = np.unique(self.temperature.ravel(),
+                                                  return_inverse=True)
+        return self._cache["distinct_t"]
+
     def _large_fractions(self, chain: Chain, share: float
                          ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(stage rows, flat state indices, fractions) of the chain's stages holding at least
@@ -251,8 +270,8 @@ class EquilibriumState:
         t, x = self.temperature.ravel(), self.log_ne.ravel()
         cut = 40.0
         if _compiled.available():   # one pass per state, not a dozen over (stages x states)
-            ut, inv = np.unique(t, return_inverse=True)
-            tab = self.network.log_c(chain, ut)
+            ut, inv = self._distinct_temperatures()
+            tab = self.saha_table(chain, ut)
             window = compiled_newton.interval_windows(chain.charges, tab, inv, x, cut)
             return _compiled.large_chain_fractions(tab, inv, x, chain.charges, ok, share, cut,
                                                    window)

@@ -429,18 +429,6 @@ def _significant_rows(tab, tinv, x, charges, kq, kap, u_hi, u_lo, thr, forced):
     return rows, inside
 
 
-def _saha_table(state, chain, ut) -> np.ndarray:
-    """C_q of a chain at the temperatures ``ut`` with the low-density-limit U: the columns
-    of the solver's own tables where the state kept them, else computed."""
-    kept = getattr(state, "saha_tables", None)
-    if kept is not None:
-        t_kept, tables = kept
-        pos = np.searchsorted(t_kept, ut)
-        if pos.size and pos[-1] < t_kept.size and np.array_equal(t_kept[pos], ut):
-            return tables[chain.k][:, pos]
-    return state.network.log_c(chain, ut)
-
-
 def _chunk(state, sel) -> dict:
     net = state.network
     comp = state.composition
@@ -503,7 +491,7 @@ def _chunk(state, sel) -> dict:
         else:
             # ln U at each distinct T (exact for T-only U; for density-dependent U their
             # low-density limit, which bounds each from above): the solver's tables
-            tab = _saha_table(state, c, ut)
+            tab = state.saha_table(c, ut)
             u_lo = u_hi = zero
         p = mol_pos.get(c.k)
         forced = [] if p is None else sorted({i0} | comp_rows.get(p, set()))
