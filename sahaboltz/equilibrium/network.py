@@ -272,12 +272,8 @@ class AtomicNetwork:
         if self.model is None or "lowering_ev" in self.scheme.inputs or (
                 self.scheme.density_dependent and not self.scheme.unweighted_limit):
             return [self.log_u(c, t) for c in self.chains]
-        model = self.model
-        if self.scheme.density_dependent:      # its limit: the plain sum over the same levels
-            cache = self.__dict__.setdefault("_limit_models", {})
-            if "all" not in cache:
-                cache["all"] = model.with_scheme(_truncation.get("plain"))
-            model = cache["all"]
+        # with density-dependent weights their limit: the plain sum over the same levels
+        model = self._limit_model() if self.scheme.density_dependent else self.model
         u = model.evaluate(t)
         out = []
         for c in self.chains:
@@ -295,11 +291,17 @@ class AtomicNetwork:
         far too high; a converged state is checked against chi separately."""
         return np.minimum(lowering_ev, np.where(np.isfinite(chi_ev), 0.999 * chi_ev, 0.0))
 
-    def _limit_model(self, chain: Chain):
-        """The chain's partition model with every weight 1 (its low-density limit), kept."""
+    def _limit_model(self, chain: Chain | None = None):
+        """The mixture's (or a chain's) partition model with every weight 1 (its low-density
+        limit), kept."""
         cache = self.__dict__.setdefault("_limit_models", {})
+        if "all" not in cache:
+            cache["all"] = self.model.with_scheme(_truncation.get("plain"))
+        if chain is None:
+            return cache["all"]
         if chain.k not in cache:
-            cache[chain.k] = chain.model.with_scheme(_truncation.get("plain"))
+            first = chain.model_offset
+            cache[chain.k] = cache["all"].subset(first, first + chain.model.n_species)
         return cache[chain.k]
 
     def log_u_pairs(self, chain: Chain, t: np.ndarray, n_e: np.ndarray, rows: np.ndarray,

@@ -195,12 +195,13 @@ def borrowing_jit(**options):
     the caller.  With it, every call of a function that is not inlined increments and
     decrements the count of each array argument (two atomic operations each): 24 per call of
     the solver's weighted U, about a fifth of the default solve (measured with perf), and 8x
-    the time of a small 8-array kernel called in a loop.  Falls back to plain njit where
-    numba does not take the option."""
-    try:
+    the time of a small 8-array kernel called in a loop.  Plain njit where numba does not
+    know the option (an unknown option fails only when the kernel is first compiled)."""
+    from numba.core import cpu
+
+    if hasattr(cpu.CPUTargetOptions, "_nrt"):
         return numba.njit(_nrt=False, **options)
-    except (TypeError, KeyError):      # pragma: no cover - an older or newer numba
-        return numba.njit(**options)
+    return numba.njit(**options)      # pragma: no cover - a numba without the option
 
 
 if numba is not None:  # pragma: no branch
