@@ -145,8 +145,8 @@ def _fill_top(tl, row, lv_start, qs, term, suf, cnt, pool_base):
                 suf[o + m] = suf[o + m1 + m]
 
 
-def _weighted_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start, lv_count, e, lng,
-                lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride):
+def _weighted_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, coef, lv_start, lv_count, e,
+                lng, lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride):
     """(U, d ln U / d ln n_e) of species ``row`` at one state.
 
     A level's weight is w = 1 / (1 + B s + A s^2), s = P q.  For s <= s_lo it is summed as
@@ -180,62 +180,59 @@ def _weighted_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, lv_start, lv_coun
         j1 -= 1
     jpos[2 * key] = j0
     jpos[2 * key + 1] = j1
-    # series in s: coefficients t_m of 1 / (1 + bt q + at q^2), t_0 = 1, t_1 = -bt,
-    # t_m = -bt t_(m-1) - at t_(m-2), and their derivatives in ln n_e (P is proportional
-    # to n_e; d A / d ln n_e = aa / 6, d B / d ln n_e = ab / 6)
-    o = (b + j0) * m1
-    bt = b_ * p_
-    at = a_ * p_ * p_
-    dbt = (b_ + ab / 6.0) * p_
-    dat = (2.0 * a_ + aa / 6.0) * p_ * p_
-    t2, t1 = 1.0, -bt
-    d2, d1 = 0.0, -dbt
-    u = pre[o] + t1 * pre[o + 1]
-    du = d1 * pre[o + 1]
-    for m in range(2, m1):
-        t0 = -bt * t1 - at * t2
-        d0 = -dbt * t1 - bt * d1 - dat * t2 - at * d2
-        sm = pre[o + m]
-        u += t0 * sm
-        du += d0 * sm
-        if abs(t0 * sm) <= _NEGLIGIBLE * u:   # the terms fall at least tenfold each
-            break
-        t2, t1 = t1, t0
-        d2, d1 = d1, d0
+    # the series in q (in s = P q, coefficients of the pass: _series_coefficients), all
+    # SERIES_ORDER + 1 terms (each at most a tenth of the last: a fixed-length dot product)
+    u = 0.0
+    du = 0.0
+    if j0 > 0:
+        o = (b + j0) * m1
+        for m in range(m1):
+            u += coef[0, m] * pre[o + m]
+            du += coef[1, m] * pre[o + m]
     if j1 < cnt:
         if filled[key] == 1:
             _fill_top(tl, row, lv_start, qs, term, suf, cnt, pool_base)
             filled[key] = 2
-        # series in 1/q: w = e_0 q^-2 + e_1 q^-3 + ..., e_0 = 1 / (A P^2),
-        # e_m = -bu e_(m-1) - au e_(m-2), bu = B / (A P), au = 1 / (A P^2)
         o = (b + j1) * m1
-        da_a = aa / (6.0 * a_)                   # d ln A / d ln n_e
-        au = 1.0 / (a_ * p_ * p_)
-        bu = b_ / (a_ * p_)
-        dau = -au * (da_a + 2.0)
-        dbu = ab / (6.0 * a_ * p_) - bu * (da_a + 1.0)
-        t2 = au
-        d2 = dau
-        t1 = -bu * t2
-        d1 = -dbu * t2 - bu * d2
-        u += t2 * suf[o] + t1 * suf[o + 1]
-        du += d2 * suf[o] + d1 * suf[o + 1]
-        for m in range(2, m1):
-            t0 = -bu * t1 - au * t2
-            d0 = -dbu * t1 - bu * d1 - dau * t2 - au * d2
-            sm = suf[o + m]
-            u += t0 * sm
-            du += d0 * sm
-            if abs(t0 * sm) <= _NEGLIGIBLE * u:
-                break
-            t2, t1 = t1, t0
-            d2, d1 = d1, d0
+        for m in range(m1):
+            u += coef[2, m] * suf[o + m]
+            du += coef[3, m] * suf[o + m]
     for j in range(j0, j1):
         inv, dlw = _weight(p_ * qs[s + j], a_, b_, aa, ab)
         tv = term[b + j] * inv
         u += tv
         du += tv * dlw
     return u, du / u
+
+
+def _series_coefficients(p_, a_, b_, aa, ab, coef):
+    """Into ``coef`` the coefficients of the series of the weight w = 1 / (1 + B s + A s^2),
+    s = P q, in q (rows 0, 1: t_m and d t_m / d ln n_e; t_0 = 1, t_1 = -bt,
+    t_m = -bt t_(m-1) - at t_(m-2), bt = B P, at = A P^2) and in 1/q (rows 2, 3: w =
+    e_0 q^-2 + e_1 q^-3 + ..., e_0 = 1 / (A P^2), e_m = -bu e_(m-1) - au e_(m-2),
+    bu = B / (A P), au = 1 / (A P^2)); P is proportional to n_e, d A / d ln n_e = aa / 6,
+    d B / d ln n_e = ab / 6.  They depend on the state alone: formed once per pass."""
+    m1 = coef.shape[1]
+    bt = b_ * p_
+    at = a_ * p_ * p_
+    dbt = (b_ + ab / 6.0) * p_
+    dat = (2.0 * a_ + aa / 6.0) * p_ * p_
+    coef[0, 0], coef[1, 0] = 1.0, 0.0
+    coef[0, 1], coef[1, 1] = -bt, -dbt
+    da_a = aa / (6.0 * a_)                   # d ln A / d ln n_e
+    au = 1.0 / (a_ * p_ * p_)
+    bu = b_ / (a_ * p_)
+    dau = -au * (da_a + 2.0)
+    dbu = ab / (6.0 * a_ * p_) - bu * (da_a + 1.0)
+    coef[2, 0], coef[3, 0] = au, dau
+    coef[2, 1], coef[3, 1] = -bu * au, -dbu * au - bu * dau
+    for m in range(2, m1):
+        coef[0, m] = -bt * coef[0, m - 1] - at * coef[0, m - 2]
+        coef[1, m] = (-dbt * coef[0, m - 1] - bt * coef[1, m - 1] - dat * coef[0, m - 2]
+                      - at * coef[1, m - 2])
+        coef[2, m] = -bu * coef[2, m - 1] - au * coef[2, m - 2]
+        coef[3, m] = (-dbu * coef[2, m - 1] - bu * coef[3, m - 1] - dau * coef[2, m - 2]
+                      - au * coef[3, m - 2])
 
 
 def _unweighted(row, p_, a_, b_, lv_start, lv_count, qs, budget):
@@ -255,7 +252,7 @@ def _series_limits(a_, b_):
 def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, ch_off, ch_n,
              ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
              lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
-             scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag, lag_budget):
+             scratch_a, scratch_d, coef, wpos, lu_at, d_at, x_at, lag, lag_budget):
     """(Zbar, -dZbar/dx, sum alpha <|q|>, d^2 Zbar/dx^2, -d^3 Zbar/dx^3) at x for one state.
 
     The derivatives are the chains' cumulants of q: ln sum exp(C_q - q x) is the cumulant
@@ -285,6 +282,7 @@ def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, 
         p_, a_, b_ = _state_factors(t, ne)
         aa, ab = _state_slopes(t, ne)
         s_lo, s_hi = _series_limits(a_, b_)
+        _series_coefficients(p_, a_, b_, aa, ab, coef)
     ln_zref = np.log(zref) if zref > 0.0 else -np.inf
     rat = abs(x) < _RATIO_X and ratios.shape[0] > 0
     e_down = np.exp(-x) if rat else 0.0
@@ -437,9 +435,9 @@ def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, 
                             d = d_at[i]
                         else:
                             u, d = _weighted_u(tl, m, beta, p_, a_, b_, aa, ab, s_lo, s_hi,
-                                               lv_start, lv_count, e, lng, lng_max, qs, term,
-                                               pre, suf, cnt_t, jpos, filled, pool_base,
-                                               stride)
+                                               coef, lv_start, lv_count, e, lng, lng_max, qs,
+                                               term, pre, suf, cnt_t, jpos, filled,
+                                               pool_base, stride)
                             lu_at[i] = u
                             d_at[i] = d
                             x_at[i] = x
@@ -502,7 +500,7 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
             bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
             hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
             jpos, filled,
-            pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag, out_x,
+            pool_base, stride, scratch_a, scratch_d, coef, wpos, lu_at, d_at, x_at, lag, out_x,
             out_nuc, out_passes, out_resid, out_done):
     """Safeguarded Newton for state ``i`` from x (see _ChunkSolver.run, the same rules)."""
     prev = np.inf
@@ -519,7 +517,7 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
                                            xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole,
                                            q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
                                            lng_max, qs, term, pre, suf, cnt_t, jpos, filled,
-                                           pool_base, stride, scratch_a, scratch_d, wpos, lu_at,
+                                           pool_base, stride, scratch_a, scratch_d, coef, wpos, lu_at,
                                            d_at, x_at, lag, lag_budget)
         out_passes[i] += 1
         if kind == FIXED_ELECTRONS:     # n_e is given: one evaluation decides
@@ -803,6 +801,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
     nstage = q_flat.size
     scratch_a = np.empty(nstage)
     scratch_d = np.empty(nstage)
+    coef = np.empty((4, SERIES_ORDER + 1))    # a pass's coefficients of the weights' series
     # per chain its window's two ends and (T-only U) its largest stage, walked from the last
     wpos = np.empty(3 * ch_off.size, dtype=np.int64)
     # per stage, the last exact weighted U at this temperature, d ln U / dx and the x of it
@@ -870,7 +869,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
                         final_step, t, tl, ti, True, ctab, ratios, bare, lu_first, xl, xr, ch_off,
                         ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start,
                         lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t, jpos, filled,
-                        pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
+                        pool_base, stride, scratch_a, scratch_d, coef, wpos, lu_at, d_at, x_at, lag,
                         out_x, out_nuc, out_passes, out_resid, out_done)
                 if out_done[i]:
                     _push(ysd, xsd, y, out_x[i])
@@ -886,7 +885,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
                 q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
-                filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
+                filled, pool_base, stride, scratch_a, scratch_d, coef, wpos, lu_at, d_at, x_at, lag,
                 out_x, out_nuc, out_passes, out_resid, out_done)
         if out_done[i] and kind != FIXED_ELECTRONS:
             _push(ys, xs, y, out_x[i])
@@ -911,7 +910,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
                 q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
                 cnt_t, jpos,
-                filled, pool_base, stride, scratch_a, scratch_d, wpos, lu_at, d_at, x_at, lag,
+                filled, pool_base, stride, scratch_a, scratch_d, coef, wpos, lu_at, d_at, x_at, lag,
                 out_x, out_nuc, out_passes, out_resid, out_done)
         out_passes[i] += start_passes
         shift = out_x[i] - x_ideal if out_done[i] and np.isfinite(x_ideal) else np.nan
@@ -933,6 +932,7 @@ if numba is not None:  # pragma: no branch
     _fill = _sums(_fill)
     _fill_top = _sums(_fill_top)
     _series_limits = _inner(_series_limits)
+    _series_coefficients = _inner(_series_coefficients)
     _add_share = numba.njit(cache=True, nogil=True, inline="always")(_add_share)
     _third_order_step = _inner(_third_order_step)
     _extrapolated = _inner(_extrapolated)
