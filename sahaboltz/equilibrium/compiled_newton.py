@@ -21,8 +21,8 @@ w = 1 / (1 + B s + A s^2) with s = P q (P, A, B from the state, q from the level
 with the level energy).  For the low levels (s below a tenth of the radius of convergence of
 the series of w in s) the weights are summed as that series from running sums
 S_m = sum term q^m; for the high ones (s ten times beyond it) as the series in 1/s from sums
-from the top; only the levels in between one by one.  Each series stops when a term falls
-below 1e-17 of the sum; SERIES_ORDER terms bound it at about 1e-13.  Species whose highest
+from the top; only the levels in between one by one.  Each series takes SERIES_ORDER + 1
+terms (its coefficients formed once per pass), which bound it at about 1e-13.  Species whose highest
 level still has weight 1 to 1e-17 take the low-density limit directly.  Stages whose share
 of the mean charge stays below e^-39 of it are left out (see :func:`_moments`); a stage whose
 share times the error of a cheaper ln U stays below e^-38 takes that one: the low-density
@@ -517,8 +517,8 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
                                            xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole,
                                            q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
                                            lng_max, qs, term, pre, suf, cnt_t, jpos, filled,
-                                           pool_base, stride, scratch_a, scratch_d, coef, wpos, lu_at,
-                                           d_at, x_at, lag, lag_budget)
+                                           pool_base, stride, scratch_a, scratch_d, coef,
+                                           wpos, lu_at, d_at, x_at, lag, lag_budget)
         out_passes[i] += 1
         if kind == FIXED_ELECTRONS:     # n_e is given: one evaluation decides
             out_x[i] = x
