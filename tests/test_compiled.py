@@ -91,3 +91,43 @@ def test_borrowing_kernels_count_no_references():
     assert borrowing(a, b, 50) == counting(a, b, 50)
     assert "NRT_incref" in counting.inspect_llvm(counting.signatures[0])
     assert "NRT_incref" not in borrowing.inspect_llvm(borrowing.signatures[0])
+
+
+def test_vector_exp_matches_the_math_library():
+    # reference: the C library's exp through math.exp (correctly rounded to about 1 ulp)
+    import math
+
+    x = np.concatenate([np.linspace(-708.0, 709.0, 200_001), [-1e-300, 0.0, 1e-300]])
+    got = np.array([compiled.vector_exp(v) for v in x[::97]]) if not compiled.available() \
+        else _vector_exp_array(x)
+    ref = np.array([math.exp(v) for v in (x if compiled.available() else x[::97])])
+    ulp = np.abs(got - ref) / np.spacing(ref)
+    assert ulp.max() <= 2.0
+    assert compiled.vector_exp(-800.0) == 0.0
+
+
+def _vector_exp_array(x):
+    numba = pytest.importorskip("numba")
+
+    @numba.njit
+    def run(v):
+        out = np.empty_like(v)
+        for i in range(v.size):
+            out[i] = compiled.vector_exp(v[i])
+        return out
+
+    return run(x)
+
+
+def test_shared_temperatures_give_the_same_state_on_both_paths(monkeypatch):
+    # 300 states at two temperatures: the compiled solver sums the weights' series once per
+    # temperature (more states than _SHARED share it); the numpy path sums level by level
+    from sahaboltz.data.composition import solar
+    from sahaboltz.equilibrium import solve_equilibrium
+
+    t = np.repeat([6000.0, 15000.0], 150)
+    p = np.tile(np.geomspace(1e-2, 1e8, 150), 2)
+    fast = solve_equilibrium(solar(), t, gas_pressure=p)
+    monkeypatch.setattr(compiled, "available", lambda: False)
+    slow = solve_equilibrium(solar(), t, gas_pressure=p)
+    np.testing.assert_allclose(fast.n_e, slow.n_e, rtol=1e-10)

@@ -64,6 +64,9 @@ _DENSITY_MARGIN = 5.0
 _EXP_MARGIN = float(np.exp(-_DENSITY_MARGIN))
 # the error budget of a stage's ln U: e^-4 under what the cut leaves out, over its share
 _EXP_BUDGET = float(np.exp(-4.0))
+# a temperature of fewer states than this sums the weighted U level by level: the running
+# sums of the series (13 per level) cost more than the few evaluations they serve
+_SHARED = 100
 # Boltzmann pruning of the level sums, as in PartitionModel.evaluate_pairs
 _CUT = 50.0
 # a chain's moments carried from an earlier x may err by this fraction of the tolerance
@@ -92,10 +95,10 @@ def _weight(sv, a_, b_, aa, ab):
 
 
 def _fill(tl, row, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, cnt_t,
-          pool_base, stride):
-    """Boltzmann terms of species ``row`` at temperature ``tl`` and their running sums
-    S_m = sum_(i < j) term q^m, m = 0 .. SERIES_ORDER (see _fill_top for the sums from the
-    top, V_m = sum_(i >= j) term q^-(m+2))."""
+          pool_base, stride, sums):
+    """Boltzmann terms of species ``row`` at temperature ``tl`` and (with ``sums``) their
+    running sums S_m = sum_(i < j) term q^m, m = 0 .. SERIES_ORDER (see _fill_top for the
+    sums from the top, V_m = sum_(i >= j) term q^-(m+2))."""
     s = lv_start[row]
     c = lv_count[row]
     cut = (_CUT + lng_max[row]) / beta
@@ -110,12 +113,16 @@ def _fill(tl, row, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, cnt
     cnt = min(max(lo, 1), c)
     cnt_t[tl * stride + row] = cnt
     b = tl * pool_base + s + row
+    if not sums:
+        for j in range(cnt):
+            term[b + j] = compiled.vector_exp(lng[s + j] - beta * e[s + j])
+        return
     m1 = SERIES_ORDER + 1
     for m in range(m1):
         pre[b * m1 + m] = 0.0
     for j in range(cnt):
         lv = s + j
-        tv = np.exp(lng[lv] - beta * e[lv])
+        tv = compiled.vector_exp(lng[lv] - beta * e[lv])
         term[b + j] = tv
         q = qs[lv]
         o = (b + j) * m1
@@ -151,12 +158,14 @@ def _weighted_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, coef, lv_start, l
 
     A level's weight is w = 1 / (1 + B s + A s^2), s = P q.  For s <= s_lo it is summed as
     its series in s (running sums S_m), for s >= s_hi as its series in 1/s (sums V_m from the
-    top), and only the levels in between one by one.
+    top), and only the levels in between one by one; with s_lo < 0 every level one by one
+    (a temperature of few states, where the running sums would cost more than they save).
     """
     key = tl * stride + row
+    series = s_lo >= 0.0
     if filled[key] == 0:
         _fill(tl, row, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, cnt_t,
-              pool_base, stride)
+              pool_base, stride, series)
         filled[key] = 1
         jpos[2 * key] = 0
         jpos[2 * key + 1] = 0
@@ -166,6 +175,15 @@ def _weighted_u(tl, row, beta, p_, a_, b_, aa, ab, s_lo, s_hi, coef, lv_start, l
     m1 = SERIES_ORDER + 1
     # the levels with s <= s_lo: [0, j0); with s >= s_hi: [j1, cnt).  Walked from where the
     # previous state of this temperature left them (the states come in density order).
+    if not series:
+        u = 0.0
+        du = 0.0
+        for j in range(cnt):
+            inv, dlw = _weight(p_ * qs[s + j], a_, b_, aa, ab)
+            tv = term[b + j] * inv
+            u += tv
+            du += tv * dlw
+        return u, du / u
     q_lo = s_lo / p_
     q_hi = s_hi / p_
     j0 = jpos[2 * key]
@@ -249,7 +267,7 @@ def _series_limits(a_, b_):
     return 0.1 * r_small, 10.0 * r_big
 
 
-def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, ch_off, ch_n,
+def _moments(x, zref, t, tl, ti, density, direct, ctab, ratios, bare, lu_first, xl, xr, ch_off, ch_n,
              ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
              lng_max, qs, term, pre, suf, cnt_t, jpos, filled, pool_base, stride,
              scratch_a, scratch_d, coef, wpos, lu_at, d_at, x_at, lag, lag_budget):
@@ -281,8 +299,11 @@ def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, 
         ne = np.exp(x)
         p_, a_, b_ = _state_factors(t, ne)
         aa, ab = _state_slopes(t, ne)
-        s_lo, s_hi = _series_limits(a_, b_)
-        _series_coefficients(p_, a_, b_, aa, ab, coef)
+        if direct:
+            s_lo, s_hi = -1.0, np.inf     # (no series: every level one by one)
+        else:
+            s_lo, s_hi = _series_limits(a_, b_)
+            _series_coefficients(p_, a_, b_, aa, ab, coef)
     ln_zref = np.log(zref) if zref > 0.0 else -np.inf
     rat = abs(x) < _RATIO_X and ratios.shape[0] > 0
     e_down = np.exp(-x) if rat else 0.0
@@ -495,7 +516,8 @@ def _moments(x, zref, t, tl, ti, density, ctab, ratios, bare, lu_first, xl, xr, 
     return zbar, slope, zabs, k3, k4
 
 
-def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, density, ctab,
+def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, density, direct,
+            ctab,
             ratios,
             bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow,
             hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t,
@@ -512,7 +534,8 @@ def _newton(i, x, lo, hi, kind, nref, tol, max_passes, final_step, t, tl, ti, de
             zref = ne / nref
         elif kind == FIXED_PARTICLES and nref > ne:
             zref = ne / (nref - ne)
-        zbar, var, zabs, k3, k4 = _moments(x, zref, t, tl, ti, density, ctab, ratios, bare,
+        zbar, var, zabs, k3, k4 = _moments(x, zref, t, tl, ti, density, direct, ctab, ratios,
+                                           bare,
                                            lu_first,
                                            xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole,
                                            q_flat, mrow, hm_q, beta, lv_start, lv_count, e, lng,
@@ -781,7 +804,7 @@ def _extrapolated(y, ys, xs):
     return xg
 
 
-def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol, max_passes,
+def _solve_states(order, tpos, t_share, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol, max_passes,
                   final_step, density, ctab, ratios, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac,
                   ch_lnaz, ch_whole, q_flat, mrow, hm_q, lv_start, lv_count, e, lng, lng_max, qs,
                   term, pre, suf, cnt_t, jpos, filled, n_group, out_x, out_nuc,
@@ -795,6 +818,8 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
     ``pre``, ``suf``) hold ``n_group`` consecutive temperatures at a time.  ``x_warm``: a
     start near each state's solution where the caller knows one (NaN elsewhere): the Newton
     (with ``density`` the weighted one) starts there, as from a row's extrapolation.
+    ``t_share``: the number of states of each temperature (those of fewer than _SHARED sum
+    their weighted U level by level).
     """
     stride = lv_start.size
     pool_base = e.size + stride
@@ -828,6 +853,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
         t = t_u[ti]
         beta = 1.0 / (_K_B_EV * t)
         tl = 0
+        direct = t_share[ti] < _SHARED
         if density:
             g = (ti - t_first) // n_group
             if g != group:
@@ -866,7 +892,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
                     x_at[:] = np.inf
                     last_ti = ti
                 _newton(i, min(xg, hi - 1e-9), lo, hi, kind, nref[i], tol, max_passes,
-                        final_step, t, tl, ti, True, ctab, ratios, bare, lu_first, xl, xr, ch_off,
+                        final_step, t, tl, ti, True, direct, ctab, ratios, bare, lu_first, xl, xr, ch_off,
                         ch_n, ch_frac, ch_lnaz, ch_whole, q_flat, mrow, hm_q, beta, lv_start,
                         lv_count, e, lng, lng_max, qs, term, pre, suf, cnt_t, jpos, filled,
                         pool_base, stride, scratch_a, scratch_d, coef, wpos, lu_at, d_at, x_at, lag,
@@ -881,6 +907,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
         first_tol = start_tol if density else tol
         first_step = 0.0 if density else final_step
         _newton(i, x, lo, hi, kind, nref[i], first_tol, max_passes, first_step, t, tl, ti, False,
+                False,
                 ctab, ratios, ctab, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole,
                 q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
@@ -905,7 +932,7 @@ def _solve_states(order, tpos, t_u, kind, nref, x0, x_warm, x_hi, tol, start_tol
         out_passes[i] = 0
         out_done[i] = False
         out_nuc[i] = np.nan
-        _newton(i, x, lo, hi, kind, nref[i], tol, max_passes, final_step, t, tl, ti, True,
+        _newton(i, x, lo, hi, kind, nref[i], tol, max_passes, final_step, t, tl, ti, True, direct,
                 ctab, ratios, bare, lu_first, xl, xr, ch_off, ch_n, ch_frac, ch_lnaz, ch_whole,
                 q_flat,
                 mrow, hm_q, beta, lv_start, lv_count, e, lng, lng_max, qs, term, pre, suf,
@@ -1010,7 +1037,7 @@ class CompiledSolver:
         out_passes = np.zeros(n, dtype=np.int64)
         out_done = np.zeros(n, dtype=np.bool_)
         f64 = np.ascontiguousarray
-        _solve_states_jit(order, tpos, self.t_u, int(kind), f64(nref, dtype=float),
+        _solve_states_jit(order, tpos, np.bincount(tpos, minlength=self.t_u.size), self.t_u, int(kind), f64(nref, dtype=float),
                           f64(x0, dtype=float),
                           np.full(n, np.nan) if x_warm is None else f64(x_warm, dtype=float),
                           f64(x_hi, dtype=float), float(tol),

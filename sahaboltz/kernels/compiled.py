@@ -14,6 +14,7 @@ path runs, with the same results to rounding.
 
 from __future__ import annotations
 
+import math
 import os
 
 import numpy as np
@@ -25,12 +26,55 @@ try:  # pragma: no cover - depends on the installation
 except ImportError:  # pragma: no cover
     numba = None
 
-__all__ = ["available", "large_chain_fractions", "occupation_pair_sums", "series_radii"]
+__all__ = ["available", "large_chain_fractions", "occupation_pair_sums", "series_radii",
+           "vector_exp"]
 
 
 def available() -> bool:
     """Whether the compiled kernels are in use."""
     return numba is not None and not os.environ.get("SAHABOLTZ_NO_NUMBA")
+
+
+# exp(x) = 2^k e^r, k = round(x / ln 2), r = x - k ln 2 in two parts (Cody and Waite: k C1 is
+# exact for |k| < 2^11), e^r by its Taylor polynomial to r^13 (|r| <= ln2 / 2: the rest is
+# below 4e-18 of it)
+_LOG2E = 1.4426950408889634
+_LN2_HI = 0.693145751953125
+_LN2_LO = 1.42860682030941723212e-6
+_EXP_TAYLOR = tuple(1.0 / math.factorial(k) for k in range(14))
+
+
+def _two_to(k):
+    """2.0 ** k for an integer k in [-1022, 1023]."""
+    return 2.0 ** k
+
+
+def vector_exp(x):
+    """exp(x) for x <= 709 as arithmetic alone, which the compiler vectorizes (the C library's
+    exp is a call per element): within one unit in the last place of it (tests/test_compiled.py),
+    and 0 below x = -708 (where that gives subnormal numbers under 3.3e-308).  In the
+    kernels' level loops, where the Boltzmann factors are formed; a caller compiled with
+    fastmath "contract" gets fused multiply-adds, which the vectorized loop needs."""
+    xc = min(max(x, -708.0), 709.0)
+    k = np.floor(xc * _LOG2E + 0.5)
+    r = (xc - k * _LN2_HI) - k * _LN2_LO
+    c = _EXP_TAYLOR
+    p = c[13]
+    p = p * r + c[12]
+    p = p * r + c[11]
+    p = p * r + c[10]
+    p = p * r + c[9]
+    p = p * r + c[8]
+    p = p * r + c[7]
+    p = p * r + c[6]
+    p = p * r + c[5]
+    p = p * r + c[4]
+    p = p * r + c[3]
+    p = p * r + c[2]
+    p = p * r + 1.0
+    p = p * r + 1.0
+    v = p * _two_to(int(k))
+    return v if x >= -708.0 else 0.0
 
 
 def series_radii(a_, b_):
@@ -44,13 +88,14 @@ def series_radii(a_, b_):
     return 2.0 / (b_ + root), (b_ + root) / (2.0 * a_)
 
 
-def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows):
+def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows, min_share):
     """The Boltzmann factors exp(ln g - beta E - shift[row]) of the levels of each
-    (temperature ``tidx[k]``, species ``rows[k]``) that occurs among the pairs k, once each:
-    (offset of each pair's levels in the table, table, ...).  The slots are indexed by the
-    species that occur (few per call), not all ``n_rows``: with many distinct temperatures
-    a dense (temperature x species) index would cost more than the table.  Also each pair's
-    slot number and the number of slots."""
+    (temperature ``tidx[k]``, species ``rows[k]``) that at least ``min_share`` of the pairs k
+    share, once each: (offset of each pair's levels in the table, -1 for the pairs of the
+    other slots, which form their factors themselves; table; each pair's slot number, -1
+    likewise; the number of slots in the table).  The slots are indexed by the species that
+    occur (few per call), not all ``n_rows``: with many distinct temperatures a dense
+    (temperature x species) index would cost more than the table."""
     npair = tidx.size
     local = np.full(n_rows, -1, dtype=np.int64)
     n_local = 0
@@ -58,14 +103,19 @@ def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows):
         if local[rows[k]] < 0:
             local[rows[k]] = n_local
             n_local += 1
+    uses = np.zeros(beta_u.size * n_local, dtype=np.int64)
+    for k in range(npair):
+        uses[tidx[k] * n_local + local[rows[k]]] += 1
     slot = np.full(beta_u.size * n_local, -1, dtype=np.int64)
-    offset = np.empty(npair, dtype=np.int64)
-    which = np.empty(npair, dtype=np.int64)
+    offset = np.full(npair, -1, dtype=np.int64)
+    which = np.full(npair, -1, dtype=np.int64)
     slot_id = np.full(beta_u.size * n_local, -1, dtype=np.int64)
     total = 0
     n_slots = 0
     for k in range(npair):
         key = tidx[k] * n_local + local[rows[k]]
+        if uses[key] < min_share:
+            continue
         if slot[key] < 0:
             slot[key] = total
             slot_id[key] = n_slots
@@ -77,14 +127,14 @@ def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows):
     filled = np.zeros(beta_u.size * n_local, dtype=np.bool_)
     for k in range(npair):
         key = tidx[k] * n_local + local[rows[k]]
-        if not filled[key]:
+        if offset[k] >= 0 and not filled[key]:
             filled[key] = True
             bk = beta_u[tidx[k]]
             o = offset[k]
             top = shift[rows[k]]
             for j in range(count[k]):
                 lv = start[k] + j
-                table[o + j] = np.exp(lng[lv] - bk * e[lv] - top)
+                table[o + j] = vector_exp(lng[lv] - bk * e[lv] - top)
     return offset, table, which, n_slots
 
 
@@ -102,7 +152,7 @@ def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, co
     """
     npair = tidx.size
     offset, table, _, _ = _boltzmann_table(tidx, rows, beta_u, start, count, e, lng,
-                                           np.zeros(n_rows), n_rows)
+                                           np.zeros(n_rows), n_rows, 1)
     for k in range(npair):
         bk = beta_u[tidx[k]]
         pk, ak, bbk, aak, abk, nk = p_[k], a_[k], b_[k], aa[k], ab[k], nn4[k]
@@ -205,7 +255,25 @@ def borrowing_jit(**options):
 
 
 if numba is not None:  # pragma: no branch
-    _boltzmann_table = numba.njit(cache=True, nogil=True)(_boltzmann_table)
+    from llvmlite import ir as _ir
+    from numba.core import types as _types
+    from numba.extending import intrinsic as _intrinsic
+
+    @_intrinsic
+    def _float_from_bits(typingctx, bits):
+        """The float64 whose bits are the int64 ``bits`` (a bit cast)."""
+        def codegen(context, builder, signature, args):
+            return builder.bitcast(args[0], _ir.DoubleType())
+        return _types.float64(_types.int64), codegen
+
+    def _two_to_jit(k):
+        # the exponent field of a double: 2^k without a call
+        return _float_from_bits(np.int64(k + 1023) << 52)
+
+    _two_to = numba.njit(inline="always")(_two_to_jit)
+    vector_exp = numba.njit(inline="always")(vector_exp)
+    _boltzmann_table = numba.njit(cache=True, nogil=True, fastmath={"contract"})(
+        _boltzmann_table)
     series_radii = numba.njit(cache=True, nogil=True, error_model="numpy")(series_radii)
     _large_fractions_jit = numba.njit(cache=True, nogil=True, error_model="numpy")(
         _large_fractions)
