@@ -88,14 +88,13 @@ def series_radii(a_, b_):
     return 2.0 / (b_ + root), (b_ + root) / (2.0 * a_)
 
 
-def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows, min_share):
+def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows):
     """The Boltzmann factors exp(ln g - beta E - shift[row]) of the levels of each
-    (temperature ``tidx[k]``, species ``rows[k]``) that at least ``min_share`` of the pairs k
-    share, once each: (offset of each pair's levels in the table, -1 for the pairs of the
-    other slots, which form their factors themselves; table; each pair's slot number, -1
-    likewise; the number of slots in the table).  The slots are indexed by the species that
-    occur (few per call), not all ``n_rows``: with many distinct temperatures a dense
-    (temperature x species) index would cost more than the table."""
+    (temperature ``tidx[k]``, species ``rows[k]``) that occurs among the pairs k, once each:
+    (offset of each pair's levels in the table, table, ...).  The slots are indexed by the
+    species that occur (few per call), not all ``n_rows``: with many distinct temperatures
+    a dense (temperature x species) index would cost more than the table.  Also each pair's
+    slot number and the number of slots."""
     npair = tidx.size
     local = np.full(n_rows, -1, dtype=np.int64)
     n_local = 0
@@ -103,19 +102,14 @@ def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows, mi
         if local[rows[k]] < 0:
             local[rows[k]] = n_local
             n_local += 1
-    uses = np.zeros(beta_u.size * n_local, dtype=np.int64)
-    for k in range(npair):
-        uses[tidx[k] * n_local + local[rows[k]]] += 1
     slot = np.full(beta_u.size * n_local, -1, dtype=np.int64)
-    offset = np.full(npair, -1, dtype=np.int64)
-    which = np.full(npair, -1, dtype=np.int64)
+    offset = np.empty(npair, dtype=np.int64)
+    which = np.empty(npair, dtype=np.int64)
     slot_id = np.full(beta_u.size * n_local, -1, dtype=np.int64)
     total = 0
     n_slots = 0
     for k in range(npair):
         key = tidx[k] * n_local + local[rows[k]]
-        if uses[key] < min_share:
-            continue
         if slot[key] < 0:
             slot[key] = total
             slot_id[key] = n_slots
@@ -127,7 +121,7 @@ def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows, mi
     filled = np.zeros(beta_u.size * n_local, dtype=np.bool_)
     for k in range(npair):
         key = tidx[k] * n_local + local[rows[k]]
-        if offset[k] >= 0 and not filled[key]:
+        if not filled[key]:
             filled[key] = True
             bk = beta_u[tidx[k]]
             o = offset[k]
@@ -152,7 +146,7 @@ def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, co
     """
     npair = tidx.size
     offset, table, _, _ = _boltzmann_table(tidx, rows, beta_u, start, count, e, lng,
-                                           np.zeros(n_rows), n_rows, 1)
+                                           np.zeros(n_rows), n_rows)
     for k in range(npair):
         bk = beta_u[tidx[k]]
         pk, ak, bbk, aak, abk, nk = p_[k], a_[k], b_[k], aa[k], ab[k], nn4[k]

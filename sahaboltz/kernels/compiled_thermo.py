@@ -241,7 +241,7 @@ def _sums(tidx, rows, sidx, beta_u, p_, a_, b_, a1, b1, a2, b2, nn4, start, coun
     pair k's at ``sidx[k]``."""
     npair = tidx.size
     offset, table, slot, n_slots = _compiled._boltzmann_table(tidx, rows, beta_u, start,
-                                                              count, e, lng, lng_max, n_rows, 1)
+                                                              count, e, lng, lng_max, n_rows)
     j0, at_k, pre = _series_split(tidx, sidx, p_, a_, b_, nn4, start, count, e, q, beta_u,
                                   offset, table, slot, n_slots)
     for k in range(npair):
