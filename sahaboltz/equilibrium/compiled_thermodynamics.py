@@ -75,13 +75,14 @@ def screening_increments(s0, sq, sqq, sq3, sq4, sd, sqd, sq2d, sa_big, sq2a, sa,
             sq4 + sq2d - sqq * sf * inv, sqq)
 
 
-def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u_n, u_tt, u_tn,
-                na, lq, mass_term, lam_ch, screened, acc):
+def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, vals, idx, na, lq,
+                mass_term, lam_ch, screened, acc):
     """Add one element's :func:`eliminated_increments` to ``acc`` (N_ACC, m) at every state.
 
     ``rows``/``inside`` (W, m): the window's stages and which of them count; ``bare`` the
-    element's T-only C_q at the distinct temperatures ``tinv`` indexes; ``lu`` ... ``u_tn``
-    (W, m) ln U and its derivatives; ``na`` = N alpha; ``lq`` the electron's
+    element's T-only C_q at the distinct temperatures ``tinv`` indexes; ``vals`` (5, K) ln U
+    and its derivatives (ln U, U_T, U_n, U_TT, U_Tn), window position (j, i)'s at
+    ``idx[j, i]`` (-1: all 0, U = 1); ``na`` = N alpha; ``lq`` the electron's
     ln (2 pi m_e k T / h^2)^{3/2}, ``mass_term`` = 1.5 ln(m / m_e) of the element; with
     ``screened`` also the :func:`screening_increments` (``lu`` then holds the lowering's
     kappa q (q + 1) too)."""
@@ -93,7 +94,10 @@ def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u
         top = -np.inf
         for j in range(w):
             if inside[j, i]:
-                v = bare[rows[j, i], ti] + lu[j, i] - charges[rows[j, i]] * xi
+                k = idx[j, i]
+                v = bare[rows[j, i], ti] - charges[rows[j, i]] * xi
+                if k >= 0:
+                    v += vals[0, k]
                 lr[j] = v
                 if v > top:
                     top = v
@@ -119,9 +123,13 @@ def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u
             n = lr[j] * scale
             q = charges[rows[j, i]]
             eb = energies[rows[j, i]] * bi
-            a = 1.5 + u_t[j, i] + eb
-            b = u_tt[j, i] - eb
-            d = u_n[j, i]
+            k = idx[j, i]
+            u_t = u_n = u_tt = u_tn = 0.0
+            if k >= 0:
+                u_t, u_n, u_tt, u_tn = vals[1, k], vals[2, k], vals[3, k], vals[4, k]
+            a = 1.5 + u_t + eb
+            b = u_tt - eb
+            d = u_n
             big_a = a + 1.5 * d
             nq = n * q
             na_ = n * a
@@ -136,7 +144,7 @@ def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u
             saa_big += na_ * big_a
             saq += na_ * (q - d)
             sb += n * b
-            sc += n * u_tn[j, i]
+            sc += n * u_tn
             if screened:
                 nq2 = nq * q
                 sq3 += nq2 * q
@@ -147,7 +155,8 @@ def _chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, lu, u_t, u
                 sad += na_ * d
         eb_r = energies[rows[r, i]] * bi
         ln_n_r = np.log(best * scale)
-        lam = ln_n_r - (lq[i] + mass_term + lu[r, i] - eb_r) - charges[rows[r, i]] * lam_ch[i]
+        lu_r = vals[0, idx[r, i]] if idx[r, i] >= 0 else 0.0
+        lam = ln_n_r - (lq[i] + mass_term + lu_r - eb_r) - charges[rows[r, i]] * lam_ch[i]
         inc = _increments(s0, sq, sqq, sd, sqd, sa_big, sqa_big, sa, saa_big, saq, sb, sc,
                           na[i], lam)
         for k in range(N_PLAIN):
@@ -211,14 +220,16 @@ if _compiled.numba is not None:  # pragma: no branch
     _inside_jit = _compiled.numba.njit(cache=True, nogil=True, error_model="numpy")(_inside)
 
 
-def eliminated_chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, terms, na, lq,
-                          mass_term, lam_ch, acc, screened=False) -> None:
-    """Compiled :func:`_chain_sums` (``terms`` = (ln U, U_T, U_n, U_TT, U_Tn), each (W, m))."""
+def eliminated_chain_sums(rows, inside, bare, tinv, x, charges, energies, beta, vals, idx, na,
+                          lq, mass_term, lam_ch, acc, screened=False) -> None:
+    """Compiled :func:`_chain_sums` (``vals`` (5, K): ln U, U_T, U_n, U_TT, U_Tn; ``idx``
+    (W, m) each window position's column of them, -1 for U = 1)."""
     f64 = np.ascontiguousarray
     _chain_sums_jit(f64(rows, dtype=np.int64), f64(inside, dtype=np.bool_), f64(bare, dtype=float),
                     f64(tinv, dtype=np.int64), f64(x, dtype=float), f64(charges, dtype=float),
                     f64(energies, dtype=float), f64(beta, dtype=float),
-                    *(f64(v, dtype=float) for v in terms), f64(na, dtype=float),
+                    f64(vals, dtype=float).reshape(5, -1), f64(idx, dtype=np.int64),
+                    f64(na, dtype=float),
                     f64(lq, dtype=float), float(mass_term), f64(lam_ch, dtype=float),
                     bool(screened), acc)
 

@@ -285,13 +285,18 @@ def _distinct_keys(key: np.ndarray, size: int) -> tuple[np.ndarray, np.ndarray]:
     return distinct, position[key]
 
 
-def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut, factors, debye=None):
-    """(ln U, U_T, U_n, U_TT, U_Tn) of a chain's stages ``rows`` (W, m) where ``inside``;
-    the density derivatives only with density-dependent weights (``factors``: the weights'
-    state factors, ``PartitionModel.log_derivative_state_factors``); for a scheme cut at the
-    lowered limit, the cut of the Debye length ``debye`` of each state."""
+def _log_u_values(net, chain, rows, inside, t, ne, tinv, ut, factors, debye=None):
+    """ln U and its derivatives (ln U, U_T, U_n, U_TT, U_Tn) of a chain's stages ``rows``
+    (W, m) where ``inside``, as values ``vals`` (5, K) and each window position's index into
+    them ``idx`` (W, m), -1 where U = 1 (a stage without levels: all five 0).  With T-only U
+    the values are those of the (stage, temperature) that occur, shared by the states, so
+    that no (5, W, m) arrays need filling; the density derivatives only with
+    density-dependent weights (``factors``: the weights' state factors,
+    ``PartitionModel.log_derivative_state_factors``); for a scheme cut at the lowered limit,
+    the cut of the Debye length ``debye`` of each state."""
     w, m = rows.shape
-    out = [np.zeros((w, m)) for _ in range(5)]
+    idx = np.full((w, m), -1, dtype=np.intp)
+    vals = np.zeros((5, 0))
     mrow = chain.model_rows[rows]
     has = (mrow >= 0) & inside
     if chain.model is not None and has.any():
@@ -304,24 +309,39 @@ def _log_u_terms(net, chain, rows, inside, t, ne, tinv, ut, factors, debye=None)
             key, inv = _distinct_keys(mr * ut.size + tinv[j], chain.n * ut.size)
             vals = model.pair_log_derivatives(ut[key % ut.size], None,
                                               chain.model_offset + key // ut.size)
-            vals = [v[inv] for v in vals]
-        elif "lowering_ev" in net.scheme.inputs:
-            flat = chain.model_offset + mr
-            low = net.bounded_lowering(_lowering_ev(chain.charges[rows.ravel()[at]], debye[j]),
-                                       model.ionization_energy_ev[flat])
-            vals = model.pair_log_derivatives(t[j], None, flat, lowering_ev=low)
+            idx.reshape(-1)[at] = inv
         else:
-            vals = model.pair_log_derivatives(t, ne, chain.model_offset + mr,
-                                              states=j, state_factors=factors,
-                                              temperature_index=tinv)
-        for a, v in zip(out, vals):
-            a.reshape(-1)[at] = v
+            if "lowering_ev" in net.scheme.inputs:
+                flat = chain.model_offset + mr
+                low = net.bounded_lowering(_lowering_ev(chain.charges[rows.ravel()[at]],
+                                                        debye[j]),
+                                           model.ionization_energy_ev[flat])
+                vals = model.pair_log_derivatives(t[j], None, flat, lowering_ev=low)
+            else:
+                vals = model.pair_log_derivatives(t, ne, chain.model_offset + mr,
+                                                  states=j, state_factors=factors,
+                                                  temperature_index=tinv)
+            idx.reshape(-1)[at] = np.arange(at.size)
+        vals = np.asarray(vals)        # (the rows of one array: no copy)
     if chain.charges[0] < 0 and not net.ideal:
         wts = net.scheme.bound_state_weight_derivatives(float(chain.chi_ev[0]), t, ne)
         if wts is not None:
+            # a value per state, after the others
             neg = (rows == 0) & inside
-            for a, v in zip(out, wts):
-                a[neg] = np.broadcast_to(v, (w, m))[neg]
+            k0 = vals.shape[1]
+            vals = np.concatenate([vals, np.stack([np.broadcast_to(v, (m,)) for v in wts])],
+                                  axis=1)
+            idx[neg] = k0 + np.nonzero(neg)[1]
+    return vals, idx
+
+
+def _log_u_terms(vals, idx) -> list:
+    """The five (W, m) arrays of the values of :func:`_log_u_values` (0 where U = 1)."""
+    out = []
+    for v in vals:
+        a = np.take(v, idx, mode="clip") if v.size else np.zeros(idx.shape)
+        a[idx < 0] = 0.0
+        out.append(a)
     return out
 
 
@@ -497,18 +517,22 @@ def _chunk(state, sel) -> dict:
         forced = [] if p is None else sorted({i0} | comp_rows.get(p, set()))
         rows, inside = _significant_rows(tab, tinv, x, c.charges, kq, kap_or_0, u_hi, u_lo,
                                          thr, forced)
-        terms = _log_u_terms(net, c, rows, inside, t, ne, tinv, ut, factors, debye)
+        vals, idx = _log_u_values(net, c, rows, inside, t, ne, tinv, ut, factors, debye)
+        terms = None
+        if screened or p is not None or not fast:
+            terms = _log_u_terms(vals, idx)
         if screened:
             # the lowering's share of ln n (from the first stage): kappa q (q + 1), carried
             # with ln U so that lambda_k comes out as the element potential of the screened gas
             qr = c.charges[rows]
             terms[0] = terms[0] + qr * (qr + 1.0) * kap[None, :]
+            vals, idx = np.stack(terms).reshape(5, -1), np.arange(rows.size).reshape(rows.shape)
         mass_term = 1.5 * np.log(weights[c.k] * AMU / M_E)
         if p is None:
             frac_elim += c.fraction
         if p is None and fast:
             _compiled_sums.eliminated_chain_sums(rows, inside, bare, tinv, x, c.charges,
-                                                 _stage_energies(c), beta, terms,
+                                                 _stage_energies(c), beta, vals, idx,
                                                  nuc * c.fraction, lq, mass_term, lam_ch, acc,
                                                  screened)
             continue

@@ -26,8 +26,8 @@ try:  # pragma: no cover - depends on the installation
 except ImportError:  # pragma: no cover
     numba = None
 
-__all__ = ["available", "large_chain_fractions", "occupation_pair_sums", "series_radii",
-           "vector_exp"]
+__all__ = ["available", "large_chain_fractions", "occupation_pair_sums", "pair_levels",
+           "series_radii", "vector_exp"]
 
 
 def available() -> bool:
@@ -130,6 +130,41 @@ def _boltzmann_table(tidx, rows, beta_u, start, count, e, lng, shift, n_rows):
                 lv = start[k] + j
                 table[o + j] = vector_exp(lng[lv] - bk * e[lv] - top)
     return offset, table, which, n_slots
+
+
+def _pair_levels(tidx, rows, beta_u, starts, counts, e, lng_max, cut_ln, start, count):
+    """Into ``start[k]``, ``count[k]`` the first level of pair k's species and the number of
+    its levels with E < (cut_ln + ln g_max) kT at the pair's temperature (a prefix:
+    energies ascend; at least one), searched once per (temperature, species) that occurs
+    (:meth:`sahaboltz.kernels.partition.PartitionModel._pair_levels` is the numpy
+    version)."""
+    npair = tidx.size
+    local = np.full(lng_max.size, -1, dtype=np.int64)
+    n_local = 0
+    for k in range(npair):
+        if local[rows[k]] < 0:
+            local[rows[k]] = n_local
+            n_local += 1
+    known = np.full(beta_u.size * n_local, -1, dtype=np.int64)
+    for k in range(npair):
+        r = rows[k]
+        key = tidx[k] * n_local + local[r]
+        c = known[key]
+        s = starts[r]
+        if c < 0:
+            n = counts[r]
+            cut = (cut_ln + lng_max[r]) / beta_u[tidx[k]]
+            lo, hi = 0, n
+            while lo < hi:
+                mid = (lo + hi) // 2
+                if e[s + mid] < cut:
+                    lo = mid + 1
+                else:
+                    hi = mid
+            c = min(max(lo, 1), n)
+            known[key] = c
+        start[k] = s
+        count[k] = c
 
 
 def _occupation_pair_sums(tidx, rows, beta_u, p_, a_, b_, aa, ab, nn4, start, count, e, lng,
@@ -268,6 +303,7 @@ if numba is not None:  # pragma: no branch
     vector_exp = numba.njit(inline="always")(vector_exp)
     _boltzmann_table = numba.njit(cache=True, nogil=True, fastmath={"contract"})(
         _boltzmann_table)
+    _pair_levels_jit = numba.njit(cache=True, nogil=True)(_pair_levels)
     series_radii = numba.njit(cache=True, nogil=True, error_model="numpy")(series_radii)
     _large_fractions_jit = numba.njit(cache=True, nogil=True, error_model="numpy")(
         _large_fractions)
@@ -276,6 +312,20 @@ if numba is not None:  # pragma: no branch
     _occupation_pair_sums_jit = numba.njit(
         cache=True, nogil=True, error_model="numpy",
         fastmath={"reassoc", "contract", "arcp", "nsz"})(_occupation_pair_sums)
+
+
+def pair_levels(tidx, rows, beta_u, starts, counts, e, lng_max, cut_ln):
+    """(start, count) of each pair's levels below the Boltzmann cut (see
+    :func:`_pair_levels`), compiled."""
+    n = rows.size
+    start = np.empty(n, dtype=np.int64)
+    count = np.empty(n, dtype=np.int64)
+    i64 = np.ascontiguousarray
+    _pair_levels_jit(i64(tidx, dtype=np.int64), i64(rows, dtype=np.int64),
+                     i64(beta_u, dtype=float), i64(starts, dtype=np.int64),
+                     i64(counts, dtype=np.int64), e, i64(lng_max, dtype=float), float(cut_ln),
+                     start, count)
+    return start, count
 
 
 def occupation_pair_sums(tidx, rows, beta_u, stark, slopes, nn, start, count, e, lng, q, r3,

@@ -299,8 +299,9 @@ if _compiled.numba is not None:  # pragma: no branch
 
 def occupation_log_derivative_sums(tidx, rows, beta_u, stark, curv, nn, start, count, e, lng,
                                    lng_max, q, r3, n_rows, states=None):
-    """(ln U, U_T, U_n, U_TT, U_Tn) per pair; ``tidx`` indexes each pair's temperature among
-    the distinct ones (1/kT in ``beta_u``), ``rows`` its species among ``n_rows``;
+    """(ln U, U_T, U_n, U_TT, U_Tn) per pair, the rows of one (5, pairs) array; ``tidx``
+    indexes each pair's temperature among the distinct ones (1/kT in ``beta_u``), ``rows``
+    its species among ``n_rows``;
     ``stark`` = (P, A, B) and ``curv`` = (a A', a B', a^2 A'', a^2 B'') per pair, or per state
     with ``states`` (pair k belongs to state ``states[k]``; no gathers to the pairs)
     (:mod:`sahaboltz.kernels.occupation`), ``nn`` the neutral-perturber density likewise or
@@ -316,7 +317,7 @@ def occupation_log_derivative_sums(tidx, rows, beta_u, stark, curv, nn, start, c
     _sums_jit(*i64, *f64, nn4, np.ascontiguousarray(start, dtype=np.int64),
               np.ascontiguousarray(count, dtype=np.int64), e, lng,
               np.ascontiguousarray(lng_max, dtype=float), q, r3, int(n_rows), out)
-    return tuple(out)
+    return out
 
 
 def plain_log_derivative_sums(tidx, rows, beta_u, start, count, e, lng, lng_max, q, r3, n_rows):

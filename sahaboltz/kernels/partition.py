@@ -335,6 +335,11 @@ class PartitionModel:
         (temperature, species) and gathered."""
         if not hasattr(self, "_pair_keys"):
             self._pair_keys = self._sp * _PAIR_KEY_STRIDE + self._e
+        from sahaboltz.kernels import compiled as _compiled
+        if temps is not None and rows.size and _compiled.available():
+            beta_u, tidx = temps      # (each (temperature, species) searched once)
+            return _compiled.pair_levels(tidx, rows, beta_u, self._starts, self._counts,
+                                         self._e, self._lng_max, _CUT)
         start = self._starts[rows]
         if temps is not None and rows.size:
             beta_u, tidx = temps
@@ -437,7 +442,7 @@ class PartitionModel:
             d2 ln U/d ln T^2 = Var(e) + <-E/kT + d2 ln w/d ln T^2>,
             d2 ln U/d ln T d ln n_e = Cov(e, d) + <d2 ln w/d ln T d ln n_e>.
 
-        Returns (ln U, U_T, U_n, U_TT, U_Tn), each of shape ``rows.shape``; the density
+        Returns (ln U, U_T, U_n, U_TT, U_Tn) as the rows of one (5, npair) array; the density
         derivatives are 0 for schemes whose weights do not depend on n_e.  ``state_factors``:
         those of :meth:`log_derivative_state_factors` for these (temperature, n_e), when a
         caller evaluates several sets of pairs of the same states.  Schemes cut at a lowered
@@ -454,7 +459,7 @@ class PartitionModel:
         t = np.asarray(temperature, dtype=float)
         rows = np.asarray(rows, dtype=np.intp)
         npair = rows.size
-        out = tuple(np.zeros(npair) for _ in range(5))
+        out = np.zeros((5, npair))
         if not npair:
             return out
         pst = {"T": t, "ne": (np.full(t.shape, 1e-30) if n_e is None
