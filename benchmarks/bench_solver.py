@@ -23,7 +23,8 @@ the speedup is given best against best and as the median of the alternating pair
 Prints: times, speedups, the solver's average passes, the largest n_e difference against the
 reference, the charge-neutrality and element-conservation residuals of the solved grid.
 
-    python benchmarks/bench_solver.py [--nt 200] [--np 200] [--subset 400]
+    python benchmarks/bench_solver.py [--nt 200] [--np 200] [--subset 400] [--repeat 3]
+                                      [--numpy-path] [--bands 4] [--only-ratio]
 """
 
 from __future__ import annotations
@@ -151,6 +152,23 @@ def looping_reference(network: AtomicNetwork):
     return solve
 
 
+def _time_bands(comp, tt, pp, plain_net, default_net, bands, repeat) -> None:
+    """The default and plain solves of each of ``bands`` consecutive temperature bands of the
+    grid (rows of ``tt``), best of ``repeat`` alternating runs: where the default costs."""
+    edges = np.linspace(0, tt.shape[0], bands + 1).astype(int)
+    print(f"by temperature band (best of {repeat}):")
+    for a, b in zip(edges[:-1], edges[1:]):
+        best = {}
+        for _ in range(repeat):
+            for name, net in (("plain", plain_net), ("default", default_net)):
+                t0 = time.perf_counter()
+                solve_equilibrium(comp, tt[a:b], gas_pressure=pp[a:b], network=net,
+                                  truncation=net.truncation)
+                best[name] = min(best.get(name, np.inf), time.perf_counter() - t0)
+        print(f"  T = {tt[a, 0]:9.0f} - {tt[b - 1, 0]:9.0f} K: default {best['default']:.3f} s, "
+              f"plain {best['plain']:.3f} s, ratio {best['default'] / best['plain']:.2f}")
+
+
 def main(argv=None) -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--nt", type=int, default=200)
@@ -160,6 +178,11 @@ def main(argv=None) -> None:
     ap.add_argument("--repeat", type=int, default=3, help="repeats of the plain/default pair")
     ap.add_argument("--numpy-path", action="store_true",
                     help="also time both physics on the numpy engine (no compiled kernels)")
+    ap.add_argument("--bands", type=int, default=0,
+                    help="also time both physics on this many temperature bands of the grid "
+                         "(where the default physics costs)")
+    ap.add_argument("--only-ratio", action="store_true",
+                    help="stop after the default/plain timings (no reference solves)")
     args = ap.parse_args(argv)
 
     temps = np.geomspace(1e3, args.tmax, args.nt)
@@ -221,6 +244,11 @@ def main(argv=None) -> None:
               f"{min(times['default, numpy path']) / min(times['plain, numpy path']):.2f}")
     print(f"  (the check of an explicit plain sum against the weighted one, not in the plain "
           f"time above: {t_check:.2f} s)")
+    if args.bands:
+        _time_bands(comp, tt, pp, network, default_net, args.bands, args.repeat)
+    if args.only_ratio:
+        _solver.warn_plain = warn_plain
+        return
 
     t0, c0 = time.perf_counter(), time.process_time()
     state = solve_equilibrium(comp, tt, gas_pressure=pp, network=network, truncation="plain")
